@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["InvalidParameterError", "InsufficientDataError"]
+__all__ = ["InsufficientDataError", "InvalidParameterError"]
 
 
 class InvalidParameterError(ValueError):
@@ -67,7 +67,9 @@ def check_positive_int(name: str, value: Any, function: str, *, minimum: int = 1
     return int(value)
 
 
-def check_positive_float(name: str, value: Any, function: str, *, allow_zero: bool = False) -> float:
+def check_positive_float(
+    name: str, value: Any, function: str, *, allow_zero: bool = False
+) -> float:
     """Return ``value`` as float if it is finite and > 0 (or >= 0), else raise."""
     try:
         out = float(value)
@@ -110,7 +112,9 @@ def as_float_array(
         if arr.ndim not in dims:
             raise InvalidParameterError(name, function, f"an array with ndim in {dims}", arr)
     if arr.ndim == 0 or arr.shape[0] < min_length:
-        raise InsufficientDataError(name, function, f"an array with at least {min_length} rows", arr)
+        raise InsufficientDataError(
+            name, function, f"an array with at least {min_length} rows", arr
+        )
     bad = np.isinf(arr) if allow_nan else ~np.isfinite(arr)
     if bad.any():
         what = "finite or NaN values" if allow_nan else "finite values (no NaN or Inf)"
