@@ -1,0 +1,273 @@
+"""The ``gaitscape`` command line.
+
+Each subcommand is one small ``register_*`` function that adds its parser and sets
+``func``; ``COMMANDS`` lists them, so a new subcommand is one function and one line.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+__all__ = ["COMMANDS", "build_parser", "ensure_admin_token", "main"]
+
+ADMIN_TOKEN_FILE = "admin-token"
+SCOPES = ("read", "upload", "analyse", "admin")
+
+
+def _settings(args: argparse.Namespace, **extra: Any) -> Any:
+    from service.settings import get_settings
+
+    overrides = {"data_dir": Path(args.data)} if getattr(args, "data", None) else {}
+    return get_settings(**overrides, **extra)
+
+
+def _is_empty_dir(path: Path) -> bool:
+    return not path.exists() or (path.is_dir() and not any(path.iterdir()))
+
+
+def ensure_admin_token(settings: Any, *, first_start: bool) -> str | None:
+    """On a first start (empty data dir), create an admin token and write DATA/admin-token.
+
+    Returns the secret when one was made. The file is created with mode 0600 from the start
+    (``os.open`` with the mode), so the secret is never readable by others, even briefly.
+    """
+    if not first_start:
+        return None
+    from service.app import open_resources
+    from storage import repo
+
+    resources = open_resources(settings)
+    try:
+        with resources.sessionmaker() as session:
+            _, secret = repo.create_token(session=session, scopes=["admin"], label="first start")
+    finally:
+        resources.engine.dispose()
+    path = settings.data_dir / ADMIN_TOKEN_FILE
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+    with os.fdopen(fd, "w") as fh:
+        fh.write(secret + "\n")
+    return secret
+
+
+# -- serve ----------------------------------------------------------------------------------
+def _serve(args: argparse.Namespace) -> int:
+    import uvicorn
+
+    from service.app import create_app
+
+    overrides: dict[str, Any] = {}
+    if args.host is not None:
+        overrides["host"] = args.host
+    if args.port is not None:
+        overrides["port"] = args.port
+    settings = _settings(args, **overrides)
+    first_start = _is_empty_dir(settings.data_dir)
+    app = create_app(settings)
+    secret = ensure_admin_token(settings, first_start=first_start)
+    if secret is not None:
+        print(
+            f"Created an admin token (shown once; also in {settings.data_dir / ADMIN_TOKEN_FILE}):"
+        )
+        print(secret, flush=True)
+    uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level)
+    return 0
+
+
+def register_serve(sub: Any) -> None:
+    p = sub.add_parser("serve", help="run the HTTP API")
+    p.add_argument("--data", help="data directory (env GAITSCAPE_DATA_DIR)")
+    p.add_argument("--host", help="interface to listen on (default 127.0.0.1)")
+    p.add_argument("--port", type=int, help="TCP port (default 8000)")
+    p.set_defaults(func=_serve)
+
+
+# -- token ----------------------------------------------------------------------------------
+def _with_session(args: argparse.Namespace, work: Callable[[Any], int]) -> int:
+    from service.app import open_resources
+
+    resources = open_resources(_settings(args))
+    try:
+        with resources.sessionmaker() as session:
+            return work(session)
+    finally:
+        resources.engine.dispose()
+
+
+def _parse_scopes(values: list[str]) -> list[str]:
+    scopes = [s for value in values for s in value.replace(",", " ").split()]
+    unknown = sorted(set(scopes) - set(SCOPES))
+    if unknown or not scopes:
+        raise SystemExit(f"gaitscape token: scopes must be among {', '.join(SCOPES)}; got {values}")
+    return list(dict.fromkeys(scopes))
+
+
+def _token_create(args: argparse.Namespace) -> int:
+    from storage import repo
+
+    scopes = _parse_scopes(args.scope)
+
+    def work(session: Any) -> int:
+        _, secret = repo.create_token(session=session, scopes=scopes, label=args.label)
+        print(secret)
+        return 0
+
+    return _with_session(args, work)
+
+
+def _token_list(args: argparse.Namespace) -> int:
+    from storage import repo
+
+    def work(session: Any) -> int:
+        rows = [("id", "label", "scopes", "created", "revoked")]
+        tokens, _ = repo.list_tokens(session=session, include_revoked=True, limit=1000)
+        for t in tokens:
+            revoked = t.revoked_at.isoformat(timespec="seconds") if t.revoked_at else ""
+            created = t.created_at.isoformat(timespec="seconds") if t.created_at else ""
+            rows.append((str(t.id), t.label, t.scopes, created, revoked))
+        print(format_table(rows))
+        return 0
+
+    return _with_session(args, work)
+
+
+def _token_revoke(args: argparse.Namespace) -> int:
+    from storage import repo
+    from storage.errors import NotFound
+
+    def work(session: Any) -> int:
+        try:
+            repo.revoke_token(session=session, token_id=args.token_id)
+        except NotFound as exc:
+            print(f"gaitscape token revoke: {exc}", file=sys.stderr)
+            return 1
+        print(f"revoked token {args.token_id}")
+        return 0
+
+    return _with_session(args, work)
+
+
+def register_token(sub: Any) -> None:
+    p = sub.add_parser("token", help="create, list or revoke API tokens")
+    tsub = p.add_subparsers(dest="token_command", required=True)
+    create = tsub.add_parser("create", help="create a token and print it (only it, one line)")
+    create.add_argument("--data", required=True, help="data directory")
+    create.add_argument(
+        "--scope",
+        action="append",
+        required=True,
+        help=f"scope to grant ({', '.join(SCOPES)}); repeat or comma-separate for several",
+    )
+    create.add_argument("--label", default="", help="a note saying who or what uses it")
+    create.set_defaults(func=_token_create)
+    lst = tsub.add_parser("list", help="list tokens (never their secrets)")
+    lst.add_argument("--data", required=True, help="data directory")
+    lst.set_defaults(func=_token_list)
+    rev = tsub.add_parser("revoke", help="revoke a token by id")
+    rev.add_argument("token_id", type=int)
+    rev.add_argument("--data", required=True, help="data directory")
+    rev.set_defaults(func=_token_revoke)
+
+
+# -- upload ---------------------------------------------------------------------------------
+def _upload(args: argparse.Namespace) -> int:
+    from service.uploader import run_upload
+
+    if not args.token:
+        print("gaitscape upload: give --token or set GAITSCAPE_TOKEN", file=sys.stderr)
+        return 2
+    return run_upload(
+        [Path(p) for p in args.paths],
+        server=args.server,
+        token=args.token,
+        arena=args.arena,
+        subject=args.subject,
+        retries=args.retries,
+        progress=not args.no_progress,
+    )
+
+
+def register_upload(sub: Any) -> None:
+    p = sub.add_parser(
+        "upload",
+        help="push scan and trial files to a server (skips what it has)",
+        description="Walks the given files and folders; see service/uploader.py for how the "
+        "kind of each file and its metadata are decided.",
+    )
+    p.add_argument("paths", nargs="+", metavar="PATH", help="files or folders")
+    p.add_argument("--server", required=True, help="server URL, e.g. http://lab-server:8000")
+    p.add_argument(
+        "--token",
+        default=os.environ.get("GAITSCAPE_TOKEN"),
+        help="API token with the upload scope (default: env GAITSCAPE_TOKEN)",
+    )
+    p.add_argument("--arena", type=int, help="arena id for files whose metadata names none")
+    p.add_argument("--subject", type=int, help="subject id for trials whose metadata names none")
+    p.add_argument(
+        "--retries",
+        type=int,
+        default=4,
+        help="retries per file on connection errors and 5xx (default 4, exponential backoff)",
+    )
+    p.add_argument("--no-progress", action="store_true", help="no progress bars")
+    p.set_defaults(func=_upload)
+
+
+# -- demo (placeholder) -----------------------------------------------------------------------
+def _demo(args: argparse.Namespace) -> int:
+    print(
+        "gaitscape demo: the demo scenario is not part of this build yet; it lands with its own "
+        "issue. Nothing was computed."
+    )
+    return 0
+
+
+def register_demo(sub: Any) -> None:
+    p = sub.add_parser("demo", help="build and score the demo scenario (placeholder)")
+    p.add_argument("--out", help="output directory")
+    p.set_defaults(func=_demo)
+
+
+COMMANDS: list[Callable[[Any], None]] = [
+    register_serve,
+    register_token,
+    register_upload,
+    register_demo,
+]
+
+
+def format_table(rows: Sequence[Sequence[str]]) -> str:
+    """Plain aligned columns; the first row is the header."""
+    widths = [max(len(str(r[i])) for r in rows) for i in range(len(rows[0]))]
+    lines = [
+        "  ".join(str(c).ljust(w) for c, w in zip(r, widths, strict=True)).rstrip() for r in rows
+    ]
+    return "\n".join(lines)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="gaitscape",
+        description="Score terrain and movement complexity and their correspondence.",
+    )
+    from service import __version__
+
+    parser.add_argument("--version", action="version", version=f"gaitscape {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    for register in COMMANDS:
+        register(sub)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Console entry point ``gaitscape``."""
+    args = build_parser().parse_args(argv)
+    return int(args.func(args) or 0)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

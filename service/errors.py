@@ -1,0 +1,81 @@
+"""One place that turns storage and measures errors into JSON ``{"detail": ...}`` responses."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.responses import JSONResponse
+
+from measures._validation import InvalidParameterError
+from storage import errors as storage_errors
+
+__all__ = ["error_body", "error_status", "install_error_handlers"]
+
+log = logging.getLogger("gaitscape.service")
+
+# Most specific first: the first class an error is an instance of decides its status.
+# TooLarge and the reader / format errors are BadInput subclasses, so they precede it.
+_STATUS_BY_NAME: tuple[tuple[str, int], ...] = (
+    ("NotFound", 404),
+    ("Conflict", 409),
+    ("TooLarge", 413),
+    ("UnsupportedFormat", 415),
+    ("ReaderError", 422),
+    ("BadInput", 400),
+    ("StoreFull", 507),
+    ("ArtifactCorrupt", 500),
+)
+
+
+def _storage_classes() -> list[tuple[type[BaseException], int]]:
+    pairs = []
+    for name, status in _STATUS_BY_NAME:
+        cls = getattr(storage_errors, name, None)
+        if cls is None and name == "TooLarge":
+            from storage import artifacts
+
+            cls = getattr(artifacts, name, None)
+        if cls is None and name == "ReaderError":
+            from storage import readers
+
+            cls = getattr(readers, name, None)
+        if isinstance(cls, type):
+            pairs.append((cls, status))
+    return pairs
+
+
+def error_status(exc: BaseException) -> int:
+    """HTTP status for a storage or measures error (500 for anything unexpected)."""
+    for cls, status in _storage_classes():
+        if isinstance(exc, cls):
+            return status
+    if isinstance(exc, InvalidParameterError):
+        return 422
+    if isinstance(exc, OSError) and exc.errno == 28:  # ENOSPC escaping storage
+        return 507
+    return 500
+
+
+def error_body(exc: BaseException) -> dict[str, Any]:
+    """``{"detail": message}``, plus ``file`` and ``where`` when a reader named them."""
+    body: dict[str, Any] = {"detail": str(exc) or exc.__class__.__name__}
+    for key in ("file", "where"):
+        value = getattr(exc, key, None)
+        if value is not None:
+            body[key] = str(value)
+    return body
+
+
+async def _handle(request: Request, exc: Exception) -> JSONResponse:
+    status = error_status(exc)
+    if status == 500 and not isinstance(exc, storage_errors.StorageError):
+        raise exc
+    return JSONResponse(status_code=status, content=error_body(exc))
+
+
+def install_error_handlers(app: FastAPI) -> None:
+    """Register the one handler for every storage and measures error class."""
+    app.add_exception_handler(storage_errors.StorageError, _handle)
+    app.add_exception_handler(InvalidParameterError, _handle)

@@ -1,0 +1,103 @@
+"""The one upload flow shared by scans and trials: stream, validate meta, ingest, enqueue."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable
+from typing import Any
+
+from fastapi import HTTPException, Request, Response, status
+from pydantic import BaseModel, ValidationError
+from starlette.concurrency import run_in_threadpool
+
+from service.routes._multipart import receive_upload
+from service.schemas import UploadPublic
+from storage import repo
+
+__all__ = ["SCORE_JOB_KIND", "check_format", "handle_upload", "parse_meta"]
+
+SCORE_JOB_KIND = "score"
+
+
+def parse_meta(raw: str | None, model: type[BaseModel]) -> Any:
+    """Parse the ``meta`` form field into ``model``; HTTP 400 naming the bad field otherwise."""
+    if raw is None or not raw.strip():
+        raw = "{}"
+    try:
+        value = json.loads(raw)
+    except json.JSONDecodeError as exc:
+        raise HTTPException(
+            status_code=status.HTTP_400_BAD_REQUEST,
+            detail=f"meta is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}",
+        ) from exc
+    if not isinstance(value, dict):
+        raise HTTPException(status.HTTP_400_BAD_REQUEST, detail="meta must be a JSON object")
+    try:
+        return model.model_validate(value)
+    except ValidationError as exc:
+        problems = "; ".join(
+            f"{'.'.join(str(p) for p in err['loc']) or 'meta'}: {err['msg']}"
+            for err in exc.errors()
+        )
+        raise HTTPException(status.HTTP_400_BAD_REQUEST, detail=f"bad meta: {problems}") from exc
+
+
+def check_format(filename: str, *, kind: str) -> str:
+    """The reader format for ``filename``; HTTP 415 when no reader knows its extension."""
+    from storage.errors import ReaderError
+    from storage.readers import detect_format
+
+    try:
+        return detect_format(filename, kind=kind)
+    except ReaderError as exc:
+        raise HTTPException(status.HTTP_415_UNSUPPORTED_MEDIA_TYPE, detail=str(exc)) from exc
+
+
+def _job_for(session: Any, *, target_kind: str, target_id: int, created: bool) -> int | None:
+    if created:
+        job = repo.enqueue_job(
+            session=session, kind=SCORE_JOB_KIND, target_kind=target_kind, target_id=target_id
+        )
+        return int(job.id)
+    job = repo.latest_job(session=session, target_kind=target_kind, target_id=target_id)
+    return None if job is None else int(job.id)
+
+
+async def handle_upload(
+    request: Request,
+    response: Response,
+    *,
+    target_kind: str,
+    meta_model: type[BaseModel],
+    ingest: Callable[..., tuple[Any, bool]],
+) -> UploadPublic:
+    """Stage the file, check ``meta``, run ``ingest`` off the event loop, enqueue a job.
+
+    ``ingest(session=, store=, staged=, filename=, meta=)`` is a ``storage.repo`` function; it
+    reads and validates the file and commits the artifact and the row together. 201 for a new
+    record, 200 for a duplicate (the existing record; its staged copy is dropped).
+    """
+    state = request.app.state
+    store = state.store
+    received = await receive_upload(request, store=store, max_bytes=state.settings.max_upload_bytes)
+
+    def work() -> UploadPublic:
+        meta = parse_meta(received.fields.get("meta"), meta_model)
+        check_format(received.filename, kind=target_kind)
+        with state.sessionmaker() as session:
+            row, created = ingest(
+                session=session,
+                store=store,
+                staged=received.staged,
+                filename=received.filename,
+                meta=meta.model_dump(mode="json", exclude_none=True),
+            )
+            job_id = _job_for(session, target_kind=target_kind, target_id=row.id, created=created)
+            return UploadPublic(id=row.id, sha256=row.sha256, job_id=job_id, created=created)
+
+    try:
+        result = await run_in_threadpool(work)
+    finally:
+        store.discard(received.staged)  # idempotent; a committed upload was linked into place
+    response.status_code = status.HTTP_201_CREATED if result.created else status.HTTP_200_OK
+    return result

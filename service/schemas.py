@@ -1,0 +1,360 @@
+"""Pydantic schemas, one family per resource: ``XCreate`` in, ``XPublic`` out, ``XsPublic`` lists.
+
+They are separate from the ORM models in ``storage.models`` so storage works without FastAPI.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any, Generic, Literal, TypeVar
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+
+__all__ = [
+    "ArenaCreate",
+    "ArenaPublic",
+    "ArenasPublic",
+    "Health",
+    "JobPublic",
+    "MarkerRoles",
+    "MarkerSetCreate",
+    "MarkerSetPublic",
+    "MarkerSetsPublic",
+    "Page",
+    "ScanPublic",
+    "ScanUploadMeta",
+    "ScansPublic",
+    "SubjectCreate",
+    "SubjectPublic",
+    "SubjectsPublic",
+    "TokenCreate",
+    "TokenCreated",
+    "TokenPublic",
+    "TokensPublic",
+    "TrialPublic",
+    "TrialUploadMeta",
+    "TrialsPublic",
+    "UploadCheck",
+    "UploadPublic",
+]
+
+T = TypeVar("T")
+
+# Mirrors storage.models.ARENA_KINDS (service must not need the ORM to validate a request).
+ARENA_KINDS = ("open_field", "runway", "treadmill", "other")
+
+Scope = Literal["read", "upload", "analyse", "admin"]
+Units = Literal["m", "cm", "mm", "um", "\u00b5m", "\u03bcm"]
+
+
+class _In(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+class _Out(BaseModel):
+    model_config = ConfigDict(from_attributes=True)
+
+
+class Page(_Out, Generic[T]):
+    """One page of a list: ``data`` rows and the ``count`` of all rows matching the filters."""
+
+    data: list[T]
+    count: int
+
+
+class Health(BaseModel):
+    status: Literal["ok"] = "ok"
+    version: str
+
+
+# -- arenas ---------------------------------------------------------------------------------
+class ArenaCreate(_In):
+    """A physical environment animals move in."""
+
+    name: str = Field(min_length=1, max_length=200)
+    kind: str = Field(
+        default="other",
+        description="open_field, runway, treadmill or other ('open field' is accepted too).",
+        examples=["runway"],
+    )
+    scale_band_m: tuple[float, float] | None = Field(
+        default=None,
+        description="Animal-scale wavelength band [lo, hi] in metres that terrain measures are "
+        "restricted to; null for the whole scan.",
+        examples=[[0.005, 0.2]],
+    )
+    notes: str = ""
+
+    @field_validator("kind")
+    @classmethod
+    def _known_kind(cls, kind: str) -> str:
+        normal = kind.strip().lower().replace(" ", "_").replace("-", "_")
+        if normal not in ARENA_KINDS:
+            raise ValueError(f"kind must be one of {ARENA_KINDS}, got {kind!r}")
+        return normal
+
+    @field_validator("scale_band_m")
+    @classmethod
+    def _band_order(cls, band: tuple[float, float] | None) -> tuple[float, float] | None:
+        if band is not None and not 0 < band[0] < band[1]:
+            raise ValueError("scale_band_m must be [lo, hi] with 0 < lo < hi (metres)")
+        return band
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [
+                {
+                    "name": "gravel tray 3",
+                    "kind": "runway",
+                    "scale_band_m": [0.005, 0.2],
+                    "notes": "",
+                }
+            ]
+        },
+    )
+
+
+class ArenaPublic(_Out):
+    id: int
+    name: str
+    kind: str
+    scale_band_m: tuple[float, float] | None = None
+    notes: str = ""
+    created_at: datetime | None = None
+
+
+ArenasPublic = Page[ArenaPublic]
+
+
+# -- marker sets and subjects -----------------------------------------------------------------
+class MarkerRoles(_In):
+    """Which marker plays which role; names are the marker names in the trial files."""
+
+    model_config = ConfigDict(extra="allow")  # further roles (left, right, tail, ...) welcome
+
+    anterior: str
+    posterior: str
+    feet: dict[str, str] = Field(
+        description="Foot markers keyed LF, RF, LH, RH (more legs allowed: L1, R1, ...).",
+        examples=[{"LF": "lf_toe", "RF": "rf_toe", "LH": "lh_toe", "RH": "rh_toe"}],
+    )
+
+    @field_validator("feet")
+    @classmethod
+    def _at_least_two_feet(cls, feet: dict[str, str]) -> dict[str, str]:
+        if len(feet) < 2:
+            raise ValueError("feet must name at least two foot markers (LF, RF, LH, RH)")
+        return feet
+
+
+class MarkerSetCreate(_In):
+    name: str = Field(min_length=1, max_length=200)
+    roles: MarkerRoles
+
+
+class MarkerSetPublic(_Out):
+    id: int
+    name: str
+    roles: dict[str, Any] = {}
+    marker_names: list[str] = []
+    created_at: datetime | None = None
+
+
+MarkerSetsPublic = Page[MarkerSetPublic]
+
+
+class SubjectCreate(_In):
+    """An animal or robot; ``marker_roles`` map roles to marker names."""
+
+    label: str = Field(min_length=1, max_length=200)
+    species: str = ""
+    marker_roles: MarkerRoles
+    mass_kg: float | None = Field(default=None, gt=0)
+    body_length_m: float | None = Field(default=None, gt=0)
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [
+                {
+                    "label": "M07",
+                    "species": "Mus musculus",
+                    "marker_roles": {
+                        "anterior": "snout",
+                        "posterior": "tail_base",
+                        "feet": {"LF": "lf", "RF": "rf", "LH": "lh", "RH": "rh"},
+                    },
+                }
+            ]
+        },
+    )
+
+
+class SubjectPublic(_Out):
+    id: int
+    label: str
+    species: str = ""
+    marker_set_id: int | None = None
+    marker_roles: dict[str, Any] | None = None
+    mass_kg: float | None = None
+    body_length_m: float | None = None
+    created_at: datetime | None = None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _roles_from_marker_set(cls, value: Any) -> Any:
+        # The ORM keeps roles on the subject's marker set; the API shows them on the subject.
+        if isinstance(value, dict) or not hasattr(value, "marker_set"):
+            return value
+        marker_set = value.marker_set
+        fields = {name: getattr(value, name, None) for name in cls.model_fields}
+        fields["marker_roles"] = None if marker_set is None else marker_set.roles
+        return fields
+
+
+SubjectsPublic = Page[SubjectPublic]
+
+
+# -- uploads ------------------------------------------------------------------------------------
+class ScanUploadMeta(_In):
+    """The ``meta`` JSON of a scan upload."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    units: Units | None = Field(default=None, description="Length unit of the coordinates.")
+    dx: float | None = Field(
+        default=None, gt=0, description="Heightmap cell size along x, in units."
+    )
+    dy: float | None = Field(
+        default=None, gt=0, description="Heightmap cell size along y, in units."
+    )
+    captured_at: datetime | None = None
+
+
+class TrialUploadMeta(_In):
+    """The ``meta`` JSON of a trial upload."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    arena_id: int
+    subject_id: int
+    frame_rate_hz: float | None = Field(
+        default=None, gt=0, description="Capture rate, needed where the file has none."
+    )
+    units: Units | None = Field(default=None, description="Length unit of marker coordinates.")
+    condition: str | None = None
+    treadmill_speed_m_s: float | None = Field(default=None, ge=0)
+    recorded_at: datetime | None = None
+    marker_names: list[str] | None = Field(
+        default=None, description="Marker names for formats that carry none (NPY)."
+    )
+
+
+class UploadPublic(_Out):
+    """What an upload answers: the record (new or the existing duplicate) and its job."""
+
+    id: int
+    sha256: str
+    job_id: int | None = None
+    created: bool
+
+
+class UploadCheck(BaseModel):
+    """Whether the server already holds a file with this sha256, and as what."""
+
+    sha256: str
+    present: bool
+    records: list[dict[str, Any]] = []
+
+
+class ScanPublic(_Out):
+    id: int
+    arena_id: int
+    sha256: str
+    filename: str = ""
+    format: str
+    kind: str = Field(description="points or heightmap")
+    units: str
+    size_bytes: int
+    n_points: int | None = None
+    grid_nx: int | None = None
+    grid_ny: int | None = None
+    grid_dx_m: float | None = None
+    grid_dy_m: float | None = None
+    captured_at: datetime | None = None
+    created_at: datetime | None = None
+
+
+ScansPublic = Page[ScanPublic]
+
+
+class TrialPublic(_Out):
+    id: int
+    arena_id: int
+    subject_id: int
+    sha256: str
+    filename: str = ""
+    format: str
+    units: str
+    size_bytes: int
+    frame_rate_hz: float
+    n_frames: int
+    n_markers: int
+    marker_names: list[str] = []
+    condition: str = ""
+    treadmill_speed_m_s: float | None = None
+    recorded_at: datetime | None = None
+    created_at: datetime | None = None
+
+
+TrialsPublic = Page[TrialPublic]
+
+
+# -- jobs -------------------------------------------------------------------------------------
+class JobPublic(_Out):
+    id: int
+    kind: str | None = None
+    target_kind: str | None = None
+    target_id: int | None = None
+    state: Literal["queued", "running", "done", "failed"]
+    progress: float = 0.0
+    message: str = ""
+    error: str | None = None
+    attempts: int = 0
+    created_at: datetime | None = None
+    finished_at: datetime | None = None
+
+
+# -- tokens -----------------------------------------------------------------------------------
+class TokenCreate(_In):
+    scopes: list[Scope] = Field(min_length=1, examples=[["read", "upload"]])
+    label: str = ""
+
+
+class TokenPublic(_Out):
+    id: int
+    label: str = ""
+    scopes: list[str]
+    prefix: str = Field(
+        default="", description="First characters of the secret, to tell tokens apart."
+    )
+    created_at: datetime | None = None
+    revoked_at: datetime | None = None
+    last_used_at: datetime | None = None
+
+    @field_validator("scopes", mode="before")
+    @classmethod
+    def _split(cls, value: Any) -> Any:
+        if isinstance(value, str):
+            return value.replace(",", " ").split()
+        return value
+
+
+class TokenCreated(TokenPublic):
+    """Returned once, at creation: ``token`` is the secret and is never shown again."""
+
+    token: str
+
+
+TokensPublic = Page[TokenPublic]

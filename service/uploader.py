@@ -1,0 +1,443 @@
+"""Upload client for acquisition PCs: push scan and trial files to a gaitscape server.
+
+What is uploaded, and as what
+-----------------------------
+Folders are walked recursively (sorted, hidden entries skipped). Each file's kind follows
+from its extension, refined by its metadata:
+
+=========================  ==========================================================
+extension                  kind
+=========================  ==========================================================
+.ply .pcd .xyz .pts        scan (point cloud)
+.tif .tiff                 scan (heightmap; needs dx, dy)
+.c3d .tsv                  trial
+.csv                       trial, unless the metadata says ``kind: scan`` or gives ``dx``
+                           (a CSV heightmap grid)
+.npy                       scan if the metadata gives ``dx`` or ``kind: scan``; trial if it
+                           gives ``frame_rate_hz``, ``marker_names`` or ``kind: trial``;
+                           otherwise the file fails with a message asking for a sidecar
+.json                      metadata only, never uploaded
+anything else              ignored
+=========================  ==========================================================
+
+Metadata for a file is merged from, weakest first: the command line (``--arena``,
+``--subject``), every ``gaitscape.json`` from the walked root down to the file's folder
+(inner folders win), and the file's own sidecar ``<file>.json`` (e.g. ``run3.c3d.json``).
+Keys: ``kind``, ``arena``, ``subject`` (ids), ``units``, ``frame_rate_hz``, ``dx``, ``dy``,
+``condition``, ``treadmill_speed_m_s``, ``recorded_at``, ``captured_at``, ``marker_names``.
+
+Resume and retries
+------------------
+Each file is hashed (sha256) and the server asked ``HEAD /v1/uploads/{sha256}`` first; a file
+it holds is ``skipped``. Uploads are retried on connection errors and 5xx answers (but not 507,
+disk full) with exponential backoff, a bounded number of times. The run prints a summary table
+(file, kind, status new/duplicate/skipped/failed, id) and returns 1 if any file failed.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import sys
+import time
+from collections.abc import Callable, Iterable, Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, BinaryIO, TextIO
+
+import httpx
+
+__all__ = [
+    "FOLDER_META",
+    "PlannedFile",
+    "UploadResult",
+    "classify",
+    "file_sha256",
+    "plan_uploads",
+    "run_upload",
+    "upload_files",
+]
+
+FOLDER_META = "gaitscape.json"
+SCAN_EXTS = {".ply", ".pcd", ".xyz", ".pts", ".tif", ".tiff"}
+TRIAL_EXTS = {".c3d", ".tsv"}
+AMBIGUOUS_EXTS = {".csv", ".npy"}
+SCAN_META_KEYS = ("units", "dx", "dy", "captured_at")
+TRIAL_META_KEYS = (
+    "frame_rate_hz",
+    "units",
+    "condition",
+    "treadmill_speed_m_s",
+    "recorded_at",
+    "marker_names",
+)
+CHUNK = 1 << 20
+NO_RETRY_STATUSES = {507}  # disk full: trying again will not help
+
+
+@dataclass
+class PlannedFile:
+    path: Path
+    kind: str | None  # "scan", "trial" or None when it cannot be decided
+    meta: dict[str, Any]
+    problem: str = ""
+
+
+@dataclass
+class UploadResult:
+    path: Path
+    kind: str
+    status: str  # new, duplicate, skipped, failed
+    id: int | None = None
+    sha256: str = ""
+    message: str = ""
+    attempts: int = 0
+    extra: dict[str, Any] = field(default_factory=dict)
+
+
+# -- planning ---------------------------------------------------------------------------------
+def _read_json(path: Path) -> dict[str, Any]:
+    try:
+        value = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, json.JSONDecodeError) as exc:
+        raise ValueError(f"{path}: unreadable metadata JSON ({exc})") from exc
+    if not isinstance(value, dict):
+        raise ValueError(f"{path}: metadata must be a JSON object")
+    return value
+
+
+def classify(path: Path, meta: dict[str, Any]) -> tuple[str | None, str]:
+    """``(kind, problem)`` for a file from its extension and metadata (see module docs)."""
+    ext = path.suffix.lower()
+    declared = meta.get("kind")
+    if declared is not None and declared not in ("scan", "trial"):
+        return None, f"metadata kind must be 'scan' or 'trial', got {declared!r}"
+    if ext in SCAN_EXTS or ext in TRIAL_EXTS:
+        natural = "scan" if ext in SCAN_EXTS else "trial"
+        if declared is not None and declared != natural:
+            return None, f"{ext} files are {natural}s, but the metadata says kind {declared!r}"
+        return natural, ""
+    if declared is not None:
+        return declared, ""
+    if ext == ".csv":
+        return ("scan" if "dx" in meta else "trial"), ""
+    if "dx" in meta:
+        return "scan", ""
+    if "frame_rate_hz" in meta or "marker_names" in meta:
+        return "trial", ""
+    return None, (
+        "an .npy file needs a sidecar <file>.json giving dx (heightmap) or frame_rate_hz and "
+        "marker_names (trial), or kind"
+    )
+
+
+def _walk(root: Path) -> Iterator[Path]:
+    if root.is_file():
+        yield root
+        return
+    for child in sorted(root.iterdir()):
+        if child.name.startswith("."):
+            continue
+        if child.is_dir():
+            yield from _walk(child)
+        elif child.is_file():
+            yield child
+
+
+def _folder_meta(root: Path, folder: Path, cache: dict[Path, dict[str, Any]]) -> dict[str, Any]:
+    chain = [folder, *folder.parents]
+    top = root if root.is_dir() else root.parent
+    merged: dict[str, Any] = {}
+    for directory in reversed(chain):
+        if directory != top and top not in directory.parents:
+            continue
+        if directory not in cache:
+            meta_file = directory / FOLDER_META
+            cache[directory] = _read_json(meta_file) if meta_file.is_file() else {}
+        merged.update(cache[directory])
+    return merged
+
+
+def plan_uploads(
+    paths: Iterable[Path], *, defaults: dict[str, Any] | None = None
+) -> list[PlannedFile]:
+    """Every uploadable file under ``paths`` with its kind and merged metadata."""
+    cache: dict[Path, dict[str, Any]] = {}
+    planned: list[PlannedFile] = []
+    seen: set[Path] = set()
+    base = {k: v for k, v in (defaults or {}).items() if v is not None}
+    for root in paths:
+        root = Path(root)
+        if not root.exists():
+            planned.append(PlannedFile(root, None, {}, "no such file or folder"))
+            continue
+        for path in _walk(root):
+            ext = path.suffix.lower()
+            if path.resolve() in seen or ext == ".json":
+                continue
+            if ext not in SCAN_EXTS | TRIAL_EXTS | AMBIGUOUS_EXTS:
+                continue
+            seen.add(path.resolve())
+            try:
+                meta = {**base, **_folder_meta(root, path.parent, cache)}
+                sidecar = path.with_name(path.name + ".json")
+                if sidecar.is_file():
+                    meta.update(_read_json(sidecar))
+            except ValueError as exc:
+                planned.append(PlannedFile(path, None, {}, str(exc)))
+                continue
+            kind, problem = classify(path, meta)
+            planned.append(PlannedFile(path, kind, meta, problem))
+    return planned
+
+
+def _server_meta(kind: str, meta: dict[str, Any]) -> tuple[dict[str, Any], str]:
+    """The ``meta`` JSON the server expects, or a problem when a required id is missing."""
+    keys = SCAN_META_KEYS if kind == "scan" else TRIAL_META_KEYS
+    out = {k: meta[k] for k in keys if meta.get(k) is not None}
+    arena = meta.get("arena", meta.get("arena_id"))
+    if arena is None:
+        return out, "no arena id: give --arena or 'arena' in gaitscape.json or a sidecar"
+    if kind == "trial":
+        subject = meta.get("subject", meta.get("subject_id"))
+        if subject is None:
+            return out, "no subject id: give --subject or 'subject' in the metadata"
+        out.update(arena_id=arena, subject_id=subject)
+    else:
+        out["arena"] = arena  # goes in the URL, removed before sending
+    return out, ""
+
+
+def file_sha256(path: Path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(CHUNK), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+# -- sending ----------------------------------------------------------------------------------
+class _ProgressReader:
+    """File wrapper that reports bytes read (httpx streams multipart files by ``read``)."""
+
+    def __init__(self, fh: BinaryIO, update: Callable[[int], Any]) -> None:
+        self._fh = fh
+        self._update = update
+
+    def read(self, size: int = -1) -> bytes:
+        data = self._fh.read(size)
+        self._update(len(data))
+        return data
+
+    def seek(self, offset: int, whence: int = 0) -> int:
+        return self._fh.seek(offset, whence)
+
+    def tell(self) -> int:
+        return self._fh.tell()
+
+    def fileno(self) -> int:
+        return self._fh.fileno()
+
+
+def _detail(response: httpx.Response) -> str:
+    try:
+        body = response.json()
+    except ValueError:
+        return response.text[:300]
+    return str(body.get("detail", body)) if isinstance(body, dict) else str(body)
+
+
+class _Sender:
+    def __init__(
+        self,
+        client: httpx.Client,
+        *,
+        retries: int,
+        backoff_s: float,
+        sleep: Callable[[float], None],
+        progress: bool,
+    ) -> None:
+        self.client = client
+        self.retries = retries
+        self.backoff_s = backoff_s
+        self.sleep = sleep
+        self.progress = progress
+
+    def _retrying(self, send: Callable[[], httpx.Response]) -> tuple[httpx.Response, int]:
+        attempt = 0
+        while True:
+            attempt += 1
+            try:
+                response = send()
+            except httpx.TransportError:
+                if attempt > self.retries:
+                    raise
+            else:
+                retry = (
+                    response.status_code >= 500 and response.status_code not in NO_RETRY_STATUSES
+                )
+                if not retry or attempt > self.retries:
+                    return response, attempt
+            # Exponential backoff, capped so a long outage does not stall a run for minutes.
+            self.sleep(min(self.backoff_s * 2 ** (attempt - 1), 30.0))
+
+    def has(self, sha256: str) -> tuple[bool, int]:
+        response, attempts = self._retrying(lambda: self.client.head(f"/v1/uploads/{sha256}"))
+        if response.status_code in (200, 404):
+            return response.status_code == 200, attempts
+        response.raise_for_status()
+        raise httpx.HTTPStatusError(
+            f"unexpected {response.status_code}", request=response.request, response=response
+        )
+
+    def record_id(self, sha256: str) -> int | None:
+        response = self.client.get(f"/v1/uploads/{sha256}")
+        if response.status_code != 200:
+            return None
+        records = response.json().get("records") or []
+        return records[0]["id"] if records else None
+
+    def upload(self, path: Path, url: str, meta: dict[str, Any]) -> tuple[httpx.Response, int]:
+        from tqdm import tqdm
+
+        size = path.stat().st_size
+        with (
+            open(path, "rb") as fh,
+            tqdm(
+                total=size,
+                unit="B",
+                unit_scale=True,
+                desc=path.name,
+                leave=False,
+                disable=not self.progress,
+                file=sys.stderr,
+            ) as bar,
+        ):
+
+            def send() -> httpx.Response:
+                fh.seek(0)
+                bar.reset(total=size)
+                reader = _ProgressReader(fh, bar.update)
+                return self.client.post(
+                    url,
+                    files={"file": (path.name, reader, "application/octet-stream")},
+                    data={"meta": json.dumps(meta)},
+                )
+
+            return self._retrying(send)
+
+
+def _upload_one(sender: _Sender, item: PlannedFile) -> UploadResult:
+    kind = item.kind or "?"
+    if item.kind is None:
+        return UploadResult(item.path, kind, "failed", message=item.problem)
+    meta, problem = _server_meta(item.kind, item.meta)
+    if problem:
+        return UploadResult(item.path, kind, "failed", message=problem)
+    sha = file_sha256(item.path)
+    try:
+        present, _ = sender.has(sha)
+        if present:
+            return UploadResult(
+                item.path,
+                kind,
+                "skipped",
+                id=sender.record_id(sha),
+                sha256=sha,
+                message="already on the server",
+            )
+        url = f"/v1/arenas/{meta.pop('arena')}/scans" if item.kind == "scan" else "/v1/trials"
+        response, attempts = sender.upload(item.path, url, meta)
+    except httpx.HTTPError as exc:
+        return UploadResult(
+            item.path, kind, "failed", sha256=sha, message=f"{type(exc).__name__}: {exc}"
+        )
+    if response.status_code in (200, 201):
+        body = response.json()
+        status = "new" if response.status_code == 201 else "duplicate"
+        return UploadResult(
+            item.path,
+            kind,
+            status,
+            id=body.get("id"),
+            sha256=sha,
+            attempts=attempts,
+            extra={"job_id": body.get("job_id")},
+        )
+    return UploadResult(
+        item.path,
+        kind,
+        "failed",
+        sha256=sha,
+        attempts=attempts,
+        message=f"HTTP {response.status_code}: {_detail(response)}",
+    )
+
+
+def upload_files(
+    planned: Iterable[PlannedFile],
+    *,
+    client: httpx.Client,
+    retries: int = 4,
+    backoff_s: float = 0.5,
+    sleep: Callable[[float], None] = time.sleep,
+    progress: bool = True,
+) -> list[UploadResult]:
+    """Upload each planned file through ``client`` (base URL and token already set)."""
+    sender = _Sender(client, retries=retries, backoff_s=backoff_s, sleep=sleep, progress=progress)
+    return [_upload_one(sender, item) for item in planned]
+
+
+def summary_table(results: list[UploadResult]) -> str:
+    from service.cli import format_table
+
+    rows = [("file", "kind", "status", "id", "message")]
+    rows += [
+        (str(r.path), r.kind, r.status, "" if r.id is None else str(r.id), r.message)
+        for r in results
+    ]
+    counts = {
+        s: sum(r.status == s for r in results) for s in ("new", "duplicate", "skipped", "failed")
+    }
+    tail = ", ".join(f"{n} {s}" for s, n in counts.items())
+    return format_table(rows) + f"\n{len(results)} files: {tail}"
+
+
+def run_upload(
+    paths: Iterable[Path],
+    *,
+    server: str | None = None,
+    token: str | None = None,
+    arena: int | None = None,
+    subject: int | None = None,
+    retries: int = 4,
+    backoff_s: float = 0.5,
+    progress: bool = True,
+    client: httpx.Client | None = None,
+    sleep: Callable[[float], None] = time.sleep,
+    out: TextIO | None = None,
+) -> int:
+    """Plan, upload, print the summary; 0 when nothing failed, 1 otherwise."""
+    out = out if out is not None else sys.stdout
+    planned = plan_uploads(paths, defaults={"arena": arena, "subject": subject})
+    own_client = client is None
+    if client is None:
+        if not server:
+            raise ValueError("give server or client")
+        client = httpx.Client(base_url=server, timeout=httpx.Timeout(60.0, connect=10.0))
+    if token:
+        client.headers["Authorization"] = f"Bearer {token}"
+    try:
+        results = upload_files(
+            planned,
+            client=client,
+            retries=retries,
+            backoff_s=backoff_s,
+            sleep=sleep,
+            progress=progress,
+        )
+    finally:
+        if own_client:
+            client.close()
+    print(summary_table(results), file=out)
+    return 1 if any(r.status == "failed" for r in results) else 0

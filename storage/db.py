@@ -1,0 +1,99 @@
+"""Engine, sessions and migrations.
+
+Nothing is built at import time: callers make an engine from a URL and pass it on.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from alembic import command
+from alembic.config import Config
+from alembic.runtime.migration import MigrationContext
+from sqlalchemy import URL, Engine, create_engine, event, make_url
+from sqlalchemy.orm import Session, sessionmaker
+
+__all__ = [
+    "DB_FILENAME",
+    "alembic_config",
+    "current_revision",
+    "make_engine",
+    "make_sessionmaker",
+    "sqlite_url",
+    "upgrade",
+]
+
+DB_FILENAME = "gaitscape.sqlite"
+_HERE = Path(__file__).resolve().parent
+
+
+def sqlite_url(data_dir: str | Path) -> str:
+    """URL of the embedded default database ``DATA/gaitscape.sqlite`` (creates DATA)."""
+    path = Path(data_dir).expanduser().resolve()
+    path.mkdir(parents=True, exist_ok=True)
+    return f"sqlite:///{path / DB_FILENAME}"
+
+
+def make_engine(url: str | URL, *, echo: bool = False, busy_timeout_ms: int = 10_000) -> Engine:
+    """An engine for any SQLAlchemy URL.
+
+    For SQLite every new connection gets foreign keys on, a busy timeout (so a second
+    writer waits instead of failing at once), and WAL for file databases (readers do not
+    block the writer).
+    """
+    url = make_url(url)
+    kwargs: dict[str, Any] = {"echo": echo}
+    if url.get_backend_name() == "sqlite":
+        kwargs["connect_args"] = {"timeout": busy_timeout_ms / 1000.0}
+        engine = create_engine(url, **kwargs)
+        in_memory = url.database in (None, "", ":memory:") or "mode=memory" in str(url)
+        _install_sqlite_pragmas(engine, busy_timeout_ms=busy_timeout_ms, wal=not in_memory)
+        return engine
+    kwargs["pool_pre_ping"] = True
+    return create_engine(url, **kwargs)
+
+
+def _install_sqlite_pragmas(engine: Engine, *, busy_timeout_ms: int, wal: bool) -> None:
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_connection: Any, _record: Any) -> None:
+        cursor = dbapi_connection.cursor()
+        try:
+            cursor.execute("PRAGMA foreign_keys=ON")
+            cursor.execute(f"PRAGMA busy_timeout={int(busy_timeout_ms)}")
+            if wal:
+                cursor.execute("PRAGMA journal_mode=WAL")
+                # NORMAL is durable across application crashes in WAL mode (SQLite docs).
+                cursor.execute("PRAGMA synchronous=NORMAL")
+        finally:
+            cursor.close()
+
+
+def make_sessionmaker(engine: Engine) -> sessionmaker[Session]:
+    """Session factory; objects stay readable after commit (routes serialise them)."""
+    return sessionmaker(bind=engine, expire_on_commit=False)
+
+
+def alembic_config(engine: Engine | None = None) -> Config:
+    """Alembic configuration from the packaged ``storage/alembic.ini``."""
+    cfg = Config(str(_HERE / "alembic.ini"))
+    cfg.set_main_option("script_location", str(_HERE / "migrations"))
+    if engine is not None:
+        cfg.set_main_option(
+            "sqlalchemy.url", engine.url.render_as_string(hide_password=False).replace("%", "%%")
+        )
+    return cfg
+
+
+def upgrade(engine: Engine, revision: str = "head") -> None:
+    """Bring the database schema up to ``revision`` (Alembic, on the engine's connection)."""
+    cfg = alembic_config(engine)
+    with engine.begin() as connection:
+        cfg.attributes["connection"] = connection
+        command.upgrade(cfg, revision)
+
+
+def current_revision(engine: Engine) -> str | None:
+    """The Alembic revision the database is at (None when never migrated)."""
+    with engine.connect() as connection:
+        return MigrationContext.configure(connection).get_current_revision()

@@ -1,0 +1,59 @@
+"""Helpers shared by the repository modules."""
+
+from __future__ import annotations
+
+from typing import Any, TypeVar
+
+from sqlalchemy import Select, func, select
+from sqlalchemy.orm import Session
+
+from storage.errors import BadInput, NotFound
+from storage.models import Base
+
+T = TypeVar("T", bound=Base)
+
+MAX_LIMIT = 1000
+
+
+def paginate(
+    session: Session, stmt: Select[Any], *, offset: int, limit: int
+) -> tuple[list[Any], int]:
+    """Rows ``offset .. offset+limit`` of ``stmt`` and the total count it matches."""
+    if not isinstance(offset, int) or offset < 0:
+        raise BadInput(f"offset must be an integer >= 0, got {offset!r}")
+    if not isinstance(limit, int) or not 1 <= limit <= MAX_LIMIT:
+        raise BadInput(f"limit must be an integer in 1..{MAX_LIMIT}, got {limit!r}")
+    count = session.scalar(select(func.count()).select_from(stmt.order_by(None).subquery()))
+    rows = list(session.scalars(stmt.offset(offset).limit(limit)))
+    return rows, int(count or 0)
+
+
+def get_or_404(session: Session, model: type[T], ident: int, kind: str) -> T:
+    """The row with primary key ``ident`` or NotFound."""
+    row = session.get(model, ident)
+    if row is None:
+        raise NotFound(kind, ident)
+    return row
+
+
+def need_text(value: object, *, name: str, max_len: int = 200) -> str:
+    """A non-empty stripped string, or BadInput naming the field."""
+    if not isinstance(value, str) or not value.strip():
+        raise BadInput(f"{name} must be a non-empty string, got {value!r}")
+    text = value.strip()
+    if len(text) > max_len:
+        raise BadInput(f"{name} is longer than {max_len} characters")
+    return text
+
+
+def optional_positive(value: object, *, name: str) -> float | None:
+    """None, or a finite float > 0."""
+    if value is None:
+        return None
+    try:
+        out = float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        raise BadInput(f"{name} must be a number, got {value!r}") from None
+    if not out > 0 or out == float("inf"):
+        raise BadInput(f"{name} must be a finite number > 0, got {value!r}")
+    return out

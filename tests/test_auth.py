@@ -1,0 +1,180 @@
+"""Tokens and scopes: every route but /healthz needs a token, and the right scope."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+from fastapi.routing import APIRoute
+from fastapi.testclient import TestClient
+from sqlalchemy import text
+
+from service.app import create_app
+from service.deps import FailedAuthLimiter
+from service.settings import get_settings
+from storage import repo
+
+OPEN_PATHS = {"/healthz", "/openapi.json", "/docs", "/docs/oauth2-redirect", "/redoc"}
+SHA = "ab" * 32
+
+
+def make_app(tmp_path: Path, **overrides):
+    return create_app(get_settings(data_dir=tmp_path / "data", **overrides))
+
+
+def make_token(app, *scopes: str, label: str = "") -> str:
+    with app.state.sessionmaker() as session:
+        _, secret = repo.create_token(session=session, scopes=list(scopes), label=label)
+    return secret
+
+
+def bearer(secret: str) -> dict[str, str]:
+    return {"Authorization": f"Bearer {secret}"}
+
+
+def _required_scope(route: APIRoute) -> str | None:
+    """The scope a route's dependencies demand (deps.require_scope names its checks)."""
+    stack = list(route.dependant.dependencies)
+    while stack:
+        dep = stack.pop()
+        name = getattr(dep.call, "__name__", "")
+        if name.startswith("require_"):
+            return name.removeprefix("require_")
+        stack.extend(dep.dependencies)
+    return None
+
+
+def _walk(routes, prefix: str = ""):
+    """(full path, APIRoute) for every route; recent FastAPI keeps included routers nested."""
+    for route in routes:
+        inner = getattr(route, "original_router", None)
+        if inner is not None:
+            context = getattr(route, "include_context", None)
+            yield from _walk(inner.routes, prefix + getattr(context, "prefix", ""))
+        elif isinstance(route, APIRoute):
+            yield prefix + route.path, route
+
+
+def _api_routes(app) -> list[tuple[str, str, APIRoute]]:
+    out = []
+    walked = {full for full, _ in _walk(app.routes)}
+    # The walk must see every documented path, so no route escapes the check.
+    assert walked >= set(app.openapi()["paths"])
+    for full, route in _walk(app.routes):
+        if full in OPEN_PATHS:
+            continue
+        path = re.sub(r"\{sha256\}", SHA, full)
+        path = re.sub(r"\{[^}]+\}", "1", path)
+        for method in sorted(route.methods):
+            out.append((method, path, route))
+    return out
+
+
+@pytest.fixture
+def app(tmp_path: Path):
+    return make_app(tmp_path)
+
+
+def test_route_walk_without_token_is_401(tmp_path: Path) -> None:
+    # Each wrong token counts as a failed authentication: lift the limit for the walk.
+    app = make_app(tmp_path, auth_failure_limit=10_000)
+    client = TestClient(app)
+    routes = _api_routes(app)
+    assert len(routes) >= 15  # the walk saw the API, not an empty table
+    for method, path, _ in routes:
+        response = client.request(method, path)
+        assert response.status_code == 401, (method, path, response.status_code)
+        assert response.headers.get("www-authenticate") == "Bearer"
+        bad = client.request(method, path, headers=bearer("not-a-token"))
+        assert bad.status_code == 401, (method, path)
+    assert client.get("/healthz").status_code == 200
+
+
+def test_route_walk_wrong_scope_is_403(tmp_path: Path) -> None:
+    app = make_app(tmp_path)
+    client = TestClient(app)
+    tokens = {scope: make_token(app, scope) for scope in ("read", "upload", "analyse")}
+    for method, path, route in _api_routes(app):
+        scope = _required_scope(route)
+        assert scope is not None, f"{method} {path} checks no scope"
+        other = next(s for s in ("read", "upload", "analyse") if s != scope)
+        response = client.request(method, path, headers=bearer(tokens[other]))
+        assert response.status_code == 403, (method, path, scope, response.status_code)
+        if method != "HEAD":  # HEAD answers carry no body
+            assert scope in response.json()["detail"]
+
+
+def test_admin_implies_every_scope(app) -> None:
+    client = TestClient(app)
+    admin = bearer(make_token(app, "admin"))
+    assert (
+        client.post("/v1/arenas", json={"name": "a", "kind": "runway"}, headers=admin).status_code
+        == 201
+    )
+    assert client.get("/v1/arenas", headers=admin).status_code == 200
+    assert client.get("/v1/tokens", headers=admin).status_code == 200
+
+
+def test_read_token_cannot_upload(app) -> None:
+    client = TestClient(app)
+    read = bearer(make_token(app, "read"))
+    files = {"file": ("t.csv", b"time,a_x,a_y,a_z\n0,1,2,3\n")}
+    response = client.post("/v1/trials", files=files, data={"meta": "{}"}, headers=read)
+    assert response.status_code == 403
+    assert client.post("/v1/arenas", json={"name": "a"}, headers=read).status_code == 403
+    assert client.get("/v1/arenas", headers=read).status_code == 200
+
+
+def test_token_routes_create_list_revoke(app) -> None:
+    client = TestClient(app)
+    admin = bearer(make_token(app, "admin", label="boss"))
+    created = client.post("/v1/tokens", json={"scopes": ["read"], "label": "laptop"}, headers=admin)
+    assert created.status_code == 201
+    body = created.json()
+    secret, token_id = body["token"], body["id"]
+    assert body["scopes"] == ["read"]
+    assert client.get("/v1/arenas", headers=bearer(secret)).status_code == 200
+    listing = client.get("/v1/tokens", headers=admin).json()
+    assert {t["label"] for t in listing["data"]} == {"boss", "laptop"}
+    assert secret not in created.text.replace(secret, "", 1)  # shown once, in the one field
+    assert secret not in str(listing)
+    revoked = client.delete(f"/v1/tokens/{token_id}", headers=admin)
+    assert revoked.status_code == 200 and revoked.json()["revoked_at"] is not None
+    assert client.get("/v1/arenas", headers=bearer(secret)).status_code == 401
+    assert client.delete("/v1/tokens/9999", headers=admin).status_code == 404
+    unknown = client.post("/v1/tokens", json={"scopes": ["root"]}, headers=admin)
+    assert unknown.status_code == 422
+
+
+def test_only_hashes_are_stored(app) -> None:
+    secret = make_token(app, "read")
+    with app.state.engine.connect() as conn:
+        rows = conn.execute(text("SELECT * FROM token")).fetchall()
+    assert rows
+    assert all(secret not in str(value) for row in rows for value in row)
+
+
+def test_failed_authentication_is_rate_limited(tmp_path: Path) -> None:
+    app = make_app(tmp_path, auth_failure_limit=3, auth_failure_window_s=60)
+    client = TestClient(app)
+    good = bearer(make_token(app, "read"))
+    assert client.get("/v1/arenas", headers=good).status_code == 200
+    for _ in range(3):
+        assert client.get("/v1/arenas", headers=bearer("guess")).status_code == 401
+    blocked = client.get("/v1/arenas", headers=good)
+    assert blocked.status_code == 429
+    assert int(blocked.headers["retry-after"]) >= 1
+    assert client.get("/healthz").status_code == 200
+
+
+def test_limiter_window_slides() -> None:
+    now = [0.0]
+    limiter = FailedAuthLimiter(limit=2, window_s=10.0, clock=lambda: now[0])
+    limiter.record_failure("1.2.3.4")
+    now[0] = 5.0
+    limiter.record_failure("1.2.3.4")
+    assert limiter.retry_after("1.2.3.4") == pytest.approx(5.0)
+    assert limiter.retry_after("5.6.7.8") is None  # per address
+    now[0] = 10.5  # the first failure has left the window
+    assert limiter.retry_after("1.2.3.4") is None

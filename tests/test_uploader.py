@@ -1,0 +1,170 @@
+"""The acquisition-PC upload client: planning, resume by hash, retries, summary."""
+
+from __future__ import annotations
+
+import io
+import json
+from pathlib import Path
+
+import httpx
+import numpy as np
+import pytest
+from fastapi.testclient import TestClient
+from test_api import Lab, wide_csv
+
+from service.uploader import classify, plan_uploads, run_upload, upload_files
+
+
+def write_c3d(path: Path, rng: np.random.Generator, *, n_frames: int = 40) -> None:
+    import ezc3d
+
+    c3d = ezc3d.c3d()
+    c3d["parameters"]["POINT"]["RATE"]["value"] = [300.0]  # 300 Hz: common practice
+    c3d["parameters"]["POINT"]["LABELS"]["value"] = ("snout", "tail", "lf", "rf", "lh", "rh")
+    points = np.ones((4, 6, n_frames))
+    points[:3] = rng.normal(100.0, 5.0, size=(3, 6, n_frames))
+    c3d["data"]["points"] = points
+    c3d.write(str(path))
+
+
+def write_ply(path: Path, rng: np.random.Generator, n: int = 300) -> None:
+    import open3d as o3d
+
+    pts = np.column_stack([rng.uniform(0, 100, n), rng.uniform(0, 100, n), rng.normal(0, 1, n)])
+    cloud = o3d.geometry.PointCloud(o3d.utility.Vector3dVector(pts))
+    assert o3d.io.write_point_cloud(str(path), cloud)
+
+
+def build_folder(root: Path, lab: Lab, rng: np.random.Generator) -> None:
+    (root / "trials").mkdir(parents=True)
+    (root / "scans").mkdir()
+    (root / "gaitscape.json").write_text(
+        json.dumps({"arena": lab.arena_id, "subject": lab.subject_id, "units": "mm"})
+    )
+    (root / "trials" / "walk1.csv").write_bytes(wide_csv(rng))
+    write_c3d(root / "trials" / "walk2.c3d", rng)
+    write_ply(root / "scans" / "tray.ply", rng)
+    np.save(root / "scans" / "height.npy", rng.normal(size=(12, 10)), allow_pickle=False)
+    (root / "scans" / "height.npy.json").write_text(json.dumps({"dx": 0.5, "dy": 0.5}))
+    (root / "notes.txt").write_text("not uploaded")
+
+
+def test_classify_by_extension_and_metadata() -> None:
+    assert classify(Path("a.ply"), {}) == ("scan", "")
+    assert classify(Path("a.C3D"), {}) == ("trial", "")
+    assert classify(Path("a.csv"), {}) == ("trial", "")
+    assert classify(Path("a.csv"), {"dx": 1.0}) == ("scan", "")
+    assert classify(Path("a.npy"), {"frame_rate_hz": 300}) == ("trial", "")
+    assert classify(Path("a.npy"), {"kind": "scan"}) == ("scan", "")
+    kind, problem = classify(Path("a.npy"), {})
+    assert kind is None and "sidecar" in problem
+    kind, problem = classify(Path("a.ply"), {"kind": "trial"})
+    assert kind is None and "scan" in problem
+
+
+def test_metadata_layers(tmp_path: Path) -> None:
+    (tmp_path / "day1").mkdir()
+    (tmp_path / "gaitscape.json").write_text(json.dumps({"arena": 1, "units": "m"}))
+    (tmp_path / "day1" / "gaitscape.json").write_text(json.dumps({"units": "mm"}))
+    (tmp_path / "day1" / "a.csv").write_text("x")
+    (tmp_path / "day1" / "a.csv.json").write_text(json.dumps({"condition": "wet"}))
+    (planned,) = plan_uploads([tmp_path], defaults={"arena": 9, "subject": 4})
+    assert planned.meta == {"arena": 1, "subject": 4, "units": "mm", "condition": "wet"}
+
+
+def test_uploads_a_folder_then_nothing(tmp_path: Path, rng: np.random.Generator) -> None:
+    lab = Lab(tmp_path / "server")
+    root = tmp_path / "rig"
+    build_folder(root, lab, rng)
+    out = io.StringIO()
+    assert run_upload([root], client=lab.client, progress=False, out=out) == 0, out.getvalue()
+    table = out.getvalue()
+    assert table.count(" new ") == 4 and "notes.txt" not in table
+    assert lab.client.get("/v1/trials").json()["count"] == 2
+    assert lab.client.get("/v1/scans").json()["count"] == 2
+    out = io.StringIO()
+    assert run_upload([root], client=lab.client, progress=False, out=out) == 0
+    assert out.getvalue().count(" skipped ") == 4 and " new " not in out.getvalue()
+    assert lab.client.get("/v1/trials").json()["count"] == 2
+
+
+def test_failures_make_the_exit_status_non_zero(tmp_path: Path, rng: np.random.Generator) -> None:
+    lab = Lab(tmp_path / "server")
+    (tmp_path / "bad").mkdir()
+    (tmp_path / "bad" / "broken.csv").write_text("time,a_x\n0,1,2\n")
+    (tmp_path / "bad" / "lonely.npy").write_bytes(b"")
+    out = io.StringIO()
+    code = run_upload(
+        [tmp_path / "bad"],
+        client=lab.client,
+        arena=lab.arena_id,
+        subject=lab.subject_id,
+        progress=False,
+        out=out,
+    )
+    assert code == 1
+    assert out.getvalue().count(" failed ") == 2 and "HTTP 422" in out.getvalue()
+
+
+def _flaky_transport(statuses: list[int]) -> tuple[httpx.MockTransport, list[str]]:
+    seen: list[str] = []
+
+    def handler(request: httpx.Request) -> httpx.Response:
+        seen.append(request.method)
+        if request.method == "HEAD":
+            return httpx.Response(404)
+        code = statuses.pop(0) if statuses else 201
+        if code == 0:
+            raise httpx.ConnectError("refused", request=request)
+        body = {"id": 7, "sha256": "x", "job_id": 1} if code == 201 else {"detail": "busy"}
+        return httpx.Response(code, json=body)
+
+    return httpx.MockTransport(handler), seen
+
+
+def test_retries_with_exponential_backoff(tmp_path: Path) -> None:
+    (tmp_path / "a.c3d").write_bytes(b"c3d bytes")
+    transport, seen = _flaky_transport([503, 0, 502])
+    sleeps: list[float] = []
+    planned = plan_uploads([tmp_path], defaults={"arena": 1, "subject": 1})
+    with httpx.Client(transport=transport, base_url="http://lab") as client:
+        (result,) = upload_files(
+            planned, client=client, retries=4, backoff_s=0.1, sleep=sleeps.append, progress=False
+        )
+    assert result.status == "new" and result.id == 7 and result.attempts == 4
+    assert sleeps == pytest.approx([0.1, 0.2, 0.4])
+    assert seen.count("POST") == 4
+
+
+def test_retries_are_bounded_and_507_is_final(tmp_path: Path) -> None:
+    (tmp_path / "a.c3d").write_bytes(b"c3d bytes")
+    planned = plan_uploads([tmp_path], defaults={"arena": 1, "subject": 1})
+    transport, seen = _flaky_transport([503] * 10)
+    with httpx.Client(transport=transport, base_url="http://lab") as client:
+        (result,) = upload_files(
+            planned, client=client, retries=2, backoff_s=0.0, sleep=lambda s: None, progress=False
+        )
+    assert result.status == "failed" and seen.count("POST") == 3 and "503" in result.message
+    transport, seen = _flaky_transport([507])
+    with httpx.Client(transport=transport, base_url="http://lab") as client:
+        (result,) = upload_files(
+            planned, client=client, retries=5, backoff_s=0.0, sleep=lambda s: None, progress=False
+        )
+    assert result.status == "failed" and seen.count("POST") == 1
+
+
+def test_token_header_is_sent(tmp_path: Path) -> None:
+    lab = Lab(tmp_path / "server")
+    anonymous = TestClient(lab.app)
+    (tmp_path / "t.csv").write_text("time,a_x,a_y,a_z\n0,1,2,3\n")
+    out = io.StringIO()
+    code = run_upload(
+        [tmp_path / "t.csv"],
+        client=anonymous,
+        token="wrong",
+        arena=1,
+        subject=1,
+        progress=False,
+        out=out,
+    )
+    assert code == 1 and "401" in out.getvalue()
