@@ -23,6 +23,8 @@ Phipson, B. & Smyth, G. K. (2010). Permutation p-values should never be
 zero. Stat. Appl. Genet. Mol. Biol. 9(1), 39.
 Field, C. A. & Welsh, A. H. (2007). Bootstrapping clustered data. J. R.
 Stat. Soc. B 69, 369-390 (resampling the top level, then within it).
+Owen, A. B. (2007). The pigeonhole bootstrap. Ann. Appl. Stat. 1, 386-411
+(crossed designs: resample both factors independently).
 Benjamini, Y. & Hochberg, Y. (1995). Controlling the false discovery rate.
 J. R. Stat. Soc. B 57, 289-300.
 """
@@ -351,18 +353,18 @@ def _rank_standardise(values: NDArray[np.float64], axis: int) -> NDArray[np.floa
         return ranks / norm
 
 
-def _subject_means(
+def _cell_means(
     m: NDArray[np.float64], arena: NDArray[np.intp], subject: NDArray[np.intp], n_arenas: int
-) -> list[NDArray[np.float64]]:
-    out = []
-    for a in range(n_arenas):
-        rows = arena == a
-        subs = subject[rows]
-        _, inv = np.unique(subs, return_inverse=True)
-        sums = np.zeros((inv.max() + 1, m.shape[1]))
-        np.add.at(sums, inv, m[rows])
-        out.append(sums / np.bincount(inv)[:, None])
-    return out
+) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
+    """Mean movement of each (arena, subject) cell: (A, S, M), and which cells exist."""
+    n_subjects = int(subject.max()) + 1
+    cell = arena * n_subjects + subject
+    counts = np.bincount(cell, minlength=n_arenas * n_subjects).astype(np.float64)
+    sums = np.zeros((n_arenas * n_subjects, m.shape[1]))
+    np.add.at(sums, cell, m)
+    present = counts > 0
+    means = np.where(present[:, None], sums / np.maximum(counts, 1.0)[:, None], 0.0)
+    return means.reshape(n_arenas, n_subjects, -1), present.reshape(n_arenas, n_subjects)
 
 
 def hierarchical_bootstrap_spearman(
@@ -378,9 +380,13 @@ def hierarchical_bootstrap_spearman(
     """Rank correlation of arena terrain with arena mean movement, and its CI.
 
     An arena's movement value is the mean of its subjects' mean trial values.
-    Each bootstrap replicate resamples arenas with replacement, then the
-    subjects within each drawn arena (Field & Welsh 2007), and recomputes
-    the Spearman correlation; the interval is the percentile interval.
+    Each bootstrap replicate resamples arenas with replacement and, as weights,
+    subjects with replacement; one subject draw serves every arena, so a
+    crossed design (every animal on every tray) keeps each animal's offset
+    shared across arenas, as in the two-way "pigeonhole" bootstrap (Owen 2007).
+    An arena none of whose drawn subjects walked it (nested designs) falls back
+    to resampling its own subjects (Field & Welsh 2007). The interval is the
+    percentile interval.
 
     Parameters
     ----------
@@ -394,6 +400,11 @@ def hierarchical_bootstrap_spearman(
     Returns
     -------
     SpearmanBootstrap
+
+    References
+    ----------
+    Owen, A. B. (2007). The pigeonhole bootstrap. Ann. Appl. Stat. 1, 386-411.
+    Field, C. A. & Welsh, A. H. (2007). J. R. Stat. Soc. B 69, 369-390.
     """
     fn = "hierarchical_bootstrap_spearman"
     t = as_float_array("terrain", terrain, fn, ndim=(1, 2), min_length=3)
@@ -405,19 +416,21 @@ def hierarchical_bootstrap_spearman(
     n_arenas = t.shape[0]
     if np.bincount(arena, minlength=n_arenas).min() == 0:
         raise InsufficientDataError("arena_index", fn, "at least one trial per arena", arena)
-    per_arena = _subject_means(m, arena, subject, n_arenas)
-    arena_means = np.array([s.mean(axis=0) for s in per_arena])
+    means, present = _cell_means(m, arena, subject, n_arenas)
+    arena_means = np.einsum("asm,as->am", means, present) / present.sum(axis=1)[:, None]
     rho = np.einsum("at,am->tm", _rank_standardise(t, 0), _rank_standardise(arena_means, 0))
 
     rng = np.random.default_rng(seed)
+    n_subjects = present.shape[1]
     drawn = rng.integers(0, n_arenas, size=(n_boot, n_arenas))
-    boot_m = np.empty((n_boot, n_arenas, m.shape[1]))
-    for a, subj in enumerate(per_arena):
-        slots = drawn == a
-        count = int(slots.sum())
-        if count:
-            pick = rng.integers(0, subj.shape[0], size=(count, subj.shape[0]))
-            boot_m[slots] = subj[pick].mean(axis=1)
+    weights = rng.multinomial(n_subjects, np.full(n_subjects, 1.0 / n_subjects), size=n_boot)
+    w = weights[:, None, :] * present[drawn]  # (B, A, S): weight of each subject in each slot
+    total = w.sum(axis=2)
+    boot_m = np.einsum("bas,basm->bam", w, means[drawn]) / np.maximum(total, 1)[..., None]
+    for b, a in zip(*np.nonzero(total == 0), strict=True):
+        own = np.flatnonzero(present[drawn[b, a]])
+        pick = rng.choice(own, size=own.size)
+        boot_m[b, a] = means[drawn[b, a], pick].mean(axis=0)
     boot_rho = np.einsum(
         "bat,bam->btm", _rank_standardise(t[drawn], 1), _rank_standardise(boot_m, 1)
     )

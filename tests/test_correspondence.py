@@ -112,15 +112,37 @@ def test_null_false_positive_rate(rng):
 
 
 def test_spearman_matches_scipy_on_arena_means(rng):
-    terrain, y, arena, subject = _study(rng, n_arenas=7, slope=0.4)
+    # Reference: scipy.stats.spearmanr on the arena means.
+    terrain, y, arena, subject = _study(rng, n_arenas=15, slope=0.4)
     res = hierarchical_bootstrap_spearman(terrain, y, arena, subject, n_boot=499)
     # Balanced design: the mean of subject means equals the plain arena mean.
-    means = np.array([y[arena == a].mean() for a in range(7)])
+    means = np.array([y[arena == a].mean() for a in range(15)])
     assert_allclose(res.rho[0, 0], stats.spearmanr(terrain, means).statistic, rtol=1e-12)
     # A percentile interval need not contain the estimate (arenas drawn twice
     # tie, which pulls replicate rho towards 0), so check order and sign only.
     assert -1 <= res.ci_low[0, 0] < res.ci_high[0, 0] <= 1
-    assert res.ci_low[0, 0] > 0  # strong effect: the interval excludes zero
+    assert res.ci_low[0, 0] > 0  # strong effect over 15 arenas: the interval excludes zero
+
+
+def test_bootstrap_keeps_crossed_subject_offsets(rng):
+    # Crossed design with large subject offsets and no noise: every animal's
+    # offset is shared by all arenas, so it cannot blur the arena ranking. A
+    # pigeonhole bootstrap (Owen 2007) keeps that; resampling subjects
+    # independently inside each arena would not.
+    terrain, y, arena, subject = _study(rng, n_arenas=10, slope=1.0, subject_sd=3.0, noise=0.0)
+    res = hierarchical_bootstrap_spearman(terrain, y, arena, subject, n_boot=499)
+    assert_allclose(res.rho[0, 0], 1.0)
+    assert res.ci_low[0, 0] > 0.5
+
+
+def test_bootstrap_nested_design_falls_back_within_arena(rng):
+    # Each subject walks one arena only (nested): replicates must still be finite.
+    terrain = np.linspace(0, 1, 6)
+    arena = np.repeat(np.arange(6), 6)
+    subject = np.repeat(np.arange(18), 2)
+    y = terrain[arena] + rng.normal(0, 0.1, arena.size)
+    res = hierarchical_bootstrap_spearman(terrain, y, arena, subject, n_boot=199)
+    assert np.isfinite(res.ci_low[0, 0]) and np.isfinite(res.ci_high[0, 0])
 
 
 def test_benjamini_hochberg_matches_statsmodels():
