@@ -1,3 +1,302 @@
-"""Placeholder: filled in by its issue."""
+"""Symbolisation of 1D series and 2D fields: ordinal patterns, bins, partitions.
 
-__all__: list[str] = []
+Every function here maps real data onto small non-negative integer symbols,
+with one convention for series ``(N,)`` and fields ``(ny, nx)``, so that the
+block-entropy and ordinal estimators downstream run one code path for both.
+
+Ordinal pattern codes
+---------------------
+A window of ``D`` values is summarised by the permutation that sorts it
+(ascending, ties kept in order of appearance, i.e. a stable argsort). The code
+of a window is the rank of that permutation in lexicographic order among all
+``D!`` permutations (its Lehmer code read in the factorial number system), so
+codes run over ``0 .. D! - 1`` and sorting the codes sorts the permutations
+lexicographically. ``(0, 1, ..., D-1)`` (an increasing window) is code 0 and
+``(D-1, ..., 1, 0)`` (a decreasing window) is code ``D! - 1``. 2D windows are
+read row by row (``dy`` rows of ``dx`` columns) before sorting, after Ribeiro
+et al. (2012).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from measures._validation import (
+    InsufficientDataError,
+    InvalidParameterError,
+    as_float_array,
+    check_positive_int,
+)
+
+__all__ = [
+    "MIN_WINDOWS_PER_PATTERN",
+    "joint_symbols",
+    "ordinal_patterns",
+    "quantile_symbols",
+    "threshold_symbols",
+]
+
+#: Default number of windows required per possible pattern (n_windows >= 10 * D!).
+#: With fewer, most patterns are seen a handful of times and the normalised
+#: permutation entropy of pure noise drops visibly below 1: 512 x 512 noise with
+#: 3 x 3 patches (9! > windows) scores H = 0.94 instead of 1. At 10 windows per
+#: pattern the plug-in deficit (D! - 1) / (2 n ln D!) is below 0.01 for D >= 3.
+MIN_WINDOWS_PER_PATTERN = 10.0
+
+# D! must fit in int64 with room for the Horner accumulation below.
+_MAX_PATTERN_LENGTH = 20
+
+
+def _parse_order(order: object, ndim: int, function: str) -> tuple[int, int]:
+    """Return (dx, dy): the window width along the last axis and height along the first."""
+    if ndim == 1:
+        return check_positive_int("order", order, function, minimum=2), 1
+    if not isinstance(order, (tuple, list)) or len(order) != 2:
+        raise InvalidParameterError("order", function, "a pair (dx, dy) for a 2D field", order)
+    dx = check_positive_int("order", order[0], function)
+    dy = check_positive_int("order", order[1], function)
+    if dx * dy < 2:
+        raise InvalidParameterError("order", function, "a patch of at least 2 sites", order)
+    return dx, dy
+
+
+def _parse_delay(delay: object, ndim: int, function: str) -> tuple[int, int]:
+    """Return (delay_x, delay_y); an int applies to both axes of a field."""
+    if ndim == 2 and isinstance(delay, (tuple, list)):
+        if len(delay) != 2:
+            raise InvalidParameterError("delay", function, "an int or a pair", delay)
+        return (
+            check_positive_int("delay", delay[0], function),
+            check_positive_int("delay", delay[1], function),
+        )
+    d = check_positive_int("delay", delay, function)
+    return d, d
+
+
+def _window_columns(
+    x: NDArray[np.float64], dx: int, dy: int, tx: int, ty: int
+) -> list[NDArray[np.float64]]:
+    """Views of the field, one per window element in row-major window order.
+
+    Element ``(r, c)`` of every window, for all windows at once, is the slice
+    of ``x`` shifted by ``(r * ty, c * tx)``; no window array is materialised.
+    """
+    x2 = x.reshape(1, -1) if x.ndim == 1 else x
+    ny = x2.shape[0] - (dy - 1) * ty
+    nx = x2.shape[1] - (dx - 1) * tx
+    return [x2[r * ty : r * ty + ny, c * tx : c * tx + nx] for r in range(dy) for c in range(dx)]
+
+
+def _lehmer_codes(columns: list[NDArray[np.float64]]) -> NDArray[np.int64]:
+    """Lexicographic rank of the stable argsort permutation of each window.
+
+    For the sorting permutation pi, digit i of the Lehmer code is the number of
+    later entries of pi smaller than pi_i. Written per window position q this
+    is the number of earlier values strictly greater than x_q, placed at digit
+    rank(q); with stable ranks this needs only the D(D-1)/2 pairwise
+    comparisons, no sort (ties: the earlier value ranks lower).
+    """
+    d = len(columns)
+    shape = columns[0].shape
+    rank = [np.zeros(shape, dtype=np.int8) for _ in range(d)]
+    inversions = [np.zeros(shape, dtype=np.int8) for _ in range(d)]
+    for q in range(1, d):
+        for p in range(q):
+            earlier_not_greater = columns[p] <= columns[q]
+            rank[q] += earlier_not_greater
+            rank[p] += ~earlier_not_greater
+            inversions[q] += ~earlier_not_greater
+    weights = np.array([math.factorial(d - 1 - r) for r in range(d)], dtype=np.int64)
+    code = np.zeros(shape, dtype=np.int64)
+    for q in range(d):
+        code += inversions[q] * weights[rank[q]]
+    return code
+
+
+def ordinal_patterns(
+    x: ArrayLike,
+    *,
+    order: int | tuple[int, int],
+    delay: int | tuple[int, int] = 1,
+    min_windows_per_pattern: float = MIN_WINDOWS_PER_PATTERN,
+) -> NDArray[np.int64]:
+    """Ordinal pattern code of every overlapping window of a series or field.
+
+    Parameters
+    ----------
+    x : array_like, shape (N,) or (ny, nx), float
+        Series or field (e.g. a heightmap in m). NaN and Inf are rejected.
+    order : int or (int, int)
+        Pattern length ``D`` for a series (>= 2); patch size ``(dx, dy)``
+        (columns, rows) for a field, with ``D = dx * dy``.
+    delay : int or (int, int), default 1
+        Spacing between window elements, in samples; for a field an int
+        applies to both axes and a pair is ``(delay_x, delay_y)``.
+    min_windows_per_pattern : float, default 10
+        Require ``n_windows >= min_windows_per_pattern * D!`` (pass 0 to
+        switch the check off, e.g. for worked examples).
+
+    Returns
+    -------
+    ndarray of int64, shape (N - (D-1) delay,) or (ny - (dy-1) delay_y, nx - (dx-1) delay_x)
+        Codes in ``0 .. D! - 1``: the lexicographic rank of the stable argsort
+        of each window (module docstring). The code order is the order of
+        ordpy's ``ordinal_distribution(..., return_missing=True, ordered=True)``.
+
+    Raises
+    ------
+    InsufficientDataError
+        If there are fewer windows than ``min_windows_per_pattern * D!``.
+
+    References
+    ----------
+    C. Bandt & B. Pompe (2002), Phys. Rev. Lett. 88:174102.
+    H. V. Ribeiro et al. (2012), PLoS ONE 7(8):e40689 (2D patches).
+
+    Examples
+    --------
+    >>> ordinal_patterns([4, 7, 9, 10, 6, 11, 3], order=2, min_windows_per_pattern=0)
+    array([0, 0, 0, 1, 0, 1])
+    """
+    fn = "ordinal_patterns"
+    arr = as_float_array("x", x, fn, ndim=(1, 2))
+    dx, dy = _parse_order(order, arr.ndim, fn)
+    tx, ty = _parse_delay(delay, arr.ndim, fn)
+    d = dx * dy
+    if d > _MAX_PATTERN_LENGTH:
+        raise InvalidParameterError("order", fn, f"at most {_MAX_PATTERN_LENGTH} sites", order)
+    columns = _window_columns(arr, dx, dy, tx, ty)
+    n_windows = columns[0].size
+    needed = float(min_windows_per_pattern) * math.factorial(d)
+    if n_windows < 1 or n_windows < needed:
+        raise InsufficientDataError(
+            "x",
+            fn,
+            f"long enough for >= {min_windows_per_pattern:g} windows per pattern "
+            f"({needed:.0f} windows for {math.factorial(d)} patterns; got {n_windows})",
+            arr,
+        )
+    codes = _lehmer_codes(columns)
+    return codes.reshape(-1) if arr.ndim == 1 else codes
+
+
+def quantile_symbols(x: ArrayLike, *, n_bins: int) -> NDArray[np.int64]:
+    """Equiprobable binning: symbol ``j`` for values between the j-th and (j+1)-th quantile.
+
+    Parameters
+    ----------
+    x : array_like, shape (N,) or (ny, nx), float
+        Series or field; NaN and Inf are rejected.
+    n_bins : int
+        Number of symbols (>= 2).
+
+    Returns
+    -------
+    ndarray of int64, same shape as ``x``
+        Symbols in ``0 .. n_bins - 1``. Bin edges are the sample quantiles
+        ``j / n_bins`` (numpy's linear rule); a value equal to an edge goes to
+        the upper bin, and equal values always share a symbol, so heavy ties
+        make the bins unequal rather than splitting one value across symbols.
+
+    References
+    ----------
+    Equiprobable (maximum-entropy) partitions are common practice in symbolic
+    dynamics of measured series, e.g. C. S. Daw, C. E. A. Finney & E. R.
+    Tracy (2003), Rev. Sci. Instrum. 74:915 (citation from memory).
+
+    Examples
+    --------
+    >>> quantile_symbols([0.1, 0.4, 0.3, 0.2], n_bins=2)
+    array([0, 1, 1, 0])
+    """
+    fn = "quantile_symbols"
+    arr = as_float_array("x", x, fn, ndim=(1, 2))
+    k = check_positive_int("n_bins", n_bins, fn, minimum=2)
+    edges = np.quantile(arr, np.arange(1, k) / k)
+    return np.searchsorted(edges, arr, side="right").astype(np.int64)
+
+
+def threshold_symbols(x: ArrayLike, *, thresholds: float | Sequence[float]) -> NDArray[np.int64]:
+    """Partition by fixed thresholds: the symbol is the number of thresholds <= x.
+
+    Parameters
+    ----------
+    x : array_like, shape (N,) or (ny, nx), float
+        Series or field; NaN and Inf are rejected.
+    thresholds : float or sequence of float
+        Strictly increasing, finite cut points (in the units of ``x``).
+
+    Returns
+    -------
+    ndarray of int64, same shape as ``x``
+        Symbols in ``0 .. len(thresholds)``.
+
+    References
+    ----------
+    For the logistic map x -> 4x(1-x) the cut at 1/2 is a generating
+    partition; its symbolic dynamics is the fair-coin full shift (e.g.
+    J. P. Crutchfield & D. P. Feldman 2003, Chaos 13:25).
+
+    Examples
+    --------
+    >>> threshold_symbols([0.2, 0.5, 0.9], thresholds=0.5)
+    array([0, 1, 1])
+    """
+    fn = "threshold_symbols"
+    arr = as_float_array("x", x, fn, ndim=(1, 2))
+    cuts = np.atleast_1d(np.asarray(thresholds, dtype=np.float64))
+    if cuts.ndim != 1 or cuts.size == 0 or not np.all(np.isfinite(cuts)):
+        raise InvalidParameterError("thresholds", fn, "one or more finite numbers", thresholds)
+    if np.any(np.diff(cuts) <= 0):
+        raise InvalidParameterError("thresholds", fn, "strictly increasing", thresholds)
+    return np.searchsorted(cuts, arr, side="right").astype(np.int64)
+
+
+def joint_symbols(symbol_arrays: Sequence[ArrayLike]) -> NDArray[np.int64]:
+    """Combine several channels of symbols into one alphabet, site by site.
+
+    Parameters
+    ----------
+    symbol_arrays : sequence of array_like, each the same shape
+        One integer (or other sortable label) array per channel; an array of
+        shape ``(n_channels, ...)`` works too (channels along axis 0).
+
+    Returns
+    -------
+    ndarray of int64, the common shape
+        Dense codes ``0 .. K - 1`` of the observed channel tuples, numbered in
+        lexicographic order of the tuples (first channel most significant).
+
+    Examples
+    --------
+    >>> joint_symbols([[0, 1, 0, 1], [5, 5, 7, 7]])
+    array([0, 2, 1, 3])
+    """
+    fn = "joint_symbols"
+    channels = [np.asarray(a) for a in symbol_arrays]
+    if not channels:
+        raise InvalidParameterError("symbol_arrays", fn, "at least one array", symbol_arrays)
+    shape = channels[0].shape
+    if any(c.shape != shape for c in channels) or channels[0].size == 0:
+        raise InvalidParameterError(
+            "symbol_arrays", fn, "non-empty arrays of one common shape", [c.shape for c in channels]
+        )
+    code = np.zeros(shape, dtype=np.int64)
+    bound = 1
+    for channel in channels:
+        if channel.dtype.kind == "f" and not np.all(np.isfinite(channel)):
+            raise InvalidParameterError("symbol_arrays", fn, "finite symbols", channel)
+        values, dense = np.unique(channel, return_inverse=True)
+        if bound * len(values) >= 2**62:
+            # Re-number the observed tuples so far to keep the packed code in int64.
+            _, code = np.unique(code, return_inverse=True)
+            code = code.reshape(shape).astype(np.int64)
+            bound = int(code.max()) + 1
+        code = code * len(values) + dense.reshape(shape)
+        bound *= len(values)
+    _, out = np.unique(code, return_inverse=True)
+    return out.reshape(shape).astype(np.int64)
