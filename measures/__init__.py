@@ -13,6 +13,8 @@ from measures.areal import *  # noqa: F403
 from measures.bodyframe import *  # noqa: F403
 from measures.causal import *  # noqa: F403
 from measures.correspondence import *  # noqa: F403
+from measures.correspondence_local import *  # noqa: F403
+from measures.correspondence_multi import *  # noqa: F403
 from measures.description import *  # noqa: F403
 from measures.embedding import *  # noqa: F403
 from measures.entropy import *  # noqa: F403

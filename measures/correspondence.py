@@ -33,6 +33,7 @@ from __future__ import annotations
 
 import itertools
 import math
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -435,7 +436,11 @@ def hierarchical_bootstrap_spearman(
         "bat,bam->btm", _rank_standardise(t[drawn], 1), _rank_standardise(boot_m, 1)
     )
     tail = 100 * (1 - level) / 2
-    lo, hi = np.nanpercentile(boot_rho, [tail, 100 - tail], axis=0)
+    with warnings.catch_warnings():
+        # A constant measure has no ranks: its interval is NaN, and the grid's
+        # design warnings already say "zero variance".
+        warnings.simplefilter("ignore", RuntimeWarning)
+        lo, hi = np.nanpercentile(boot_rho, [tail, 100 - tail], axis=0)
     return SpearmanBootstrap(rho, lo, hi, n_boot, level)
 
 

@@ -14,16 +14,30 @@ __all__ = [
     "ArenaCreate",
     "ArenaPublic",
     "ArenasPublic",
+    "CorrespondencePublic",
+    "CorrespondenceRowPublic",
     "Health",
+    "JobDetail",
     "JobPublic",
+    "JobsPublic",
+    "LocalCorrespondencePublic",
+    "LocalCorrespondenceRowPublic",
     "MarkerRoles",
     "MarkerSetCreate",
     "MarkerSetPublic",
     "MarkerSetsPublic",
     "Page",
+    "ProfileCreate",
+    "ProfileCreated",
+    "ProfilePublic",
+    "ProfilesPublic",
+    "RescorePublic",
+    "RescoreRequest",
     "ScanPublic",
     "ScanUploadMeta",
     "ScansPublic",
+    "ScoreRowPublic",
+    "ScoresPublic",
     "SubjectCreate",
     "SubjectPublic",
     "SubjectsPublic",
@@ -358,3 +372,167 @@ class TokenCreated(TokenPublic):
 
 
 TokensPublic = Page[TokenPublic]
+
+
+# -- profiles, jobs, scores (scoring pipeline) ------------------------------------------------
+class ProfileCreate(_In):
+    """A new version of analysis profile ``name``: sections of overrides onto the defaults."""
+
+    name: str = Field(min_length=1, max_length=200, examples=["fine-grid"])
+    parameters: dict[str, dict[str, Any]] = Field(
+        default_factory=dict,
+        description="Overrides by section: movement, terrain, heightmap. Unnamed parameters "
+        "take today's defaults; the stored profile holds every parameter.",
+        examples=[{"heightmap": {"cell_m": 0.0005}, "movement": {"rqa_recurrence_rate": 0.03}}],
+    )
+
+
+class ProfilePublic(_Out):
+    id: int
+    name: str
+    version: int
+    hash: str = Field(description="sha256 of the canonical JSON of the parameters.")
+    parameters: dict[str, Any]
+    created_at: datetime | None = None
+
+
+class ProfileCreated(ProfilePublic):
+    created: bool = Field(description="False when the parameters equal the latest version's.")
+
+
+ProfilesPublic = Page[ProfilePublic]
+
+
+class JobDetail(JobPublic):
+    """A job with its profile hash, attempt budget and lease."""
+
+    profile_hash: str | None = Field(
+        default=None, description="Profile the job scores under; null: the latest 'default'."
+    )
+    max_attempts: int = 3
+    lease_until: datetime | None = None
+    started_at: datetime | None = None
+    updated_at: datetime | None = None
+
+
+JobsPublic = Page[JobDetail]
+
+
+class RescoreRequest(_In):
+    """Which scans and trials to score again, and under which profile."""
+
+    profile: str = Field(default="default", min_length=1, max_length=200)
+    version: int | None = Field(default=None, ge=1, description="Null: the latest version.")
+    scan_ids: list[int] = []
+    trial_ids: list[int] = []
+    arena_ids: list[int] = Field(default=[], description="Every scan and trial of these arenas.")
+    all: bool = Field(default=False, description="Every scan and trial in the store.")
+
+    @model_validator(mode="after")
+    def _something_selected(self) -> RescoreRequest:
+        if not (self.all or self.scan_ids or self.trial_ids or self.arena_ids):
+            raise ValueError("select scan_ids, trial_ids, arena_ids, or set all=true")
+        return self
+
+
+class RescorePublic(BaseModel):
+    profile: ProfilePublic
+    job_ids: list[int]
+    count: int
+
+
+class ScoreRowPublic(_Out):
+    """One score with its target's context and the fields that make it reproducible."""
+
+    target_kind: str
+    target_id: int
+    arena_id: int | None = None
+    arena: str | None = None
+    subject_id: int | None = None
+    subject: str | None = None
+    condition: str | None = None
+    profile_hash: str
+    measure: str
+    value: float | None = None
+    unit: str = ""
+    ci_low: float | None = None
+    ci_high: float | None = None
+    surrogate_z: float | None = None
+    code_version: str
+    input_sha256: str
+    computed_at: datetime | None = None
+
+
+ScoresPublic = Page[ScoreRowPublic]
+
+
+# -- correspondence -----------------------------------------------------------------------------
+class CorrespondenceRowPublic(BaseModel):
+    """One terrain x movement pair. The first eleven fields are the contract; null = not
+    estimable (too few arenas or trials, a constant measure)."""
+
+    terrain_measure: str
+    movement_measure: str
+    slope: float | None = Field(description="Mixed-model slope, movement ~ terrain + (1|subject).")
+    ci_low: float | None = Field(description="Wald 95 % interval of the slope, lower end.")
+    ci_high: float | None = Field(description="Wald 95 % interval of the slope, upper end.")
+    p_value: float | None = Field(description="Arena-level permutation p-value (two-sided).")
+    q_value: float | None = Field(description="Benjamini-Hochberg q-value across the grid.")
+    spearman_rho: float | None = Field(description="Spearman rho of arena terrain and means.")
+    n_arenas: int
+    n_subjects: int
+    n_trials: int
+    spearman_ci_low: float | None = None
+    spearman_ci_high: float | None = None
+    mixed_p_value: float | None = Field(default=None, description="Wald p of the mixed model.")
+
+
+class CorrespondencePublic(BaseModel):
+    """The correspondence report: rows, warnings and study counts (contract), plus the
+    multivariate summary and the shared complexity-entropy plane."""
+
+    rows: list[CorrespondenceRowPublic]
+    warnings: list[str]
+    n_arenas: int
+    n_subjects: int
+    n_trials: int
+    profile: dict[str, Any]
+    scans: Literal["latest", "mean"]
+    n_permutations: int
+    exact_permutations: bool
+    terrain_measures: list[str]
+    movement_measures: list[str]
+    arenas: list[dict[str, Any]]
+    multivariate: dict[str, Any]
+    plane: dict[str, Any]
+
+
+class LocalCorrespondenceRowPublic(BaseModel):
+    """One patch measure x window movement measure pair, across trials."""
+
+    terrain_measure: str
+    movement_measure: str
+    slope: float | None = Field(description="Mixed-model slope, windows nested in trials.")
+    ci_low: float | None
+    ci_high: float | None
+    p_value: float | None = Field(description="Torus-translation (cyclic-shift) p-value.")
+    mixed_p_value: float | None
+    statistic: float | None
+    rho_within_median: float | None
+    n_trials: int
+    n_windows: int
+
+
+class LocalCorrespondencePublic(BaseModel):
+    """Window-level movement measures against the terrain patch under the animal."""
+
+    profile: dict[str, Any]
+    window_s: float
+    rows: list[LocalCorrespondenceRowPublic]
+    within_trial: list[dict[str, Any]]
+    trials: list[dict[str, Any]]
+    warnings: list[str]
+    n_trials: int
+    n_windows: int
+    n_permutations: int
+    method: str

@@ -2,7 +2,20 @@
 
 from __future__ import annotations
 
-from service.routes import arenas, jobs, marker_sets, scans, subjects, tokens, trials, uploads
+from service.routes import (
+    arenas,
+    correspondence,
+    jobs,
+    marker_sets,
+    profiles,
+    report,
+    scans,
+    scores,
+    subjects,
+    tokens,
+    trials,
+    uploads,
+)
 
 __all__ = ["ROUTERS"]
 
@@ -14,5 +27,9 @@ ROUTERS = [
     trials.router,
     uploads.router,
     jobs.router,
+    profiles.router,
+    scores.router,
     tokens.router,
+    correspondence.router,
+    report.router,
 ]

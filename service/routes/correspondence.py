@@ -1,0 +1,164 @@
+"""Correspondence: how terrain measures relate to movement measures across arenas."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from fastapi import APIRouter, Query, Request
+from fastapi.responses import PlainTextResponse
+from starlette.concurrency import run_in_threadpool
+
+from service.correspondence import Selection, correspondence_report, rows_csv
+from service.correspondence_local import local_report
+from service.deps import ReadToken
+from service.schemas import CorrespondencePublic, LocalCorrespondencePublic
+
+router = APIRouter(tags=["correspondence"])
+
+IntList = Annotated[list[int], Query()]
+TextList = Annotated[list[str], Query()]
+Permutations = Annotated[int, Query(ge=99, le=99_999, description="Arena permutations.")]
+Boot = Annotated[int, Query(ge=99, le=99_999, description="Hierarchical bootstrap replicates.")]
+Scans = Annotated[
+    Literal["latest", "mean"],
+    Query(description="Several scans of one arena: the latest scored one, or their mean."),
+]
+CSV_RESPONSE: dict[int | str, dict[str, Any]] = {
+    200: {"content": {"text/csv": {}}, "description": "JSON, or CSV rows with format=csv."}
+}
+
+
+def _texts(values: list[str]) -> tuple[str, ...]:
+    # Accept repeated parameters and comma-separated lists alike.
+    return tuple(v.strip() for item in values for v in item.split(",") if v.strip())
+
+
+def _selection(
+    arena_id: list[int],
+    subject_id: list[int],
+    condition: list[str],
+    trial_id: list[int],
+    terrain_measure: list[str],
+    movement_measure: list[str],
+    scans: str,
+) -> Selection:
+    return Selection(
+        arena_ids=tuple(arena_id),
+        subject_ids=tuple(subject_id),
+        conditions=_texts(condition),
+        trial_ids=tuple(trial_id),
+        terrain_measures=_texts(terrain_measure),
+        movement_measures=_texts(movement_measure),
+        scans=scans,
+    )
+
+
+@router.get("/correspondence", response_model=CorrespondencePublic, responses=CSV_RESPONSE)
+async def get_correspondence(
+    request: Request,
+    token: ReadToken,
+    profile: str,
+    version: int | None = None,
+    format: Literal["json", "csv"] = "json",
+    arena_id: IntList = [],  # noqa: B006 (FastAPI copies query defaults)
+    subject_id: IntList = [],  # noqa: B006
+    condition: TextList = [],  # noqa: B006
+    trial_id: IntList = [],  # noqa: B006
+    terrain_measure: TextList = [],  # noqa: B006
+    movement_measure: TextList = [],  # noqa: B006
+    scans: Scans = "latest",
+    n_permutations: Permutations = 9999,
+    n_boot: Boot = 1999,
+    seed: int = 0,
+) -> Any:
+    """Mixed model, arena permutation test, bootstrap Spearman and BH for every measure pair."""
+    selection = _selection(
+        arena_id, subject_id, condition, trial_id, terrain_measure, movement_measure, scans
+    )
+
+    def compute() -> dict[str, Any]:
+        with request.app.state.sessionmaker() as session:
+            return correspondence_report(
+                session=session,
+                profile=profile,
+                version=version,
+                selection=selection,
+                n_permutations=n_permutations,
+                n_boot=n_boot,
+                seed=seed,
+            )
+
+    report = await run_in_threadpool(compute)
+    if format == "csv":
+        return PlainTextResponse(rows_csv(report["rows"]), media_type="text/csv")
+    return report
+
+
+async def _local(request: Request, **kwargs: Any) -> dict[str, Any]:
+    def compute() -> dict[str, Any]:
+        with request.app.state.sessionmaker() as session:
+            return local_report(session=session, store=request.app.state.store, **kwargs)
+
+    return await run_in_threadpool(compute)
+
+
+WindowS = Annotated[float, Query(gt=0, le=600, description="Window length (s), no overlap.")]
+MarginM = Annotated[
+    float | None,
+    Query(ge=0, description="Patch margin around the path (m); default body length / 4."),
+]
+LocalPermutations = Annotated[int, Query(ge=99, le=99_999, description="Cyclic-shift draws.")]
+
+
+@router.get("/correspondence/local", response_model=LocalCorrespondencePublic)
+async def get_local_correspondence(
+    request: Request,
+    token: ReadToken,
+    profile: str,
+    version: int | None = None,
+    arena_id: IntList = [],  # noqa: B006
+    subject_id: IntList = [],  # noqa: B006
+    condition: TextList = [],  # noqa: B006
+    trial_id: IntList = [],  # noqa: B006
+    window_s: WindowS = 2.0,
+    margin_m: MarginM = None,
+    n_permutations: LocalPermutations = 999,
+    seed: int = 0,
+) -> Any:
+    """Window-level movement complexity against the terrain patch under the animal."""
+    selection = _selection(arena_id, subject_id, condition, trial_id, [], [], "latest")
+    return await _local(
+        request,
+        profile=profile,
+        version=version,
+        selection=selection,
+        window_s=window_s,
+        margin_m=margin_m,
+        n_permutations=n_permutations,
+        seed=seed,
+    )
+
+
+@router.get("/trials/{trial_id}/local-correspondence", response_model=LocalCorrespondencePublic)
+async def get_trial_local_correspondence(
+    trial_id: int,
+    request: Request,
+    token: ReadToken,
+    profile: str,
+    version: int | None = None,
+    window_s: WindowS = 2.0,
+    margin_m: MarginM = None,
+    n_permutations: LocalPermutations = 999,
+    seed: int = 0,
+) -> Any:
+    """Local correspondence of one overground trial (within-trial Spearman per window pair)."""
+    return await _local(
+        request,
+        profile=profile,
+        version=version,
+        trial_ids=[trial_id],
+        window_s=window_s,
+        margin_m=margin_m,
+        n_permutations=n_permutations,
+        seed=seed,
+    )

@@ -1,0 +1,279 @@
+"""Correspondence assembled from score rows in the database, over HTTP.
+
+References: statsmodels MixedLM (REML) fitted directly on the assembled table; statsmodels
+CanCorr for the canonical correlation; the design effect (true slope) is invented for the
+check only.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from _testing import assert_allclose
+from fastapi.testclient import TestClient
+from statsmodels.multivariate.cancorr import CanCorr
+
+from measures._types import Score
+from measures.correspondence_multi import first_canonical_correlation
+from service.app import create_app
+from service.correspondence import CONTRACT_FIELDS, Selection, load_study
+from service.settings import get_settings
+from storage import repo
+from storage.models import Scan, Trial
+
+ROLES = {"anterior": "snout", "posterior": "tail", "feet": {"LF": "lf", "RF": "rf", "LH": "lh"}}
+TRUE_SLOPE = 0.8
+
+
+def _sha(*parts: object) -> str:
+    return hashlib.sha256(repr(parts).encode()).hexdigest()
+
+
+class Study:
+    """An isolated app holding a synthetic crossed study as score rows."""
+
+    def __init__(self, tmp_path: Path) -> None:
+        self.app = create_app(get_settings(data_dir=tmp_path / "data", workers=0))
+        self.sm = self.app.state.sessionmaker
+        with self.sm() as s:
+            _, secret = repo.create_token(session=s, scopes=["read"], label="t")
+            self.profile, _ = repo.create_profile(session=s, name="default", parameters={"a": 1})
+        self.client = TestClient(self.app, headers={"Authorization": f"Bearer {secret}"})
+
+    def arena(self, name: str) -> int:
+        with self.sm() as s:
+            return repo.create_arena(session=s, name=name, kind="runway").id
+
+    def subject(self, label: str) -> int:
+        with self.sm() as s:
+            return repo.create_subject(session=s, label=label, marker_roles=ROLES).id
+
+    def scan(self, arena_id: int, scores: dict[str, float], *, captured_at=None, z=None) -> int:
+        with self.sm() as s:
+            row = Scan(
+                arena_id=arena_id,
+                sha256=_sha("scan", arena_id, captured_at, scores),
+                format="npy",
+                kind="heightmap",
+                units="m",
+                size_bytes=1,
+                captured_at=captured_at,
+            )
+            s.add(row)
+            s.commit()
+            items = [
+                Score(k, v, "1", surrogate_z=None if z is None else z) for k, v in scores.items()
+            ]
+            repo.save_scores(
+                session=s,
+                target_kind="scan",
+                target_id=row.id,
+                profile_hash=self.profile.hash,
+                scores=items,
+                code_version="test",
+                input_sha256=row.sha256,
+            )
+            return row.id
+
+    def trial(self, arena_id: int, subject_id: int, scores: dict[str, float], condition="") -> int:
+        with self.sm() as s:
+            row = Trial(
+                arena_id=arena_id,
+                subject_id=subject_id,
+                sha256=_sha("trial", arena_id, subject_id, scores, condition),
+                format="csv",
+                units="m",
+                size_bytes=1,
+                frame_rate_hz=300.0,
+                n_frames=10,
+                n_markers=5,
+                marker_names=["snout", "tail", "lf", "rf", "lh"],
+                condition=condition,
+            )
+            s.add(row)
+            s.commit()
+            repo.save_scores(
+                session=s,
+                target_kind="trial",
+                target_id=row.id,
+                profile_hash=self.profile.hash,
+                scores=[Score(k, v, "1") for k, v in scores.items()],
+                code_version="test",
+                input_sha256=row.sha256,
+            )
+            return row.id
+
+    def get(self, **params):
+        res = self.client.get("/v1/correspondence", params={"profile": "default", **params})
+        assert res.status_code == 200, res.text
+        return res
+
+
+def _populate(study: Study, rng, *, n_arenas=8, n_subjects=4, trials=2, slope=TRUE_SLOPE):
+    """Crossed design: roughness drives rqa_det; subjects have random offsets (invented)."""
+    roughness = np.linspace(0.1, 1.5, n_arenas)
+    arenas = [study.arena(f"tray {k}") for k in range(n_arenas)]
+    subjects = [study.subject(f"M{k}") for k in range(n_subjects)]
+    offsets = rng.normal(0.0, 1.0, n_subjects)
+    for a, sq in zip(arenas, roughness, strict=True):
+        study.scan(a, {"sq_m": sq, "sdr": rng.uniform(0, 1)})
+        for s, off in zip(subjects, offsets, strict=True):
+            for k in range(trials):
+                y = 1.0 + slope * sq + off + rng.normal(0, 0.3)
+                study.trial(
+                    a,
+                    s,
+                    {"rqa_det": y, "sample_entropy": rng.normal()},
+                    condition="lit" if k == 0 else "dark",
+                )
+    return arenas, subjects, roughness
+
+
+@pytest.fixture
+def study(tmp_path: Path) -> Study:
+    return Study(tmp_path)
+
+
+def test_known_effect_json_contract_and_statsmodels(study, rng):
+    _populate(study, rng)
+    body = study.get(n_permutations=999, n_boot=199).json()
+    assert (body["n_arenas"], body["n_subjects"], body["n_trials"]) == (8, 4, 64)
+    rows = {(r["terrain_measure"], r["movement_measure"]): r for r in body["rows"]}
+    assert len(rows) == 4  # 2 terrain x 2 movement measures
+    for r in body["rows"]:
+        assert set(CONTRACT_FIELDS) <= set(r)
+    row = rows[("sq_m", "rqa_det")]
+    assert row["ci_low"] < TRUE_SLOPE < row["ci_high"]
+    # 8 arenas, 999 random permutations: the smallest Monte Carlo p is 1/1000.
+    assert row["p_value"] < 0.01
+    # Reference: statsmodels MixedLM (REML) on the table the service assembled.
+    with study.sm() as s:
+        table = load_study(
+            session=s, profile_hash=study.profile.hash, selection=Selection()
+        ).analysis_table()
+    ref = sm.MixedLM(
+        table["rqa_det"], sm.add_constant(table["sq_m"]), groups=table["subject_id"]
+    ).fit(reml=True)
+    # Same REML surface, different optimisers: 1e-4 relative (as in test_correspondence).
+    assert_allclose(row["slope"], ref.fe_params["sq_m"], rtol=1e-4)
+    assert_allclose(row["ci_high"] - row["ci_low"], 2 * 1.959964 * ref.bse_fe["sq_m"], rtol=1e-3)
+    assert body["plane"]["bounds"]["terrain"]["n_patterns"] == 24  # (2 x 2)! default patch
+    assert body["multivariate"]["n_arenas"] == 8
+
+
+def test_csv_equals_json(study, rng):
+    _populate(study, rng, n_arenas=5, n_subjects=3, trials=1)
+    params = {"n_permutations": 99, "n_boot": 99}
+    rows = pd.DataFrame(study.get(**params).json()["rows"])
+    res = study.get(format="csv", **params)
+    assert res.headers["content-type"].startswith("text/csv")
+    csv = pd.read_csv(io.StringIO(res.text))
+    assert list(csv.columns[: len(CONTRACT_FIELDS)]) == list(CONTRACT_FIELDS)
+    pd.testing.assert_frame_equal(csv[rows.columns], rows.astype(csv[rows.columns].dtypes))
+
+
+def test_latest_and_mean_scans(study):
+    a = study.arena("two scans")
+    now = datetime(2026, 1, 1, tzinfo=UTC)
+    study.scan(a, {"sq_m": 1.0}, captured_at=now)
+    study.scan(a, {"sq_m": 3.0}, captured_at=now + timedelta(days=1))
+    study.trial(a, study.subject("M0"), {"rqa_det": 0.5})
+    with study.sm() as s:
+        latest = load_study(session=s, profile_hash=study.profile.hash, selection=Selection())
+        mean = load_study(
+            session=s, profile_hash=study.profile.hash, selection=Selection(scans="mean")
+        )
+    assert latest.arenas.loc[a, "sq_m"] == 3.0  # the later capture
+    assert mean.arenas.loc[a, "sq_m"] == 2.0  # (1 + 3) / 2
+    assert (latest.arenas.loc[a, "n_scans"], mean.arenas.loc[a, "n_scans"]) == (1, 2)
+
+
+def test_selection_filters(study, rng):
+    arenas, subjects, _ = _populate(study, rng, n_arenas=6, n_subjects=3, trials=2)
+    params = {"n_permutations": 99, "n_boot": 99}
+    body = study.get(
+        arena_id=arenas[:5],
+        subject_id=subjects[:2],
+        condition="lit",
+        terrain_measure="sq_m",
+        movement_measure="rqa_det",
+        **params,
+    ).json()
+    assert (body["n_arenas"], body["n_subjects"], body["n_trials"]) == (5, 2, 10)
+    assert [(r["terrain_measure"], r["movement_measure"]) for r in body["rows"]] == [
+        ("sq_m", "rqa_det")
+    ]
+    bad = study.client.get(
+        "/v1/correspondence", params={"profile": "default", "terrain_measure": "nope"}
+    )
+    assert bad.status_code == 400 and "nope" in bad.json()["detail"]
+    assert study.client.get("/v1/correspondence", params={"profile": "none"}).status_code == 404
+
+
+def test_design_warnings(study, rng):
+    # 3 arenas, 2 subjects, each subject in its own arenas (confounded), a constant measure.
+    a = [study.arena(f"a{k}") for k in range(3)]
+    s = [study.subject(f"S{k}") for k in range(2)]
+    for k, arena in enumerate(a):
+        study.scan(arena, {"sq_m": float(k), "sdr": rng.uniform(), "flat": 1.0}, z=0.5)
+        for _ in range(3):
+            study.trial(arena, s[0] if k < 2 else s[1], {"rqa_det": rng.normal(), "same": 2.0})
+    text = " ".join(study.get(n_permutations=99, n_boot=99).json()["warnings"])
+    assert "Only 3 arenas" in text
+    assert "Only 2 subjects" in text
+    assert "'flat' is the same in every arena" in text
+    assert "'same' has zero variance" in text
+    assert "no structure for 'flat'" in text  # surrogate z = 0.5 in every scan
+    assert "meaningless" in text  # canonical correlation with n_arenas <= variables
+
+
+def test_confounded_subject_and_arena(study, rng):
+    for k in range(5):
+        arena = study.arena(f"a{k}")
+        study.scan(arena, {"sq_m": float(k)})
+        subject = study.subject(f"S{k}")
+        for _ in range(2):
+            study.trial(arena, subject, {"rqa_det": rng.normal()})
+    text = " ".join(study.get(n_permutations=99, n_boot=99).json()["warnings"])
+    assert "confounded" in text
+
+
+def test_missing_values_use_complete_pairs(study, rng):
+    arenas, _, _ = _populate(study, rng, n_arenas=6, n_subjects=3, trials=1)
+    with study.sm() as s:
+        trial = repo.list_trials(session=s, arena_id=arenas[0])[0][0]
+        repo.save_scores(
+            session=s,
+            target_kind="trial",
+            target_id=trial.id,
+            profile_hash=study.profile.hash,
+            scores=[Score("sample_entropy", float("nan"), "1")],
+            code_version="t",
+            input_sha256="x",
+        )
+    rows = study.get(n_permutations=99, n_boot=99).json()["rows"]
+    n = {(r["terrain_measure"], r["movement_measure"]): r["n_trials"] for r in rows}
+    assert n[("sq_m", "rqa_det")] == 18 and n[("sq_m", "sample_entropy")] == 17
+
+
+def test_canonical_correlation_matches_statsmodels(rng):
+    # Reference: statsmodels CanCorr (Hotelling 1936), first canonical correlation.
+    x = rng.normal(size=(40, 3))
+    y = np.column_stack([x[:, 0] + 0.5 * rng.normal(size=40), rng.normal(size=(40, 1))])
+    ours = first_canonical_correlation(x, y, n_permutations=999)
+    assert_allclose(ours.correlation, CanCorr(y, x).cancorr[0], rtol=1e-10)
+    variate_x = ((x - x.mean(0)) / x.std(0)) @ ours.x_weights
+    variate_y = ((y - y.mean(0)) / y.std(0)) @ ours.y_weights
+    assert_allclose(np.corrcoef(variate_x, variate_y)[0, 1], ours.correlation, rtol=1e-10)
+    assert ours.p_value < 0.01 and not ours.degenerate
+    # One variable per block: |Pearson r| (analytic).
+    r = np.corrcoef(x[:, 0], y[:, 0])[0, 1]
+    assert_allclose(first_canonical_correlation(x[:, 0], y[:, 0]).correlation, abs(r))
+    assert first_canonical_correlation(x[:4], y[:4]).degenerate
