@@ -1,0 +1,170 @@
+"""Benchmarks of the shared information-theoretic estimators.
+
+Run ``python bench/bench_information.py [section ...]``; with no argument every
+section runs. Each section prints the median of a few repeats of our function
+and, where a general-purpose library does the same job, its median and the
+ratio (reference / ours, > 1 means we are faster). Machines are shared and
+noisy: read the ratios, not the digits.
+
+Sections are plain functions registered in ``SECTIONS``; add new ones at the
+bottom (one function per family of estimators).
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from collections.abc import Callable
+
+import numpy as np
+
+
+def _median_seconds(fn: Callable[[], object], repeats: int = 5) -> float:
+    fn()  # warm-up (JIT compilation, caches)
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times))
+
+
+def _report(label: str, ours: float, reference: float | None = None, ref_name: str = "") -> None:
+    line = f"  {label:<50s} ours {ours * 1e3:9.1f} ms"
+    if reference is not None:
+        line += f" | {ref_name} {reference * 1e3:9.1f} ms | ratio {reference / ours:6.2f}"
+    print(line)
+
+
+# ---------------------------------------------------------------- symbolic / entropy / ordinal
+
+
+def bench_symbolic_entropy_ordinal() -> None:
+    """Ordinal patterns, block entropies, LZ76 and 2D entropy density."""
+    import antropy
+    import ordpy
+
+    from measures import (
+        block_entropies,
+        complexity_entropy,
+        entropy_density_2d,
+        lz76_complexity,
+        quantile_symbols,
+    )
+
+    rng = np.random.default_rng(0)
+    series = rng.normal(size=90_000)
+    field = rng.normal(size=(2048, 2048))
+    coin = rng.integers(0, 2, size=90_000)
+    print("symbolic / entropy / ordinal")
+
+    ours = _median_seconds(lambda: complexity_entropy(series, order=5))
+    ref = _median_seconds(lambda: ordpy.complexity_entropy(series, dx=5))
+    _report("complexity_entropy, 90k series, D=5", ours, ref, "ordpy")
+
+    small = field[:512, :512]
+    ours = _median_seconds(lambda: complexity_entropy(small, order=(2, 2)))
+    ref = _median_seconds(lambda: ordpy.complexity_entropy(small, dx=2, dy=2), repeats=3)
+    _report("complexity_entropy, 512x512 field, 2x2", ours, ref, "ordpy")
+
+    ours = _median_seconds(lambda: complexity_entropy(field, order=(2, 2)), repeats=3)
+    _report("complexity_entropy, 2048x2048 field, 2x2", ours)
+
+    ours = _median_seconds(lambda: block_entropies(coin))
+    _report("block_entropies, 90k binary, default L", ours)
+
+    binned = quantile_symbols(field, n_bins=2)
+    ours = _median_seconds(lambda: entropy_density_2d(binned), repeats=3)
+    _report("entropy_density_2d, 2048x2048 binary, default M", ours)
+
+    ours = _median_seconds(lambda: lz76_complexity(coin), repeats=3)
+    ref = _median_seconds(lambda: antropy.lziv_complexity(coin), repeats=3)
+    _report("lz76_complexity, 90k binary", ours, ref, "antropy")
+
+
+# ---------------------------------------------------------------- causal, sampen, MI, surrogates
+
+
+def _golden_mean(n: int, seed: int = 0) -> np.ndarray:
+    # Golden-mean process (no "00"): after a 0 always 1; after a 1 a fair coin.
+    u = np.random.default_rng(seed).random(n)
+    out = np.empty(n, dtype=np.int64)
+    prev = 1
+    for i in range(n):
+        prev = 1 if prev == 0 else int(u[i] < 0.5)
+        out[i] = prev
+    return out
+
+
+def bench_causal_sampen_mi_surrogates() -> None:
+    """CSSR, two-part code, sample/multiscale entropy, KSG MI and surrogates."""
+    import antropy
+    from sklearn.feature_selection import mutual_info_regression
+
+    from measures import (
+        causal_states,
+        iaaft_surrogate,
+        ksg_mutual_information,
+        multiscale_entropy,
+        phase_surrogate,
+        sample_entropy,
+        two_part_code,
+    )
+
+    rng = np.random.default_rng(0)
+    golden = _golden_mean(90_000)
+    series = rng.normal(size=90_000)
+    short = series[:20_000]
+    print("causal / description / sampen / mutual information / surrogates")
+
+    ours = _median_seconds(lambda: causal_states(golden, max_history=6), repeats=3)
+    _report("causal_states, 90k golden mean, L=6", ours)
+    ours = _median_seconds(lambda: causal_states(golden), repeats=3)
+    _report("causal_states, 90k golden mean, default L (9)", ours)
+    machine = causal_states(golden)
+    ours = _median_seconds(lambda: two_part_code(golden, machine=machine), repeats=3)
+    _report("two_part_code, 90k, machine given", ours)
+
+    ours = _median_seconds(lambda: sample_entropy(short), repeats=3)
+    ref = _median_seconds(lambda: antropy.sample_entropy(short), repeats=3)
+    _report("sample_entropy, 20k, m=2", ours, ref, "antropy")
+    ours = _median_seconds(lambda: sample_entropy(series), repeats=3)
+    _report("sample_entropy, 90k, m=2", ours)
+    ours = _median_seconds(lambda: multiscale_entropy(series), repeats=3)
+    _report("multiscale_entropy, 90k, scales 1..20", ours)
+
+    x = series[:20_000]
+    y = x + rng.normal(size=x.size)
+    ours = _median_seconds(lambda: ksg_mutual_information(x, y), repeats=3)
+    ref = _median_seconds(
+        lambda: mutual_info_regression(x[:, None], y, n_neighbors=3, random_state=0), repeats=3
+    )
+    _report("ksg_mutual_information, 20k, k=3", ours, ref, "scikit-learn")
+
+    ours = _median_seconds(lambda: iaaft_surrogate(series[:4096] ** 3, seed=1), repeats=3)
+    _report("iaaft_surrogate, 4096 samples, defaults (<=200 it.)", ours)
+    field = rng.normal(size=(256, 256)) ** 2
+    ours = _median_seconds(lambda: iaaft_surrogate(field, seed=1), repeats=3)
+    _report("iaaft_surrogate, 256x256 field, defaults (<=200 it.)", ours)
+    big = rng.normal(size=(1024, 1024))
+    ours = _median_seconds(lambda: phase_surrogate(big, seed=1), repeats=3)
+    _report("phase_surrogate, 1024x1024 field", ours)
+
+
+SECTIONS: dict[str, Callable[[], None]] = {
+    "symbolic": bench_symbolic_entropy_ordinal,
+    "causal": bench_causal_sampen_mi_surrogates,
+}
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Run the named sections (all when none are given)."""
+    names = (sys.argv[1:] if argv is None else argv) or list(SECTIONS)
+    for name in names:
+        if name not in SECTIONS:
+            raise SystemExit(f"unknown section {name!r}; choose from {sorted(SECTIONS)}")
+        SECTIONS[name]()
+
+
+if __name__ == "__main__":
+    main()
