@@ -51,6 +51,22 @@ class Settings(BaseSettings):
         description="Address of a Dask distributed scheduler (tcp://host:port). When set, jobs "
         "run on that cluster instead of the local worker processes.",
     )
+    job_runner: bool = Field(
+        default=True,
+        description="Run scoring jobs in a background thread of the server process. False "
+        "leaves jobs queued (for tests, or when a separate runner process serves the queue).",
+    )
+    job_lease_s: float = Field(
+        default=300.0,
+        gt=0,
+        description="Seconds a claimed job stays reserved without a heartbeat (the runner "
+        "renews it every third of this). A job whose runner died is retried once it expires.",
+    )
+    job_poll_s: float = Field(
+        default=1.0,
+        gt=0,
+        description="Seconds the idle job runner waits between looks at the job queue.",
+    )
     cors_origins: Annotated[list[str], NoDecode] = Field(
         default_factory=list,
         description="Browser origins allowed to call the API cross-site, comma-separated "

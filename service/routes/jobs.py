@@ -1,17 +1,66 @@
-"""Jobs: the scoring work queued for each new upload."""
+"""Jobs: the scoring work queued for each upload, and re-scoring under any profile."""
 
 from __future__ import annotations
 
-from fastapi import APIRouter
+from typing import Literal
 
-from service.deps import ReadToken, SessionDep
-from service.schemas import JobPublic
+from fastapi import APIRouter, status
+
+from service.deps import AnalyseToken, ReadToken, SessionDep
+from service.pipeline import SCORE_JOB_KIND
+from service.routes.arenas import Limit, Offset
+from service.schemas import (
+    JobDetail,
+    JobsPublic,
+    ProfilePublic,
+    RescorePublic,
+    RescoreRequest,
+)
 from storage import repo
+from storage.repo.jobs import enqueue_jobs, select_targets
 
 router = APIRouter(prefix="/jobs", tags=["jobs"])
 
+JobState = Literal["queued", "running", "done", "failed"]
+
+
+@router.get("")
+def list_jobs(
+    session: SessionDep,
+    token: ReadToken,
+    state: JobState | None = None,
+    target_kind: Literal["scan", "trial"] | None = None,
+    target_id: int | None = None,
+    offset: Offset = 0,
+    limit: Limit = 100,
+) -> JobsPublic:
+    """List jobs, oldest first, filtered by state and target."""
+    rows, count = repo.list_jobs(
+        session=session, state=state, target_kind=target_kind, target_id=target_id,
+        offset=offset, limit=limit,
+    )  # fmt: skip
+    return JobsPublic(data=[JobDetail.model_validate(r) for r in rows], count=count)
+
+
+@router.post("/rescore", status_code=status.HTTP_202_ACCEPTED)
+def rescore(body: RescoreRequest, session: SessionDep, token: AnalyseToken) -> RescorePublic:
+    """Queue scoring of the selected scans and trials under a profile version."""
+    profile = repo.get_profile(session=session, name=body.profile, version=body.version)
+    targets = select_targets(
+        session=session, scan_ids=body.scan_ids, trial_ids=body.trial_ids,
+        arena_ids=body.arena_ids, everything=body.all,
+    )  # fmt: skip
+    jobs = enqueue_jobs(
+        session=session, kind=SCORE_JOB_KIND, targets=targets, profile_hash=profile.hash
+    )
+    return RescorePublic(
+        profile=ProfilePublic.model_validate(profile),
+        job_ids=[int(j.id) for j in jobs],
+        count=len(jobs),
+    )
+
 
 @router.get("/{job_id}")
-def get_job(job_id: int, session: SessionDep, token: ReadToken) -> JobPublic:
+def get_job(job_id: int, session: SessionDep, token: ReadToken) -> JobDetail:
     """A job's state, progress, message and error."""
-    return JobPublic.model_validate(repo.get_job(session=session, job_id=job_id))
+    return JobDetail.model_validate(repo.get_job(session=session, job_id=job_id))

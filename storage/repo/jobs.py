@@ -8,18 +8,21 @@ from datetime import timedelta
 from sqlalchemy import and_, or_, select, update
 from sqlalchemy.orm import Session
 
-from storage.errors import BadInput, Conflict
-from storage.models import JOB_STATES, TARGET_KINDS, Job, utcnow
+from storage.errors import BadInput, Conflict, NotFound
+from storage.models import JOB_STATES, TARGET_KINDS, Job, Scan, Trial, utcnow
 from storage.repo._common import get_or_404, need_text, paginate
 
 __all__ = [
     "claim_job",
     "enqueue_job",
+    "enqueue_jobs",
     "fail_job",
     "finish_job",
     "get_job",
     "latest_job",
     "list_jobs",
+    "release_job",
+    "select_targets",
     "update_job",
 ]
 
@@ -88,14 +91,30 @@ def latest_job(*, session: Session, target_kind: str, target_id: int) -> Job | N
 
 
 def list_jobs(
-    *, session: Session, state: str | None = None, offset: int = 0, limit: int = 100
+    *,
+    session: Session,
+    state: str | None = None,
+    kind: str | None = None,
+    target_kind: str | None = None,
+    target_id: int | None = None,
+    profile_hash: str | None = None,
+    offset: int = 0,
+    limit: int = 100,
 ) -> tuple[list[Job], int]:
-    """Jobs by id, optionally in one state."""
+    """Jobs by id, optionally in one state, of one kind, for one target or profile hash."""
     stmt = select(Job).order_by(Job.id)
     if state is not None:
         if state not in JOB_STATES:
             raise BadInput(f"state must be one of {JOB_STATES}, got {state!r}")
         stmt = stmt.where(Job.state == state)
+    if kind is not None:
+        stmt = stmt.where(Job.kind == kind)
+    if target_kind is not None:
+        stmt = stmt.where(Job.target_kind == target_kind)
+    if target_id is not None:
+        stmt = stmt.where(Job.target_id == target_id)
+    if profile_hash is not None:
+        stmt = stmt.where(Job.profile_hash == profile_hash)
     return paginate(session, stmt, offset=offset, limit=limit)
 
 
@@ -184,3 +203,92 @@ def fail_job(*, session: Session, job_id: int, error: str) -> Job:
         job.state, job.message, job.finished_at = "failed", "failed", utcnow()
     session.commit()
     return job
+
+
+def release_job(*, session: Session, job_id: int, message: str = "released") -> Job:
+    """Hand a running job back to the queue without spending an attempt (graceful stop)."""
+    job = get_job(session=session, job_id=job_id)
+    if job.state != "running":
+        return job
+    job.state, job.message, job.lease_until = "queued", message, None
+    job.attempts = max(job.attempts - 1, 0)
+    session.commit()
+    return job
+
+
+def select_targets(
+    *,
+    session: Session,
+    scan_ids: Iterable[int] = (),
+    trial_ids: Iterable[int] = (),
+    arena_ids: Iterable[int] = (),
+    everything: bool = False,
+) -> list[tuple[str, int]]:
+    """``(target_kind, id)`` of the named scans and trials, of every scan and trial in the
+    named arenas, or of all of them; sorted, without repeats. Unknown ids -> NotFound."""
+    out: set[tuple[str, int]] = set()
+    for model, kind, ids in ((Scan, "scan", scan_ids), (Trial, "trial", trial_ids)):
+        wanted = {int(i) for i in ids}
+        found = (
+            set(session.scalars(select(model.id).where(model.id.in_(wanted)))) if wanted else set()
+        )
+        if wanted - found:
+            raise NotFound(kind, min(wanted - found))
+        out |= {(kind, i) for i in found}
+    arenas = {int(i) for i in arena_ids}
+    if arenas:
+        from storage.models import Arena
+
+        known = set(session.scalars(select(Arena.id).where(Arena.id.in_(arenas))))
+        if arenas - known:
+            raise NotFound("arena", min(arenas - known))
+    for model, kind in ((Scan, "scan"), (Trial, "trial")):
+        if everything:
+            out |= {(kind, i) for i in session.scalars(select(model.id))}
+        elif arenas:
+            stmt = select(model.id).where(model.arena_id.in_(arenas))
+            out |= {(kind, i) for i in session.scalars(stmt)}
+    return sorted(out)
+
+
+def enqueue_jobs(
+    *,
+    session: Session,
+    kind: str,
+    targets: Iterable[tuple[str, int]],
+    profile_hash: str | None = None,
+    max_attempts: int = 3,
+) -> list[Job]:
+    """``enqueue_job`` for many targets in one transaction (open jobs are reused)."""
+    kind = need_text(kind, name="kind", max_len=50)
+    if not isinstance(max_attempts, int) or max_attempts < 1:
+        raise BadInput(f"max_attempts must be an integer >= 1, got {max_attempts!r}")
+    targets = list(targets)
+    open_jobs = {
+        (j.target_kind, j.target_id): j
+        for j in session.scalars(
+            select(Job).where(
+                Job.kind == kind,
+                Job.profile_hash.is_(None)
+                if profile_hash is None
+                else Job.profile_hash == profile_hash,
+                Job.state.in_(("queued", "running")),
+            )
+        )
+    }
+    out = []
+    for target_kind, target_id in targets:
+        if target_kind not in TARGET_KINDS:
+            raise BadInput(f"target_kind must be one of {TARGET_KINDS}, got {target_kind!r}")
+        job = open_jobs.get((target_kind, target_id))
+        if job is None:
+            job = Job(
+                kind=kind, target_kind=target_kind, target_id=target_id,
+                profile_hash=profile_hash, max_attempts=max_attempts, state="queued",
+                progress=0.0, message="queued", attempts=0,
+            )  # fmt: skip
+            session.add(job)
+            open_jobs[(target_kind, target_id)] = job
+        out.append(job)
+    session.commit()
+    return out

@@ -5,23 +5,25 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import Select, and_, func, select
 from sqlalchemy.orm import Session
 
 from storage.errors import BadInput, NotFound
-from storage.models import TARGET_KINDS, Profile, Score, utcnow
+from storage.models import TARGET_KINDS, Arena, Profile, Scan, Score, Subject, Trial, utcnow
 from storage.repo._common import need_text, paginate
 
 __all__ = [
     "create_profile",
     "get_profile",
     "get_profile_by_hash",
+    "iter_score_rows",
     "list_profiles",
     "list_scores",
     "profile_hash",
+    "query_scores",
     "save_scores",
 ]
 
@@ -173,3 +175,118 @@ def list_scores(
     if measure is not None:
         stmt = stmt.where(Score.measure == measure)
     return paginate(session, stmt, offset=offset, limit=limit)
+
+
+#: Columns of a score row with its context, in export order.
+SCORE_ROW_COLUMNS = (
+    "target_kind", "target_id", "arena_id", "arena", "subject_id", "subject", "condition",
+    "profile_hash", "measure", "value", "unit", "ci_low", "ci_high", "surrogate_z",
+    "code_version", "input_sha256", "computed_at", "score_id",
+)  # fmt: skip
+
+
+def _score_rows_stmt(
+    *,
+    target_kind: str | None,
+    arena_id: int | None,
+    subject_id: int | None,
+    trial_id: int | None,
+    scan_id: int | None,
+    condition: str | None,
+    profile_hash: str | None,
+    measure: str | None,
+) -> Select[Any]:
+    arena_of = func.coalesce(Trial.arena_id, Scan.arena_id)
+    stmt = (
+        select(
+            Score.target_kind,
+            Score.target_id,
+            arena_of.label("arena_id"),
+            Arena.name.label("arena"),
+            Trial.subject_id.label("subject_id"),
+            Subject.label.label("subject"),
+            Trial.condition.label("condition"),
+            Score.profile_hash,
+            Score.measure,
+            Score.value,
+            Score.unit,
+            Score.ci_low,
+            Score.ci_high,
+            Score.surrogate_z,
+            Score.code_version,
+            Score.input_sha256,
+            Score.computed_at,
+            Score.id.label("score_id"),
+        )
+        .outerjoin(Trial, and_(Score.target_kind == "trial", Trial.id == Score.target_id))
+        .outerjoin(Scan, and_(Score.target_kind == "scan", Scan.id == Score.target_id))
+        .outerjoin(Arena, Arena.id == arena_of)
+        .outerjoin(Subject, Subject.id == Trial.subject_id)
+        .order_by(Score.id)
+    )
+    if target_kind is not None:
+        if target_kind not in TARGET_KINDS:
+            raise BadInput(f"target_kind must be one of {TARGET_KINDS}, got {target_kind!r}")
+        stmt = stmt.where(Score.target_kind == target_kind)
+    if trial_id is not None:
+        stmt = stmt.where(Score.target_kind == "trial", Score.target_id == trial_id)
+    if scan_id is not None:
+        stmt = stmt.where(Score.target_kind == "scan", Score.target_id == scan_id)
+    if arena_id is not None:
+        stmt = stmt.where(arena_of == arena_id)
+    if subject_id is not None:
+        stmt = stmt.where(Trial.subject_id == subject_id)
+    if condition is not None:
+        stmt = stmt.where(Trial.condition == condition)
+    if profile_hash is not None:
+        stmt = stmt.where(Score.profile_hash == profile_hash)
+    if measure is not None:
+        stmt = stmt.where(Score.measure == measure)
+    return stmt
+
+
+def query_scores(
+    *,
+    session: Session,
+    target_kind: str | None = None,
+    arena_id: int | None = None,
+    subject_id: int | None = None,
+    trial_id: int | None = None,
+    scan_id: int | None = None,
+    condition: str | None = None,
+    profile_hash: str | None = None,
+    measure: str | None = None,
+    offset: int = 0,
+    limit: int = 100,
+) -> tuple[list[dict[str, Any]], int]:
+    """Score rows with their arena, subject and condition (trial filters drop scan scores)."""
+    stmt = _score_rows_stmt(
+        target_kind=target_kind, arena_id=arena_id, subject_id=subject_id, trial_id=trial_id,
+        scan_id=scan_id, condition=condition, profile_hash=profile_hash, measure=measure,
+    )  # fmt: skip
+    if not isinstance(offset, int) or offset < 0:
+        raise BadInput(f"offset must be an integer >= 0, got {offset!r}")
+    if not isinstance(limit, int) or not 1 <= limit <= 1000:
+        raise BadInput(f"limit must be an integer in 1..1000, got {limit!r}")
+    count = session.scalar(select(func.count()).select_from(stmt.order_by(None).subquery()))
+    rows = [dict(r._mapping) for r in session.execute(stmt.offset(offset).limit(limit))]
+    return rows, int(count or 0)
+
+
+def iter_score_rows(
+    *, session: Session, batch: int = 2000, **filters: Any
+) -> Iterator[dict[str, Any]]:
+    """Every matching score row (as ``query_scores``), fetched ``batch`` rows at a time."""
+    stmt = _score_rows_stmt(**{k: filters.get(k) for k in (
+        "target_kind", "arena_id", "subject_id", "trial_id", "scan_id", "condition",
+        "profile_hash", "measure",
+    )})  # fmt: skip
+    last = 0
+    while True:
+        # Keyset pagination on the score id: stable while rows are being added.
+        chunk = list(session.execute(stmt.where(Score.id > last).limit(batch)))
+        if not chunk:
+            return
+        for row in chunk:
+            yield dict(row._mapping)
+        last = chunk[-1].score_id

@@ -1,0 +1,55 @@
+"""Scoring pipeline: profiles, compute tasks, executors, flows and the job runner.
+
+``start_job_runner(settings, resources)`` is what the app's lifespan calls; the demo and
+benchmarks build a :class:`JobRunner` themselves and call ``run_until_idle()``.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from service.pipeline.executors import DaskPool, LocalPool, make_executor
+from service.pipeline.flows import FLOWS, Compute, JobContext, scan_flow, trial_flow
+from service.pipeline.profiles import (
+    DEFAULT_PROFILE,
+    complete_parameters,
+    default_parameters,
+    ensure_default_profile,
+    resolve_profile,
+)
+from service.pipeline.runner import SCORE_JOB_KIND, JobRunner
+
+__all__ = [
+    "DEFAULT_PROFILE",
+    "FLOWS",
+    "SCORE_JOB_KIND",
+    "Compute",
+    "DaskPool",
+    "JobContext",
+    "JobRunner",
+    "LocalPool",
+    "complete_parameters",
+    "default_parameters",
+    "ensure_default_profile",
+    "make_executor",
+    "resolve_profile",
+    "scan_flow",
+    "start_job_runner",
+    "trial_flow",
+]
+
+
+def start_job_runner(settings: Any, resources: Any) -> JobRunner | None:
+    """Start the background runner unless jobs are off (``job_runner`` false, or no workers
+    and no Dask scheduler); the executor is built lazily inside the runner thread."""
+    if not settings.job_runner or (settings.workers < 1 and not settings.dask_scheduler):
+        return None
+    runner = JobRunner(
+        sessionmaker=resources.sessionmaker,
+        store=resources.store,
+        executor=lambda: make_executor(settings),
+        lease_s=settings.job_lease_s,
+        poll_s=settings.job_poll_s,
+    )
+    runner.start()
+    return runner

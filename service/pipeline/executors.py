@@ -1,0 +1,110 @@
+"""Executors: where compute tasks run. The same task functions run on both.
+
+``LocalPool`` wraps a ``ProcessPoolExecutor`` started with the "spawn" context: forking a
+process that holds threads (the server, the runner) and open3d/numba state is unsafe.
+``DaskPool`` submits to a ``distributed.Client``. Both return futures with ``done()``,
+``result()`` and ``add_done_callback``.
+"""
+
+from __future__ import annotations
+
+import logging
+import multiprocessing
+import time
+from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
+from typing import Any, Protocol
+
+from service.pipeline.tasks import warm_up
+
+__all__ = ["DaskPool", "Executor", "LocalPool", "make_executor"]
+
+log = logging.getLogger("gaitscape.jobs")
+
+
+class Executor(Protocol):
+    def submit(self, fn: Callable[..., Any], /, *args: Any, **kwargs: Any) -> Any: ...
+    def capacity(self) -> int: ...
+    def close(self) -> None: ...
+
+
+class LocalPool:
+    """``workers`` spawned processes; a pool broken by a dying worker is replaced on next use."""
+
+    def __init__(self, workers: int) -> None:
+        if workers < 1:
+            raise ValueError(f"workers must be >= 1, got {workers}")
+        self.workers = workers
+        self._pool: ProcessPoolExecutor | None = None
+
+    def _new_pool(self) -> ProcessPoolExecutor:
+        return ProcessPoolExecutor(
+            max_workers=self.workers,
+            mp_context=multiprocessing.get_context("spawn"),
+            initializer=warm_up,
+        )
+
+    def submit(self, fn: Callable[..., Any], /, *args: Any, **kwargs: Any) -> Any:
+        if self._pool is None:
+            self._pool = self._new_pool()
+        try:
+            return self._pool.submit(fn, *args, **kwargs)
+        except BrokenProcessPool:
+            # A worker died (killed, out of memory, os._exit): its jobs fail and are retried;
+            # new work goes to a fresh pool.
+            log.warning("process pool broken; starting a new one")
+            self._pool.shutdown(wait=False, cancel_futures=True)
+            self._pool = self._new_pool()
+            return self._pool.submit(fn, *args, **kwargs)
+
+    def capacity(self) -> int:
+        return self.workers
+
+    def worker_pids(self) -> list[int]:
+        """Process ids of the live workers (for operators and tests)."""
+        procs = getattr(self._pool, "_processes", None) or {}
+        return [p.pid for p in procs.values() if p.pid is not None]
+
+    def close(self) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=False, cancel_futures=True)
+            self._pool = None
+
+
+class DaskPool:
+    """Tasks on a Dask distributed cluster (``tcp://host:port`` or a ``Client``)."""
+
+    def __init__(self, address: str | Any, *, refresh_s: float = 10.0) -> None:
+        from distributed import Client
+
+        self._own = isinstance(address, str)
+        self.client = Client(address, set_as_default=False) if self._own else address
+        self._refresh_s = refresh_s
+        self._threads = 1
+        self._checked = -float("inf")
+
+    def submit(self, fn: Callable[..., Any], /, *args: Any, **kwargs: Any) -> Any:
+        # pure=False: a retry of the same inputs must run again, not reuse a cached key.
+        return self.client.submit(fn, *args, pure=False, **kwargs)
+
+    def capacity(self) -> int:
+        now = time.monotonic()
+        if now - self._checked > self._refresh_s:
+            try:
+                self._threads = max(1, sum(self.client.nthreads().values()))
+            except Exception as exc:  # scheduler unreachable: keep the last figure
+                log.warning("cannot ask the Dask scheduler for its workers: %s", exc)
+            self._checked = now
+        return self._threads
+
+    def close(self) -> None:
+        if self._own:
+            self.client.close()
+
+
+def make_executor(settings: Any) -> Executor:
+    """Dask when ``settings.dask_scheduler`` is set, else a local pool of ``settings.workers``."""
+    if settings.dask_scheduler:
+        return DaskPool(settings.dask_scheduler)
+    return LocalPool(settings.workers)

@@ -1,0 +1,169 @@
+"""Scores: query them, and export them tidy (one row per score) or wide (one row per target)."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+from collections.abc import Iterator
+from typing import Annotated, Any, Literal
+
+from fastapi import APIRouter, Depends, Query
+from fastapi.responses import Response, StreamingResponse
+from pydantic import BaseModel
+
+from service.deps import ReadToken, SessionDep
+from service.routes.arenas import Limit, Offset
+from service.schemas import ScoreRowPublic, ScoresPublic
+from storage import repo
+from storage.repo.scores import SCORE_ROW_COLUMNS, iter_score_rows, query_scores
+
+router = APIRouter(tags=["scores"])
+
+# Columns that identify a target in the wide table (one row each).
+WIDE_KEYS = ("target_kind", "target_id", "arena_id", "arena", "subject_id", "subject",
+             "condition", "profile", "profile_hash")  # fmt: skip
+MEDIA = {"csv": "text/csv; charset=utf-8", "json": "application/json",
+         "parquet": "application/vnd.apache.parquet"}  # fmt: skip
+
+
+class ScoreFilters(BaseModel):
+    target_kind: Literal["scan", "trial"] | None = None
+    arena_id: int | None = None
+    subject_id: int | None = None
+    trial_id: int | None = None
+    scan_id: int | None = None
+    condition: str | None = None
+    profile_hash: str | None = None
+    measure: str | None = None
+
+
+def score_filters(
+    session: SessionDep,
+    target_kind: Literal["scan", "trial"] | None = None,
+    arena_id: int | None = None,
+    subject_id: int | None = None,
+    trial_id: int | None = None,
+    scan_id: int | None = None,
+    condition: str | None = None,
+    profile: Annotated[str | None, Query(description="Profile name (latest version).")] = None,
+    profile_version: Annotated[int | None, Query(ge=1)] = None,
+    profile_hash: str | None = None,
+    measure: str | None = None,
+) -> ScoreFilters:
+    """The filters shared by the query and the export; a profile name becomes its hash."""
+    if profile is not None:
+        profile_hash = repo.get_profile(session=session, name=profile, version=profile_version).hash
+    return ScoreFilters(
+        target_kind=target_kind, arena_id=arena_id, subject_id=subject_id, trial_id=trial_id,
+        scan_id=scan_id, condition=condition, profile_hash=profile_hash, measure=measure,
+    )  # fmt: skip
+
+
+FiltersDep = Annotated[ScoreFilters, Depends(score_filters)]
+
+
+@router.get("/scores")
+def list_scores(
+    session: SessionDep, token: ReadToken, filters: FiltersDep, offset: Offset = 0,
+    limit: Limit = 100,
+) -> ScoresPublic:  # fmt: skip
+    """Scores with their arena, subject and condition; trial filters leave out scan scores."""
+    rows, count = query_scores(session=session, offset=offset, limit=limit, **filters.model_dump())
+    return ScoresPublic(data=[ScoreRowPublic.model_validate(r) for r in rows], count=count)
+
+
+def _profile_labels(session: Any) -> dict[str, str]:
+    # Equal parameters share a hash; the earliest name and version labels it.
+    labels: dict[str, str] = {}
+    offset = 0
+    while True:
+        rows, count = repo.list_profiles(session=session, offset=offset, limit=1000)
+        for p in rows:
+            labels.setdefault(p.hash, f"{p.name} v{p.version}")
+        offset += len(rows)
+        if not rows or offset >= count:
+            return labels
+
+
+def _tidy_rows(session: Any, filters: ScoreFilters) -> Iterator[dict[str, Any]]:
+    labels = _profile_labels(session)
+    for row in iter_score_rows(session=session, **filters.model_dump()):
+        row.pop("score_id", None)
+        row["profile"] = labels.get(row["profile_hash"], "")
+        computed = row.get("computed_at")
+        row["computed_at"] = None if computed is None else computed.isoformat()
+        yield row
+
+
+TIDY_COLUMNS = [c for c in SCORE_ROW_COLUMNS if c != "score_id"]
+TIDY_COLUMNS.insert(TIDY_COLUMNS.index("profile_hash"), "profile")
+
+
+def _csv_lines(rows: Iterator[dict[str, Any]], columns: list[str]) -> Iterator[str]:
+    buf = io.StringIO()
+    writer = csv.DictWriter(buf, fieldnames=columns, extrasaction="ignore", lineterminator="\n")
+    writer.writeheader()
+    for i, row in enumerate(rows, 1):
+        writer.writerow(row)
+        if i % 500 == 0:
+            yield buf.getvalue()
+            buf.seek(0)
+            buf.truncate()
+    yield buf.getvalue()
+
+
+def _json_array(rows: Iterator[dict[str, Any]]) -> Iterator[str]:
+    yield "["
+    for i, row in enumerate(rows):
+        yield ("," if i else "") + json.dumps(row, allow_nan=False)
+    yield "]"
+
+
+def _frame(rows: Iterator[dict[str, Any]], shape: str) -> Any:
+    import pandas as pd
+
+    frame = pd.DataFrame(list(rows), columns=TIDY_COLUMNS)
+    if shape == "tidy":
+        return frame
+    if frame.empty:
+        return pd.DataFrame(columns=list(WIDE_KEYS))
+    # A target under one profile hash is one row; its context columns are constant there.
+    ident = ["target_kind", "target_id", "profile_hash"]
+    values = frame.pivot_table(index=ident, columns="measure", values="value", aggfunc="first")
+    values.columns.name = None
+    context = frame[list(WIDE_KEYS)].drop_duplicates(subset=ident)
+    return context.merge(values.reset_index(), on=ident, how="left")
+
+
+@router.get(
+    "/export/scores",
+    responses={200: {"content": {m: {} for m in MEDIA.values()}}},
+)
+def export_scores(
+    session: SessionDep,
+    token: ReadToken,
+    filters: FiltersDep,
+    format: Literal["csv", "json", "parquet"] = "csv",
+    shape: Literal["tidy", "wide"] = "tidy",
+) -> Response:
+    """Scores as CSV, JSON records or Parquet: tidy (one row per score) or wide (per target)."""
+    name = f"gaitscape-scores-{shape}.{format}"
+    headers = {"Content-Disposition": f'attachment; filename="{name}"'}
+    rows = _tidy_rows(session, filters)
+    if shape == "tidy" and format == "csv":
+        return StreamingResponse(_csv_lines(rows, TIDY_COLUMNS), media_type=MEDIA["csv"],
+                                 headers=headers)  # fmt: skip
+    if shape == "tidy" and format == "json":
+        return StreamingResponse(_json_array(rows), media_type=MEDIA["json"], headers=headers)
+    frame = _frame(rows, shape)
+    if format == "parquet":
+        buf = io.BytesIO()
+        frame.to_parquet(buf, index=False)
+        return Response(buf.getvalue(), media_type=MEDIA["parquet"], headers=headers)
+    if format == "csv":
+        return Response(frame.to_csv(index=False), media_type=MEDIA["csv"], headers=headers)
+    return Response(
+        frame.to_json(orient="records", date_format="iso"), media_type=MEDIA["json"],
+        headers=headers,
+    )  # fmt: skip

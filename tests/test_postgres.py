@@ -1,0 +1,79 @@
+"""Job and score tables on a real PostgreSQL server (GAITSCAPE_TEST_POSTGRES_URL)."""
+
+from __future__ import annotations
+
+import os
+import threading
+import uuid
+from pathlib import Path
+
+import pytest
+from sqlalchemy import func, select, text
+from test_jobs import Store
+
+from service.pipeline import LocalPool
+from storage import repo
+from storage.db import make_engine
+from storage.models import Score
+
+URL = os.environ.get("GAITSCAPE_TEST_POSTGRES_URL")
+pytestmark = pytest.mark.postgres
+
+
+@pytest.fixture
+def pg_url():
+    if not URL:
+        if os.environ.get("GAITSCAPE_REQUIRE_SERVICES") == "1":
+            pytest.fail("GAITSCAPE_TEST_POSTGRES_URL is unset but GAITSCAPE_REQUIRE_SERVICES=1")
+        pytest.skip("no PostgreSQL (set GAITSCAPE_TEST_POSTGRES_URL)")
+    schema = f"gs_jobs_{uuid.uuid4().hex[:8]}"  # a schema of our own: the database is shared
+    admin = make_engine(URL)
+    with admin.begin() as conn:
+        conn.execute(text(f"CREATE SCHEMA {schema}"))
+    sep = "&" if "?" in URL else "?"
+    yield f"{URL}{sep}options=-csearch_path%3D{schema}"
+    with admin.begin() as conn:
+        conn.execute(text(f"DROP SCHEMA {schema} CASCADE"))
+    admin.dispose()
+
+
+def test_concurrent_claims_never_share_a_job(tmp_path: Path, pg_url: str) -> None:
+    lab = Store(tmp_path, url=pg_url)
+    scan_id = lab.add_heightmap(seed=1)
+    with lab.sessionmaker() as s:
+        for _ in range(20):
+            repo.enqueue_job(session=s, kind="score", target_kind="scan", target_id=scan_id,
+                             profile_hash=uuid.uuid4().hex)  # fmt: skip
+    claimed: list[int] = []
+
+    def worker() -> None:
+        while True:
+            with lab.sessionmaker() as s:
+                job = repo.claim_job(session=s)
+            if job is None:
+                return
+            claimed.append(job.id)
+
+    threads = [threading.Thread(target=worker) for _ in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert len(claimed) == 20 and len(set(claimed)) == 20
+
+
+def test_scan_job_scores_once_on_postgres(tmp_path: Path, pg_url: str) -> None:
+    lab = Store(tmp_path, url=pg_url)
+    scan_id = lab.add_heightmap(seed=2)
+    pool = LocalPool(1)
+    try:
+        for _ in range(2):  # the second run upserts the same rows
+            job_id = lab.enqueue("scan", scan_id, profile_hash=None)
+            lab.runner(pool).run_until_idle(120)
+            assert lab.job(job_id).state == "done"
+    finally:
+        pool.close()
+    with lab.sessionmaker() as s:
+        n = s.scalar(select(func.count()).select_from(Score))
+        distinct = s.scalar(select(func.count(func.distinct(Score.measure))))
+    assert n == distinct > 10

@@ -1,0 +1,90 @@
+"""Score queries and exports, read back with pandas and pyarrow (general-purpose readers)."""
+
+from __future__ import annotations
+
+import io
+
+import pandas as pd
+import pytest
+from fastapi.testclient import TestClient
+from test_jobs import Store
+
+from measures import Score
+from service.app import create_app
+from service.settings import get_settings
+from storage import repo
+
+
+@pytest.fixture(scope="module")
+def study(tmp_path_factory):
+    root = tmp_path_factory.mktemp("export")
+    app = create_app(get_settings(data_dir=root / "data", job_runner=False))
+    lab = Store.__new__(Store)
+    lab.root, lab.sessionmaker, lab.store = root, app.state.sessionmaker, app.state.store
+    with lab.sessionmaker() as s:
+        lab.arena_id = repo.create_arena(session=s, name="gravel", kind="runway").id
+        _, secret = repo.create_token(session=s, scopes=["read"])
+        default = repo.get_profile(session=s, name="default")
+    scan_id = lab.add_heightmap(seed=1)
+    with lab.sessionmaker() as s:
+        repo.save_scores(
+            session=s, target_kind="scan", target_id=scan_id, profile_hash=default.hash,
+            scores=[Score("sq_m", 0.002, "m"), Score("sdr", 0.15, "1")],
+            code_version="test", input_sha256="a" * 64,
+        )  # fmt: skip
+    client = TestClient(app, headers={"Authorization": f"Bearer {secret}"})
+    return client, scan_id, default
+
+
+def test_query_filters_and_context(study) -> None:
+    client, scan_id, default = study
+    body = client.get("/v1/scores", params={"scan_id": scan_id, "measure": "sq_m"}).json()
+    assert body["count"] == 1
+    row = body["data"][0]
+    assert (row["arena"], row["value"], row["unit"], row["profile_hash"]) == (
+        "gravel",
+        0.002,
+        "m",
+        default.hash,
+    )
+    assert client.get("/v1/scores", params={"profile": "default"}).json()["count"] == 2
+    assert client.get("/v1/scores", params={"target_kind": "trial"}).json()["count"] == 0
+    assert client.get("/v1/scores", params={"profile": "missing"}).status_code == 404
+
+
+def test_tidy_csv_json_parquet_read_back(study) -> None:
+    client, _, _ = study
+    csv = client.get("/v1/export/scores", params={"format": "csv"})
+    assert csv.headers["content-type"].startswith("text/csv")
+    frame = pd.read_csv(io.StringIO(csv.text))
+    assert set(frame.columns) >= {
+        "target_kind",
+        "target_id",
+        "arena",
+        "subject",
+        "profile",
+        "measure",
+        "value",
+        "unit",
+    }
+    assert sorted(frame["measure"]) == ["sdr", "sq_m"] and set(frame["profile"]) == {"default v1"}
+    assert frame.set_index("measure")["value"].to_dict() == {"sq_m": 0.002, "sdr": 0.15}
+    pq = client.get("/v1/export/scores", params={"format": "parquet"})
+    assert pq.headers["content-type"] == "application/vnd.apache.parquet"
+    back = pd.read_parquet(io.BytesIO(pq.content))
+    assert back.set_index("measure")["value"].to_dict() == {"sq_m": 0.002, "sdr": 0.15}
+    js = pd.read_json(io.StringIO(client.get("/v1/export/scores", params={"format": "json"}).text))
+    assert len(js) == 2
+
+
+def test_wide_has_one_row_per_target(study) -> None:
+    client, scan_id, _ = study
+    for fmt in ("csv", "parquet"):
+        r = client.get("/v1/export/scores", params={"format": fmt, "shape": "wide"})
+        frame = (
+            pd.read_csv(io.StringIO(r.text))
+            if fmt == "csv"
+            else pd.read_parquet(io.BytesIO(r.content))
+        )
+        assert len(frame) == 1 and int(frame["target_id"].iloc[0]) == scan_id
+        assert float(frame["sq_m"].iloc[0]) == 0.002 and float(frame["sdr"].iloc[0]) == 0.15
