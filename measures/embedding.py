@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+from scipy import signal
 from scipy.spatial import cKDTree
 
 from measures._validation import (
@@ -344,13 +345,18 @@ class SingularSpectrum:
     mean: float
 
 
-def _diagonal_average(mat: NDArray[np.float64]) -> NDArray[np.float64]:
-    """Mean of each anti-diagonal of a (K, L) matrix -> series of length K + L - 1."""
-    k, l = mat.shape
-    n = k + l - 1
-    rows, cols = np.indices((k, l))
-    sums = np.bincount((rows + cols).ravel(), weights=mat.ravel(), minlength=n)
-    counts = np.bincount((rows + cols).ravel(), minlength=n)
+def _diagonal_averages(
+    u: NDArray[np.float64], sv: NDArray[np.float64], vt: NDArray[np.float64]
+) -> NDArray[np.float64]:
+    """Anti-diagonal means of every rank-one term ``sv[r] u[:, r] vt[r]``.
+
+    The anti-diagonal sums of an outer product are the convolution of its two
+    vectors, so all components come from one batched FFT convolution instead
+    of forming r matrices of size K x L (Golyandina et al. 2001, sec. 1.1.2).
+    """
+    k, l = u.shape[0], vt.shape[1]
+    sums = signal.fftconvolve(u.T, vt, mode="full", axes=1) * sv[:, None]
+    counts = np.convolve(np.ones(k), np.ones(l))
     return sums / counts
 
 
@@ -390,7 +396,7 @@ def singular_spectrum(
     u, sv, vt = np.linalg.svd(traj, full_matrices=False)
     eig = sv**2 / traj.shape[0]
     share = eig / eig.sum()
-    comps = np.array([_diagonal_average(sv[r] * np.outer(u[:, r], vt[r])) for r in range(window)])
+    comps = _diagonal_averages(u, sv, vt)
     n_comp = int(np.searchsorted(np.cumsum(share), frac - 1e-12) + 1)
     return SingularSpectrum(
         eigenvalues=eig, variance_share=share, components=comps,

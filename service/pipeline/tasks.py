@@ -39,7 +39,15 @@ def code_version() -> str:
 
 
 def warm_up() -> None:
-    """Import the heavy modules once per worker process, so the first job does not pay it."""
+    """Prepare a worker process: one BLAS thread, heavy modules imported once.
+
+    The pool already runs one job per core; a multithreaded BLAS inside each
+    worker would oversubscribe the cores (an 826 x 75 SVD went from 2 ms to
+    seconds that way), so each worker keeps BLAS to a single thread.
+    """
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(limits=1, user_api="blas")
     import measures  # noqa: F401
     import storage.readers  # noqa: F401
 
