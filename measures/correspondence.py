@@ -27,6 +27,13 @@ Owen, A. B. (2007). The pigeonhole bootstrap. Ann. Appl. Stat. 1, 386-411
 (crossed designs: resample both factors independently).
 Benjamini, Y. & Hochberg, Y. (1995). Controlling the false discovery rate.
 J. R. Stat. Soc. B 57, 289-300.
+Freedman, D. & Lane, D. (1983). A nonstochastic interpretation of reported
+significance levels. J. Bus. Econ. Stat. 1, 292-298.
+Anderson, M. J. & Legendre, P. (1999). An empirical comparison of permutation
+methods for tests of partial regression coefficients in a linear model.
+J. Stat. Comput. Simul. 62, 271-303.
+Winkler, A. M. et al. (2014). Permutation inference for the general linear
+model. NeuroImage 92, 381-397.
 """
 
 from __future__ import annotations
@@ -41,6 +48,20 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize, stats
 
+from measures._adjusted import adjust_movement, arena_level_values, freedman_lane_statistics
+from measures._confounds import (
+    BalanceCheck,
+    CollinearityCheck,
+    ConfoundChecks,
+    DesignSummary,
+    SpeedCheck,
+    collinearity_check,
+    confound_checks,
+    design_summary,
+    detectable_rank_correlation,
+    subject_arena_balance,
+    terrain_speed_check,
+)
 from measures._validation import (
     InsufficientDataError,
     InvalidParameterError,
@@ -49,16 +70,27 @@ from measures._validation import (
 )
 
 __all__ = [
+    "BalanceCheck",
+    "CollinearityCheck",
+    "ConfoundChecks",
     "CorrespondenceGrid",
     "CorrespondenceRow",
+    "DesignSummary",
     "MixedFit",
     "PermutationGrid",
     "SpearmanBootstrap",
+    "SpeedCheck",
     "arena_permutation_test",
     "benjamini_hochberg",
+    "collinearity_check",
+    "confound_checks",
     "correspondence_grid",
+    "design_summary",
+    "detectable_rank_correlation",
     "fit_random_intercept",
     "hierarchical_bootstrap_spearman",
+    "subject_arena_balance",
+    "terrain_speed_check",
 ]
 
 # Below these counts the report warns that the arena-level statistics are
@@ -262,6 +294,7 @@ def arena_permutation_test(
     arena_index: ArrayLike,
     *,
     subject_index: ArrayLike | None = None,
+    covariates: ArrayLike | None = None,
     n_permutations: int = 9999,
     seed: int = 0,
 ) -> PermutationGrid:
@@ -274,6 +307,26 @@ def arena_permutation_test(
     is what the permutation uses (Good 2005, ch. 3). When ``n_arenas!`` does not
     exceed ``n_permutations + 1`` every permutation is enumerated.
 
+    With ``covariates`` the test is Freedman-Lane (1983) at the arena level.
+    Movement and each covariate are centred within subject (when
+    ``subject_index`` is given) and averaged per arena, every arena weighing
+    the same. The reduced model ``arena movement ~ 1 + arena covariates`` is
+    fitted; its residuals are permuted across arenas and added back to its
+    fitted values; the statistic is the partial correlation of terrain with
+    that response given the covariates. Why the arena level: terrain is
+    constant within an arena, so the arenas, not the trials, are what is
+    exchangeable under the null, and arena-level residuals carry any
+    arena-to-arena variation the covariates leave (permuting trial-level
+    residuals would need equal-sized arenas with matching subject layouts).
+    Why not permuting terrain and re-residualising at the trial level (the
+    Draper-Stoneman scheme of Winkler et al. 2014, Table 2): with speed
+    correlated with terrain, our simulations found it liberal without arena
+    noise and very conservative with it, while the arena-level Freedman-Lane
+    p-values were uniform (``tests/test_covariates.py``). A covariate constant
+    within subject (body length) is absorbed by the subject centring and
+    drops out of the test; it still enters the mixed model. ``statistic`` is
+    then the arena-level partial correlation.
+
     Parameters
     ----------
     terrain : array_like, shape (n_arenas,) or (n_arenas, n_terrain)
@@ -281,12 +334,18 @@ def arena_permutation_test(
     arena_index : array_like of int, shape (n_trials,)
         Row of ``terrain`` that each trial belongs to.
     subject_index : array_like of int, shape (n_trials,), optional
+    covariates : array_like, shape (n_trials,) or (n_trials, k), optional
+        Trial-level covariates (finite); switches to arena-level Freedman-Lane.
     n_permutations : int, default 9999
     seed : int, default 0
 
     Returns
     -------
     PermutationGrid
+
+    References
+    ----------
+    Freedman & Lane (1983); Anderson & Legendre (1999); Winkler et al. (2014).
     """
     fn = "arena_permutation_test"
     t = as_float_array("terrain", terrain, fn, ndim=(1, 2), min_length=2)
@@ -297,6 +356,30 @@ def arena_permutation_test(
     if arena.max() >= t.shape[0]:
         raise InvalidParameterError("arena_index", fn, f"codes below {t.shape[0]}", arena)
     check_positive_int("n_permutations", n_permutations, fn)
+    if covariates is not None:
+        z = as_float_array("covariates", covariates, fn, ndim=(1, 2))
+        z = z.reshape(z.shape[0], -1)
+        if z.shape[0] != m.shape[0]:
+            raise InvalidParameterError("covariates", fn, f"{m.shape[0]} rows", z)
+        subject = (
+            None
+            if subject_index is None
+            else _codes(subject_index, "subject_index", fn, m.shape[0])
+        )
+        n_arenas = t.shape[0]
+        if np.bincount(arena, minlength=n_arenas).min() == 0:
+            raise InsufficientDataError("arena_index", fn, "at least one trial per arena", arena)
+        z_bar = arena_level_values(z, arena, subject, n_arenas)
+        if n_arenas < 3 + np.linalg.matrix_rank(z_bar - z_bar.mean(axis=0)):
+            raise InsufficientDataError(
+                "covariates", fn, "more arenas than covariates + 2", n_arenas
+            )
+        perms, exact = _arena_permutations(n_arenas, n_permutations, seed)
+        stat, hits = freedman_lane_statistics(
+            t, arena_level_values(m, arena, subject, n_arenas), z_bar, perms
+        )
+        p = hits / len(perms) if exact else (1 + hits) / (1 + len(perms))
+        return PermutationGrid(stat, p, len(perms), exact)
     if subject_index is not None:
         m = _centre_within(m, _codes(subject_index, "subject_index", fn, m.shape[0]))
     m = m - m.mean(axis=0)
@@ -490,6 +573,7 @@ class CorrespondenceGrid:
     n_trials: int
     n_permutations: int
     exact_permutations: bool
+    covariate_names: tuple[str, ...] = ()
 
 
 def _design_warnings(
@@ -539,6 +623,8 @@ def correspondence_grid(
     n_permutations: int = 9999,
     n_boot: int = 1999,
     seed: int = 0,
+    covariates: ArrayLike | None = None,
+    covariate_names: Sequence[str] = (),
 ) -> CorrespondenceGrid:
     """Fit every terrain x movement pair and correct across the grid.
 
@@ -548,6 +634,14 @@ def correspondence_grid(
     replication), the Spearman correlation of arena means with a hierarchical
     bootstrap CI, and Benjamini-Hochberg q-values across the whole grid.
 
+    With ``covariates`` the mixed model is ``movement ~ terrain + covariates +
+    (1 | subject)``, the permutation test is the arena-level Freedman-Lane test
+    of :func:`arena_permutation_test`, and the Spearman correlation uses the
+    covariate-adjusted movement ``movement - covariates @ g``, ``g`` from the
+    reduced model ``movement ~ covariates + subject`` (within-subject least
+    squares; the adjustment gives the covariates every shared share, as the
+    Freedman-Lane reduced model does).
+
     Parameters
     ----------
     terrain : array_like, shape (n_arenas, n_terrain)
@@ -555,6 +649,9 @@ def correspondence_grid(
     arena_index, subject_index : array_like of int, shape (n_trials,)
     terrain_names, movement_names : sequence of str
     n_permutations, n_boot, seed : int
+    covariates : array_like, shape (n_trials, k), optional
+        Trial-level covariates (finite), e.g. mean speed in m/s.
+    covariate_names : sequence of str, length k
 
     Returns
     -------
@@ -571,12 +668,21 @@ def correspondence_grid(
         )
     arena = _codes(arena_index, "arena_index", fn, m.shape[0])
     subject = _codes(subject_index, "subject_index", fn, m.shape[0])
+    z = None
+    if covariates is not None:
+        z = as_float_array("covariates", covariates, fn, ndim=(1, 2))
+        z = z.reshape(z.shape[0], -1)
+        if z.shape[0] != m.shape[0] or len(covariate_names) != z.shape[1]:
+            raise InvalidParameterError(
+                "covariates", fn, f"{m.shape[0]} rows and one name per column", covariate_names
+            )
     warnings = _design_warnings(t, m, arena, subject, terrain_names, movement_names)
     perm = arena_permutation_test(
-        t, m, arena, subject_index=subject, n_permutations=n_permutations, seed=seed
+        t, m, arena, subject_index=subject, covariates=z, n_permutations=n_permutations, seed=seed
     )
+    m_boot = m if z is None else adjust_movement(m, subject, z)
     if t.shape[0] >= 3:
-        boot = hierarchical_bootstrap_spearman(t, m, arena, subject, n_boot=n_boot, seed=seed)
+        boot = hierarchical_bootstrap_spearman(t, m_boot, arena, subject, n_boot=n_boot, seed=seed)
         rho, rho_lo, rho_hi = boot.rho, boot.ci_low, boot.ci_high
     else:
         rho = rho_lo = rho_hi = np.full((t.shape[1], m.shape[1]), np.nan)
@@ -587,7 +693,7 @@ def correspondence_grid(
         x = t[arena, i]
         for j, m_name in enumerate(movement_names):
             try:
-                fit = fit_random_intercept(m[:, j], x, subject)
+                fit = fit_random_intercept(m[:, j], x, subject, covariates=z)
                 mixed = (fit.slope, fit.ci_low, fit.ci_high, fit.p_value)
             except (InvalidParameterError, np.linalg.LinAlgError):
                 mixed = (float("nan"),) * 4
@@ -617,4 +723,5 @@ def correspondence_grid(
         int(m.shape[0]),
         perm.n_permutations,
         perm.exact,
+        tuple(covariate_names) if z is not None else (),
     )

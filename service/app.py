@@ -6,6 +6,7 @@ migrations) and keeps the handles on ``app.state``, so tests start isolated apps
 
 from __future__ import annotations
 
+import asyncio
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from dataclasses import dataclass
@@ -15,10 +16,13 @@ from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
 
 from service import __version__
+from service.dashboard import page_router as dashboard_pages
 from service.deps import FailedAuthLimiter
 from service.errors import install_error_handlers
+from service.pipeline import ensure_default_profile, start_job_runner
 from service.routes import ROUTERS
 from service.schemas import Health
+from service.security import install_hardening
 from service.settings import Settings, get_settings
 
 __all__ = ["Resources", "create_app", "open_resources"]
@@ -64,9 +68,16 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings if settings is not None else get_settings()
     resources = open_resources(settings)
 
+    with resources.sessionmaker() as session:
+        ensure_default_profile(session)
+
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        # The runner is a thread of its own; heavy work runs on its executor, never here.
+        app.state.job_runner = start_job_runner(settings, resources)
         yield
+        if app.state.job_runner is not None:
+            await asyncio.to_thread(app.state.job_runner.stop)
         resources.engine.dispose()
 
     app = FastAPI(
@@ -79,6 +90,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = resources.engine
     app.state.sessionmaker = resources.sessionmaker
     app.state.store = resources.store
+    app.state.job_runner = None
     app.state.auth_limiter = FailedAuthLimiter(
         limit=settings.auth_failure_limit, window_s=settings.auth_failure_window_s
     )
@@ -90,6 +102,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             allow_headers=["Authorization", "Content-Type"],
         )
     install_error_handlers(app)
+    install_hardening(app, settings)  # request ids, JSON logs, headers, body cap
 
     @app.get("/healthz", tags=["health"])
     def healthz() -> Health:
@@ -98,4 +111,5 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     for router in ROUTERS:
         app.include_router(router, prefix=API_PREFIX)
+    app.include_router(dashboard_pages)  # HTML shells under /ui (service/dashboard)
     return app

@@ -98,6 +98,13 @@ def _with_session(args: argparse.Namespace, work: Callable[[Any], int]) -> int:
         resources.engine.dispose()
 
 
+def _positive_days(value: str) -> float:
+    days = float(value)
+    if not days > 0 or days != days or days == float("inf"):
+        raise argparse.ArgumentTypeError(f"must be a positive number of days, got {value!r}")
+    return days
+
+
 def _parse_scopes(values: list[str]) -> list[str]:
     scopes = [s for value in values for s in value.replace(",", " ").split()]
     unknown = sorted(set(scopes) - set(SCOPES))
@@ -112,7 +119,14 @@ def _token_create(args: argparse.Namespace) -> int:
     scopes = _parse_scopes(args.scope)
 
     def work(session: Any) -> int:
-        _, secret = repo.create_token(session=session, scopes=scopes, label=args.label)
+        expires_at = None
+        if args.expires_days is not None:  # hardening: tokens that lapse by themselves
+            from datetime import UTC, datetime, timedelta
+
+            expires_at = datetime.now(UTC) + timedelta(days=args.expires_days)
+        _, secret = repo.create_token(
+            session=session, scopes=scopes, label=args.label, expires_at=expires_at
+        )
         print(secret)
         return 0
 
@@ -163,6 +177,11 @@ def register_token(sub: Any) -> None:
         help=f"scope to grant ({', '.join(SCOPES)}); repeat or comma-separate for several",
     )
     create.add_argument("--label", default="", help="a note saying who or what uses it")
+    create.add_argument(
+        "--expires-days",
+        type=_positive_days,
+        help="the token stops working this many days from now (default: never)",
+    )
     create.set_defaults(func=_token_create)
     lst = tsub.add_parser("list", help="list tokens (never their secrets)")
     lst.add_argument("--data", required=True, help="data directory")
@@ -217,19 +236,34 @@ def register_upload(sub: Any) -> None:
     p.set_defaults(func=_upload)
 
 
-# -- demo (placeholder) -----------------------------------------------------------------------
+# -- demo -------------------------------------------------------------------------------------
 def _demo(args: argparse.Namespace) -> int:
-    print(
-        "gaitscape demo: the demo scenario is not part of this build yet; it lands with its own "
-        "issue. Nothing was computed."
-    )
-    return 0
+    from service.demo import run_demo
+
+    result = run_demo(Path(args.out), quick=args.quick, progress=not args.no_progress)
+    return 1 if result.failed_uploads or result.failed_jobs else 0
 
 
 def register_demo(sub: Any) -> None:
-    p = sub.add_parser("demo", help="build and score the demo scenario (placeholder)")
-    p.add_argument("--out", help="output directory")
+    p = sub.add_parser(
+        "demo",
+        help="build, score and report an invented demo study",
+        description="Generates an invented study (arenas, a synthetic quadruped), serves it "
+        "in-process, uploads and scores it, prints the correspondence and writes "
+        "DIR/report.html. DIR is left as a normal store for `gaitscape serve --data DIR`.",
+    )
+    p.add_argument("--out", default="demo-out", help="output directory (default ./demo-out)")
+    p.add_argument("--quick", action="store_true", help="smaller study (under a minute)")
+    p.add_argument("--no-progress", action="store_true", help="no progress bars")
     p.set_defaults(func=_demo)
+
+
+def _hardening_commands() -> list[Callable[[Any], None]]:
+    # check, backup and restore live in their own modules (service/check.py, service/backup.py).
+    from service.backup import register_backup, register_restore
+    from service.check import register_check
+
+    return [register_check, register_backup, register_restore]
 
 
 COMMANDS: list[Callable[[Any], None]] = [
@@ -237,6 +271,7 @@ COMMANDS: list[Callable[[Any], None]] = [
     register_token,
     register_upload,
     register_demo,
+    *_hardening_commands(),
 ]
 
 

@@ -15,6 +15,13 @@ Decisions (also in the report's ``notes``):
 - Without a measure list, every scored measure is used except the diagnostics in
   :data:`DIAGNOSTIC_MEASURES` (fit bands, R^2, point counts), which are settings, not
   properties of ground or gait.
+- Covariates are trial-level: any trial score (``speed_m_s``, ``stride_frequency_hz``,
+  ``valid_fraction``, ...) or a value derived from the records (:data:`DERIVED_COVARIATES`:
+  trial duration, subject body length and mass, treadmill speed). A named covariate is not
+  also a movement measure; trials without a finite value of every covariate are left out.
+- A study (``Selection.study``) limits arenas, subjects and trials to its members: a trial
+  is in when it is a member itself, or when its arena and its subject both are (see
+  :func:`storage.repo.study_trial_ids`).
 
 Everything here is blocking; the routes call it through ``run_in_threadpool``.
 """
@@ -34,7 +41,12 @@ import numpy as np
 import pandas as pd
 from sqlalchemy.orm import Session
 
-from measures import complexity_entropy_bounds, correspondence_grid
+from measures import (
+    complexity_entropy_bounds,
+    confound_checks,
+    correspondence_grid,
+    design_summary,
+)
 from measures._validation import InsufficientDataError, InvalidParameterError
 from measures.correspondence import benjamini_hochberg
 from measures.correspondence_multi import first_canonical_correlation
@@ -44,6 +56,8 @@ from storage.errors import BadInput
 
 __all__ = [
     "CONTRACT_FIELDS",
+    "COVARIATE_SCORES",
+    "DERIVED_COVARIATES",
     "DIAGNOSTIC_MEASURES",
     "Selection",
     "StudyTables",
@@ -80,6 +94,13 @@ DIAGNOSTIC_MEASURES = frozenset(
     }
 )
 SCAN_RULES = ("latest", "mean")
+#: Trial scores of the movement summary that serve as covariates; always carried in the
+#: analysis table (also when not analysed as movement measures).
+COVARIATE_SCORES = ("speed_m_s", "stride_frequency_hz", "valid_fraction")
+#: Covariates computed from the stored records rather than scored.
+DERIVED_COVARIATES = ("trial_duration_s", "body_length_m", "mass_kg", "treadmill_speed_m_s")
+#: The covariate the speed-vs-terrain confound check uses.
+SPEED_SCORE = "speed_m_s"
 #: Surrogate z-scores inside +-2 mean the value is within the spread of structureless
 #: surrogates (two-sided ~95 %, common practice); "most" is more than half the targets.
 SURROGATE_Z = 2.0
@@ -101,6 +122,8 @@ class Selection:
     terrain_measures: tuple[str, ...] = ()
     movement_measures: tuple[str, ...] = ()
     scans: str = "latest"
+    covariates: tuple[str, ...] = ()
+    study: str | None = None
 
     def __post_init__(self) -> None:
         if self.scans not in SCAN_RULES:
@@ -113,8 +136,9 @@ class StudyTables:
 
     ``arenas``: one row per arena with terrain (index arena_id; columns arena_name, n_scans,
     then terrain measures). ``trials``: one row per trial (columns trial_id, arena_id,
-    subject_id, condition, then movement measures). ``surrogate_z``: measure -> z of each
-    target that carries one.
+    subject_id, condition, then movement measures, then the covariate columns: the
+    :data:`DERIVED_COVARIATES`, the :data:`COVARIATE_SCORES` present, and the requested
+    covariates). ``surrogate_z``: measure -> z of each target that carries one.
     """
 
     arenas: pd.DataFrame
@@ -123,6 +147,9 @@ class StudyTables:
     movement_measures: list[str]
     surrogate_z: dict[tuple[str, str], list[float]] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+    covariates: list[str] = field(default_factory=list)
+    study: str | None = None
+    labels: dict[str, dict[int, str]] = field(default_factory=dict)
 
     def analysis_table(self) -> pd.DataFrame:
         """One row per trial with its arena's terrain values (terrain columns prefixed
@@ -131,6 +158,19 @@ class StudyTables:
             columns={c: f"terrain:{c}" for c in self.terrain_measures if c in self.trials}
         )
         return self.trials.join(terrain, on="arena_id")
+
+    def export_table(self) -> pd.DataFrame:
+        """The analysis table for other tools: study, arena and subject names first."""
+        table = self.analysis_table()
+        front = pd.DataFrame(
+            {
+                "study": self.study or "",
+                "arena": self.arenas["arena_name"].reindex(table["arena_id"]).to_numpy(),
+                "subject": table["subject_id"].map(self.labels.get("subject", {})).to_numpy(),
+            },
+            index=table.index,
+        )
+        return pd.concat([front, table], axis=1)
 
 
 def _all_rows(fn: Any, **filters: Any) -> list[Any]:
@@ -176,6 +216,10 @@ def _pick_measures(available: Iterable[str], wanted: Sequence[str], kind: str) -
 
 def _select_trials(session: Session, sel: Selection) -> list[Any]:
     trials = _all_rows(repo.list_trials, session=session)
+    if sel.study is not None:
+        study = repo.get_study_by_name(session=session, name=sel.study)
+        members = repo.study_trial_ids(session=session, study_id=study.id)
+        trials = [t for t in trials if t.id in members]
     keep = []
     for t in trials:
         if sel.arena_ids and t.arena_id not in sel.arena_ids:
@@ -234,9 +278,23 @@ def load_study(*, session: Session, profile_hash: str, selection: Selection) -> 
     t_names = _pick_measures(
         {m for v in terrain.values() for m in v}, selection.terrain_measures, "terrain"
     )
+    scored_trial = {m for v in trial_scores.values() for m in v}
+    covariates = list(dict.fromkeys(selection.covariates))
+    unknown = [c for c in covariates if c not in scored_trial and c not in DERIVED_COVARIATES]
+    if unknown:
+        raise BadInput(
+            f"no covariate named {unknown}: use a trial score ({sorted(scored_trial)}) or one "
+            f"of {list(DERIVED_COVARIATES)}"
+        )
     m_names = _pick_measures(
-        {m for v in trial_scores.values() for m in v}, selection.movement_measures, "movement"
+        scored_trial - set(covariates) if not selection.movement_measures else scored_trial,
+        selection.movement_measures,
+        "movement",
     )
+    both = [m for m in m_names if m in covariates]
+    if both:
+        warnings.append(f"{both} named as covariates are not analysed as movement measures.")
+        m_names = [m for m in m_names if m not in covariates]
     arena_ids = sorted({t.arena_id for t in trials})
     arenas = pd.DataFrame(
         [
@@ -263,6 +321,25 @@ def load_study(*, session: Session, profile_hash: str, selection: Selection) -> 
         ],
         columns=["trial_id", "arena_id", "subject_id", "condition", *m_names],
     )
+    extra = [c for c in (*COVARIATE_SCORES, *covariates) if c in scored_trial and c not in table]
+    for name in dict.fromkeys(extra):
+        table[name] = [_value(trial_scores[t.id].get(name)) for t in trials]
+    subjects = {
+        sid: repo.get_subject(session=session, subject_id=sid)
+        for sid in {t.subject_id for t in trials}
+    }
+    derived = {
+        "trial_duration_s": [
+            t.n_frames / t.frame_rate_hz if t.n_frames and t.frame_rate_hz else math.nan
+            for t in trials
+        ],
+        "body_length_m": [_or_nan(subjects[t.subject_id].body_length_m) for t in trials],
+        "mass_kg": [_or_nan(subjects[t.subject_id].mass_kg) for t in trials],
+        "treadmill_speed_m_s": [_or_nan(t.treadmill_speed_m_s) for t in trials],
+    }
+    for name, values in derived.items():
+        table[name] = np.asarray(values, dtype=float)
+    labels = {"subject": {sid: subj.label for sid, subj in subjects.items()}}
     surrogate: dict[tuple[str, str], list[float]] = defaultdict(list)
     for kind, source in (
         ("scan", [scan_scores[s.id] for a in arena_ids for s in used_scans[a]]),
@@ -272,7 +349,21 @@ def load_study(*, session: Session, profile_hash: str, selection: Selection) -> 
             for name, row in scored.items():
                 if row.surrogate_z is not None:
                     surrogate[(kind, name)].append(float(row.surrogate_z))
-    return StudyTables(arenas, table, t_names, m_names, dict(surrogate), warnings)
+    return StudyTables(
+        arenas,
+        table,
+        t_names,
+        m_names,
+        dict(surrogate),
+        warnings,
+        covariates=covariates,
+        study=selection.study,
+        labels=labels,
+    )
+
+
+def _or_nan(value: Any) -> float:
+    return math.nan if value is None else float(value)
 
 
 def _codes(values: pd.Series) -> np.ndarray:
@@ -292,12 +383,18 @@ def _fit_block(
     m_cols: list[str],
     arena_ok: np.ndarray,
     trial_ok: np.ndarray,
-    params: dict[str, int],
+    params: dict[str, Any],
 ) -> tuple[list[dict[str, Any]], list[str], int, bool]:
     arenas = study.arenas.index.to_numpy()[arena_ok]
     trials = study.trials[trial_ok & study.trials["arena_id"].isin(arenas).to_numpy()]
     arenas = np.array(sorted(set(trials["arena_id"])))
     counts = (len(arenas), int(trials["subject_id"].nunique()), len(trials))
+    if study.covariates:
+        params = {
+            **params,
+            "covariates": trials[study.covariates].to_numpy(dtype=float),
+            "covariate_names": study.covariates,
+        }
     try:
         grid = correspondence_grid(
             study.arenas.loc[arenas, t_cols].to_numpy(dtype=float),
@@ -329,7 +426,7 @@ def fit_grid(
     study: StudyTables, *, n_permutations: int = 9999, n_boot: int = 1999, seed: int = 0
 ) -> tuple[list[dict[str, Any]], list[str], int, bool]:
     """Every pair's row (contract fields plus extras), the grid's warnings, permutations used."""
-    params = {"n_permutations": n_permutations, "n_boot": n_boot, "seed": seed}
+    params: dict[str, Any] = {"n_permutations": n_permutations, "n_boot": n_boot, "seed": seed}
     rows: list[dict[str, Any]] = []
     warnings: list[str] = []
     n_perm, exact = 0, True
@@ -527,6 +624,9 @@ def correspondence_report(
     study = load_study(session=session, profile_hash=prof.hash, selection=selection)
     if study.trials.empty:
         raise BadInput("no scored trials in this selection under this profile")
+    covariate_info = _keep_complete_covariates(study)
+    if study.trials.empty:
+        raise BadInput(f"no trial has a finite value of every covariate {study.covariates}")
     rows, grid_warnings, n_perm, exact = fit_grid(
         study, n_permutations=n_permutations, n_boot=n_boot, seed=seed
     )
@@ -535,6 +635,8 @@ def correspondence_report(
     warnings = study.warnings + grid_warnings
     warnings += surrogate_warnings(study, names | {m for v in PLANE_MEASURES.values() for m in v})
     warnings += multi_warnings
+    confounds, design, confound_warnings = confounds_and_design(study)
+    warnings += confound_warnings
     _plane_values(study, session, prof.hash, selection)
     report = {
         "profile": {"name": prof.name, "version": prof.version, "hash": prof.hash},
@@ -559,8 +661,106 @@ def correspondence_report(
         ],
         "multivariate": multi,
         "plane": plane_view(study, prof),
+        "study": selection.study,
+        "covariates": covariate_info,
+        "confounds": confounds,
+        "design": design,
     }
     return clean(report)
+
+
+def _keep_complete_covariates(study: StudyTables) -> dict[str, Any]:
+    """Drop trials without every covariate; describe the adjustment."""
+    info: dict[str, Any] = {"names": list(study.covariates), "n_trials_dropped": 0}
+    if not study.covariates:
+        info["method"] = None
+        return info
+    ok = np.isfinite(study.trials[study.covariates].to_numpy(dtype=float)).all(axis=1)
+    if not ok.all():
+        info["n_trials_dropped"] = int((~ok).sum())
+        study.warnings.append(
+            f"{int((~ok).sum())} trials lack a value of {study.covariates} and are left out."
+        )
+        study.trials = study.trials[ok].reset_index(drop=True)
+        study.arenas = study.arenas.loc[sorted(set(study.trials["arena_id"]))]
+    info["method"] = (
+        "mixed model movement ~ terrain + covariates + (1 | subject) (REML); arena-level "
+        "Freedman-Lane permutation test on subject-centred arena means (reduced model "
+        "movement ~ covariates); Spearman on movement adjusted by the reduced model's slopes"
+    )
+    return info
+
+
+def confounds_and_design(study: StudyTables) -> tuple[dict[str, Any], dict[str, Any], list[str]]:
+    """Confound checks (speed vs terrain, balance, collinearity) and the design table."""
+    arena_ids = study.arenas.index.to_numpy()
+    arena_codes = np.searchsorted(arena_ids, study.trials["arena_id"].to_numpy())
+    subject_ids = np.array(sorted(set(study.trials["subject_id"])))
+    terrain = study.arenas[study.terrain_measures].to_numpy(dtype=float)
+    speed = study.trials[SPEED_SCORE].to_numpy(dtype=float) if SPEED_SCORE in study.trials else None
+    checks = confound_checks(
+        terrain,
+        arena_codes,
+        study.trials["subject_id"].to_numpy(),
+        terrain_names=study.terrain_measures,
+        speed=speed,
+        covariate_name=SPEED_SCORE,
+    )
+    coll = checks.collinearity
+    confounds = {
+        "speed": [
+            {
+                "terrain_measure": r.terrain_measure,
+                "covariate": r.covariate,
+                "spearman_rho": r.rho,
+                "p_value": r.p_value,
+                "n_arenas": r.n_arenas,
+                "confounded": r.confounded,
+                "adjusted": r.covariate in study.covariates,
+            }
+            for r in checks.speed
+        ],
+        "balance": {
+            "fill_fraction": checks.balance.fill_fraction,
+            "fully_crossed": checks.balance.fully_crossed,
+            "balanced": checks.balance.balanced,
+        },
+        "collinearity": {
+            "measures": list(coll.names),
+            "correlation": coll.correlation.tolist(),
+            "vif": [float(v) if np.isfinite(v) else None for v in coll.vif],
+            "same_thing_twice": [{"a": a, "b": b, "r": r} for a, b, r in coll.same_pairs],
+        },
+    }
+    summary = design_summary(
+        arena_codes, study.trials["subject_id"].to_numpy(), n_arenas=len(arena_ids)
+    )
+    design = {
+        "arena_ids": [int(a) for a in arena_ids],
+        "arena_names": [str(n) for n in study.arenas["arena_name"]],
+        "subject_ids": [int(s) for s in subject_ids],
+        "subject_labels": [
+            study.labels.get("subject", {}).get(int(s), str(s)) for s in subject_ids
+        ],
+        "trial_counts": summary.counts.tolist(),
+        "n_arenas": summary.n_arenas,
+        "n_subjects": summary.n_subjects,
+        "n_trials": summary.n_trials,
+        "power": {
+            "detectable_abs_spearman_rho": summary.detectable_rho,
+            "alpha": summary.alpha,
+            "power": summary.power,
+            "method": summary.power_method,
+        },
+    }
+    notes = list(checks.warnings)
+    adjusted = [r for r in confounds["speed"] if r["confounded"] and r["adjusted"]]
+    if adjusted:
+        notes = [
+            n.replace("; name it as a covariate.", f"; {SPEED_SCORE!r} is a covariate here.")
+            for n in notes
+        ]
+    return confounds, design, notes
 
 
 def rows_csv(rows: Sequence[dict[str, Any]]) -> str:

@@ -2,8 +2,8 @@
 
 Raw files and large arrays live in the artifact store; rows keep their sha256.
 Every timestamp is timezone-aware UTC (stored naive-UTC so SQLite and PostgreSQL agree).
-Study support will add a ``study`` table and nullable ``study_id`` foreign keys on arena,
-subject and trial; nothing here depends on their absence.
+Studies group arenas, subjects and trials through membership tables (``study_arenas``,
+``study_subjects``, ``study_trials``), so one arena or subject may belong to several.
 """
 
 from __future__ import annotations
@@ -14,6 +14,7 @@ from typing import Any, ClassVar
 from sqlalchemy import (
     JSON,
     CheckConstraint,
+    Column,
     DateTime,
     Float,
     ForeignKey,
@@ -21,6 +22,7 @@ from sqlalchemy import (
     Integer,
     MetaData,
     String,
+    Table,
     Text,
     UniqueConstraint,
 )
@@ -40,9 +42,13 @@ __all__ = [
     "Profile",
     "Scan",
     "Score",
+    "Study",
     "Subject",
     "Token",
     "Trial",
+    "study_arenas",
+    "study_subjects",
+    "study_trials",
     "utcnow",
 ]
 
@@ -347,3 +353,29 @@ class Token(Base):
         if self.revoked_at is not None:
             return False
         return self.expires_at is None or self.expires_at > utcnow()
+
+
+class Study(Base):
+    """A named group of arenas, subjects and trials (one may belong to several studies)."""
+
+    __tablename__ = "study"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    name: Mapped[str] = mapped_column(String(200), unique=True)
+    notes: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = _created()
+
+
+def _membership(name: str, member: str) -> Table:
+    # Deleting a study or a member drops the membership row, nothing else.
+    return Table(
+        name,
+        Base.metadata,
+        Column("study_id", ForeignKey("study.id", ondelete="CASCADE"), primary_key=True),
+        Column(f"{member}_id", ForeignKey(f"{member}.id", ondelete="CASCADE"), primary_key=True),
+    )
+
+
+study_arenas = _membership("study_arenas", "arena")
+study_subjects = _membership("study_subjects", "subject")
+study_trials = _membership("study_trials", "trial")

@@ -85,14 +85,18 @@ def test_serve_first_start_writes_admin_token(
     assert token_file.read_text().strip() == secret
 
 
-def test_demo_placeholder_says_so(capsys: pytest.CaptureFixture[str]) -> None:
-    assert cli.main(["demo"]) == 0
+def test_demo_help_names_its_options(capsys: pytest.CaptureFixture[str]) -> None:
+    # The demo itself runs end to end in tests/test_demo.py (slow).
+    with pytest.raises(SystemExit) as exc:
+        cli.main(["demo", "--help"])
+    assert exc.value.code == 0
     out = capsys.readouterr().out
-    assert "not part of this build" in out and "Nothing was computed" in out
+    assert "--out" in out and "--quick" in out
 
 
 def test_subcommands_are_registered_from_functions() -> None:
     parser = cli.build_parser()
     sub = next(a for a in parser._actions if a.dest == "command")
-    assert set(sub.choices) == {"serve", "token", "upload", "demo"}
-    assert len(cli.COMMANDS) == 4
+    # Every contract command is there, and each registered function adds one.
+    assert {"serve", "token", "upload", "demo"} <= set(sub.choices)
+    assert len(cli.COMMANDS) == len(sub.choices)

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+from service.dashboard import data_router as dashboard_data
 from service.routes import (
+    analysis,
     arenas,
     correspondence,
     jobs,
@@ -11,6 +13,8 @@ from service.routes import (
     report,
     scans,
     scores,
+    status,
+    studies,
     subjects,
     tokens,
     trials,
@@ -31,5 +35,9 @@ ROUTERS = [
     scores.router,
     tokens.router,
     correspondence.router,
+    analysis.router,
+    studies.router,
     report.router,
+    dashboard_data,
+    status.router,
 ]

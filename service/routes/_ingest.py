@@ -63,6 +63,22 @@ def _job_for(session: Any, *, target_kind: str, target_id: int, created: bool) -
     return None if job is None else int(job.id)
 
 
+def _split_study(raw: str | None) -> tuple[str | None, str | None]:
+    """Take ``study`` (a study name) out of the meta JSON; the rest goes to the meta model."""
+    if raw is None or not raw.strip():
+        return None, raw
+    try:
+        value = json.loads(raw)
+    except json.JSONDecodeError:
+        return None, raw  # parse_meta reports the error
+    if not isinstance(value, dict) or "study" not in value:
+        return None, raw
+    study = value.pop("study")
+    if not isinstance(study, str) or not study.strip():
+        raise HTTPException(status.HTTP_400_BAD_REQUEST, detail="meta.study must be a name")
+    return study.strip(), json.dumps(value)
+
+
 async def handle_upload(
     request: Request,
     response: Response,
@@ -82,9 +98,12 @@ async def handle_upload(
     received = await receive_upload(request, store=store, max_bytes=state.settings.max_upload_bytes)
 
     def work() -> UploadPublic:
-        meta = parse_meta(received.fields.get("meta"), meta_model)
+        study, raw_meta = _split_study(received.fields.get("meta"))
+        meta = parse_meta(raw_meta, meta_model)
         check_format(received.filename, kind=target_kind)
         with state.sessionmaker() as session:
+            if study is not None:  # NotFound (404) for an unknown study, before storing
+                study_id = repo.get_study_by_name(session=session, name=study).id
             row, created = ingest(
                 session=session,
                 store=store,
@@ -92,6 +111,11 @@ async def handle_upload(
                 filename=received.filename,
                 meta=meta.model_dump(mode="json", exclude_none=True),
             )
+            if study is not None:
+                # A scan makes its arena a member; a trial is a member itself.
+                key = "trial_ids" if target_kind == "trial" else "arena_ids"
+                member = row.id if target_kind == "trial" else row.arena_id
+                repo.add_study_members(session=session, study_id=study_id, **{key: [member]})
             job_id = _job_for(session, target_kind=target_kind, target_id=row.id, created=created)
             return UploadPublic(id=row.id, sha256=row.sha256, job_id=job_id, created=created)
 

@@ -6,6 +6,7 @@ from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import PlainTextResponse
+from pydantic import Field
 from starlette.concurrency import run_in_threadpool
 
 from service.correspondence import Selection, correspondence_report, rows_csv
@@ -14,6 +15,24 @@ from service.deps import ReadToken
 from service.schemas import CorrespondencePublic, LocalCorrespondencePublic
 
 router = APIRouter(tags=["correspondence"])
+
+
+class CorrespondenceAdjustedPublic(CorrespondencePublic):
+    """The correspondence report with its study, covariates, confound checks and design."""
+
+    study: str | None = Field(None, description="Study the selection was limited to.")
+    covariates: dict[str, Any] = Field(
+        default_factory=dict, description="Covariates adjusted for and how (names, method)."
+    )
+    confounds: dict[str, Any] = Field(
+        default_factory=dict,
+        description="Speed vs terrain across arenas, subject-by-arena balance, collinearity.",
+    )
+    design: dict[str, Any] = Field(
+        default_factory=dict,
+        description="Arenas x subjects trial counts and the detectable rank correlation.",
+    )
+
 
 IntList = Annotated[list[int], Query()]
 TextList = Annotated[list[str], Query()]
@@ -41,6 +60,8 @@ def _selection(
     terrain_measure: list[str],
     movement_measure: list[str],
     scans: str,
+    covariate: list[str] = [],  # noqa: B006 (never mutated)
+    study: str | None = None,
 ) -> Selection:
     return Selection(
         arena_ids=tuple(arena_id),
@@ -50,10 +71,12 @@ def _selection(
         terrain_measures=_texts(terrain_measure),
         movement_measures=_texts(movement_measure),
         scans=scans,
+        covariates=_texts(covariate),
+        study=study,
     )
 
 
-@router.get("/correspondence", response_model=CorrespondencePublic, responses=CSV_RESPONSE)
+@router.get("/correspondence", response_model=CorrespondenceAdjustedPublic, responses=CSV_RESPONSE)
 async def get_correspondence(
     request: Request,
     token: ReadToken,
@@ -70,10 +93,23 @@ async def get_correspondence(
     n_permutations: Permutations = 9999,
     n_boot: Boot = 1999,
     seed: int = 0,
+    covariate: Annotated[
+        list[str],
+        Query(description="Trial covariates to adjust for (speed_m_s, trial_duration_s, ...)."),
+    ] = [],  # noqa: B006
+    study: Annotated[str | None, Query(description="Limit to this study's members.")] = None,
 ) -> Any:
     """Mixed model, arena permutation test, bootstrap Spearman and BH for every measure pair."""
     selection = _selection(
-        arena_id, subject_id, condition, trial_id, terrain_measure, movement_measure, scans
+        arena_id,
+        subject_id,
+        condition,
+        trial_id,
+        terrain_measure,
+        movement_measure,
+        scans,
+        covariate,
+        study,
     )
 
     def compute() -> dict[str, Any]:

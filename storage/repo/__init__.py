@@ -36,6 +36,15 @@ from storage.repo.scores import (
     profile_hash,
     save_scores,
 )
+from storage.repo.studies import (
+    add_study_members,
+    create_study,
+    get_study,
+    get_study_by_name,
+    list_studies,
+    study_members,
+    study_trial_ids,
+)
 from storage.repo.tokens import (
     TOKEN_PREFIX,
     authenticate,
@@ -61,6 +70,7 @@ from storage.repo.uploads import (
 
 __all__ = [
     "TOKEN_PREFIX",
+    "add_study_members",
     "attach_artifact",
     "attach_heightmap",
     "authenticate",
@@ -68,6 +78,7 @@ __all__ = [
     "create_arena",
     "create_marker_set",
     "create_profile",
+    "create_study",
     "create_subject",
     "create_token",
     "enqueue_job",
@@ -80,6 +91,8 @@ __all__ = [
     "get_profile",
     "get_profile_by_hash",
     "get_scan",
+    "get_study",
+    "get_study_by_name",
     "get_subject",
     "get_token",
     "get_trial",
@@ -93,6 +106,7 @@ __all__ = [
     "list_profiles",
     "list_scans",
     "list_scores",
+    "list_studies",
     "list_subjects",
     "list_tokens",
     "list_trials",
@@ -102,6 +116,8 @@ __all__ = [
     "profile_hash",
     "revoke_token",
     "save_scores",
+    "study_members",
+    "study_trial_ids",
     "update_job",
     "validate_roles",
 ]

@@ -1,0 +1,50 @@
+"""The correspondence report: one self-contained HTML page with server-side figures.
+
+``render_report(session=, store=, profile=)`` runs the correspondence (``service.correspondence``)
+and assembles ``report.html``; ``GET /v1/correspondence/report`` serves the same page.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from service.report.assemble import REPORT_CSP, build_report, design_warnings, strongest_pairs
+from service.report.study import StudyData, load_study
+
+__all__ = [
+    "REPORT_CSP",
+    "StudyData",
+    "build_report",
+    "design_warnings",
+    "load_study",
+    "render_report",
+    "strongest_pairs",
+]
+
+
+def render_report(
+    *,
+    session: Any,
+    store: Any,
+    profile: str = "default",
+    version: int | None = None,
+    correspondence: dict[str, Any] | None = None,
+    n_permutations: int = 9999,
+    n_boot: int = 1999,
+    seed: int = 0,
+) -> str:
+    """Compute (unless given) the correspondence of ``profile`` and return the report HTML."""
+    if correspondence is None:
+        from service.correspondence import correspondence_report
+
+        correspondence = correspondence_report(
+            session=session,
+            profile=profile,
+            version=version,
+            n_permutations=n_permutations,
+            n_boot=n_boot,
+            seed=seed,
+        )
+    return build_report(
+        session=session, store=store, correspondence=correspondence, profile=profile
+    )

@@ -1,0 +1,316 @@
+"""Matplotlib figures for the report, rendered server-side to inline PNG (base64).
+
+Colour choices (all perceptually uniform or designed for colour-vision deficiency):
+- arenas are coloured by their rank of roughness (Sq) on ``viridis``, the same colour in every
+  figure, so "yellow = rough" reads across the page;
+- hillshades are grey (a shaded relief is a lightness map; grey keeps it monotone);
+- the recurrence plot uses ``cividis`` (uniform, and near-identical for the common
+  deficiencies, Nuñez et al. 2018);
+- the correspondence heatmap uses ``PuOr``, a ColorBrewer diverging scheme marked
+  colour-blind safe (Harrower & Brewer 2003), centred on zero: red-green schemes and
+  ``coolwarm``'s equal-lightness ends are avoided because the sign must survive a
+  deuteranope's eye and a grey-scale print;
+- step-cycle classes use the Okabe-Ito qualitative palette (Okabe & Ito 2008).
+
+We use ``matplotlib.figure.Figure`` directly (no pyplot state), so figures are safe to render
+in a server's worker threads.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+from matplotlib import colormaps
+from matplotlib.collections import LineCollection
+from matplotlib.figure import Figure
+
+from service.report.panels import MovementPanel, TerrainPanel
+
+__all__ = [
+    "OKABE_ITO",
+    "arena_colours",
+    "complexity_entropy_figure",
+    "heatmap_figure",
+    "movement_figure",
+    "png_data_uri",
+    "scatter_figure",
+    "terrain_figure",
+    "unit_label",
+]
+
+OKABE_ITO = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000")
+DPI = 110
+_STYLE = {"font.size": 9, "axes.titlesize": 9, "axes.labelsize": 9, "legend.fontsize": 7.5}
+
+
+def unit_label(unit: str | None) -> str:
+    """Axis-label unit: '1' is written 'dimensionless' (SI writes it '1')."""
+    if unit in (None, "", "1"):
+        return "dimensionless"
+    return unit
+
+
+def _float(value: Any) -> float:
+    return float("nan") if value is None else float(value)
+
+
+def _num(value: Any, digits: int = 3) -> str:
+    v = _float(value)
+    return "n/a" if not math.isfinite(v) else f"{v:.{digits}g}"
+
+
+def axis_label(measure: str, unit: str | None) -> str:
+    return f"{measure} ({unit_label(unit)})"
+
+
+def png_data_uri(fig: Figure) -> str:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI, bbox_inches="tight")
+    return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
+
+
+def _figure(width: float, height: float) -> Figure:
+    import matplotlib
+
+    matplotlib.rcParams.update(_STYLE)
+    return Figure(figsize=(width, height), layout="constrained")
+
+
+def arena_colours(arena_ids: Sequence[int], roughness: dict[int, float]) -> dict[int, Any]:
+    """viridis by rank of roughness (NaN last); one fixed colour per arena."""
+    order = sorted(
+        arena_ids, key=lambda a: (not np.isfinite(roughness.get(a, np.nan)), roughness.get(a, 0.0))
+    )
+    cmap = colormaps["viridis"]
+    n = max(len(order) - 1, 1)
+    # Stop at 0.92: viridis' last yellow is faint on white.
+    return {a: cmap(0.92 * i / n) for i, a in enumerate(order)}
+
+
+# -- terrain ----------------------------------------------------------------------------------
+def terrain_figure(panels: list[TerrainPanel], colours: dict[int, Any]) -> tuple[str, str]:
+    """(hillshade thumbnails, PSD + slope histograms) as two PNG data URIs."""
+    n = len(panels)
+    cols = min(4, n)
+    rows = math.ceil(n / cols)
+    fig = _figure(2.6 * cols, 1.25 * rows + 0.4)
+    for i, p in enumerate(panels):
+        ax = fig.add_subplot(rows, cols, i + 1)
+        ex, ey = p.extent_m
+        ax.imshow(
+            p.hillshade,
+            cmap="gray",
+            vmin=0,
+            vmax=1,
+            origin="lower",
+            extent=(0, ex * 100, 0, ey * 100),
+            interpolation="antialiased",
+        )
+        ax.set_title(f"{p.arena_name}", color="black", fontsize=8)
+        for side in ax.spines.values():
+            side.set_edgecolor(colours.get(p.arena_id, "black"))
+            side.set_linewidth(2.5)
+        ax.set_xlabel("x (cm)")
+        if i % cols == 0:
+            ax.set_ylabel("y (cm)")
+    thumbs = png_data_uri(fig)
+
+    fig = _figure(9.5, 3.4)
+    ax_psd, ax_slope = fig.subplots(1, 2)
+    for p in panels:
+        c = colours.get(p.arena_id, "black")
+        label = p.arena_name + ("" if not np.isfinite(p.hurst) else f"  (H = {p.hurst:.2f})")
+        ok = p.psd > 0
+        ax_psd.loglog(p.q[ok], p.psd[ok], color=c, lw=1.4, label=label)
+        if p.fit_q.size:
+            ax_psd.loglog(p.fit_q, p.fit_psd, color="black", lw=0.9, ls="--")
+        width = np.diff(p.slope_edges_deg)
+        frac = p.slope_counts / max(p.slope_counts.sum(), 1) / width
+        ax_slope.step(p.slope_edges_deg[:-1], frac, where="post", color=c, lw=1.3)
+    ax_psd.set_xlabel("wavenumber q (rad m$^{-1}$)")
+    ax_psd.set_ylabel("radially averaged PSD C(q) (m$^4$)")
+    ax_psd.set_title("Roughness spectra; dashed: power-law fit over the animal-scale band")
+    ax_psd.legend(loc="lower left", frameon=False)
+    ax_slope.set_yscale("log")
+    ax_slope.set_xlabel("local slope (degrees)")
+    ax_slope.set_ylabel("fraction of cells per degree (deg$^{-1}$)")
+    ax_slope.set_title("Slope histograms (band-passed surface)")
+    top = max(
+        (
+            p.slope_edges_deg[:-1][p.slope_counts > 0].max()
+            for p in panels
+            if (p.slope_counts > 0).any()
+        ),
+        default=90.0,
+    )
+    ax_slope.set_xlim(0, min(90.0, top + 2))
+    return thumbs, png_data_uri(fig)
+
+
+# -- movement ---------------------------------------------------------------------------------
+def movement_figure(panels: list[MovementPanel]) -> str:
+    """Recurrence plots, SSA phase portraits and step-cycle class strips."""
+    n = len(panels)
+    fig = _figure(9.5, 3.1 * n + 0.9)
+    grid = fig.add_gridspec(n + 1, 2, height_ratios=[3.1] * n + [0.9])
+    for row, p in enumerate(panels):
+        ax = fig.add_subplot(grid[row, 0])
+        d = p.duration_s
+        im = ax.imshow(
+            p.recurrence,
+            cmap="cividis",
+            vmin=0,
+            vmax=1,
+            origin="lower",
+            extent=(0, d, 0, d),
+            interpolation="nearest",
+        )
+        ax.set_xlabel("time i (s)")
+        ax.set_ylabel("time j (s)")
+        ax.set_title(f"Recurrence plot, trial {p.trial_id} ({p.subject_label}, {p.arena_name})")
+        fig.colorbar(im, ax=ax, label="recurrent fraction of block (dimensionless)", shrink=0.85)
+        ax2 = fig.add_subplot(grid[row, 1])
+        xy = p.ssa_pair * 1000.0
+        if xy.shape[0] > 1:
+            seg = np.stack([xy[:-1], xy[1:]], axis=1)
+            t = np.arange(xy.shape[0] - 1) / p.frame_rate_hz
+            lc = LineCollection(seg, cmap="viridis", array=t, linewidths=0.8)
+            ax2.add_collection(lc)
+            ax2.autoscale()
+            fig.colorbar(lc, ax=ax2, label="time (s)", shrink=0.85)
+        ax2.set_aspect("equal", adjustable="datalim")
+        ax2.set_xlabel("SSA component 1 (mm)")
+        ax2.set_ylabel("SSA component 2 (mm)")
+        ax2.set_title("SSA phase portrait of the foot-height signal")
+    ax = fig.add_subplot(grid[n, :])
+    n_max = 1
+    for row, p in enumerate(panels):
+        seq = p.class_sequence
+        n_max = max(n_max, seq.size)
+        colours = [OKABE_ITO[int(c) % len(OKABE_ITO)] for c in seq]
+        ax.bar(
+            np.arange(seq.size) + 1,
+            0.8,
+            bottom=row - 0.4,
+            width=0.9,
+            color=colours,
+            edgecolor="white",
+            linewidth=0.5,
+        )
+        for k, c in enumerate(seq):
+            ax.text(k + 1, row, str(int(c) + 1), ha="center", va="center", fontsize=6.5)
+    ax.set_yticks(range(n), [f"trial {p.trial_id}" for p in panels])
+    ax.set_xlim(0.4, n_max + 0.6)
+    ax.set_xlabel("reference-limb stride number (count)")
+    ax.set_title("Step-cycle class of each stride (number = class)")
+    return png_data_uri(fig)
+
+
+# -- correspondence ---------------------------------------------------------------------------
+def heatmap_figure(
+    terrain: list[str], movement: list[str], effect: np.ndarray, q: np.ndarray
+) -> str:
+    """Standardised slopes (rows terrain, columns movement); '*' marks q < 0.05."""
+    fig = _figure(max(5.0, 0.42 * len(movement) + 2.8), max(2.6, 0.36 * len(terrain) + 1.9))
+    ax = fig.add_subplot()
+    lim = float(np.nanmax(np.abs(effect))) if np.isfinite(effect).any() else 1.0
+    lim = max(min(lim, 3.0), 0.1)
+    cmap = colormaps["PuOr"].with_extremes(bad="#dddddd")
+    im = ax.imshow(np.ma.masked_invalid(effect), cmap=cmap, vmin=-lim, vmax=lim, aspect="auto")
+    for i in range(len(terrain)):
+        for j in range(len(movement)):
+            if np.isfinite(q[i, j]) and q[i, j] < 0.05:
+                ax.text(j, i, "*", ha="center", va="center", fontsize=12, weight="bold")
+    ax.set_xticks(range(len(movement)), movement, rotation=60, ha="right")
+    ax.set_yticks(range(len(terrain)), terrain)
+    ax.set_xlabel("movement measure")
+    ax.set_ylabel("terrain measure")
+    fig.colorbar(im, ax=ax, label="standardised slope (SD movement per SD terrain)")
+    ax.set_title("Correspondence: mixed-model slope x SD(terrain) / SD(movement); * q < 0.05")
+    return png_data_uri(fig)
+
+
+def scatter_figure(pairs: list[dict[str, Any]], colours: dict[int, Any]) -> str:
+    """One panel per pair: trials (small), arena means (large), slope line with CI band."""
+    n = len(pairs)
+    cols = min(2, n)
+    rows = math.ceil(n / cols)
+    fig = _figure(4.7 * cols, 3.3 * rows)
+    for k, pair in enumerate(pairs):
+        ax = fig.add_subplot(rows, cols, k + 1)
+        x, y, arena = pair["x"], pair["y"], pair["arena"]
+        ax.scatter(x, y, s=14, c=[colours.get(a, "grey") for a in arena], alpha=0.7, lw=0)
+        for a in sorted(set(arena)):
+            sel = arena == a
+            ax.scatter(
+                x[sel].mean(),
+                y[sel].mean(),
+                s=70,
+                color=colours.get(a, "grey"),
+                edgecolor="black",
+                lw=0.8,
+                marker="D",
+                zorder=3,
+            )
+        ok = np.isfinite(x) & np.isfinite(y)
+        slope, lo, hi = (_float(pair.get(k)) for k in ("slope", "ci_low", "ci_high"))
+        if ok.sum() >= 2 and np.isfinite(slope):
+            xm, ym = x[ok].mean(), y[ok].mean()
+            xs = np.linspace(x[ok].min(), x[ok].max(), 50)
+            ax.plot(xs, ym + slope * (xs - xm), color="black", lw=1.2)
+            if np.isfinite(lo) and np.isfinite(hi):
+                band = np.stack([ym + lo * (xs - xm), ym + hi * (xs - xm)])
+                ax.fill_between(xs, band.min(0), band.max(0), color="black", alpha=0.12, lw=0)
+        ax.set_xlabel(axis_label(pair["terrain_measure"], pair["terrain_unit"]))
+        ax.set_ylabel(axis_label(pair["movement_measure"], pair["movement_unit"]))
+        ax.set_title(
+            f"slope {_num(slope)} [{_num(lo)}, {_num(hi)}], p = {_num(pair['p_value'])}, "
+            f"q = {_num(pair['q_value'])}, rho = {_num(pair['spearman_rho'], 2)}",
+            fontsize=8,
+        )
+    return png_data_uri(fig)
+
+
+def complexity_entropy_figure(
+    arenas: list[tuple[int, str, float, float]],
+    trials: list[tuple[int, float, float]],
+    bounds: list[Any],
+    colours: dict[int, Any],
+) -> str:
+    """Arenas (squares, 2-D ordinal patterns) and trials (dots) on one H-C plane."""
+    fig = _figure(6.2, 4.3)
+    ax = fig.add_subplot()
+    for b in bounds:
+        ax.plot(b.entropy_max, b.complexity_max, color="0.35", lw=0.9)
+        ax.plot(b.entropy_min, b.complexity_min, color="0.35", lw=0.9, ls=":")
+    if bounds:
+        ax.plot([], [], color="0.35", lw=0.9, label=f"C max (M = {bounds[0].n_patterns})")
+        ax.plot([], [], color="0.35", lw=0.9, ls=":", label="C min")
+    for arena_id, h, c in trials:
+        ax.scatter(h, c, s=16, color=colours.get(arena_id, "grey"), alpha=0.8, lw=0)
+    for arena_id, name, h, c in arenas:
+        ax.scatter(
+            h,
+            c,
+            s=80,
+            marker="s",
+            color=colours.get(arena_id, "grey"),
+            edgecolor="black",
+            lw=0.8,
+            zorder=3,
+        )
+        ax.annotate(name, (h, c), textcoords="offset points", xytext=(5, 4), fontsize=7)
+    ax.scatter([], [], s=16, color="grey", label="trials (foot-height signal)")
+    ax.scatter([], [], s=60, marker="s", color="grey", edgecolor="black", label="arenas (surface)")
+    ax.set_xlim(0, 1.0)
+    ax.set_ylim(0, None)
+    ax.set_xlabel("normalised permutation entropy H (dimensionless)")
+    ax.set_ylabel("Jensen-Shannon complexity C (dimensionless)")
+    ax.set_title("Shared complexity-entropy plane (colour: arena roughness rank)")
+    ax.legend(loc="upper left", frameon=False)
+    return png_data_uri(fig)

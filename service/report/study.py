@@ -1,0 +1,149 @@
+"""Gather one study's records and scores under one profile, for the report.
+
+Everything here reads the database and the artifact store through ``storage.repo``; nothing
+is computed that the pipeline did not store, except plot arrays (``service.report.panels``).
+"""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from dataclasses import dataclass, field
+from typing import Any
+
+from storage import repo
+
+__all__ = ["StudyData", "TrialScores", "load_study"]
+
+_PAGE = 1000
+
+
+def _all(list_fn: Any, **kwargs: Any) -> list[Any]:
+    """Every row of a paginated repository list."""
+    out: list[Any] = []
+    while True:
+        rows, count = list_fn(offset=len(out), limit=_PAGE, **kwargs)
+        out += rows
+        if not rows or len(out) >= count:
+            return out
+
+
+@dataclass
+class TrialScores:
+    trial_id: int
+    arena_id: int
+    subject_id: int
+    duration_s: float
+    values: dict[str, float]
+
+
+@dataclass
+class StudyData:
+    """What the report shows, in plain Python: ids, names, values, units."""
+
+    profile_name: str
+    profile_version: int
+    profile_hash: str
+    parameters: dict[str, Any]
+    arenas: list[Any]  # storage.models.Arena rows
+    subjects: list[Any]
+    scans: list[Any]
+    trials: list[Any]
+    terrain: dict[int, dict[str, float]]  # arena id -> measure -> mean over its scans
+    movement: list[TrialScores]
+    units: dict[str, str]
+    code_versions: list[str]
+    job_counts: dict[str, int]
+    scan_scores: dict[int, dict[str, float]] = field(default_factory=dict)
+    failed_jobs: list[str] = field(default_factory=list)
+
+    @property
+    def scored_arena_ids(self) -> list[int]:
+        return [a.id for a in self.arenas if a.id in self.terrain]
+
+    def arena_name(self, arena_id: int) -> str:
+        return next((a.name for a in self.arenas if a.id == arena_id), f"arena {arena_id}")
+
+    def is_invented(self) -> bool:
+        """True when the records say they are invented (the demo labels its data so)."""
+        texts = [s.species or "" for s in self.subjects] + [a.notes or "" for a in self.arenas]
+        return any("invented" in t.lower() for t in texts)
+
+
+def _profile(session: Any, name: str | None) -> Any:
+    from service.pipeline.profiles import DEFAULT_PROFILE, ensure_default_profile
+
+    if name is None or name == DEFAULT_PROFILE:
+        return ensure_default_profile(session)
+    return repo.get_profile(session=session, name=name)
+
+
+def _scores_by_target(session: Any, kind: str, profile_hash: str) -> dict[int, list[Any]]:
+    rows = _all(
+        lambda **kw: repo.list_scores(session=session, **kw),
+        target_kind=kind,
+        profile_hash=profile_hash,
+    )
+    out: dict[int, list[Any]] = defaultdict(list)
+    for row in rows:
+        out[row.target_id].append(row)
+    return out
+
+
+def load_study(*, session: Any, profile: str | None = None) -> StudyData:
+    """The study as stored, with the scores of profile ``profile`` (latest ``default``)."""
+    prof = _profile(session, profile)
+    arenas = _all(lambda **kw: repo.list_arenas(session=session, **kw))
+    subjects = _all(lambda **kw: repo.list_subjects(session=session, **kw))
+    scans = _all(lambda **kw: repo.list_scans(session=session, **kw))
+    trials = _all(lambda **kw: repo.list_trials(session=session, **kw))
+    # Terrain and movement values exactly as the correspondence uses them (latest scored scan
+    # of each arena; diagnostics left out), so figures and table agree.
+    from service.correspondence import Selection
+    from service.correspondence import load_study as load_tables
+
+    tables = load_tables(session=session, profile_hash=prof.hash, selection=Selection())
+    terrain = {
+        int(a): {m: float(row[m]) for m in tables.terrain_measures}
+        for a, row in tables.arenas.iterrows()
+    }
+    by_id = {t.id: t for t in trials}
+    movement = []
+    for rec in tables.trials.to_dict("records"):
+        t = by_id[int(rec["trial_id"])]
+        duration = (t.n_frames or 0) / t.frame_rate_hz if t.frame_rate_hz else float("nan")
+        values = {m: float(rec[m]) for m in tables.movement_measures}
+        movement.append(TrialScores(t.id, t.arena_id, t.subject_id, duration, values))
+    units: dict[str, str] = {}
+    versions: set[str] = set()
+    scan_scores: dict[int, dict[str, float]] = {}
+    for kind in ("scan", "trial"):
+        for target, rows in _scores_by_target(session, kind, prof.hash).items():
+            if kind == "scan":
+                scan_scores[target] = {s.measure: s.value for s in rows}
+            for s in rows:
+                units[s.measure] = s.unit
+                versions.add(s.code_version)
+    jobs = _all(lambda **kw: repo.list_jobs(session=session, **kw))
+    counts: dict[str, int] = defaultdict(int)
+    failed = []
+    for j in jobs:
+        counts[j.state] += 1
+        if j.state == "failed":
+            failed.append(f"{j.target_kind} {j.target_id}: {(j.error or '').strip()[:200]}")
+    return StudyData(
+        profile_name=prof.name,
+        profile_version=prof.version,
+        profile_hash=prof.hash,
+        parameters=dict(prof.parameters or {}),
+        arenas=arenas,
+        subjects=subjects,
+        scans=scans,
+        trials=trials,
+        terrain=terrain,
+        movement=movement,
+        units=units,
+        code_versions=sorted(versions),
+        job_counts=dict(counts),
+        failed_jobs=failed,
+        scan_scores=scan_scores,
+    )

@@ -1,0 +1,49 @@
+"""The correspondence report as one self-contained HTML page (figures inline)."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Query, Request
+from fastapi.responses import HTMLResponse
+from starlette.concurrency import run_in_threadpool
+
+from service.deps import ReadToken
+from service.report import REPORT_CSP, render_report
+
+router = APIRouter(tags=["correspondence"])
+
+REPORT_HEADERS = {
+    "Content-Security-Policy": REPORT_CSP,
+    "X-Content-Type-Options": "nosniff",
+    "Referrer-Policy": "no-referrer",
+    "Cache-Control": "no-store",
+}
+
+
+@router.get("/correspondence/report", response_class=HTMLResponse)
+async def get_report(
+    request: Request,
+    token: ReadToken,
+    profile: str = "default",
+    version: int | None = None,
+    n_permutations: Annotated[int, Query(ge=99, le=99_999)] = 9999,
+    n_boot: Annotated[int, Query(ge=99, le=99_999)] = 1999,
+    seed: int = 0,
+) -> HTMLResponse:
+    """The report (study summary, terrain, movement, correspondence, warnings) as HTML."""
+
+    def compute() -> str:
+        with request.app.state.sessionmaker() as session:
+            return render_report(
+                session=session,
+                store=request.app.state.store,
+                profile=profile,
+                version=version,
+                n_permutations=n_permutations,
+                n_boot=n_boot,
+                seed=seed,
+            )
+
+    html = await run_in_threadpool(compute)
+    return HTMLResponse(html, headers=REPORT_HEADERS)

@@ -1,0 +1,126 @@
+"""Studies: named groups of arenas, subjects and trials, and membership queries."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+from sqlalchemy import Table, insert, or_, select
+from sqlalchemy.orm import Session
+
+from storage.errors import Conflict, NotFound
+from storage.models import (
+    Arena,
+    Study,
+    Subject,
+    Trial,
+    study_arenas,
+    study_subjects,
+    study_trials,
+)
+from storage.repo._common import get_or_404, need_text, paginate
+
+__all__ = [
+    "add_study_members",
+    "create_study",
+    "get_study",
+    "get_study_by_name",
+    "list_studies",
+    "study_members",
+    "study_trial_ids",
+]
+
+_TABLES: dict[str, tuple[Table, type, str]] = {
+    "arena": (study_arenas, Arena, "arena_id"),
+    "subject": (study_subjects, Subject, "subject_id"),
+    "trial": (study_trials, Trial, "trial_id"),
+}
+
+
+def create_study(*, session: Session, name: str, notes: str = "") -> Study:
+    """A new study; Conflict when the name is taken."""
+    text = need_text(name, name="name")
+    if session.scalar(select(Study).where(Study.name == text)) is not None:
+        raise Conflict(f"a study named {text!r} exists")
+    study = Study(name=text, notes=notes or "")
+    session.add(study)
+    session.commit()
+    return study
+
+
+def get_study(*, session: Session, study_id: int) -> Study:
+    """The study with this id, or NotFound."""
+    return get_or_404(session, Study, study_id, "study")
+
+
+def get_study_by_name(*, session: Session, name: str) -> Study:
+    """The study with this name, or NotFound."""
+    study = session.scalar(select(Study).where(Study.name == name))
+    if study is None:
+        raise NotFound("study", name)
+    return study
+
+
+def list_studies(*, session: Session, offset: int = 0, limit: int = 100) -> tuple[list[Study], int]:
+    """Studies by id."""
+    return paginate(session, select(Study).order_by(Study.id), offset=offset, limit=limit)
+
+
+def add_study_members(
+    *,
+    session: Session,
+    study_id: int,
+    arena_ids: Iterable[int] = (),
+    subject_ids: Iterable[int] = (),
+    trial_ids: Iterable[int] = (),
+) -> dict[str, list[int]]:
+    """Add members (idempotent: existing memberships are kept); NotFound for unknown ids."""
+    get_study(session=session, study_id=study_id)
+    wanted = {"arena": arena_ids, "subject": subject_ids, "trial": trial_ids}
+    for kind, ids in wanted.items():
+        table, model, column = _TABLES[kind]
+        ids = sorted({int(i) for i in ids})
+        if not ids:
+            continue
+        found = set(session.scalars(select(model.id).where(model.id.in_(ids))))
+        missing = [i for i in ids if i not in found]
+        if missing:
+            session.rollback()
+            raise NotFound(kind, missing[0] if len(missing) == 1 else missing)
+        have = set(
+            session.scalars(
+                select(table.c[column]).where(
+                    table.c.study_id == study_id, table.c[column].in_(ids)
+                )
+            )
+        )
+        new = [{"study_id": study_id, column: i} for i in ids if i not in have]
+        if new:
+            session.execute(insert(table), new)
+    session.commit()
+    return study_members(session=session, study_id=study_id)
+
+
+def study_members(*, session: Session, study_id: int) -> dict[str, list[int]]:
+    """Ids of the study's arenas, subjects and trials (explicit memberships)."""
+    get_study(session=session, study_id=study_id)
+    out = {}
+    for kind, (table, _, column) in _TABLES.items():
+        out[f"{kind}_ids"] = sorted(
+            session.scalars(select(table.c[column]).where(table.c.study_id == study_id))
+        )
+    return out
+
+
+def study_trial_ids(*, session: Session, study_id: int) -> set[int]:
+    """Trials in the study: members themselves, or whose arena and subject both are."""
+    get_study(session=session, study_id=study_id)
+    arenas = select(study_arenas.c.arena_id).where(study_arenas.c.study_id == study_id)
+    subjects = select(study_subjects.c.subject_id).where(study_subjects.c.study_id == study_id)
+    trials = select(study_trials.c.trial_id).where(study_trials.c.study_id == study_id)
+    stmt = select(Trial.id).where(
+        or_(
+            Trial.id.in_(trials),
+            Trial.arena_id.in_(arenas) & Trial.subject_id.in_(subjects),
+        )
+    )
+    return set(session.scalars(stmt))

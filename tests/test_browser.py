@@ -1,0 +1,145 @@
+"""The dashboard in a real headless Chromium (Debian's, driven by Playwright) on a live server.
+
+Skipped when Chromium or Playwright is missing, unless GAITSCAPE_REQUIRE_SERVICES=1.
+Screenshots go to test-artifacts/ (gitignored).
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+from pathlib import Path
+
+import pytest
+from test_report import N_ARENAS, build_small_store
+
+from service.app import create_app
+from storage import repo
+
+pytestmark = pytest.mark.browser
+
+CHROMIUM = os.environ.get("GAITSCAPE_CHROMIUM", "/usr/bin/chromium")
+ARGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    # WebGL (the 3D replay) without a GPU: Chromium's software rasteriser.
+    "--use-angle=swiftshader",
+    "--enable-unsafe-swiftshader",
+]
+ARTIFACTS = Path(__file__).resolve().parent.parent / "test-artifacts"
+REQUIRED = os.environ.get("GAITSCAPE_REQUIRE_SERVICES") == "1"
+
+
+def _need(ok: bool, why: str) -> None:
+    if not ok:
+        if REQUIRED:
+            pytest.fail(why + " (GAITSCAPE_REQUIRE_SERVICES=1)")
+        pytest.skip(why)
+
+
+@pytest.fixture(scope="module")
+def live(tmp_path_factory: pytest.TempPathFactory):
+    _need(Path(CHROMIUM).exists() or shutil.which(CHROMIUM) is not None, f"no {CHROMIUM}")
+    try:
+        from playwright.sync_api import sync_playwright
+    except ImportError:
+        _need(False, "playwright is not installed")
+    from service.demo import _serving
+
+    store = build_small_store(tmp_path_factory.mktemp("browser") / "data", duration_s=2.0)
+    app = create_app(store["settings"])
+    with app.state.sessionmaker() as session:
+        _, secret = repo.create_token(session=session, scopes=["read"])
+    ARTIFACTS.mkdir(exist_ok=True)
+    with _serving(app) as base, sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=CHROMIUM, args=ARGS, headless=True)
+        context = browser.new_context(viewport={"width": 1280, "height": 900})
+        page = context.new_page()
+        problems: list[str] = []
+        page.on("console", lambda m: problems.append(m.text) if m.type == "error" else None)
+        page.on("pageerror", lambda e: problems.append(str(e)))
+        yield {"base": base, "page": page, "secret": secret, "problems": problems, "store": store}
+        context.close()
+        browser.close()
+
+
+def _shot(page, name: str) -> None:
+    page.screenshot(path=str(ARTIFACTS / f"dashboard-{name}.png"), full_page=True)
+
+
+def test_failed_login_is_refused(live) -> None:
+    page = live["page"]
+    page.goto(live["base"] + "/ui/login")
+    page.fill("#token", "gsk_not-a-real-token")
+    page.click("button[type=submit]")
+    page.wait_for_selector("#login-msg.error")
+    assert "Token refused" in page.inner_text("#login-msg")
+    assert page.evaluate("sessionStorage.getItem('gaitscape-token')") is None
+    _shot(page, "login-refused")
+    live["problems"].clear()  # the browser logs the refused 401 itself; that one is expected
+
+
+def test_login_and_every_page(live) -> None:
+    page, base, store = live["page"], live["base"], live["store"]
+    page.goto(base + "/ui/login")
+    page.fill("#token", live["secret"])
+    page.click("button[type=submit]")
+    page.wait_for_url("**/ui/arenas")
+    page.wait_for_selector("table tbody tr")
+    assert page.locator("table tbody tr").count() == N_ARENAS
+    assert "tray-0" in page.inner_text("table")
+    _shot(page, "arenas")
+
+    page.goto(base + "/ui/trials")
+    page.wait_for_selector("#trial-table tbody tr")
+    assert page.locator("#trial-table tbody tr").count() == len(store["trials"])
+    page.select_option("#f-arena_id", str(store["arenas"][0]))
+    page.click("#trial-filters button[type=submit]")
+    page.wait_for_function("document.querySelectorAll('#trial-table tbody tr').length === 2")
+    _shot(page, "trials")
+
+    trial = store["trials"][0]
+    page.goto(f"{base}/ui/trials/{trial}")
+    page.wait_for_selector("#scores table")
+    assert "stride_frequency_hz" in page.inner_text("#scores")
+    page.wait_for_selector("#replay.js-plotly-plot", timeout=30_000)
+    page.wait_for_selector("#replay canvas", state="attached", timeout=30_000)
+    page.focus("#frame")
+    page.keyboard.press("ArrowRight")  # keyboard moves the replay
+    page.wait_for_function("document.querySelector('#clock').textContent.startsWith('t = ')")
+    assert page.inner_text("#clock") != "t = 0 s"
+    _shot(page, "trial")
+
+    page.goto(f"{base}/ui/scans/{store['scans'][0]}")
+    page.wait_for_selector("#scores table")
+    assert "sq_m" in page.inner_text("#scores")
+    page.wait_for_selector("#surface.js-plotly-plot", timeout=30_000)
+    _shot(page, "scan")
+
+    page.goto(base + "/ui/jobs")
+    page.wait_for_selector("#job-summary:has-text('jobs')")
+    assert page.inner_text("#job-summary").startswith("0 jobs")
+    _shot(page, "jobs")
+
+    page.goto(base + "/ui/correspondence")
+    page.wait_for_selector("#heatmap.js-plotly-plot", timeout=60_000)
+    counts = page.inner_text("#corr-counts")
+    assert counts.startswith(f"{N_ARENAS} arenas, 2 subjects, {len(store['trials'])} trials")
+    assert "stride_frequency_hz" in page.inner_text("#corr-out table")
+    assert page.locator("#terrain option").count() >= 2
+    _shot(page, "correspondence")
+    assert live["problems"] == [], live["problems"]
+
+
+def test_signed_out_page_asks_for_the_token(live) -> None:
+    page = live["page"]
+    page.evaluate("sessionStorage.clear()")
+    page.goto(live["base"] + "/ui/jobs")
+    page.wait_for_selector("#login-form")
+    assert page.locator("#token").is_visible()

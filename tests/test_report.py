@@ -1,0 +1,229 @@
+"""The correspondence report, built from a small synthetic store with scores inserted directly.
+
+The store's files come from the demo generators (invented data, labelled so); its scores are
+written with ``storage.repo.save_scores`` so the test is quick and the expected values known.
+What is checked against outside facts: the report holds no external resource (self-contained
+means no ``src=``/``href=`` to another origin, HTML Living Standard), figures decode as PNG
+(PNG signature, ISO/IEC 15948:2004 section 5.2), and the arena-permutation floor: with 4 arenas
+the smallest two-sided permutation p is 2/4! = 0.083, so the report must warn (Good 2005,
+*Permutation, Parametric and Bootstrap Tests of Hypotheses*, ch. 3; common practice).
+"""
+
+from __future__ import annotations
+
+import base64
+import re
+from pathlib import Path
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+
+from service.app import open_resources
+from service.pipeline.profiles import ensure_default_profile
+from service.settings import get_settings
+from storage import repo
+
+N_ARENAS = 4
+SUBJECTS = ("vole-a", "vole-b")
+DX_M = 0.001
+ROLES = {
+    "anterior": "snout",
+    "posterior": "tailbase",
+    "feet": {f: f"foot_{f}" for f in ("LF", "RF", "LH", "RH")},
+}
+
+
+def _score(name: str, value: float, unit: str = "1", z: float | None = None) -> SimpleNamespace:
+    return SimpleNamespace(
+        name=name, value=float(value), unit=unit, ci_low=None, ci_high=None, surrogate_z=z
+    )
+
+
+def build_small_store(data_dir: Path, *, duration_s: float = 3.0) -> dict:
+    """4 arenas x 2 subjects, one trial each, heightmaps attached, scores saved directly.
+
+    Movement scores are a known linear function of the arena's Sq (plus subject offsets), so
+    the correspondence has one strong pair: stride_frequency_hz ~ sq_m.
+    """
+    from demo_arena import SUBJECTS as SPECS
+    from demo_arena import self_affine_surface, walk_over
+    from demo_arena.files import write_csv_wide, write_heightmap_npy
+
+    settings = get_settings(data_dir=data_dir, job_runner=False)
+    res = open_resources(settings)
+    files = data_dir / "files"
+    files.mkdir(parents=True, exist_ok=True)
+    out: dict = {"settings": settings, "arenas": [], "trials": [], "scans": [], "sq": {}}
+    with res.sessionmaker() as session:
+        prof = ensure_default_profile(session)
+        subjects = [
+            repo.create_subject(
+                session=session, label=label, species="demo vole (invented)", marker_roles=ROLES
+            )
+            for label in SUBJECTS
+        ]
+        for a in range(N_ARENAS):
+            arena = repo.create_arena(
+                session=session,
+                name=f"tray-{a}",
+                kind="runway",
+                scale_band_m=(0.005, 0.08),
+                notes="invented test tray",
+            )
+            rms = 0.0002 * (a + 1) ** 2
+            z = self_affine_surface((96, 320), DX_M, hurst=0.8, rms_m=rms, seed=100 + a)
+            path = files / f"tray-{a}.npy"
+            write_heightmap_npy(path, z)
+            staged = res.store.put_file(path)
+            scan, _ = repo.ingest_scan(
+                session=session,
+                store=res.store,
+                arena_id=arena.id,
+                staged=staged,
+                filename=path.name,
+                meta={"units": "m", "dx": DX_M, "dy": DX_M},
+            )
+            repo.attach_heightmap(
+                session=session,
+                store=res.store,
+                scan_id=scan.id,
+                z=z,
+                valid=np.ones_like(z, bool),
+                dx_m=DX_M,
+                dy_m=DX_M,
+            )
+            sq = float(np.std(z))
+            out["sq"][arena.id] = sq
+            repo.save_scores(
+                session=session,
+                target_kind="scan",
+                target_id=scan.id,
+                profile_hash=prof.hash,
+                scores=[
+                    _score("sq_m", sq, "m"),
+                    _score("hurst_psd", 0.8),
+                    _score("permutation_entropy_2d", 0.80 + 0.03 * a, z=5.0 + a),
+                    _score("js_complexity_2d", 0.25 - 0.02 * a),
+                ],
+                code_version="test",
+                input_sha256=scan.sha256,
+            )
+            out["arenas"].append(arena.id)
+            out["scans"].append(scan.id)
+            for s, subject in enumerate(subjects):
+                rec = walk_over(z, DX_M, SPECS[s], duration_s=duration_s, seed=10 * a + s)
+                tpath = files / f"tray-{a}-{subject.label}.csv"
+                write_csv_wide(tpath, rec.markers, rec.marker_names, rec.frame_rate_hz)
+                trial, _ = repo.ingest_trial(
+                    session=session,
+                    store=res.store,
+                    staged=res.store.put_file(tpath),
+                    filename=tpath.name,
+                    meta={
+                        "arena_id": arena.id,
+                        "subject_id": subject.id,
+                        "units": "mm",
+                        "frame_rate_hz": rec.frame_rate_hz,
+                        "condition": "overground",
+                    },
+                )
+                freq = 2.0 + 1000.0 * sq + 0.05 * s  # the known relation
+                repo.save_scores(
+                    session=session,
+                    target_kind="trial",
+                    target_id=trial.id,
+                    profile_hash=prof.hash,
+                    scores=[
+                        _score("stride_frequency_hz", freq, "Hz"),
+                        _score("duty_factor", 0.6 + 0.01 * ((a + s) % 3)),
+                        _score("n_strides", 6.0),
+                        _score("permutation_entropy", 0.7 + 0.02 * a + 0.01 * s),
+                        _score("js_complexity", 0.3 - 0.01 * a),
+                    ],
+                    code_version="test",
+                    input_sha256=trial.sha256,
+                )
+                out["trials"].append(trial.id)
+    res.engine.dispose()
+    return out
+
+
+@pytest.fixture(scope="module")
+def small_store(tmp_path_factory: pytest.TempPathFactory) -> dict:
+    return build_small_store(tmp_path_factory.mktemp("report") / "data")
+
+
+@pytest.fixture(scope="module")
+def report_html(small_store: dict) -> str:
+    from service.report import render_report
+
+    res = open_resources(small_store["settings"])
+    try:
+        with res.sessionmaker() as session:
+            return render_report(session=session, store=res.store, n_permutations=999, n_boot=199)
+    finally:
+        res.engine.dispose()
+
+
+def test_report_has_every_section(report_html: str) -> None:
+    for section in (
+        "summary",
+        "warnings",
+        "terrain",
+        "movement",
+        "correspondence",
+        "complexity-entropy",
+    ):
+        assert f'<section id="{section}">' in report_html, section
+    assert "Invented data" in report_html
+    assert "default v1" in report_html  # profile name and version
+
+
+def test_report_is_self_contained(report_html: str) -> None:
+    # Only data: URIs; no script, no stylesheet link, no remote image (HTML Living Standard).
+    assert "<script" not in report_html.lower()
+    assert re.search(r'(src|href)="(?!data:)', report_html) is None
+    images = re.findall(r'src="data:image/png;base64,([^"]+)"', report_html)
+    assert len(images) >= 6  # thumbnails, spectra, movement, heatmap, scatter, plane
+    for b64 in images:
+        assert base64.b64decode(b64)[:8] == b"\x89PNG\r\n\x1a\n"  # ISO/IEC 15948 signature
+
+
+def test_report_counts_and_warnings(report_html: str) -> None:
+    assert "<code>4 / 4</code>" in report_html  # arenas scored / registered
+    assert "<code>8 / 8</code>" in report_html  # trials scored / uploaded
+    # 4 arenas: smallest two-sided permutation p is 2/4! = 0.0833 (Good 2005, ch. 3).
+    assert "Only 4 arenas" in report_html and "0.0833" in report_html
+    assert "Short trials" in report_html  # 3 s trials < MIN_TRIAL_S
+    assert "fewer than 10 strides" in report_html
+
+
+def test_strongest_pair_is_the_planted_one(report_html: str) -> None:
+    # stride_frequency_hz = 2 + 1000 Sq + subject offset: the mixed-model slope is 1000 Hz/m
+    # exactly (the offsets are the subject intercepts), so the table shows 1e+03.
+    table = report_html.split("<h3>Strongest pairs</h3>")[1]
+    first = table.split("<tr>")[2]
+    assert "sq_m" in first and "stride_frequency_hz" in first
+    assert ">1e+03<" in first
+
+
+def test_report_route_needs_a_token_and_serves_html(small_store: dict) -> None:
+    from fastapi.testclient import TestClient
+
+    from service.app import create_app
+
+    app = create_app(small_store["settings"])
+    with app.state.sessionmaker() as session:
+        _, secret = repo.create_token(session=session, scopes=["read"])
+    client = TestClient(app)
+    assert client.get("/v1/correspondence/report").status_code == 401
+    r = client.get(
+        "/v1/correspondence/report?n_permutations=199&n_boot=99",
+        headers={"Authorization": f"Bearer {secret}"},
+    )
+    assert r.status_code == 200, r.text[:300]
+    assert r.headers["content-type"].startswith("text/html")
+    assert "frame-ancestors 'none'" in r.headers["content-security-policy"]
+    assert r.headers["x-content-type-options"] == "nosniff"
+    assert '<section id="correspondence">' in r.text

@@ -1,0 +1,163 @@
+"""Studies, covariates over HTTP and the analysis-table export.
+
+References: statsmodels MixedLM (REML) fitted directly on the exported table (CSV and
+Parquet read back with pandas); pandas crosstab for the design table. The synthetic study
+(roughness lowers speed, speed drives the movement measure) is invented for the check.
+"""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.formula.api as smf
+from _testing import assert_allclose
+from fastapi.testclient import TestClient
+from test_correspondence_service import Study
+
+from measures import detectable_rank_correlation
+from storage import repo
+
+
+class Lab(Study):
+    """The correspondence test store plus a client allowed to create studies."""
+
+    def __init__(self, tmp_path: Path) -> None:
+        super().__init__(tmp_path)
+        with self.sm() as s:
+            _, secret = repo.create_token(session=s, scopes=["upload", "read"], label="w")
+        self.writer = TestClient(self.app, headers={"Authorization": f"Bearer {secret}"})
+
+
+@pytest.fixture
+def lab(tmp_path: Path) -> Lab:
+    return Lab(tmp_path)
+
+
+def _slowing_study(lab: Lab, rng, *, n_arenas=8, n_subjects=4, reps=2, prefix="tray"):
+    """Roughness lowers speed; speed alone drives rqa_det (plus noise)."""
+    rough = np.linspace(0.0, 1.0, n_arenas)
+    arenas = [lab.arena(f"{prefix} {k}") for k in range(n_arenas)]
+    subjects = [lab.subject(f"{prefix}-M{k}") for k in range(n_subjects)]
+    offsets = rng.normal(0, 0.2, n_subjects)
+    trials = []
+    for a, r in zip(arenas, rough, strict=True):
+        lab.scan(a, {"sq_m": r, "sa_m": 0.8 * r + 1e-4 * rng.normal(), "hurst": rng.uniform()})
+        v_a = 0.45 - 0.2 * r + 0.02 * rng.normal()
+        for s, off in zip(subjects, offsets, strict=True):
+            for _ in range(reps):
+                v = v_a + 0.04 * rng.normal()
+                y = 2.0 * v + off + 0.05 * rng.normal()
+                trials.append(lab.trial(a, s, {"rqa_det": y, "speed_m_s": v}))
+    return arenas, subjects, trials
+
+
+def test_create_list_and_members(lab):
+    res = lab.writer.post("/v1/studies", json={"name": "sand", "notes": "pilot"})
+    assert res.status_code == 201, res.text
+    sid = res.json()["id"]
+    assert lab.writer.post("/v1/studies", json={"name": "sand"}).status_code == 409
+    a = lab.arena("tray A")
+    m = lab.subject("M0")
+    t = lab.trial(a, m, {"rqa_det": 0.5})
+    res = lab.writer.post(f"/v1/studies/{sid}/members", json={"arena_ids": [a], "subject_ids": [m]})
+    assert res.status_code == 200
+    body = res.json()
+    assert body["arena_ids"] == [a] and body["subject_ids"] == [m] and body["trial_ids"] == []
+    assert body["n_trials_in_study"] == 1  # arena and subject both members -> trial is in
+    again = lab.writer.post(f"/v1/studies/{sid}/members", json={"trial_ids": [t]}).json()
+    assert again["trial_ids"] == [t] and again["arena_ids"] == [a]  # idempotent, additive
+    assert (
+        lab.writer.post(f"/v1/studies/{sid}/members", json={"arena_ids": [999]}).status_code == 404
+    )
+    listing = lab.client.get("/v1/studies").json()
+    assert listing["count"] == 1 and listing["data"][0]["name"] == "sand"
+    assert lab.client.get("/v1/studies/12345").status_code == 404
+    # A read-only token cannot create studies.
+    assert lab.client.post("/v1/studies", json={"name": "x"}).status_code in (401, 403)
+
+
+def test_correspondence_and_export_limited_to_a_study(lab, rng):
+    arenas_a, subjects_a, _ = _slowing_study(lab, rng, n_arenas=6, prefix="gravel")
+    _slowing_study(lab, rng, n_arenas=5, prefix="sand")
+    sid = lab.writer.post("/v1/studies", json={"name": "gravel"}).json()["id"]
+    lab.writer.post(
+        f"/v1/studies/{sid}/members", json={"arena_ids": arenas_a, "subject_ids": subjects_a}
+    )
+    body = lab.get(study="gravel", n_permutations=99, n_boot=99).json()
+    assert body["study"] == "gravel" and body["n_arenas"] == 6
+    everything = lab.get(n_permutations=99, n_boot=99).json()
+    assert everything["n_arenas"] == 11
+    csv = lab.client.get(
+        "/v1/export/analysis-table", params={"profile": "default", "study": "gravel"}
+    )
+    assert csv.status_code == 200 and csv.headers["content-type"].startswith("text/csv")
+    table = pd.read_csv(io.StringIO(csv.text))
+    assert set(table["study"]) == {"gravel"} and table["arena_id"].nunique() == 6
+    assert lab.get_status("/v1/correspondence", study="nope") == 404
+
+
+def _get_status(self, path, **params):
+    return self.client.get(path, params={"profile": "default", **params}).status_code
+
+
+Lab.get_status = _get_status
+
+
+def test_speed_confound_over_http_and_statsmodels_on_export(lab, rng):
+    _slowing_study(lab, rng)
+    params = {"n_permutations": 999, "n_boot": 199, "movement_measure": "rqa_det"}
+    plain = lab.get(**params).json()
+    adjusted = lab.get(covariate="speed_m_s", **params).json()
+    row_plain = {r["terrain_measure"]: r for r in plain["rows"]}["sq_m"]
+    row_adj = {r["terrain_measure"]: r for r in adjusted["rows"]}["sq_m"]
+    assert row_plain["p_value"] < 0.05  # slowing on rough ground looks like a terrain effect
+    assert row_adj["p_value"] > 0.05  # gone once speed is a covariate
+    assert adjusted["covariates"]["names"] == ["speed_m_s"]
+    speed = {r["terrain_measure"]: r for r in adjusted["confounds"]["speed"]}["sq_m"]
+    assert speed["confounded"] and speed["spearman_rho"] < 0 and speed["adjusted"]
+    assert any("slower" in w for w in plain["warnings"])
+    assert any("same thing twice" in w for w in plain["warnings"])  # sq_m and sa_m
+    design = adjusted["design"]
+    assert np.array(design["trial_counts"]).tolist() == [[2] * 4] * 8
+    assert_allclose(design["power"]["detectable_abs_spearman_rho"], detectable_rank_correlation(8))
+    # Export (Parquet) and refit with statsmodels directly: the adjusted slope agrees.
+    res = lab.client.get(
+        "/v1/export/analysis-table", params={"profile": "default", "format": "parquet"}
+    )
+    assert res.status_code == 200
+    table = pd.read_parquet(io.BytesIO(res.content))
+    for col in ("study", "arena", "subject", "sq_m", "rqa_det", "speed_m_s", "trial_duration_s"):
+        assert col in table
+    fit = smf.mixedlm("rqa_det ~ sq_m + speed_m_s", table, groups=table["subject_id"]).fit(
+        reml=True
+    )
+    # Two REML optimisers on one surface: 1e-4 relative (as in test_correspondence).
+    assert_allclose(row_adj["slope"], fit.params["sq_m"], rtol=1e-4, atol=1e-6)
+    counts = pd.crosstab(table["arena_id"], table["subject_id"]).to_numpy()
+    assert (np.array(design["trial_counts"]) == counts).all()
+
+
+def test_unknown_covariate_is_a_clear_400(lab, rng):
+    _slowing_study(lab, rng, n_arenas=5, n_subjects=3, reps=1)
+    res = lab.client.get(
+        "/v1/correspondence", params={"profile": "default", "covariate": "wind_speed"}
+    )
+    assert res.status_code in (400, 422) and "wind_speed" in res.text
+
+
+def test_upload_meta_names_a_study(tmp_path, rng):
+    # Reuses the upload helpers of tests/test_api.py (a wide CSV trial at 300 Hz).
+    from test_api import Lab as UploadLab
+    from test_api import wide_csv
+
+    up = UploadLab(tmp_path)
+    sid = up.client.post("/v1/studies", json={"name": "dry"}).json()["id"]
+    res = up.post_trial(wide_csv(rng), meta=up.trial_meta(study="dry"))
+    assert res.status_code == 201, res.text
+    assert up.client.get(f"/v1/studies/{sid}").json()["trial_ids"] == [res.json()["id"]]
+    missing = up.post_trial(wide_csv(rng), name="b.csv", meta=up.trial_meta(study="nope"))
+    assert missing.status_code == 404 and up.count("trial") == 1
