@@ -379,7 +379,7 @@ def arena_permutation_test(
             t, arena_level_values(m, arena, subject, n_arenas), z_bar, perms
         )
         p = hits / len(perms) if exact else (1 + hits) / (1 + len(perms))
-        return PermutationGrid(stat, p, len(perms), exact)
+        return _undefined_where_constant(PermutationGrid(stat, p, len(perms), exact), t, m)
     if subject_index is not None:
         m = _centre_within(m, _codes(subject_index, "subject_index", fn, m.shape[0]))
     m = m - m.mean(axis=0)
@@ -407,7 +407,21 @@ def arena_permutation_test(
         hits = (null >= np.abs(observed) * (1 - 1e-12)).sum(axis=0)
         stat[k] = observed
         p[k] = hits / len(perms) if exact else (1 + hits) / (1 + len(perms))
-    return PermutationGrid(stat, p, len(perms), exact)
+    return _undefined_where_constant(PermutationGrid(stat, p, len(perms), exact), t, m)
+
+
+def _undefined_where_constant(
+    grid: PermutationGrid, terrain: NDArray[np.float64], movement: NDArray[np.float64]
+) -> PermutationGrid:
+    # A measure with no spread has no correlation to test: its statistic and
+    # p-value are NaN (never 0), so it cannot top a ranking or enter BH.
+    flat = np.ptp(terrain, axis=0)[:, None] == 0
+    flat = flat | (np.ptp(movement, axis=0)[None, :] == 0)
+    if not flat.any():
+        return grid
+    stat = np.where(flat, np.nan, grid.statistic)
+    p = np.where(flat, np.nan, grid.p_value)
+    return PermutationGrid(stat, p, grid.n_permutations, grid.exact)
 
 
 @dataclass(frozen=True)

@@ -59,6 +59,7 @@ __all__ = [
     "COVARIATE_SCORES",
     "DERIVED_COVARIATES",
     "DIAGNOSTIC_MEASURES",
+    "HEADLINE_MEASURES",
     "Selection",
     "StudyTables",
     "correspondence_report",
@@ -91,8 +92,51 @@ DIAGNOSTIC_MEASURES = frozenset(
         "embedding_delay_s",
         "embedding_dimension",
         "lay_direction_deg",
+        # quality control of the inputs and fits, not properties of ground or gait
+        "heightmap_filled_fraction",
+        "heightmap_points_used",
+        "heightmap_outliers",
+        "heightmap_plane_inlier_fraction",
+        "hurst_psd_r2",
+        "hurst_variogram_r2",
+        "hurst_madogram_r2",
+        "hurst_boxcount_r2",
+        "cutoff_hz",
+        "noise_floor_m",
+        "causal_states_n",
+        "step_classes_n",
+        "step_class_within_rms_m",
+        "valid_fraction",
     }
 )
+#: What a correspondence covers when the request names no measures: the
+#: headline scores, chosen so both sides include the shared estimators
+#: (permutation entropy and Jensen-Shannon complexity, entropy rate/density)
+#: next to the classical ones. Ask for ``all`` to get every non-diagnostic score.
+#: Few arenas cannot support hundreds of pairs: the BH correction would then
+#: absorb any effect.
+HEADLINE_MEASURES = {
+    "terrain": (
+        "sq_m",
+        "sdr",
+        "hurst_psd",
+        "slope_entropy_bits",
+        "permutation_entropy_2d",
+        "js_complexity_2d",
+        "entropy_density_2d_bits",
+    ),
+    "movement": (
+        "rqa_det",
+        "rqa_lam",
+        "entropy_rate_bits",
+        "permutation_entropy",
+        "js_complexity",
+        "statistical_complexity_bits",
+        "sample_entropy",
+        "duty_factor",
+        "stride_frequency_hz",
+    ),
+}
 SCAN_RULES = ("latest", "mean")
 #: Trial scores of the movement summary that serve as covariates; always carried in the
 #: analysis table (also when not analysed as movement measures).
@@ -206,8 +250,12 @@ def _value(row: Any) -> float:
 
 def _pick_measures(available: Iterable[str], wanted: Sequence[str], kind: str) -> list[str]:
     names = sorted(set(available))
+    everything = [n for n in names if n not in DIAGNOSTIC_MEASURES]
+    if tuple(wanted) == ("all",):
+        return everything
     if not wanted:
-        return [n for n in names if n not in DIAGNOSTIC_MEASURES]
+        headline = [n for n in HEADLINE_MEASURES[kind] if n in names]
+        return headline or everything
     missing = [w for w in wanted if w not in names]
     if missing:
         raise BadInput(f"no {kind} scores named {missing} under this profile; scored: {names}")

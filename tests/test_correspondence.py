@@ -194,3 +194,21 @@ def test_confounded_design_is_flagged(rng):
 def test_bad_codes_rejected():
     with pytest.raises(InvalidParameterError, match="arena_index"):
         arena_permutation_test([1.0, 2.0], [1.0, 2.0, 3.0], [0, 1, 2])
+
+
+@pytest.mark.parametrize("with_covariate", [False, True])
+def test_constant_measure_has_no_p_value(rng, with_covariate):
+    # A measure with zero variance has no correlation to test: p and q are
+    # undefined (NaN), not 0, and it does not count in the BH correction.
+    terrain, y, arena, subject = _study(rng, n_arenas=8, slope=0.5)
+    movement = np.column_stack([y, np.full_like(y, 3.0)])
+    cov = rng.normal(size=(y.size, 1)) if with_covariate else None
+    grid = correspondence_grid(
+        terrain, movement, arena, subject, terrain_names=["t"], movement_names=["m", "flat"],
+        n_permutations=199, n_boot=99, covariates=cov,
+        covariate_names=("c",) if with_covariate else (),
+    )
+    flat = next(r for r in grid.rows if r.movement_measure == "flat")
+    live = next(r for r in grid.rows if r.movement_measure == "m")
+    assert np.isnan(flat.p_value) and np.isnan(flat.q_value)
+    assert live.q_value == pytest.approx(live.p_value)  # one test left in the family

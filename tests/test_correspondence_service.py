@@ -225,7 +225,9 @@ def test_design_warnings(study, rng):
         study.scan(arena, {"sq_m": float(k), "sdr": rng.uniform(), "flat": 1.0}, z=0.5)
         for _ in range(3):
             study.trial(arena, s[0] if k < 2 else s[1], {"rqa_det": rng.normal(), "same": 2.0})
-    text = " ".join(study.get(n_permutations=99, n_boot=99).json()["warnings"])
+    # "all": every scored measure, not only the headline ones (flat/same are not headline).
+    res = study.get(n_permutations=99, n_boot=99, terrain_measure="all", movement_measure="all")
+    text = " ".join(res.json()["warnings"])
     assert "Only 3 arenas" in text
     assert "Only 2 subjects" in text
     assert "'flat' is the same in every arena" in text

@@ -109,7 +109,12 @@ Lab.get_status = _get_status
 
 def test_speed_confound_over_http_and_statsmodels_on_export(lab, rng):
     _slowing_study(lab, rng)
-    params = {"n_permutations": 999, "n_boot": 199, "movement_measure": "rqa_det"}
+    params = {
+        "n_permutations": 999,
+        "n_boot": 199,
+        "movement_measure": "rqa_det",
+        "terrain_measure": "all",  # sa_m is not a headline measure
+    }
     plain = lab.get(**params).json()
     adjusted = lab.get(covariate="speed_m_s", **params).json()
     row_plain = {r["terrain_measure"]: r for r in plain["rows"]}["sq_m"]

@@ -107,11 +107,15 @@ def load_study(*, session: Any, profile: str | None = None) -> StudyData:
         for a, row in tables.arenas.iterrows()
     }
     by_id = {t.id: t for t in trials}
+    # Every stored trial score (quality-control ones too, for the warnings), with the
+    # correspondence table's values on top so figures and table agree.
+    stored = _scores_by_target(session, "trial", prof.hash)
     movement = []
     for rec in tables.trials.to_dict("records"):
         t = by_id[int(rec["trial_id"])]
         duration = (t.n_frames or 0) / t.frame_rate_hz if t.frame_rate_hz else float("nan")
-        values = {m: float(rec[m]) for m in tables.movement_measures}
+        values = {s.measure: float("nan") if s.value is None else s.value for s in stored[t.id]}
+        values.update({m: float(rec[m]) for m in tables.movement_measures})
         movement.append(TrialScores(t.id, t.arena_id, t.subject_id, duration, values))
     units: dict[str, str] = {}
     versions: set[str] = set()

@@ -36,6 +36,14 @@ class CorrespondenceAdjustedPublic(CorrespondencePublic):
 
 IntList = Annotated[list[int], Query()]
 TextList = Annotated[list[str], Query()]
+MeasureList = Annotated[
+    list[str],
+    Query(
+        description="Measures to pair (repeat or comma-separate). Empty: the headline "
+        "measures (service.correspondence.HEADLINE_MEASURES); 'all': every scored, "
+        "non-diagnostic measure."
+    ),
+]
 Permutations = Annotated[int, Query(ge=99, le=99_999, description="Arena permutations.")]
 Boot = Annotated[int, Query(ge=99, le=99_999, description="Hierarchical bootstrap replicates.")]
 Scans = Annotated[
@@ -87,8 +95,8 @@ async def get_correspondence(
     subject_id: IntList = [],  # noqa: B006
     condition: TextList = [],  # noqa: B006
     trial_id: IntList = [],  # noqa: B006
-    terrain_measure: TextList = [],  # noqa: B006
-    movement_measure: TextList = [],  # noqa: B006
+    terrain_measure: MeasureList = [],  # noqa: B006
+    movement_measure: MeasureList = [],  # noqa: B006
     scans: Scans = "latest",
     n_permutations: Permutations = 9999,
     n_boot: Boot = 1999,
