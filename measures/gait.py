@@ -18,10 +18,11 @@ from measures._validation import (
     InsufficientDataError,
     InvalidParameterError,
     as_float_array,
+    check_choice,
     check_positive_float,
     check_positive_int,
 )
-from measures.bodyframe import body_frame
+from measures.bodyframe import BodyFrame, body_frame
 
 __all__ = [
     "CycleClasses",
@@ -31,6 +32,7 @@ __all__ = [
     "circular_mean_phase",
     "cycle_classes",
     "foot_contacts",
+    "foot_contacts_from_speed",
     "gait_parameters",
     "hildebrand_coordinates",
     "limb_phase",
@@ -232,6 +234,92 @@ def foot_contacts(
     )
 
 
+def foot_contacts_from_speed(
+    speed: ArrayLike,
+    *,
+    frame_rate_hz: float,
+    low_fraction: float = 0.1,
+    high_fraction: float = 0.2,
+    min_phase_s: float = 0.01,
+    min_speed_m_s: float = 0.05,
+) -> FootContacts:
+    """Touch-down and lift-off frames of one foot from its speed over the ground.
+
+    A planted foot does not move over the ground (on a treadmill: relative to
+    the belt), whatever the height of the ground under it, so on rough
+    terrain the foot's ground speed separates stance from swing where its
+    height cannot (stones lift a planted foot by more than its swing
+    clearance). With ``hi`` the 95th percentile of the speed, the foot enters
+    stance when it slows below ``low_fraction * hi`` and leaves it when it
+    speeds up past ``high_fraction * hi`` (hysteresis). Stances or swings
+    shorter than ``min_phase_s`` are merged away; a foot whose 95th-percentile
+    speed is below ``min_speed_m_s`` never steps.
+
+    Parameters
+    ----------
+    speed : array (n_frames,)
+        Horizontal foot speed over the ground, m/s; NaN splits the trial.
+    frame_rate_hz : float
+    low_fraction, high_fraction : float, defaults 0.1 and 0.2
+    min_phase_s : float, default 0.01
+    min_speed_m_s : float, default 0.05
+
+    Returns
+    -------
+    FootContacts
+        ``low_m``/``high_m`` hold the speed thresholds (m/s) here.
+
+    References
+    ----------
+    Velocity-threshold contact detection is common practice in kinematic gait
+    analysis of marker data; the thresholds are our own choice, checked on
+    walkers with known stance timing in ``tests/test_gait.py``.
+    """
+    fn = "foot_contacts_from_speed"
+    v = as_float_array("speed", speed, fn, ndim=1, min_length=4, allow_nan=True)
+    fs = check_positive_float("frame_rate_hz", frame_rate_hz, fn)
+    if not 0 < low_fraction < high_fraction < 1:
+        raise InvalidParameterError(
+            "low_fraction",
+            fn,
+            "0 < low_fraction < high_fraction < 1",
+            (low_fraction, high_fraction),
+        )
+    min_phase = round(check_positive_float("min_phase_s", min_phase_s, fn, allow_zero=True) * fs)
+    finite = np.isfinite(v)
+    if finite.sum() < 4:
+        raise InsufficientDataError("speed", fn, "at least 4 finite frames", v)
+    hi = float(np.percentile(v[finite], 95))
+    low, high = low_fraction * hi, high_fraction * hi
+    tds: list[int] = []
+    los: list[int] = []
+    if hi >= check_positive_float("min_speed_m_s", min_speed_m_s, fn, allow_zero=True):
+        still = np.zeros_like(v)  # no settling refinement: the speed crossing is the event
+        for a, b in _true_runs(finite):
+            for td, lo_ in _run_stances(v[a:b], still[a:b], low, high, np.inf, min_phase):
+                tds.append(a + td)
+                los.append(a + lo_)
+    return FootContacts(
+        np.asarray(tds, dtype=np.int64), np.asarray(los, dtype=np.int64), low, high, 0.0
+    )
+
+
+def _ground_speed(
+    foot: NDArray[np.float64], body: BodyFrame, fs: float, belt_m_s: float | None
+) -> NDArray[np.float64]:
+    # Horizontal velocity by central differences within finite runs; on a
+    # treadmill the planted foot moves back with the belt, so add the belt's
+    # velocity (forward x belt speed) to get the speed relative to the belt.
+    vel = np.full_like(foot, np.nan)
+    for a, b in _true_runs(np.isfinite(foot).all(axis=1)):
+        if b - a >= 2:
+            vel[a:b] = np.gradient(foot[a:b], axis=0) * fs
+    if belt_m_s:
+        vel = vel + belt_m_s * body.forward
+    vel = vel - np.outer(vel @ body.up, body.up)
+    return np.linalg.norm(vel, axis=1)
+
+
 def _velocity(h: NDArray[np.float64], fs: float) -> NDArray[np.float64]:
     v = np.full_like(h, np.nan)
     for a, b in _true_runs(np.isfinite(h)):
@@ -400,6 +488,9 @@ def gait_parameters(
     velocity_fraction: float = 0.1,
     min_phase_s: float = 0.01,
     min_lift_m: float = 1e-3,
+    contact_method: str = "speed",
+    speed_low_fraction: float = 0.1,
+    speed_high_fraction: float = 0.2,
 ) -> GaitParameters:
     """Strides, stride frequency and length, duty factor, interlimb phase.
 
@@ -415,7 +506,13 @@ def gait_parameters(
         Limb whose stride defines phase 0; the first limb in sorted order
         when absent.
     low_fraction, high_fraction, velocity_fraction, min_phase_s, min_lift_m
-        Contact detection, see :func:`foot_contacts`.
+        Height-based contact detection, see :func:`foot_contacts`.
+    contact_method : {"speed", "height"}, default "speed"
+        Detect stance from the foot's ground speed
+        (:func:`foot_contacts_from_speed`, robust on rough ground) or from its
+        height (:func:`foot_contacts`, for flat ground and slow feet).
+    speed_low_fraction, speed_high_fraction : float, defaults 0.1 and 0.2
+        Hysteresis of the speed-based detector.
 
     Returns
     -------
@@ -432,6 +529,7 @@ def gait_parameters(
     arr = as_float_array("markers", markers, fn, ndim=3, allow_nan=True)
     fs = check_positive_float("frame_rate_hz", frame_rate_hz, fn)
     index = _limb_index(feet, arr.shape[1], fn)
+    method = check_choice("contact_method", contact_method, fn, ("speed", "height"))
     body = body_frame(
         arr,
         anterior=anterior,
@@ -444,15 +542,24 @@ def gait_parameters(
     limbs: dict[str, LimbStrides] = {}
     for name, k in index.items():
         height = arr[:, k] @ body.up
-        contacts = foot_contacts(
-            height,
-            frame_rate_hz=fs,
-            low_fraction=low_fraction,
-            high_fraction=high_fraction,
-            velocity_fraction=velocity_fraction,
-            min_phase_s=min_phase_s,
-            min_lift_m=min_lift_m,
-        )
+        if method == "speed":
+            contacts = foot_contacts_from_speed(
+                _ground_speed(arr[:, k], body, fs, treadmill_speed_m_s),
+                frame_rate_hz=fs,
+                low_fraction=speed_low_fraction,
+                high_fraction=speed_high_fraction,
+                min_phase_s=min_phase_s,
+            )
+        else:
+            contacts = foot_contacts(
+                height,
+                frame_rate_hz=fs,
+                low_fraction=low_fraction,
+                high_fraction=high_fraction,
+                velocity_fraction=velocity_fraction,
+                min_phase_s=min_phase_s,
+                min_lift_m=min_lift_m,
+            )
         limbs[name] = _limb_strides(contacts, np.isfinite(height), body.forward_speed_m_s, fs)
     r = limbs[ref]
     phase = {

@@ -66,6 +66,9 @@ MOVEMENT_DEFAULTS: dict[str, Any] = {
     "contact_velocity_fraction": 0.1,
     "min_phase_s": 0.01,
     "contact_min_lift_m": 1e-3,  # 5 x the 0.2 mm capture resolution (common practice)
+    "contact_method": "speed",  # ground speed: robust where stones lift a planted foot
+    "contact_speed_low_fraction": 0.1,
+    "contact_speed_high_fraction": 0.2,
     # step-cycle classes
     "cycle_samples": 101,
     "cycle_k_max": 6,
@@ -248,7 +251,9 @@ def movement_summary(
         reference_limb=p["reference_limb"], low_fraction=p["contact_low_fraction"],
         high_fraction=p["contact_high_fraction"],
         velocity_fraction=p["contact_velocity_fraction"], min_phase_s=p["min_phase_s"],
-        min_lift_m=p["contact_min_lift_m"],
+        min_lift_m=p["contact_min_lift_m"], contact_method=p["contact_method"],
+        speed_low_fraction=p["contact_speed_low_fraction"],
+        speed_high_fraction=p["contact_speed_high_fraction"],
     )  # fmt: skip
     body = body_frame(pre.markers, anterior=anterior, posterior=posterior, up=p["up"])
     scores = _gait_scores(gait, pre)

@@ -215,3 +215,33 @@ def test_marker_noise_is_not_a_step(rng) -> None:
     its height range is below min_lift_m (5 x resolution)."""
     c = foot_contacts(0.001 + rng.normal(0, 2e-4, 900), frame_rate_hz=FS)
     assert c.touchdown.size == 0
+
+
+def _true_touchdowns(stance):
+    return [np.flatnonzero(stance[1:, f] & ~stance[:-1, f]) + 1 for f in range(stance.shape[1])]
+
+
+@pytest.mark.parametrize("tray", ["tray-e-coarse-scree", "tray-f-boulders", "treadmill-belt"])
+def test_speed_contacts_recover_known_stance_on_rough_ground(tray):
+    # Known-parameter check: the demo walker logs its true stance phases. On
+    # scree a planted foot sits on stones higher than its swing clearance, so
+    # height thresholds miss strides; ground speed (relative to the belt on a
+    # treadmill) does not depend on the ground's height.
+    from demo_arena import FEET, MARKERS, SUBJECTS, TRAYS, make_tray, walk_over
+    from measures import preprocess_trial
+
+    spec = next(t for t in TRAYS if t.key == tray)
+    belt = 0.25 if spec.kind == "treadmill" else None
+    z = make_tray(spec, seed=7)
+    rec = walk_over(z, 0.001, SUBJECTS[1], duration_s=6, seed=3, treadmill_speed_m_s=belt)
+    pre = preprocess_trial(rec.markers, frame_rate_hz=300)
+    feet = {f: MARKERS.index(f"foot_{f}") for f in FEET}
+    kw = dict(frame_rate_hz=300, feet=feet, anterior=0, posterior=3, treadmill_speed_m_s=belt)
+    by_speed = gait_parameters(pre.markers, contact_method="speed", **kw)
+    by_height = gait_parameters(pre.markers, contact_method="height", **kw)
+    true_duty = rec.stance.mean()
+    tds = _true_touchdowns(rec.stance)
+    true_freq = np.mean([(len(t) - 1) / ((t[-1] - t[0]) / 300) for t in tds])
+    assert abs(by_speed.duty_factor - true_duty) < 0.03
+    assert by_speed.stride_frequency_hz == pytest.approx(true_freq, rel=0.08)
+    assert abs(by_speed.duty_factor - true_duty) <= abs(by_height.duty_factor - true_duty) + 0.01
