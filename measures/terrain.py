@@ -279,14 +279,26 @@ def _hurst_scores(zl, dx, dy, mask, band, methods, notes):
             continue
         if not r.power_law_found:
             notes.append(f"hurst {m}: no self-affine band found; fitted the fallback band")
+        hurst, dim = r.hurst, r.fractal_dimension
+        if not 0.0 <= hurst <= 1.0:
+            # A self-affine surface has 0 <= H <= 1 (D between 2 and 3); a fit outside
+            # that range says the ground is not self-affine in this band (ripples,
+            # cracks, scanner noise), so H and D are not reported as numbers.
+            notes.append(
+                f"hurst {m}: fitted exponent {hurst:.2f} is outside the self-affine range "
+                "[0, 1] in this band; H and D reported as NaN"
+            )
+            hurst = dim = float("nan")
         scores += [
-            Score(f"hurst_{m}", r.hurst, "1"),
-            Score(f"fractal_dimension_{m}", r.fractal_dimension, "1"),
+            Score(f"hurst_{m}", hurst, "1"),
+            Score(f"fractal_dimension_{m}", dim, "1"),
         ]
         scores += [Score(f"hurst_{m}_r2", r.r2, "1")]
         if m == "psd":
             psd_fit = r
             scores += [
+                # The spectral slope itself stays meaningful whatever H would be.
+                Score("psd_slope", r.slope, "1"),
                 Score("psd_band_lo_m", r.band[0], "m"),
                 Score("psd_band_hi_m", r.band[1], "m"),
             ]
@@ -387,7 +399,7 @@ def terrain_summary(
     TerrainSummary
         Scores (snake_case, unit suffix where dimensional): ``sq_m, sa_m, ssk,
         sku, sp_m, sv_m, sz_m, sdq, sdr, sal_m, str, rms_slope_psd,
-        psd_anisotropy_ratio, lay_direction_deg, hurst_<method>,
+        psd_anisotropy_ratio, lay_direction_deg, psd_slope, hurst_<method>,
         fractal_dimension_<method>, hurst_<method>_r2, psd_band_lo_m,
         psd_band_hi_m, slope_entropy_bits, aspect_entropy_bits,
         permutation_entropy_2d, js_complexity_2d, entropy_density_2d_bits,

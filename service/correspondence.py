@@ -88,6 +88,7 @@ DIAGNOSTIC_MEASURES = frozenset(
     {
         "psd_band_lo_m",
         "psd_band_hi_m",
+        "psd_slope",  # the Hurst exponents carry it, where they are defined
         "rqa_points",
         "embedding_delay_s",
         "embedding_dimension",

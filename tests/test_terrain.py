@@ -140,3 +140,15 @@ def test_real_dem_end_to_end():
     assert 0.15 < h < 1.0, h
     assert 0.4 < s.score("hurst_madogram").value < 0.9
     assert s.score("sq_m").value > 10.0  # hundreds of metres of relief
+
+
+def test_white_noise_is_not_reported_as_self_affine(rng):
+    # White noise has a flat PSD, C(q) ~ q^0 = q^-(2+2H) gives H = -1 (Jacobs et al.
+    # 2017, eq. for the isotropic PSD): outside [0, 1], so H and D must be NaN with a
+    # note, never a fractal dimension of 4; the spectral slope itself is kept (~0).
+    z = rng.normal(0, 1e-3, (256, 256))
+    ts = terrain_summary(z, 1e-3, band_m=(0.004, 0.05))
+    assert np.isnan(ts.score("hurst_psd").value)
+    assert np.isnan(ts.score("fractal_dimension_psd").value)
+    assert any("outside the self-affine range" in n for n in ts.notes)
+    assert abs(ts.score("psd_slope").value) < 0.3
