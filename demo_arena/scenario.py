@@ -35,6 +35,7 @@ SUBJECTS: tuple[SubjectSpec, ...] = (
 # Foot size to stride length of the demo animal, in metres (invented).
 SCALE_BAND_M = (0.005, 0.08)
 DX_M = 0.001
+RUNWAY_M = (1.2, 0.25)  # length, width of every tray (invented)
 
 
 @dataclass(frozen=True)
@@ -114,16 +115,19 @@ def _write_scans(
 def build_scenario(out_dir: str | Path, *, quick: bool = False, seed: int = 2026) -> Scenario:
     """Generate the demo study under ``out_dir`` and return its manifest.
 
-    ``quick`` keeps 3 subjects, one 4 s trial each per arena and smaller scans
-    (for a demo under a minute); the full study has 4 subjects, two 8 s trials
-    per arena and 400,000-point scans.
+    ``quick`` keeps 3 subjects, one pass each per arena and 600,000-point scans
+    (for a demo of about a minute); the full study has 4 subjects, two passes
+    per arena and 1,200,000-point scans.
     """
     root = Path(out_dir)
     (root / "scans").mkdir(parents=True, exist_ok=True)
     (root / "trials").mkdir(parents=True, exist_ok=True)
     scenario = Scenario(root=str(root))
     subjects = SUBJECTS[:3] if quick else SUBJECTS
-    n_trials, duration_s, n_points = (1, 4.0, 120_000) if quick else (2, 8.0, 400_000)
+    # Scans sample about 2 (quick) or 4 points per 1 mm cell of the heightmap grid;
+    # overground trials are one pass along the 1.2 m runway, treadmill trials a
+    # fixed stretch.
+    n_trials, belt_s, n_points = (1, 5.0, 600_000) if quick else (2, 8.0, 1_200_000)
     for s in subjects:
         scenario.subjects.append(
             {
@@ -144,7 +148,9 @@ def build_scenario(out_dir: str | Path, *, quick: bool = False, seed: int = 2026
                 "notes": f"{spec.name}. {spec.notes}",
             }
         )
-        z = make_tray(spec, dx_m=DX_M, seed=seed + 100 * a)
+        z = make_tray(
+            spec, length_m=RUNWAY_M[0], width_m=RUNWAY_M[1], dx_m=DX_M, seed=seed + 100 * a
+        )
         scenario.files += _write_scans(
             root / "scans", spec, z, n_points, seed + 100 * a + 1, with_heightmap=a in (1, 4)
         )
@@ -156,8 +162,9 @@ def build_scenario(out_dir: str | Path, *, quick: bool = False, seed: int = 2026
                     z,
                     DX_M,
                     s,
-                    duration_s=duration_s,
+                    duration_s=belt_s if belt else 20.0,
                     treadmill_speed_m_s=belt,
+                    stop_at_x_m=RUNWAY_M[0] - 0.05,
                     long_gap=trial_no == 5,
                     seed=seed * 7 + trial_no,
                 )

@@ -75,9 +75,14 @@ def walk_over(
     frame_rate_hz: float = 300.0,
     treadmill_speed_m_s: float | None = None,
     long_gap: bool = False,
+    stop_at_x_m: float | None = None,
     seed: int,
 ) -> WalkRecording:
-    """Simulate one trial of ``subject`` over ground ``z`` (heights in m, spacing ``dx_m``)."""
+    """Simulate one trial of ``subject`` over ground ``z`` (heights in m, spacing ``dx_m``).
+
+    Overground, the trial ends when the body passes ``stop_at_x_m`` (one pass
+    along the runway) or after ``duration_s``, whichever comes first.
+    """
     rng = np.random.default_rng(seed)
     n = round(duration_s * frame_rate_hz)
     dt = 1.0 / frame_rate_hz
@@ -104,6 +109,9 @@ def walk_over(
     out = np.empty((n, len(MARKERS), 3))
     stance_log = np.zeros((n, 4), bool)
     for k in range(n):
+        if not on_belt and stop_at_x_m is not None and x > stop_at_x_m:
+            n = k
+            break
         rough = _local_roughness(z, dx_m, x, y)
         # Each limb's frequency wanders (Ornstein-Uhlenbeck, 0.1 s memory) with a
         # spread that grows with the local roughness (an invented law for the demo).
@@ -155,6 +163,7 @@ def walk_over(
             pos = centre + along * subject.body_length_m * direction
             out[k, m] = [pos[0], pos[1], body_z + up + bob]
         out[k, 4:] = foot
+    out, stance_log = out[:n], stance_log[:n]
     out += rng.normal(0, 0.0002, out.shape)  # 0.2 mm marker noise (common practice)
     _drop(out, rng, frame_rate_hz, long_gap)
     return WalkRecording(out, MARKERS, frame_rate_hz, gait, speed, stride_hz, stance_log)
