@@ -455,9 +455,11 @@ def _fit_block(
             **params,
         )
     except (InvalidParameterError, InsufficientDataError) as exc:
+        shown = ", ".join(t_cols) if len(t_cols) < 4 else f"{len(t_cols)} terrain measures"
         note = (
-            f"Too little data for {t_cols} x {m_cols} ({counts[0]} arenas, {counts[2]} trials): "
-            f"{exc}"
+            f"Not estimated: pairs with {shown} have values in only {counts[0]} arena(s) and "
+            f"{counts[2]} trial(s) (a measure can be undefined on some ground, e.g. no "
+            f"self-affine band); these rows are left empty. Detail: {exc}"
         )
         return [_nan_row(t, m, counts) for t in t_cols for m in m_cols], [note], 0, False
     rows = [{f: getattr(r, f) for f in (*CONTRACT_FIELDS, *EXTRA_FIELDS)} for r in grid.rows]
