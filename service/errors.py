@@ -7,6 +7,7 @@ from typing import Any
 
 from fastapi import FastAPI, Request
 from fastapi.responses import JSONResponse
+from sqlalchemy.exc import TimeoutError as PoolTimeout
 
 from measures._validation import InvalidParameterError
 from storage import errors as storage_errors
@@ -79,3 +80,49 @@ def install_error_handlers(app: FastAPI) -> None:
     """Register the one handler for every storage and measures error class."""
     app.add_exception_handler(storage_errors.StorageError, _handle)
     app.add_exception_handler(InvalidParameterError, _handle)
+    app.add_exception_handler(OverflowError, _out_of_range)
+    app.add_exception_handler(PoolTimeout, _busy)
+    _document_string_details(app)
+
+
+def _document_string_details(app: FastAPI) -> None:
+    """Say in the OpenAPI schema that a 422 ``detail`` may be a message, not only a list.
+
+    Reader and parameter errors are 422 with ``{"detail": "message", "file", "where"}``;
+    FastAPI documents 422 as its validation list alone, so clients generated from the schema
+    (and schemathesis, tests/test_schema_fuzz.py) would reject our own answers.
+    """
+    build = app.openapi
+
+    def openapi() -> dict[str, Any]:
+        if app.openapi_schema:
+            return app.openapi_schema
+        schema = build()
+        error = schema.get("components", {}).get("schemas", {}).get("HTTPValidationError")
+        if error is not None:
+            props = error.setdefault("properties", {})
+            listed = {k: v for k, v in props.get("detail", {}).items() if k != "title"}
+            props["detail"] = {"anyOf": [listed, {"type": "string"}], "title": "Detail"}
+            props.setdefault("file", {"type": "string", "title": "File"})
+            props.setdefault("where", {"type": "string", "title": "Where"})
+        return schema
+
+    app.openapi = openapi  # type: ignore[method-assign]
+
+
+async def _busy(request: Request, exc: Exception) -> JSONResponse:
+    # Every database connection is in use: a moment's overload, not a fault; clients retry.
+    log.warning("database connection pool exhausted: %s", exc)
+    return JSONResponse(
+        status_code=503,
+        content={"detail": "The server is busy (all database connections in use); retry."},
+        headers={"Retry-After": "2"},
+    )
+
+
+async def _out_of_range(request: Request, exc: Exception) -> JSONResponse:
+    # A filter or id past 64 bits reaches the database driver as OverflowError (found by
+    # tests/test_schema_fuzz.py); it is the client's number that is wrong, not the server.
+    return JSONResponse(
+        status_code=422, content={"detail": f"A number in the request is out of range: {exc}"}
+    )

@@ -238,10 +238,16 @@ class ScanUploadMeta(_In):
 
     units: Units | None = Field(default=None, description="Length unit of the coordinates.")
     dx: float | None = Field(
-        default=None, gt=0, description="Heightmap cell size along x, in units."
+        default=None,
+        gt=0,
+        allow_inf_nan=False,
+        description="Heightmap cell size along x, in units.",
     )
     dy: float | None = Field(
-        default=None, gt=0, description="Heightmap cell size along y, in units."
+        default=None,
+        gt=0,
+        allow_inf_nan=False,
+        description="Heightmap cell size along y, in units.",
     )
     captured_at: datetime | None = None
 
@@ -254,11 +260,15 @@ class TrialUploadMeta(_In):
     arena_id: int
     subject_id: int
     frame_rate_hz: float | None = Field(
-        default=None, gt=0, description="Capture rate, needed where the file has none."
+        default=None,
+        gt=0,
+        le=1e6,  # hardening: no marker capture runs at a MHz; refuses absurd and Infinity rates
+        allow_inf_nan=False,
+        description="Capture rate, needed where the file has none.",
     )
     units: Units | None = Field(default=None, description="Length unit of marker coordinates.")
     condition: str | None = None
-    treadmill_speed_m_s: float | None = Field(default=None, ge=0)
+    treadmill_speed_m_s: float | None = Field(default=None, ge=0, allow_inf_nan=False)
     recorded_at: datetime | None = None
     marker_names: list[str] | None = Field(
         default=None, description="Marker names for formats that carry none (NPY)."

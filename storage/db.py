@@ -46,6 +46,12 @@ def make_engine(url: str | URL, *, echo: bool = False, busy_timeout_ms: int = 10
     kwargs: dict[str, Any] = {"echo": echo}
     if url.get_backend_name() == "sqlite":
         kwargs["connect_args"] = {"timeout": busy_timeout_ms / 1000.0}
+        in_memory = url.database in (None, "", ":memory:") or "mode=memory" in str(url)
+        if not in_memory:
+            # A request holds its connection while an upload streams in; the default pool
+            # (5 + 10) ran dry under 40 concurrent clients (tests/test_load.py). File-backed
+            # SQLite connections are cheap, and WAL lets the readers run side by side.
+            kwargs.update(pool_size=32, max_overflow=64)
         engine = create_engine(url, **kwargs)
         in_memory = url.database in (None, "", ":memory:") or "mode=memory" in str(url)
         _install_sqlite_pragmas(engine, busy_timeout_ms=busy_timeout_ms, wal=not in_memory)

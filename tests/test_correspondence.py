@@ -204,8 +204,15 @@ def test_constant_measure_has_no_p_value(rng, with_covariate):
     movement = np.column_stack([y, np.full_like(y, 3.0)])
     cov = rng.normal(size=(y.size, 1)) if with_covariate else None
     grid = correspondence_grid(
-        terrain, movement, arena, subject, terrain_names=["t"], movement_names=["m", "flat"],
-        n_permutations=199, n_boot=99, covariates=cov,
+        terrain,
+        movement,
+        arena,
+        subject,
+        terrain_names=["t"],
+        movement_names=["m", "flat"],
+        n_permutations=199,
+        n_boot=99,
+        covariates=cov,
         covariate_names=("c",) if with_covariate else (),
     )
     flat = next(r for r in grid.rows if r.movement_measure == "flat")

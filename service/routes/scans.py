@@ -12,6 +12,7 @@ from service.routes._ingest import handle_upload
 from service.routes._multipart import multipart_request_body
 from service.routes.arenas import Limit, Offset
 from service.schemas import ScanPublic, ScansPublic, ScanUploadMeta, UploadPublic
+from service.security import safe_download_name
 from storage import repo
 
 router = APIRouter(tags=["scans"])
@@ -91,6 +92,6 @@ def download_scan(scan: ScanDep, store: StoreDep) -> FileResponse:
     """The raw file as uploaded."""
     return FileResponse(
         store.path(scan.sha256),
-        filename=scan.filename or f"scan-{scan.id}.{scan.format}",
+        filename=safe_download_name(scan.filename, f"scan-{scan.id}.{scan.format}"),
         media_type="application/octet-stream",
     )

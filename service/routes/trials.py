@@ -14,6 +14,7 @@ from service.routes._multipart import multipart_request_body
 from service.routes.arenas import Limit, Offset
 from service.routes.scans import UPLOAD_RESPONSES
 from service.schemas import TrialPublic, TrialsPublic, TrialUploadMeta, UploadPublic
+from service.security import safe_download_name
 from storage import repo
 
 router = APIRouter(prefix="/trials", tags=["trials"])
@@ -81,6 +82,6 @@ def download_trial(trial: TrialDep, store: StoreDep) -> FileResponse:
     """The raw file as uploaded."""
     return FileResponse(
         store.path(trial.sha256),
-        filename=trial.filename or f"trial-{trial.id}.{trial.format}",
+        filename=safe_download_name(trial.filename, f"trial-{trial.id}.{trial.format}"),
         media_type="application/octet-stream",
     )

@@ -21,6 +21,7 @@ from storage.readers._common import (
     check_npy_header,
     check_size_claim,
     display_name,
+    load_npy,
     positive_float,
     read_head,
     unit_to_m,
@@ -92,8 +93,7 @@ def _read_npy(path: str | Path, *, size: int, file: str) -> np.ndarray:
     _dtype, shape = check_npy_header(path, size=size, file=file)
     if len(shape) != 2 or min(shape) < 1:
         raise ReaderError(f"heightmap must be a 2-D array (ny, nx), got shape {shape}", file=file)
-    out: np.ndarray = np.load(path, allow_pickle=False)
-    return out
+    return load_npy(path, file=file)
 
 
 def _read_csv(path: str | Path, *, file: str) -> np.ndarray:

@@ -22,6 +22,7 @@ from storage.readers._common import (
     check_nonempty,
     check_npy_header,
     display_name,
+    load_npy,
     positive_float,
     read_head,
     unit_to_m,
@@ -205,7 +206,7 @@ def _read_npy(
     rate = _rate(None, frame_rate_hz if frame_rate_hz is not None else side.get("frame_rate_hz"),
                  file=file)  # fmt: skip
     unit = units if units is not None else side.get("units")
-    markers = np.load(path, allow_pickle=False)
+    markers = load_npy(path, file=file)
     return markers, list(names), rate, unit, {"sidecar": bool(side)}
 
 

@@ -30,6 +30,8 @@ def paginate(
 
 def get_or_404(session: Session, model: type[T], ident: int, kind: str) -> T:
     """The row with primary key ``ident`` or NotFound."""
+    if isinstance(ident, int) and not -(2**63) <= ident < 2**63:
+        raise NotFound(kind, ident)  # no 64-bit key is that large (SQLite would overflow)
     row = session.get(model, ident)
     if row is None:
         raise NotFound(kind, ident)
