@@ -205,6 +205,7 @@ def _upload(args: argparse.Namespace) -> int:
         token=args.token,
         arena=args.arena,
         subject=args.subject,
+        study=args.study,
         retries=args.retries,
         progress=not args.no_progress,
     )
@@ -226,6 +227,9 @@ def register_upload(sub: Any) -> None:
     )
     p.add_argument("--arena", type=int, help="arena id for files whose metadata names none")
     p.add_argument("--subject", type=int, help="subject id for trials whose metadata names none")
+    p.add_argument(
+        "--study", help="study name for the uploads (trials join it; scans add their arena)"
+    )
     p.add_argument(
         "--retries",
         type=int,

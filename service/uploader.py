@@ -21,9 +21,10 @@ anything else              ignored
 =========================  ==========================================================
 
 Metadata for a file is merged from, weakest first: the command line (``--arena``,
-``--subject``), every ``gaitscape.json`` from the walked root down to the file's folder
-(inner folders win), and the file's own sidecar ``<file>.json`` (e.g. ``run3.c3d.json``).
-Keys: ``kind``, ``arena``, ``subject`` (ids), ``units``, ``frame_rate_hz``, ``dx``, ``dy``,
+``--subject``, ``--study``), every ``gaitscape.json`` from the walked root down to the file's
+folder (inner folders win), and the file's own sidecar ``<file>.json`` (e.g.
+``run3.c3d.json``). Keys: ``kind``, ``arena``, ``subject`` (ids), ``study`` (a name),
+``units``, ``frame_rate_hz``, ``dx``, ``dy``,
 ``condition``, ``treadmill_speed_m_s``, ``recorded_at``, ``captured_at``, ``marker_names``.
 
 Resume and retries
@@ -62,8 +63,9 @@ FOLDER_META = "gaitscape.json"
 SCAN_EXTS = {".ply", ".pcd", ".xyz", ".pts", ".tif", ".tiff"}
 TRIAL_EXTS = {".c3d", ".tsv"}
 AMBIGUOUS_EXTS = {".csv", ".npy"}
-SCAN_META_KEYS = ("units", "dx", "dy", "captured_at")
+SCAN_META_KEYS = ("units", "dx", "dy", "captured_at", "study")
 TRIAL_META_KEYS = (
+    "study",
     "frame_rate_hz",
     "units",
     "condition",
@@ -410,6 +412,7 @@ def run_upload(
     token: str | None = None,
     arena: int | None = None,
     subject: int | None = None,
+    study: str | None = None,
     retries: int = 4,
     backoff_s: float = 0.5,
     progress: bool = True,
@@ -419,7 +422,7 @@ def run_upload(
 ) -> int:
     """Plan, upload, print the summary; 0 when nothing failed, 1 otherwise."""
     out = out if out is not None else sys.stdout
-    planned = plan_uploads(paths, defaults={"arena": arena, "subject": subject})
+    planned = plan_uploads(paths, defaults={"arena": arena, "subject": subject, "study": study})
     own_client = client is None
     if client is None:
         if not server:

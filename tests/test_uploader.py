@@ -168,3 +168,15 @@ def test_token_header_is_sent(tmp_path: Path) -> None:
         out=out,
     )
     assert code == 1 and "401" in out.getvalue()
+
+
+def test_study_from_the_command_line_reaches_the_server_meta(tmp_path):
+    from service.uploader import _server_meta
+
+    trial = tmp_path / "run1.csv"
+    trial.write_text("time,a_x,a_y,a_z\n0,1,2,3\n")
+    (tmp_path / "run1.csv.json").write_text(json.dumps({"units": "mm", "frame_rate_hz": 300}))
+    [item] = plan_uploads([tmp_path], defaults={"arena": 1, "subject": 2, "study": "winter"})
+    meta, problem = _server_meta(item.kind, item.meta)
+    assert problem == ""
+    assert meta["study"] == "winter" and meta["arena_id"] == 1 and meta["subject_id"] == 2
