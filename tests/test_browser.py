@@ -7,6 +7,7 @@ Screenshots go to test-artifacts/ (gitignored).
 from __future__ import annotations
 
 import os
+import re
 import shutil
 from pathlib import Path
 
@@ -86,6 +87,8 @@ def test_failed_login_is_refused(live) -> None:
 
 
 def test_login_and_every_page(live) -> None:
+    from playwright.sync_api import expect
+
     page, base, store = live["page"], live["base"], live["store"]
     page.goto(base + "/ui/login")
     page.fill("#token", live["secret"])
@@ -101,7 +104,9 @@ def test_login_and_every_page(live) -> None:
     assert page.locator("#trial-table tbody tr").count() == len(store["trials"])
     page.select_option("#f-arena_id", str(store["arenas"][0]))
     page.click("#trial-filters button[type=submit]")
-    page.wait_for_function("document.querySelectorAll('#trial-table tbody tr').length === 2")
+    # Locator assertions run in Playwright's own world, so the page's strict CSP
+    # (no eval) does not block them the way wait_for_function strings are.
+    expect(page.locator("#trial-table tbody tr")).to_have_count(2)
     _shot(page, "trials")
 
     trial = store["trials"][0]
@@ -112,7 +117,7 @@ def test_login_and_every_page(live) -> None:
     page.wait_for_selector("#replay canvas", state="attached", timeout=30_000)
     page.focus("#frame")
     page.keyboard.press("ArrowRight")  # keyboard moves the replay
-    page.wait_for_function("document.querySelector('#clock').textContent.startsWith('t = ')")
+    expect(page.locator("#clock")).to_have_text(re.compile(r"^t = "))
     assert page.inner_text("#clock") != "t = 0 s"
     _shot(page, "trial")
 
