@@ -14,6 +14,14 @@ start_postgres() {
   su postgres -c "psql -h 127.0.0.1 -p $PGPORT -U postgres -c \"CREATE USER gaitscape PASSWORD 'gaitscape'\"" >/dev/null
   su postgres -c "psql -h 127.0.0.1 -p $PGPORT -U postgres -c 'CREATE DATABASE gaitscape OWNER gaitscape'" >/dev/null
   export PGPORT
+  # A restart command for the test that checks the service survives the database
+  # going away and coming back.
+  cat > /tmp/gaitscape-pg-restart.sh <<EOS
+#!/usr/bin/env bash
+su postgres -c "$bindir/pg_ctl -D $PGDATA_DIR -o '-p $PGPORT -k /tmp -c listen_addresses=127.0.0.1' -m fast -w restart" >/dev/null
+EOS
+  chmod +x /tmp/gaitscape-pg-restart.sh
+  export GAITSCAPE_TEST_PG_RESTART=/tmp/gaitscape-pg-restart.sh
   echo "PostgreSQL on 127.0.0.1:$PGPORT"
 }
 

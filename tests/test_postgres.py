@@ -77,3 +77,39 @@ def test_scan_job_scores_once_on_postgres(tmp_path: Path, pg_url: str) -> None:
         n = s.scalar(select(func.count()).select_from(Score))
         distinct = s.scalar(select(func.count(func.distinct(Score.measure))))
     assert n == distinct > 10
+
+
+RESTART = os.environ.get("GAITSCAPE_TEST_PG_RESTART")  # a script that restarts the server
+
+
+@pytest.mark.integration
+def test_api_survives_a_database_restart(tmp_path: Path, pg_url: str) -> None:
+    # The database goes away and comes back (PostgreSQL restart): pooled connections die
+    # with it; pool_pre_ping replaces them, so the next requests succeed and nothing
+    # written before the restart is lost.
+    import subprocess
+
+    from fastapi.testclient import TestClient
+
+    from service.app import create_app
+    from service.settings import get_settings
+    from storage.repo import create_token
+
+    if not RESTART:
+        if os.environ.get("GAITSCAPE_REQUIRE_SERVICES") == "1":
+            pytest.fail("GAITSCAPE_TEST_PG_RESTART is unset but GAITSCAPE_REQUIRE_SERVICES=1")
+        pytest.skip("no restart command (set GAITSCAPE_TEST_PG_RESTART)")
+    settings = get_settings(data_dir=tmp_path, database_url=pg_url, job_runner=False)
+    with TestClient(create_app(settings)) as client:
+        with client.app.state.sessionmaker() as s:
+            _, secret = create_token(session=s, scopes=["admin"], label="t")
+        client.headers["Authorization"] = f"Bearer {secret}"
+        before = client.post("/v1/arenas", json={"name": "before", "kind": "runway"})
+        assert before.status_code == 201
+        subprocess.run([RESTART], check=True, timeout=120)
+        answers = [client.get("/v1/arenas").status_code for _ in range(3)]
+        assert answers[-1] == 200 and all(a in (200, 503) for a in answers)
+        after = client.post("/v1/arenas", json={"name": "after", "kind": "runway"})
+        assert after.status_code == 201
+        names = {a["name"] for a in client.get("/v1/arenas").json()["data"]}
+        assert names == {"before", "after"}
