@@ -35,6 +35,7 @@ ARGS = [
 ]
 ARTIFACTS = Path(__file__).resolve().parent.parent / "test-artifacts"
 REQUIRED = os.environ.get("GAITSCAPE_REQUIRE_SERVICES") == "1"
+STUDY = "three trays"
 
 
 def _need(ok: bool, why: str) -> None:
@@ -57,6 +58,15 @@ def live(tmp_path_factory: pytest.TempPathFactory):
     app = create_app(store["settings"])
     with app.state.sessionmaker() as session:
         _, secret = repo.create_token(session=session, scopes=["read"])
+        # Three of the arenas with both subjects: 3 arenas, 3 x 2 trials in the study.
+        study = repo.create_study(session=session, name=STUDY)
+        subjects, _ = repo.list_subjects(session=session)
+        repo.add_study_members(
+            session=session,
+            study_id=study.id,
+            arena_ids=store["arenas"][:3],
+            subject_ids=[s.id for s in subjects],
+        )
     ARTIFACTS.mkdir(exist_ok=True)
     with _serving(app) as base, sync_playwright() as pw:
         browser = pw.chromium.launch(executable_path=CHROMIUM, args=ARGS, headless=True)
@@ -139,6 +149,40 @@ def test_login_and_every_page(live) -> None:
     assert "stride_frequency_hz" in page.inner_text("#corr-out table")
     assert page.locator("#terrain option").count() >= 2
     _shot(page, "correspondence")
+    assert live["problems"] == [], live["problems"]
+
+
+def test_study_selector_limits_lists_and_correspondence(live) -> None:
+    from playwright.sync_api import expect
+
+    page, base, store = live["page"], live["base"], live["store"]
+    page.goto(base + "/ui/arenas")  # still signed in (sessionStorage of this tab)
+    expect(page.locator("#content table tbody tr")).to_have_count(N_ARENAS)
+    expect(page.locator("#study option")).to_have_count(2)  # all studies + the one study
+    with page.expect_request(lambda r: "/v1/arenas?" in r.url and "study=three" in r.url):
+        page.select_option("#study", STUDY)  # the page reloads with the study applied
+    expect(page.locator("#content table tbody tr")).to_have_count(3)
+    expect(page.locator("#study")).to_have_value(STUDY)
+
+    page.goto(base + "/ui/trials")  # the choice is kept across pages
+    expect(page.locator("#trial-table tbody tr")).to_have_count(6)
+    expect(page.locator("#f-arena_id option")).to_have_count(1 + 3)  # "any" + study arenas
+
+    page.goto(base + "/ui/correspondence")
+    expect(page.locator("#corr-study")).to_have_text(f"Study: {STUDY}", timeout=60_000)
+    expect(page.locator("#corr-counts")).to_have_text(
+        re.compile(r"^3 arenas, 2 subjects, 6 trials"), timeout=60_000
+    )
+    with page.expect_request(lambda r: "/v1/correspondence/report?" in r.url) as report:
+        page.get_by_role("button", name="Report (HTML)").click()
+    assert "study=three%20trays" in report.value.url
+    _shot(page, "correspondence-study")
+
+    page.goto(base + "/ui/arenas")
+    expect(page.locator("#content table tbody tr")).to_have_count(3)
+    with page.expect_request(lambda r: "/v1/arenas?" in r.url and "study=" not in r.url):
+        page.select_option("#study", "")  # back to all studies
+    expect(page.locator("#content table tbody tr")).to_have_count(len(store["arenas"]))
     assert live["problems"] == [], live["problems"]
 
 

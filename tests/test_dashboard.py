@@ -94,3 +94,46 @@ def test_replay_payload_holds_markers_and_ground(client_and_token) -> None:
     # 2 s at the demo's 300 Hz (common practice rate) decimated to <= 50 frames.
     assert body["frame_step"] == int(np.ceil(600 / 50))
     assert client.get("/v1/dashboard/trials/9999/replay", headers=auth).status_code == 404
+
+
+def test_shell_has_a_study_selector_defaulting_to_all(client_and_token) -> None:
+    client, _, _ = client_and_token
+    page = client.get("/ui/arenas").text
+    assert '<select id="study" name="study">' in page
+    assert '<option value="">all studies</option>' in page  # the default sends no study=
+
+
+def test_app_js_sends_the_study_on_lists_correspondence_report_and_downloads() -> None:
+    import re
+
+    from service.dashboard.pages import STATIC_DIR
+
+    js = (STATIC_DIR / "app.js").read_text()
+    assert "<script" not in js and "eval(" not in js and "new Function" not in js  # strict CSP
+    assert "sessionStorage.getItem(STUDY_KEY)" in js and 'fetch("/v1/studies' not in js
+    assert 'all("/v1/studies")' in js  # the selector is filled from GET /v1/studies
+    # Every list fetch goes through scoped(), which appends study=<name> when one is chosen
+    # (the sign-in probe, api("/v1/arenas?limit=1"), is no list and stays unscoped).
+    lists = r'"/v1/(?:arenas|subjects|scans|trials)["?]'
+    assert len(re.findall(r"all\(scoped\(" + lists, js)) >= 5
+    assert re.findall(r"all\((?!scoped\()" + lists, js) == []
+    # Correspondence, report and download URLs are built from q(), which carries the study.
+    q_def = re.search(r"const q = \(\) => (.+);", js).group(1)
+    assert "studyParam()" in q_def
+    for path in ("/v1/correspondence?", "/v1/export/scores?", "/v1/correspondence/report?"):
+        lines = [ln for ln in js.splitlines() if path in ln]
+        assert lines and all("q()" in ln for ln in lines), path
+
+
+def test_lists_the_dashboard_calls_accept_a_study(client_and_token) -> None:
+    client, auth, store = client_and_token
+    with client.app.state.sessionmaker() as session:
+        if repo.list_studies(session=session)[1] == 0:
+            study = repo.create_study(session=session, name="first tray")
+            repo.add_study_members(
+                session=session, study_id=study.id, arena_ids=store["arenas"][:1]
+            )
+    # One arena as the only member: its scan is in, no trial is (no subject is a member).
+    for path, n in (("/v1/arenas", 1), ("/v1/scans", 1), ("/v1/trials", 0), ("/v1/subjects", 0)):
+        body = client.get(path, params={"study": "first tray"}, headers=auth).json()
+        assert body["count"] == n, path

@@ -227,3 +227,49 @@ def test_report_route_needs_a_token_and_serves_html(small_store: dict) -> None:
     assert "frame-ancestors 'none'" in r.headers["content-security-policy"]
     assert r.headers["x-content-type-options"] == "nosniff"
     assert '<section id="correspondence">' in r.text
+
+
+def test_report_limited_to_a_study(small_store: dict) -> None:
+    """Three of the four arenas and both subjects: 3 arenas and 3 x 2 = 6 trials reported."""
+    from fastapi.testclient import TestClient
+
+    from service.app import create_app
+    from service.report import render_report
+
+    chosen = small_store["arenas"][:3]
+    res = open_resources(small_store["settings"])
+    try:
+        with res.sessionmaker() as session:
+            if repo.list_studies(session=session)[1] == 0:
+                study = repo.create_study(session=session, name="three trays")
+                subjects, _ = repo.list_subjects(session=session)
+                repo.add_study_members(
+                    session=session,
+                    study_id=study.id,
+                    arena_ids=chosen,
+                    subject_ids=[s.id for s in subjects],
+                )
+            html = render_report(
+                session=session, store=res.store, n_permutations=99, n_boot=99, study="three trays"
+            )
+    finally:
+        res.engine.dispose()
+    summary = html.split('<section id="summary">')[1].split("</section>")[0]
+    assert "<dt>study</dt><dd><code>three trays</code></dd>" in summary
+    assert "<code>3 / 3</code>" in summary  # arenas scored / registered, in the study
+    assert "<code>6 / 6</code>" in summary  # trials scored / uploaded, in the study
+    assert "tray-3" not in html and "tray-2" in html  # the fourth arena is not in the study
+    # 3 arenas: the smallest two-sided permutation p is 2/3! = 0.333 (Good 2005, ch. 3).
+    assert "Only 3 arenas" in html
+
+    app = create_app(small_store["settings"])
+    with app.state.sessionmaker() as session:
+        _, secret = repo.create_token(session=session, scopes=["read"])
+    client = TestClient(app, headers={"Authorization": f"Bearer {secret}"})
+    r = client.get("/v1/correspondence/report", params={"study": "nope", "n_permutations": 99})
+    assert r.status_code == 404 and "nope" in r.json()["detail"]
+    r = client.get(
+        "/v1/correspondence/report",
+        params={"study": "three trays", "n_permutations": 99, "n_boot": 99},
+    )
+    assert r.status_code == 200 and "<code>three trays</code>" in r.text

@@ -20,6 +20,7 @@ from test_correspondence_service import Study
 
 from measures import detectable_rank_correlation
 from storage import repo
+from storage.errors import NotFound
 
 
 class Lab(Study):
@@ -166,3 +167,139 @@ def test_upload_meta_names_a_study(tmp_path, rng):
     assert up.client.get(f"/v1/studies/{sid}").json()["trial_ids"] == [res.json()["id"]]
     missing = up.post_trial(wide_csv(rng), name="b.csv", meta=up.trial_meta(study="nope"))
     assert missing.status_code == 404 and up.count("trial") == 1
+
+
+# -- study= on every list, score query and export -----------------------------------------------
+# The expectations follow the membership rule documented in storage/repo/studies.py: a trial is
+# in when it is a member or its arena and subject both are; an arena/subject when it is a member
+# or belongs to a trial in the study; a scan when its arena is; a score when its target is.
+
+
+@pytest.fixture
+def crossed(lab):
+    """Study "gravel": arenas A1, A2 and subject S1 as members, plus trial (A3, S2) itself."""
+    a1, a2, a3, a4 = (lab.arena(f"bed {k}") for k in range(1, 5))
+    s1, s2, s3 = (lab.subject(f"S{k}") for k in range(1, 4))
+    scans = {a: lab.scan(a, {"sq_m": 0.1 * a, "sdr": 0.01 * a}) for a in (a1, a2, a3, a4)}
+    t = {
+        (a, s): lab.trial(a, s, {"rqa_det": 0.1 * a + 0.01 * s, "speed_m_s": 0.3})
+        for a, s in [(a1, s1), (a2, s1), (a1, s2), (a3, s1), (a3, s2), (a4, s3)]
+    }
+    sid = lab.writer.post("/v1/studies", json={"name": "gravel"}).json()["id"]
+    lab.writer.post("/v1/studies", json={"name": "empty"})
+    body = {"arena_ids": [a1, a2], "subject_ids": [s1], "trial_ids": [t[(a3, s2)]]}
+    assert lab.writer.post(f"/v1/studies/{sid}/members", json=body).status_code == 200
+    return {
+        "study_id": sid,
+        "arenas": [a1, a2, a3],  # members, plus A3 as the arena of the member trial
+        "subjects": [s1, s2],  # S1 a member, S2 the subject of the member trial
+        # (A1, S2) is out: S2 is not itself a member; (A3, S1) is out: A3 is not a member.
+        "trials": sorted([t[(a1, s1)], t[(a2, s1)], t[(a3, s2)]]),
+        "scans": sorted(scans[a] for a in (a1, a2, a3)),
+        "all": {"arenas": 4, "subjects": 3, "trials": 6, "scans": 4},
+        "a4": a4,
+    }
+
+
+def _ids(lab, path, **params):
+    res = lab.client.get(path, params={"limit": 1000, **params})
+    assert res.status_code == 200, res.text
+    body = res.json()
+    ids = [r["id"] for r in body["data"]]
+    assert body["count"] == len(ids)
+    return ids
+
+
+@pytest.mark.parametrize("kind", ["arenas", "subjects", "trials", "scans"])
+def test_every_list_is_limited_to_the_study(lab, crossed, kind):
+    assert _ids(lab, f"/v1/{kind}", study="gravel") == crossed[kind]
+    assert len(_ids(lab, f"/v1/{kind}")) == crossed["all"][kind]  # no study: everything
+    assert _ids(lab, f"/v1/{kind}", study="empty") == []
+    res = lab.client.get(f"/v1/{kind}", params={"study": "nope"})
+    assert res.status_code == 404 and "study 'nope'" in res.json()["detail"]
+
+
+@pytest.mark.parametrize("kind", ["arenas", "subjects", "trials", "scans"])
+def test_pagination_counts_respect_the_study(lab, crossed, kind):
+    want = crossed[kind]
+    pages, offset = [], 0
+    while offset < len(want) + 1:
+        res = lab.client.get(
+            f"/v1/{kind}", params={"study": "gravel", "limit": 1, "offset": offset}
+        )
+        body = res.json()
+        assert body["count"] == len(want)  # the filtered total, not the store's
+        pages += [r["id"] for r in body["data"]]
+        offset += 1
+    assert pages == want
+
+
+def test_list_trials_agrees_with_study_trial_ids(lab, crossed):
+    with lab.sm() as s:
+        rows, count = repo.list_trials(session=s, study_id=crossed["study_id"])
+        assert {r.id for r in rows} == repo.study_trial_ids(session=s, study_id=crossed["study_id"])
+        assert count == 3
+        with pytest.raises(NotFound):
+            repo.list_arenas(session=s, study_id=987654)
+
+
+def test_arena_scans_and_other_filters_combine_with_the_study(lab, crossed):
+    a1, a4 = crossed["arenas"][0], crossed["a4"]
+    assert len(_ids(lab, f"/v1/arenas/{a1}/scans", study="gravel")) == 1
+    assert _ids(lab, f"/v1/arenas/{a4}/scans", study="gravel") == []  # A4 is not in the study
+    assert len(_ids(lab, f"/v1/arenas/{a4}/scans")) == 1
+    assert lab.client.get(f"/v1/arenas/{a1}/scans", params={"study": "nope"}).status_code == 404
+    # study AND arena: the trials of A1 in the study are (A1, S1) only.
+    assert len(_ids(lab, "/v1/trials", study="gravel", arena_id=a1)) == 1
+    assert len(_ids(lab, "/v1/trials", arena_id=a1)) == 2
+
+
+def _score_targets(rows):
+    return sorted((r["target_kind"], int(r["target_id"])) for r in rows)
+
+
+def _expected_targets(crossed):
+    return sorted(
+        [("scan", i) for i in crossed["scans"]] + [("trial", i) for i in crossed["trials"]]
+    )
+
+
+def test_score_query_is_limited_to_the_study(lab, crossed):
+    res = lab.client.get("/v1/scores", params={"study": "gravel", "limit": 1000})
+    body = res.json()
+    # 2 scores per scan, 2 per trial (rqa_det, speed_m_s).
+    assert (
+        body["count"] == 2 * (len(crossed["scans"]) + len(crossed["trials"])) == len(body["data"])
+    )
+    assert sorted(set(_score_targets(body["data"]))) == _expected_targets(crossed)
+    everything = lab.client.get("/v1/scores", params={"limit": 1}).json()["count"]
+    assert everything == 2 * (4 + 6)
+    paged = lab.client.get("/v1/scores", params={"study": "gravel", "limit": 5, "offset": 10})
+    assert paged.json()["count"] == body["count"] and len(paged.json()["data"]) == 2
+    trial_only = lab.client.get(
+        "/v1/scores", params={"study": "gravel", "target_kind": "trial", "measure": "rqa_det"}
+    ).json()
+    assert trial_only["count"] == len(crossed["trials"])
+    missing = lab.client.get("/v1/scores", params={"study": "nope"})
+    assert missing.status_code == 404 and "nope" in missing.json()["detail"]
+
+
+@pytest.mark.parametrize("shape", ["tidy", "wide"])
+@pytest.mark.parametrize("fmt", ["csv", "json", "parquet"])
+def test_score_export_is_limited_to_the_study(lab, crossed, shape, fmt):
+    res = lab.client.get(
+        "/v1/export/scores", params={"study": "gravel", "format": fmt, "shape": shape}
+    )
+    assert res.status_code == 200, res.text
+    if fmt == "csv":
+        frame = pd.read_csv(io.StringIO(res.text))
+    elif fmt == "json":
+        frame = pd.read_json(io.StringIO(res.text))
+    else:
+        frame = pd.read_parquet(io.BytesIO(res.content))
+    targets = sorted(set(_score_targets(frame.to_dict("records"))))
+    assert targets == _expected_targets(crossed)
+    n_targets = len(crossed["scans"]) + len(crossed["trials"])
+    assert len(frame) == (2 * n_targets if shape == "tidy" else n_targets)
+    missing = lab.client.get("/v1/export/scores", params={"study": "nope", "format": fmt})
+    assert missing.status_code == 404

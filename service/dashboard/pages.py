@@ -2,7 +2,10 @@
 
 The shells hold no data and need no token (a browser cannot send a Bearer header when it
 follows a link); ``app.js`` asks for the token once, keeps it in ``sessionStorage`` and sends it
-as ``Authorization: Bearer`` on every ``fetch``. Every page answer carries a strict CSP.
+as ``Authorization: Bearer`` on every ``fetch``. The header's study selector (``#study``, filled
+from ``GET /v1/studies``, kept in ``sessionStorage``) adds ``study=`` to the list,
+correspondence, report and download requests; empty means all studies. Every page answer
+carries a strict CSP.
 """
 
 from __future__ import annotations
@@ -76,6 +79,8 @@ def shell(page: str, ident: int | None = None) -> HTMLResponse:
 </head><body data-page="{page}" data-id="{"" if ident is None else ident}">
 <a class="skip" href="#main">Skip to content</a>
 <header><span class="brand">gaitscape</span><nav aria-label="main">{nav}</nav>
+<label id="study-pick" for="study" hidden>study <select id="study" name="study">
+<option value="">all studies</option></select></label>
 <span id="who" aria-live="polite"></span>
 <button id="signout" type="button" hidden>Sign out</button></header>
 <main id="main" tabindex="-1"><h1>{title}</h1><div id="content" aria-live="polite">

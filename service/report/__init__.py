@@ -1,7 +1,8 @@
 """The correspondence report: one self-contained HTML page with server-side figures.
 
-``render_report(session=, store=, profile=)`` runs the correspondence (``service.correspondence``)
-and assembles ``report.html``; ``GET /v1/correspondence/report`` serves the same page.
+``render_report(session=, store=, profile=, study=)`` runs the correspondence
+(``service.correspondence``) and assembles ``report.html``, limited to one study when ``study``
+names one; ``GET /v1/correspondence/report`` serves the same page.
 """
 
 from __future__ import annotations
@@ -32,19 +33,27 @@ def render_report(
     n_permutations: int = 9999,
     n_boot: int = 1999,
     seed: int = 0,
+    study: str | None = None,
 ) -> str:
-    """Compute (unless given) the correspondence of ``profile`` and return the report HTML."""
+    """Compute (unless given) the correspondence of ``profile`` and return the report HTML.
+
+    ``study``: a study name; counts, figures and correspondence then cover its arenas,
+    subjects, trials and scans only (membership rule: ``storage.repo.studies``), and the
+    summary names it. NotFound for an unknown study.
+    """
     if correspondence is None:
-        from service.correspondence import correspondence_report
+        from service.correspondence import Selection, correspondence_report
 
         correspondence = correspondence_report(
             session=session,
             profile=profile,
             version=version,
+            selection=Selection(study=study),
             n_permutations=n_permutations,
             n_boot=n_boot,
             seed=seed,
         )
+    data = load_study(session=session, profile=profile, study=study)
     return build_report(
-        session=session, store=store, correspondence=correspondence, profile=profile
+        session=session, store=store, correspondence=correspondence, profile=profile, study=data
     )

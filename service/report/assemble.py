@@ -230,7 +230,9 @@ def _summary_section(study: StudyData, correspondence: Mapping[str, Any]) -> str
     n_t = correspondence.get("n_trials", len(study.movement))
     from service import __version__
 
+    name = study.study_name or correspondence.get("study")
     items = [
+        ("study", name if name else "all studies (whole store)"),
         ("arenas (scored / registered)", f"{n_a} / {len(study.arenas)}"),
         ("subjects", n_s),
         ("trials (scored / uploaded)", f"{n_t} / {len(study.trials)}"),
@@ -461,8 +463,10 @@ def build_report(
     profile: str | None = None,
     study: StudyData | None = None,
 ) -> str:
-    """The report for ``profile`` as one HTML string (no external resources)."""
-    study = study if study is not None else load_study(session=session, profile=profile)
+    """The report for ``profile`` as one HTML string (no external resources); without
+    ``study`` data it is loaded for the study the correspondence names (if any)."""
+    if study is None:
+        study = load_study(session=session, profile=profile, study=correspondence.get("study"))
     roughness = {a: v.get(TERRAIN_ROUGHNESS_KEY, np.nan) for a, v in study.terrain.items()}
     colours = figures.arena_colours([a.id for a in study.arenas], roughness)
     warnings = design_warnings(study, correspondence)
@@ -476,7 +480,9 @@ def build_report(
     parts = [
         "<!doctype html><html lang='en'><head><meta charset='utf-8'>",
         "<meta name='viewport' content='width=device-width, initial-scale=1'>",
-        f"<title>gaitscape report: {_e(study.profile_name)}</title><style>{_CSS}</style></head>",
+        f"<title>gaitscape report: {_e(study.profile_name)}"
+        f"{' - ' + _e(study.study_name) if study.study_name else ''}</title>"
+        f"<style>{_CSS}</style></head>",
         "<body><main><h1>gaitscape correspondence report</h1>",
         banner,
         _warnings_section(warnings),

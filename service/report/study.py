@@ -55,6 +55,7 @@ class StudyData:
     job_counts: dict[str, int]
     scan_scores: dict[int, dict[str, float]] = field(default_factory=dict)
     failed_jobs: list[str] = field(default_factory=list)
+    study_name: str | None = None  # None: the whole store
 
     @property
     def scored_arena_ids(self) -> list[int]:
@@ -89,19 +90,21 @@ def _scores_by_target(session: Any, kind: str, profile_hash: str) -> dict[int, l
     return out
 
 
-def load_study(*, session: Any, profile: str | None = None) -> StudyData:
-    """The study as stored, with the scores of profile ``profile`` (latest ``default``)."""
+def load_study(*, session: Any, profile: str | None = None, study: str | None = None) -> StudyData:
+    """The store's records (or those of study ``study``, by name) with the scores of profile
+    ``profile`` (latest ``default``); NotFound for an unknown study."""
     prof = _profile(session, profile)
-    arenas = _all(lambda **kw: repo.list_arenas(session=session, **kw))
-    subjects = _all(lambda **kw: repo.list_subjects(session=session, **kw))
-    scans = _all(lambda **kw: repo.list_scans(session=session, **kw))
-    trials = _all(lambda **kw: repo.list_trials(session=session, **kw))
+    sid = None if study is None else repo.get_study_by_name(session=session, name=study).id
+    arenas = _all(lambda **kw: repo.list_arenas(session=session, study_id=sid, **kw))
+    subjects = _all(lambda **kw: repo.list_subjects(session=session, study_id=sid, **kw))
+    scans = _all(lambda **kw: repo.list_scans(session=session, study_id=sid, **kw))
+    trials = _all(lambda **kw: repo.list_trials(session=session, study_id=sid, **kw))
     # Terrain and movement values exactly as the correspondence uses them (latest scored scan
     # of each arena; diagnostics left out), so figures and table agree.
     from service.correspondence import Selection
     from service.correspondence import load_study as load_tables
 
-    tables = load_tables(session=session, profile_hash=prof.hash, selection=Selection())
+    tables = load_tables(session=session, profile_hash=prof.hash, selection=Selection(study=study))
     terrain = {
         int(a): {m: float(row[m]) for m in tables.terrain_measures}
         for a, row in tables.arenas.iterrows()
@@ -120,8 +123,11 @@ def load_study(*, session: Any, profile: str | None = None) -> StudyData:
     units: dict[str, str] = {}
     versions: set[str] = set()
     scan_scores: dict[int, dict[str, float]] = {}
+    members = {"scan": {s.id for s in scans}, "trial": set(by_id)}
     for kind in ("scan", "trial"):
         for target, rows in _scores_by_target(session, kind, prof.hash).items():
+            if sid is not None and target not in members[kind]:
+                continue
             if kind == "scan":
                 scan_scores[target] = {s.measure: s.value for s in rows}
             for s in rows:
@@ -131,6 +137,8 @@ def load_study(*, session: Any, profile: str | None = None) -> StudyData:
     counts: dict[str, int] = defaultdict(int)
     failed = []
     for j in jobs:
+        if sid is not None and j.target_id not in members.get(j.target_kind, ()):
+            continue  # another study's job
         counts[j.state] += 1
         if j.state == "failed":
             failed.append(f"{j.target_kind} {j.target_id}: {(j.error or '').strip()[:200]}")
@@ -150,4 +158,5 @@ def load_study(*, session: Any, profile: str | None = None) -> StudyData:
         job_counts=dict(counts),
         failed_jobs=failed,
         scan_scores=scan_scores,
+        study_name=study,
     )

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Annotated
 
-from fastapi import APIRouter, Query, status
+from fastapi import APIRouter, Depends, Query, status
 
 from service.deps import ReadToken, SessionDep, UploadToken
 from service.schemas import ArenaCreate, ArenaPublic, ArenasPublic
@@ -16,6 +16,27 @@ Offset = Annotated[int, Query(ge=0)]
 Limit = Annotated[int, Query(ge=1, le=1000)]
 
 
+def study_id_filter(
+    session: SessionDep,
+    study: Annotated[
+        str | None,
+        Query(
+            description="Limit to this study (by name): its member arenas, subjects and "
+            "trials, trials whose arena and subject both are members, and the scans and "
+            "scores of those (404 for an unknown study)."
+        ),
+    ] = None,
+) -> int | None:
+    """The id of the study named ``study`` (None when not given); NotFound -> 404."""
+    if study is None or not study.strip():
+        return None
+    return repo.get_study_by_name(session=session, name=study.strip()).id
+
+
+#: The ``study=`` query parameter of every list and export, resolved to a study id.
+StudyFilter = Annotated[int | None, Depends(study_id_filter)]
+
+
 @router.post("", status_code=status.HTTP_201_CREATED)
 def create_arena(body: ArenaCreate, session: SessionDep, token: UploadToken) -> ArenaPublic:
     """Register an arena."""
@@ -25,10 +46,14 @@ def create_arena(body: ArenaCreate, session: SessionDep, token: UploadToken) -> 
 
 @router.get("")
 def list_arenas(
-    session: SessionDep, token: ReadToken, offset: Offset = 0, limit: Limit = 100
+    session: SessionDep,
+    token: ReadToken,
+    study_id: StudyFilter,
+    offset: Offset = 0,
+    limit: Limit = 100,
 ) -> ArenasPublic:
-    """List arenas, oldest first."""
-    rows, count = repo.list_arenas(session=session, offset=offset, limit=limit)
+    """List arenas, oldest first, optionally of one study."""
+    rows, count = repo.list_arenas(session=session, study_id=study_id, offset=offset, limit=limit)
     return ArenasPublic(data=[ArenaPublic.model_validate(r) for r in rows], count=count)
 
 

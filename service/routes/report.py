@@ -30,8 +30,12 @@ async def get_report(
     n_permutations: Annotated[int, Query(ge=99, le=99_999)] = 9999,
     n_boot: Annotated[int, Query(ge=99, le=99_999)] = 1999,
     seed: int = 0,
+    study: Annotated[
+        str | None, Query(description="Limit the report to this study (404 when unknown).")
+    ] = None,
 ) -> HTMLResponse:
     """The report (study summary, terrain, movement, correspondence, warnings) as HTML."""
+    study = study.strip() if study and study.strip() else None
 
     def compute() -> str:
         with request.app.state.sessionmaker() as session:
@@ -43,6 +47,7 @@ async def get_report(
                 n_permutations=n_permutations,
                 n_boot=n_boot,
                 seed=seed,
+                study=study,
             )
 
     html = await run_in_threadpool(compute)

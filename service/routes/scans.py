@@ -10,7 +10,7 @@ from fastapi.responses import FileResponse
 from service.deps import ReadToken, SessionDep, StoreDep, UploadToken
 from service.routes._ingest import handle_upload
 from service.routes._multipart import multipart_request_body
-from service.routes.arenas import Limit, Offset
+from service.routes.arenas import Limit, Offset, StudyFilter
 from service.schemas import ScanPublic, ScansPublic, ScanUploadMeta, UploadPublic
 from service.security import safe_download_name
 from storage import repo
@@ -60,11 +60,18 @@ async def upload_scan(
 
 @router.get("/arenas/{arena_id}/scans")
 def list_arena_scans(
-    arena_id: int, session: SessionDep, token: ReadToken, offset: Offset = 0, limit: Limit = 100
+    arena_id: int,
+    session: SessionDep,
+    token: ReadToken,
+    study_id: StudyFilter,
+    offset: Offset = 0,
+    limit: Limit = 100,
 ) -> ScansPublic:
-    """List the scans of one arena."""
+    """List the scans of one arena (none when a ``study`` is named that the arena is not in)."""
     repo.get_arena(session=session, arena_id=arena_id)  # 404 for an unknown arena
-    rows, count = repo.list_scans(session=session, arena_id=arena_id, offset=offset, limit=limit)
+    rows, count = repo.list_scans(
+        session=session, arena_id=arena_id, study_id=study_id, offset=offset, limit=limit
+    )
     return ScansPublic(data=[ScanPublic.model_validate(r) for r in rows], count=count)
 
 
@@ -72,12 +79,15 @@ def list_arena_scans(
 def list_scans(
     session: SessionDep,
     token: ReadToken,
+    study_id: StudyFilter,
     arena_id: int | None = None,
     offset: Offset = 0,
     limit: Limit = 100,
 ) -> ScansPublic:
-    """List scans, optionally of one arena."""
-    rows, count = repo.list_scans(session=session, arena_id=arena_id, offset=offset, limit=limit)
+    """List scans, optionally of one arena or one study (the scans of its arenas)."""
+    rows, count = repo.list_scans(
+        session=session, arena_id=arena_id, study_id=study_id, offset=offset, limit=limit
+    )
     return ScansPublic(data=[ScanPublic.model_validate(r) for r in rows], count=count)
 
 

@@ -13,7 +13,7 @@ from fastapi.responses import Response, StreamingResponse
 from pydantic import BaseModel
 
 from service.deps import ReadToken, SessionDep
-from service.routes.arenas import Limit, Offset
+from service.routes.arenas import Limit, Offset, StudyFilter
 from service.schemas import ScoreRowPublic, ScoresPublic
 from storage import repo
 from storage.repo.scores import SCORE_ROW_COLUMNS, iter_score_rows, query_scores
@@ -36,10 +36,12 @@ class ScoreFilters(BaseModel):
     condition: str | None = None
     profile_hash: str | None = None
     measure: str | None = None
+    study_id: int | None = None
 
 
 def score_filters(
     session: SessionDep,
+    study_id: StudyFilter,
     target_kind: Literal["scan", "trial"] | None = None,
     arena_id: int | None = None,
     subject_id: int | None = None,
@@ -51,12 +53,14 @@ def score_filters(
     profile_hash: str | None = None,
     measure: str | None = None,
 ) -> ScoreFilters:
-    """The filters shared by the query and the export; a profile name becomes its hash."""
+    """The filters shared by the query and the export; a profile name becomes its hash, a
+    study name its id."""
     if profile is not None:
         profile_hash = repo.get_profile(session=session, name=profile, version=profile_version).hash
     return ScoreFilters(
         target_kind=target_kind, arena_id=arena_id, subject_id=subject_id, trial_id=trial_id,
         scan_id=scan_id, condition=condition, profile_hash=profile_hash, measure=measure,
+        study_id=study_id,
     )  # fmt: skip
 
 

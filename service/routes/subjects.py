@@ -5,7 +5,7 @@ from __future__ import annotations
 from fastapi import APIRouter, status
 
 from service.deps import ReadToken, SessionDep, UploadToken
-from service.routes.arenas import Limit, Offset
+from service.routes.arenas import Limit, Offset, StudyFilter
 from service.schemas import SubjectCreate, SubjectPublic, SubjectsPublic
 from storage import repo
 
@@ -21,10 +21,14 @@ def create_subject(body: SubjectCreate, session: SessionDep, token: UploadToken)
 
 @router.get("")
 def list_subjects(
-    session: SessionDep, token: ReadToken, offset: Offset = 0, limit: Limit = 100
+    session: SessionDep,
+    token: ReadToken,
+    study_id: StudyFilter,
+    offset: Offset = 0,
+    limit: Limit = 100,
 ) -> SubjectsPublic:
-    """List subjects, oldest first."""
-    rows, count = repo.list_subjects(session=session, offset=offset, limit=limit)
+    """List subjects, oldest first, optionally of one study."""
+    rows, count = repo.list_subjects(session=session, study_id=study_id, offset=offset, limit=limit)
     return SubjectsPublic(data=[SubjectPublic.model_validate(r) for r in rows], count=count)
 
 

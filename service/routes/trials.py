@@ -11,7 +11,7 @@ from fastapi.responses import FileResponse
 from service.deps import ReadToken, SessionDep, StoreDep, UploadToken
 from service.routes._ingest import handle_upload
 from service.routes._multipart import multipart_request_body
-from service.routes.arenas import Limit, Offset
+from service.routes.arenas import Limit, Offset, StudyFilter
 from service.routes.scans import UPLOAD_RESPONSES
 from service.schemas import TrialPublic, TrialsPublic, TrialUploadMeta, UploadPublic
 from service.security import safe_download_name
@@ -49,6 +49,7 @@ async def upload_trial(request: Request, response: Response, token: UploadToken)
 def list_trials(
     session: SessionDep,
     token: ReadToken,
+    study_id: StudyFilter,
     arena_id: int | None = None,
     subject_id: int | None = None,
     condition: str | None = None,
@@ -57,7 +58,7 @@ def list_trials(
     offset: Offset = 0,
     limit: Limit = 100,
 ) -> TrialsPublic:
-    """List trials, filtered by arena, subject, condition and recording date."""
+    """List trials, filtered by study, arena, subject, condition and recording date."""
     rows, count = repo.list_trials(
         session=session,
         arena_id=arena_id,
@@ -65,6 +66,7 @@ def list_trials(
         condition=condition,
         recorded_after=recorded_after,
         recorded_before=recorded_before,
+        study_id=study_id,
         offset=offset,
         limit=limit,
     )

@@ -11,6 +11,7 @@ from sqlalchemy.orm import Session
 from storage.errors import BadInput, Conflict
 from storage.models import ARENA_KINDS, Arena, MarkerSet, Subject
 from storage.repo._common import get_or_404, need_text, optional_positive, paginate
+from storage.repo.studies import arena_ids_in_study, get_study, subject_ids_in_study
 
 __all__ = [
     "create_arena",
@@ -79,12 +80,20 @@ def get_arena(*, session: Session, arena_id: int) -> Arena:
 
 
 def list_arenas(
-    *, session: Session, kind: str | None = None, offset: int = 0, limit: int = 100
+    *,
+    session: Session,
+    kind: str | None = None,
+    study_id: int | None = None,
+    offset: int = 0,
+    limit: int = 100,
 ) -> tuple[list[Arena], int]:
-    """Arenas by id, optionally of one kind."""
+    """Arenas by id, optionally of one kind or one study (rule: ``storage.repo.studies``)."""
     stmt = select(Arena).order_by(Arena.id)
     if kind is not None:
         stmt = stmt.where(Arena.kind == normalise_arena_kind(kind))
+    if study_id is not None:
+        get_study(session=session, study_id=study_id)
+        stmt = stmt.where(Arena.id.in_(arena_ids_in_study(study_id)))
     return paginate(session, stmt, offset=offset, limit=limit)
 
 
@@ -180,10 +189,18 @@ def get_subject(*, session: Session, subject_id: int) -> Subject:
 
 
 def list_subjects(
-    *, session: Session, species: str | None = None, offset: int = 0, limit: int = 100
+    *,
+    session: Session,
+    species: str | None = None,
+    study_id: int | None = None,
+    offset: int = 0,
+    limit: int = 100,
 ) -> tuple[list[Subject], int]:
-    """Subjects by id, optionally of one species."""
+    """Subjects by id, optionally of one species or one study (rule: ``storage.repo.studies``)."""
     stmt = select(Subject).order_by(Subject.id)
     if species is not None:
         stmt = stmt.where(Subject.species == species)
+    if study_id is not None:
+        get_study(session=session, study_id=study_id)
+        stmt = stmt.where(Subject.id.in_(subject_ids_in_study(study_id)))
     return paginate(session, stmt, offset=offset, limit=limit)

@@ -8,12 +8,13 @@ import math
 from collections.abc import Iterable, Iterator
 from typing import Any
 
-from sqlalchemy import Select, and_, func, select
+from sqlalchemy import Select, and_, func, or_, select
 from sqlalchemy.orm import Session
 
 from storage.errors import BadInput, NotFound
 from storage.models import TARGET_KINDS, Arena, Profile, Scan, Score, Subject, Trial, utcnow
 from storage.repo._common import need_text, paginate
+from storage.repo.studies import get_study, scan_ids_in_study, trial_ids_in_study
 
 __all__ = [
     "create_profile",
@@ -195,6 +196,7 @@ def _score_rows_stmt(
     condition: str | None,
     profile_hash: str | None,
     measure: str | None,
+    study_id: int | None = None,
 ) -> Select[Any]:
     arena_of = func.coalesce(Trial.arena_id, Scan.arena_id)
     stmt = (
@@ -242,6 +244,15 @@ def _score_rows_stmt(
         stmt = stmt.where(Score.profile_hash == profile_hash)
     if measure is not None:
         stmt = stmt.where(Score.measure == measure)
+    if study_id is not None:
+        # A score is in a study when its target is (rule: storage.repo.studies).
+        trials, scans = trial_ids_in_study(study_id), scan_ids_in_study(study_id)
+        stmt = stmt.where(
+            or_(
+                and_(Score.target_kind == "trial", Score.target_id.in_(trials)),
+                and_(Score.target_kind == "scan", Score.target_id.in_(scans)),
+            )
+        )
     return stmt
 
 
@@ -256,13 +267,18 @@ def query_scores(
     condition: str | None = None,
     profile_hash: str | None = None,
     measure: str | None = None,
+    study_id: int | None = None,
     offset: int = 0,
     limit: int = 100,
 ) -> tuple[list[dict[str, Any]], int]:
-    """Score rows with their arena, subject and condition (trial filters drop scan scores)."""
+    """Score rows with their arena, subject and condition (trial filters drop scan scores);
+    ``study_id``: scores of the study's trials and scans (rule: ``storage.repo.studies``)."""
+    if study_id is not None:
+        get_study(session=session, study_id=study_id)
     stmt = _score_rows_stmt(
         target_kind=target_kind, arena_id=arena_id, subject_id=subject_id, trial_id=trial_id,
         scan_id=scan_id, condition=condition, profile_hash=profile_hash, measure=measure,
+        study_id=study_id,
     )  # fmt: skip
     if not isinstance(offset, int) or offset < 0:
         raise BadInput(f"offset must be an integer >= 0, got {offset!r}")
@@ -277,9 +293,11 @@ def iter_score_rows(
     *, session: Session, batch: int = 2000, **filters: Any
 ) -> Iterator[dict[str, Any]]:
     """Every matching score row (as ``query_scores``), fetched ``batch`` rows at a time."""
+    if filters.get("study_id") is not None:
+        get_study(session=session, study_id=filters["study_id"])
     stmt = _score_rows_stmt(**{k: filters.get(k) for k in (
         "target_kind", "arena_id", "subject_id", "trial_id", "scan_id", "condition",
-        "profile_hash", "measure",
+        "profile_hash", "measure", "study_id",
     )})  # fmt: skip
     last = 0
     while True:

@@ -1,15 +1,30 @@
-"""Studies: named groups of arenas, subjects and trials, and membership queries."""
+"""Studies: named groups of arenas, subjects and trials, and membership queries.
+
+Membership rule (the one place it is defined; every ``study_id=`` filter uses it):
+
+- a **trial** is in a study when it is a member itself, or when its arena and its subject
+  both are;
+- an **arena** (a **subject**) is in a study when it is a member itself, or when it is the
+  arena (the subject) of a trial in the study -- so every trial a study lists has its arena
+  and subject listed too;
+- a **scan** is in a study when its arena is;
+- a **score** is in a study when its target (trial or scan) is.
+
+The ``*_in_study`` functions return SELECTs of ids for use as SQL ``IN`` subqueries, so lists
+filter and count in the database.
+"""
 
 from __future__ import annotations
 
 from collections.abc import Iterable
 
-from sqlalchemy import Table, insert, or_, select
+from sqlalchemy import Select, Table, insert, or_, select
 from sqlalchemy.orm import Session
 
 from storage.errors import Conflict, NotFound
 from storage.models import (
     Arena,
+    Scan,
     Study,
     Subject,
     Trial,
@@ -21,12 +36,16 @@ from storage.repo._common import get_or_404, need_text, paginate
 
 __all__ = [
     "add_study_members",
+    "arena_ids_in_study",
     "create_study",
     "get_study",
     "get_study_by_name",
     "list_studies",
+    "scan_ids_in_study",
     "study_members",
     "study_trial_ids",
+    "subject_ids_in_study",
+    "trial_ids_in_study",
 ]
 
 _TABLES: dict[str, tuple[Table, type, str]] = {
@@ -111,16 +130,39 @@ def study_members(*, session: Session, study_id: int) -> dict[str, list[int]]:
     return out
 
 
-def study_trial_ids(*, session: Session, study_id: int) -> set[int]:
-    """Trials in the study: members themselves, or whose arena and subject both are."""
-    get_study(session=session, study_id=study_id)
+def trial_ids_in_study(study_id: int) -> Select[tuple[int]]:
+    """SELECT of the ids of the study's trials: members, or arena and subject both members."""
     arenas = select(study_arenas.c.arena_id).where(study_arenas.c.study_id == study_id)
     subjects = select(study_subjects.c.subject_id).where(study_subjects.c.study_id == study_id)
     trials = select(study_trials.c.trial_id).where(study_trials.c.study_id == study_id)
-    stmt = select(Trial.id).where(
+    return select(Trial.id).where(
         or_(
             Trial.id.in_(trials),
             Trial.arena_id.in_(arenas) & Trial.subject_id.in_(subjects),
         )
     )
-    return set(session.scalars(stmt))
+
+
+def arena_ids_in_study(study_id: int) -> Select[tuple[int]]:
+    """SELECT of the ids of the study's arenas: members, or the arena of a study trial."""
+    members = select(study_arenas.c.arena_id).where(study_arenas.c.study_id == study_id)
+    of_trials = select(Trial.arena_id).where(Trial.id.in_(trial_ids_in_study(study_id)))
+    return select(Arena.id).where(or_(Arena.id.in_(members), Arena.id.in_(of_trials)))
+
+
+def subject_ids_in_study(study_id: int) -> Select[tuple[int]]:
+    """SELECT of the ids of the study's subjects: members, or the subject of a study trial."""
+    members = select(study_subjects.c.subject_id).where(study_subjects.c.study_id == study_id)
+    of_trials = select(Trial.subject_id).where(Trial.id.in_(trial_ids_in_study(study_id)))
+    return select(Subject.id).where(or_(Subject.id.in_(members), Subject.id.in_(of_trials)))
+
+
+def scan_ids_in_study(study_id: int) -> Select[tuple[int]]:
+    """SELECT of the ids of the scans of the study's arenas."""
+    return select(Scan.id).where(Scan.arena_id.in_(arena_ids_in_study(study_id)))
+
+
+def study_trial_ids(*, session: Session, study_id: int) -> set[int]:
+    """Trials in the study: members themselves, or whose arena and subject both are."""
+    get_study(session=session, study_id=study_id)
+    return set(session.scalars(trial_ids_in_study(study_id)))

@@ -26,6 +26,7 @@ from storage.models import TARGET_KINDS, Scan, Trial
 from storage.readers import ScanData, TrialData, read_scan, read_trial
 from storage.repo._common import get_or_404, optional_positive, paginate
 from storage.repo.catalog import get_arena, get_subject
+from storage.repo.studies import get_study, scan_ids_in_study, trial_ids_in_study
 
 __all__ = [
     "attach_artifact",
@@ -254,15 +255,20 @@ def list_scans(
     session: Session,
     arena_id: int | None = None,
     kind: str | None = None,
+    study_id: int | None = None,
     offset: int = 0,
     limit: int = 100,
 ) -> tuple[list[Scan], int]:
-    """Scans by id, optionally of one arena or kind ("points"/"heightmap")."""
+    """Scans by id, optionally of one arena, kind ("points"/"heightmap") or study (the scans
+    of the study's arenas; rule: ``storage.repo.studies``)."""
     stmt = select(Scan).order_by(Scan.id)
     if arena_id is not None:
         stmt = stmt.where(Scan.arena_id == arena_id)
     if kind is not None:
         stmt = stmt.where(Scan.kind == kind)
+    if study_id is not None:
+        get_study(session=session, study_id=study_id)
+        stmt = stmt.where(Scan.id.in_(scan_ids_in_study(study_id)))
     return paginate(session, stmt, offset=offset, limit=limit)
 
 
@@ -274,11 +280,16 @@ def list_trials(
     condition: str | None = None,
     recorded_after: datetime | None = None,
     recorded_before: datetime | None = None,
+    study_id: int | None = None,
     offset: int = 0,
     limit: int = 100,
 ) -> tuple[list[Trial], int]:
-    """Trials by id; ``recorded_after`` is inclusive, ``recorded_before`` exclusive."""
+    """Trials by id; ``recorded_after`` is inclusive, ``recorded_before`` exclusive;
+    ``study_id``: the study's trials (rule: ``storage.repo.studies``)."""
     stmt = select(Trial).order_by(Trial.id)
+    if study_id is not None:
+        get_study(session=session, study_id=study_id)
+        stmt = stmt.where(Trial.id.in_(trial_ids_in_study(study_id)))
     if arena_id is not None:
         stmt = stmt.where(Trial.arena_id == arena_id)
     if subject_id is not None:

@@ -4,10 +4,18 @@
 "use strict";
 
 const TOKEN_KEY = "gaitscape-token";
+const STUDY_KEY = "gaitscape-study";
 const PUOR = [[0, "#2d004b"], [0.125, "#542788"], [0.25, "#8073ac"], [0.375, "#b2abd2"],
   [0.5, "#f7f7f7"], [0.625, "#fdb863"], [0.75, "#e08214"], [0.875, "#b35806"], [1, "#7f3b08"]];
 
 function token() { return sessionStorage.getItem(TOKEN_KEY); }
+// The study chosen in the header ("" = all studies); lists, correspondence and exports send it.
+function study() { return sessionStorage.getItem(STUDY_KEY) || ""; }
+function studyParam() { return study() ? "study=" + encodeURIComponent(study()) : ""; }
+function scoped(path) {
+  const p = studyParam();
+  return p ? path + (path.includes("?") ? "&" : "?") + p : path;
+}
 
 class AuthError extends Error {}
 
@@ -93,11 +101,28 @@ function loginForm(next) {
   input.focus();
 }
 
+// -- study selector -------------------------------------------------------------------------
+async function studyPicker() {
+  const sel = document.getElementById("study");
+  if (!sel) return;
+  const studies = await all("/v1/studies");
+  // A study chosen earlier may be gone (another store, say): fall back to all studies.
+  if (study() && !studies.some(s => s.name === study())) sessionStorage.removeItem(STUDY_KEY);
+  sel.replaceChildren(el("option", { value: "", text: "all studies" }),
+    ...studies.map(s => el("option", { value: s.name, text: s.name, selected: s.name === study() })));
+  sel.addEventListener("change", () => {
+    if (sel.value) sessionStorage.setItem(STUDY_KEY, sel.value);
+    else sessionStorage.removeItem(STUDY_KEY);
+    location.reload();
+  });
+  document.getElementById("study-pick").hidden = false;
+}
+
 // -- pages ----------------------------------------------------------------------------------
 const link = (href, text) => el("a", { href }, text);
 
 async function arenasPage() {
-  const [arenas, scans, trials] = await Promise.all([all("/v1/arenas"), all("/v1/scans"), all("/v1/trials")]);
+  const [arenas, scans, trials] = await Promise.all([all(scoped("/v1/arenas")), all(scoped("/v1/scans")), all(scoped("/v1/trials"))]);
   const nScans = id => scans.filter(s => s.arena_id === id);
   const cols = [
     { label: "id", get: a => a.id, num: true },
@@ -113,7 +138,7 @@ async function arenasPage() {
 
 async function trialsPage() {
   const params = new URLSearchParams(location.search);
-  const [arenas, subjects] = await Promise.all([all("/v1/arenas"), all("/v1/subjects")]);
+  const [arenas, subjects] = await Promise.all([all(scoped("/v1/arenas")), all(scoped("/v1/subjects"))]);
   const arenaName = Object.fromEntries(arenas.map(a => [a.id, a.name]));
   const subjectName = Object.fromEntries(subjects.map(s => [s.id, s.label]));
   const select = (name, label, options) => el("label", {}, label, el("select", { name, id: "f-" + name },
@@ -130,7 +155,7 @@ async function trialsPage() {
     const q = new URLSearchParams();
     for (const [k, v] of new FormData(form)) if (v) q.set(k, v);
     history.replaceState(null, "", "/ui/trials" + (q.toString() ? "?" + q : ""));
-    const rows = await all("/v1/trials" + (q.toString() ? "?" + q : ""));
+    const rows = await all(scoped("/v1/trials" + (q.toString() ? "?" + q : "")));
     out.replaceChildren(table([
       { label: "id", get: t => link("/ui/trials/" + t.id, "trial " + t.id) },
       { label: "arena", get: t => arenaName[t.arena_id] || t.arena_id },
@@ -269,7 +294,7 @@ async function correspondencePage() {
   const mSel = el("select", { id: "movement", multiple: true, size: 6 });
   const run = el("button", { type: "button", id: "run", text: "Compute" });
   const dl = (label, path, file) => el("button", { type: "button", class: "secondary", onclick: () => download(path(), file).catch(showError) }, label);
-  const q = () => "profile=" + encodeURIComponent(prof.value);
+  const q = () => "profile=" + encodeURIComponent(prof.value) + (study() ? "&" + studyParam() : "");
   const out = el("div", { id: "corr-out" });
   show(el("div", { class: "controls" }, el("label", {}, "profile", prof), el("label", {}, "terrain measures", tSel),
     el("label", {}, "movement measures", mSel), run),
@@ -302,6 +327,7 @@ async function correspondencePage() {
     const best = rows.filter(r => r.q_value !== null).sort((a, b) => a.q_value - b.q_value || a.p_value - b.p_value).slice(0, 25);
     const warn = (res.warnings || []).length ? el("div", { class: "warnings", role: "alert" }, el("ul", {}, res.warnings.map(w => el("li", { text: w })))) : null;
     out.replaceChildren(
+      el("p", { id: "corr-study", text: "Study: " + (res.study || "all studies") }),
       el("p", { id: "corr-counts", text: res.n_arenas + " arenas, " + res.n_subjects + " subjects, " + res.n_trials + " trials; " + rows.length + " pairs (quick settings: 999 permutations, 499 bootstrap draws)" }),
       warn, heat, el("h2", { text: "Strongest pairs" }),
       table([
@@ -337,6 +363,7 @@ async function boot() {
   signout.hidden = false;
   document.getElementById("who").textContent = "signed in";
   try {
+    await studyPicker();
     await PAGES[page](id);
   } catch (err) {
     if (err instanceof AuthError) { loginForm(location.pathname + location.search); showError(err); return; }
