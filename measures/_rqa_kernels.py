@@ -10,6 +10,15 @@ of the upper triangle, by symmetry). Runs that touch a strip's left or right
 edge are stored as prefix/suffix lengths and stitched across strips
 afterwards, so the result does not depend on the number of strips.
 
+Each row of a strip is done in three steps: (1) distances of the row
+segment, one contiguous pass per coordinate, the last pass comparing with
+the threshold and storing one hit byte per cell; (2) a branch-free,
+vectorised pass that updates the column and diagonal run lengths of every
+cell and flags the cells that close a column, diagonal or row run; (3) a
+sparse pass that gathers the flags of 64 cells into bit masks and visits
+only the set bits to update the histograms. Step (1) alone is the
+count-only floor (:func:`count_recurrences` uses the same code).
+
 Memory is O(n_strips * N); strips run in parallel (``prange``).
 
 Distances: for ``metric_code == 0`` the squared Euclidean distance, summed
@@ -23,8 +32,13 @@ from __future__ import annotations
 
 import numpy as np
 from numba import njit, prange
+from numba.cpython.unsafe.numbers import trailing_zeros
 
 __all__: list[str] = []
+
+_GATHER = np.uint64(0x0102040810204080)
+_TOP = np.uint64(56)
+_ONE = np.uint64(1)
 
 
 def strip_edges(n: int, first_offset: int, n_strips: int) -> np.ndarray:
@@ -46,28 +60,80 @@ def _row_distances(xt, i, c0, ncols, metric_code, buf):
     # One pass per coordinate keeps the inner loop contiguous (vectorisable)
     # while each pair still sums its squared differences in index order.
     m = xt.shape[0]
-    row = xt[0]
-    v = row[i]
+    acc = buf[:ncols]
+    row = xt[0, c0 : c0 + ncols]
+    v = xt[0, i]
     if metric_code == 0:
         for jj in range(ncols):
-            d = row[c0 + jj] - v
-            buf[jj] = d * d
+            d = row[jj] - v
+            acc[jj] = d * d
         for c in range(1, m):
-            row = xt[c]
-            v = row[i]
+            row = xt[c, c0 : c0 + ncols]
+            v = xt[c, i]
             for jj in range(ncols):
-                d = row[c0 + jj] - v
-                buf[jj] += d * d
+                d = row[jj] - v
+                acc[jj] += d * d
     else:
         for jj in range(ncols):
-            buf[jj] = abs(row[c0 + jj] - v)
+            acc[jj] = abs(row[jj] - v)
         for c in range(1, m):
-            row = xt[c]
-            v = row[i]
+            row = xt[c, c0 : c0 + ncols]
+            v = xt[c, i]
             for jj in range(ncols):
-                d = abs(row[c0 + jj] - v)
-                if d > buf[jj]:
-                    buf[jj] = d
+                d = abs(row[jj] - v)
+                b = acc[jj]
+                acc[jj] = d if d > b else b
+
+
+@njit(cache=True, inline="always")
+def _row_hits(xt, i, c0, ncols, metric_code, thr, buf, hit):
+    # hit[1 + jj] = 1 when the pair (i, c0 + jj) recurs (hit[0] is left as
+    # is). Same arithmetic as _row_distances, but the last coordinate's term
+    # is added (or maxed) and compared in the same pass. Slices indexed by
+    # the loop counter keep the loads contiguous (vector loads, no gathers).
+    m = xt.shape[0]
+    last = xt[m - 1, c0 : c0 + ncols]
+    u = xt[m - 1, i]
+    out = hit[1 : ncols + 1]
+    if m == 1:
+        if metric_code == 0:
+            for jj in range(ncols):
+                d = last[jj] - u
+                out[jj] = d * d <= thr
+        else:
+            for jj in range(ncols):
+                out[jj] = abs(last[jj] - u) <= thr
+        return
+    acc = buf[:ncols]
+    row = xt[0, c0 : c0 + ncols]
+    v = xt[0, i]
+    if metric_code == 0:
+        for jj in range(ncols):
+            d = row[jj] - v
+            acc[jj] = d * d
+        for c in range(1, m - 1):
+            row = xt[c, c0 : c0 + ncols]
+            v = xt[c, i]
+            for jj in range(ncols):
+                d = row[jj] - v
+                acc[jj] += d * d
+        for jj in range(ncols):
+            d = last[jj] - u
+            out[jj] = acc[jj] + d * d <= thr
+    else:
+        for jj in range(ncols):
+            acc[jj] = abs(row[jj] - v)
+        for c in range(1, m - 1):
+            row = xt[c, c0 : c0 + ncols]
+            v = xt[c, i]
+            for jj in range(ncols):
+                d = abs(row[jj] - v)
+                b = acc[jj]
+                acc[jj] = d if d > b else b
+        for jj in range(ncols):
+            d = abs(last[jj] - u)
+            b = acc[jj]
+            out[jj] = (d if d > b else b) <= thr
 
 
 @njit(cache=True)
@@ -75,79 +141,115 @@ def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dp
     n = xt.shape[1]
     we = max(theiler, 1)
     width = c1 - c0
-    if width <= 0:
+    if width <= 0 or c0 + we >= n:
         return
-    colrun = np.zeros(width, dtype=np.int32)
-    diagrun = np.zeros(n, dtype=np.int32)
     buf = np.empty(width, dtype=np.float64)
-    # Hit masks of this row and the previous one, shifted by one so that
-    # index jj holds column jj - 1 (column -1 is never a hit).
-    cur = np.zeros(width + 1, dtype=np.uint8)
-    prev = np.zeros(width + 1, dtype=np.uint8)
+    # hit[jj + 1] is cell (i, c0 + jj); hit[0] = 0 stops backward row scans.
+    hit = np.zeros(width + 1, dtype=np.uint8)
+    # Run lengths ending in the previous row (old) and in this row (new):
+    # col[jj] down column jj, dia[jj] along the diagonal through column
+    # jj - 1 (so the diagonal entering column jj reads dia_old[jj]).
+    col_old = np.zeros(width, dtype=np.int32)
+    col_new = np.zeros(width, dtype=np.int32)
+    dia_old = np.zeros(width + 1, dtype=np.int32)
+    dia_new = np.zeros(width + 1, dtype=np.int32)
+    # Line-end flags, one byte per cell, read eight at a time: a column
+    # (end_c), diagonal (end_d) or row (end_r) run stops before this cell.
     n_words = (width + 7) // 8
-    events = np.zeros(8 * n_words, dtype=np.uint8)
-    words = events.view(np.uint64)
+    end_c = np.zeros(8 * n_words, dtype=np.uint8)
+    end_d = np.zeros(8 * n_words, dtype=np.uint8)
+    end_r = np.zeros(8 * n_words, dtype=np.uint8)
+    words_c = end_c.view(np.uint64)
+    words_d = end_d.view(np.uint64)
+    words_r = end_r.view(np.uint64)
     join_top = theiler == 0
+    ncols = 0
     for i in range(c0 + we, n):
         ncols = min(c1, i - we + 1) - c0
-        _row_distances(xt, i, c0, ncols, metric_code, buf)
+        _row_hits(xt, i, c0, ncols, metric_code, thr, buf, hit)
+        # Branch-free run update of every cell (vectorised); the few cells
+        # that close a line are flagged and handled below.
         for jj in range(ncols):
-            cur[jj + 1] = buf[jj] <= thr
-        # A cell needs work only if it recurs or closes a run: its column,
-        # diagonal or row predecessor recurred. Whole 8-cell words without
-        # such cells are skipped.
-        for jj in range(ncols):
-            events[jj] = cur[jj + 1] | cur[jj] | prev[jj + 1] | prev[jj]
-        rowrun = 0
-        for w in range((ncols + 7) // 8):
-            if words[w] == 0:
+            h = hit[jj + 1]
+            c = col_old[jj]
+            d = dia_old[jj]
+            col_new[jj] = (c + 1) * h
+            dia_new[jj + 1] = (d + 1) * h
+            miss = h == 0
+            end_c[jj] = (c != 0) & miss
+            end_d[jj] = (d != 0) & miss
+            end_r[jj] = (hit[jj] != 0) & miss
+        for g in range(0, (ncols + 7) // 8, 8):
+            # Gather the 0/1 flag bytes of 64 cells into bit masks (the
+            # multiplier moves byte b's low bit to bit 56 + b) and visit only
+            # the set bits, one kind of line at a time: no per-cell branch.
+            mc = np.uint64(0)
+            md = np.uint64(0)
+            mr = np.uint64(0)
+            for w in range(g, min(g + 8, n_words)):
+                sh = np.uint64(8 * (w - g))
+                mc |= ((words_c[w] * _GATHER) >> _TOP) << sh
+                md |= ((words_d[w] * _GATHER) >> _TOP) << sh
+                mr |= ((words_r[w] * _GATHER) >> _TOP) << sh
+            if (mc | md | mr) == 0:
                 continue
-            for jj in range(8 * w, min(8 * w + 8, ncols)):
-                if events[jj] == 0:
-                    continue
-                k = i - c0 - jj
-                if cur[jj + 1]:
-                    colrun[jj] += 1
-                    diagrun[k] += 1
-                    rowrun += 1
-                    continue
-                c = colrun[jj]
-                if c > 0:
+            base = 8 * g
+            while mc != 0:
+                jj = base + np.int64(trailing_zeros(mc))
+                mc &= mc - _ONE
+                c = col_old[jj]
+                if join_top and i - c == c0 + jj + we:
                     # A column's first run starts at row j + we; with
                     # theiler = 0 it continues through the line of identity.
-                    if join_top and i - c == c0 + jj + we:
-                        coltop[c0 + jj] = c
-                    else:
-                        hv[s, c] += 1
-                    colrun[jj] = 0
-                d = diagrun[k]
-                if d > 0:
-                    if d == jj:
-                        dpre[s, k] = d
-                    else:
-                        hd[s, d] += 1
-                    diagrun[k] = 0
-                if rowrun > 0:
-                    if rowrun == jj:
-                        rpre[s, i] = rowrun
-                    else:
-                        hv[s, rowrun] += 1
-                    rowrun = 0
-        cur, prev = prev, cur
-        if rowrun == ncols:
-            rpre[s, i] = rowrun
-        rsuf[s, i] = rowrun
+                    coltop[c0 + jj] = c
+                else:
+                    hv[s, c] += 1
+            while md != 0:
+                jj = base + np.int64(trailing_zeros(md))
+                md &= md - _ONE
+                d = dia_old[jj]
+                if d == jj:
+                    dpre[s, i - c0 - jj] = d
+                else:
+                    hd[s, d] += 1
+            while mr != 0:
+                jj = base + np.int64(trailing_zeros(mr))
+                mr &= mr - _ONE
+                r = 1
+                while hit[jj - r]:
+                    r += 1
+                if r == jj:
+                    rpre[s, i] = r
+                else:
+                    hv[s, r] += 1
+        r = 0
+        while hit[ncols - r]:
+            r += 1
+        if r == ncols:
+            rpre[s, i] = r
+        rsuf[s, i] = r
+        if ncols == width:
+            # The diagonal through (i, c1 - 1) leaves the strip here.
+            d = dia_new[width]
+            k = i - (c1 - 1)
+            if d == width:
+                dpre[s, k] = d
+            dsuf[s, k] = d
+        col_old, col_new = col_new, col_old
+        dia_old, dia_new = dia_new, dia_old
     for jj in range(width):
-        c = colrun[jj]
+        c = col_old[jj]
         if c > 0:
             if join_top and c == n - (c0 + jj) - we:
                 coltop[c0 + jj] = c
             else:
                 hv[s, c] += 1
-    for k in range(we, n - c0):
-        d = diagrun[k]
-        seglen = min(c1, n - k) - c0
-        if d == seglen:
+    # Diagonals ending on the last row (the one through column c1 - 1, if
+    # any, was stored above with the same values).
+    for jj in range(ncols):
+        d = dia_old[jj + 1]
+        k = n - 1 - c0 - jj
+        if d == jj + 1:
             dpre[s, k] = d
         dsuf[s, k] = d
 
@@ -256,14 +358,17 @@ def _count_all(xt, thr, metric_code, theiler, edges, counts):
         c0 = edges[s]
         c1 = edges[s + 1]
         buf = np.empty(max(c1 - c0, 1), dtype=np.float64)
+        hit = np.zeros(max(c1 - c0, 1) + 1, dtype=np.uint8)
         total = 0
         for i in range(c0 + we, n):
             ncols = min(c1, i - we + 1) - c0
             if ncols <= 0:
                 continue
-            _row_distances(xt, i, c0, ncols, metric_code, buf)
+            _row_hits(xt, i, c0, ncols, metric_code, thr, buf, hit)
+            row_total = 0
             for jj in range(ncols):
-                total += buf[jj] <= thr
+                row_total += hit[jj + 1]
+            total += row_total
         counts[s] = total
 
 
@@ -317,11 +422,13 @@ def _bracket_all(xt, lo, hi, metric_code, theiler, edges, starts, caps, below, f
             if ncols <= 0:
                 continue
             _row_distances(xt, i, c0, ncols, metric_code, buf)
+            row_below = 0
+            for jj in range(ncols):
+                row_below += buf[jj] <= lo
+            nb += row_below
             for jj in range(ncols):
                 v = buf[jj]
-                if v <= lo:
-                    nb += 1
-                elif v <= hi:
+                if v <= hi and v > lo:
                     if nf < cap:
                         out[base + nf] = v
                     nf += 1
@@ -351,8 +458,12 @@ def bracket_pass(
     _bracket_all(xt, lo, hi, metric_code, theiler, edges, starts, caps, below, filled, out)
     if np.any(filled > caps):
         return int(below.sum()), None
-    parts = [out[a : a + f] for a, f in zip(starts, filled, strict=True)]
-    return int(below.sum()), np.concatenate(parts)
+    # Close the gaps between the strips' shares in place (no second copy).
+    end = 0
+    for a, f in zip(starts, filled, strict=True):
+        out[end : end + f] = out[a : a + f]
+        end += f
+    return int(below.sum()), out[:end]
 
 
 @njit(cache=True, parallel=True)

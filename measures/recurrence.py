@@ -270,7 +270,8 @@ def _exact_by_bracket(xt, metric_code, theiler, lower_rank, seed):
         below, cand = _k.bracket_pass(xt, lo, hi, metric_code, theiler, int(1.5 * expected))
         if cand is not None and below < lower_rank <= below + cand.size:
             r = lower_rank - below - 1
-            return float(np.partition(cand, r)[r])
+            cand.partition(r)  # in place: the candidates can be ~100 MB
+            return float(cand[r])
         z *= 2.0
     raise RuntimeError("exact threshold selection did not converge")  # pragma: no cover
 
