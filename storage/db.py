@@ -56,7 +56,11 @@ def make_engine(url: str | URL, *, echo: bool = False, busy_timeout_ms: int = 10
         in_memory = url.database in (None, "", ":memory:") or "mode=memory" in str(url)
         _install_sqlite_pragmas(engine, busy_timeout_ms=busy_timeout_ms, wal=not in_memory)
         return engine
-    kwargs["pool_pre_ping"] = True
+    # Server databases: the same reason for a deep pool (40 concurrent clients gave 503s
+    # with the default 5 + 10 on PostgreSQL, tests/test_load.py), kept under PostgreSQL's
+    # default max_connections of 100 for one server process; pre-ping replaces connections
+    # that died with a database restart.
+    kwargs.update(pool_pre_ping=True, pool_size=24, max_overflow=48, pool_timeout=60)
     return create_engine(url, **kwargs)
 
 
