@@ -88,3 +88,23 @@ def test_wide_has_one_row_per_target(study) -> None:
         )
         assert len(frame) == 1 and int(frame["target_id"].iloc[0]) == scan_id
         assert float(frame["sq_m"].iloc[0]) == 0.002 and float(frame["sdr"].iloc[0]) == 0.15
+
+
+def test_absurd_id_in_a_streamed_export_is_a_422_not_a_broken_stream(tmp_path):
+    # Found by schemathesis: arena_id = 2**63 overflowed SQLite's INTEGER after the
+    # streamed CSV had started, so the client saw a cut response instead of an error.
+    from fastapi.testclient import TestClient
+
+    from service.app import create_app
+    from service.settings import get_settings
+    from storage.repo import create_token
+
+    app = create_app(get_settings(data_dir=tmp_path, job_runner=False))
+    with TestClient(app) as client:
+        with app.state.sessionmaker() as s:
+            _, secret = create_token(session=s, scopes=["read"], label="r")
+        client.headers["Authorization"] = f"Bearer {secret}"
+        res = client.get("/v1/export/scores", params={"arena_id": 2**63, "format": "csv"})
+        assert res.status_code == 422
+        ok = client.get("/v1/export/scores", params={"arena_id": 2**63 - 1, "format": "csv"})
+        assert ok.status_code == 200

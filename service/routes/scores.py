@@ -39,14 +39,19 @@ class ScoreFilters(BaseModel):
     study_id: int | None = None
 
 
+# Ids are 64-bit in every backend; a bound here turns an absurd id into a 422 before a
+# streamed export has sent its headers (schemathesis found 2**63 failing mid-stream).
+RowId = Annotated[int | None, Query(ge=0, le=2**63 - 1)]
+
+
 def score_filters(
     session: SessionDep,
     study_id: StudyFilter,
     target_kind: Literal["scan", "trial"] | None = None,
-    arena_id: int | None = None,
-    subject_id: int | None = None,
-    trial_id: int | None = None,
-    scan_id: int | None = None,
+    arena_id: RowId = None,
+    subject_id: RowId = None,
+    trial_id: RowId = None,
+    scan_id: RowId = None,
     condition: str | None = None,
     profile: Annotated[str | None, Query(description="Profile name (latest version).")] = None,
     profile_version: Annotated[int | None, Query(ge=1)] = None,
