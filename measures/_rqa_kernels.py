@@ -3,21 +3,28 @@
 The recurrence matrix is never stored. The strict lower triangle
 (``i - j >= max(theiler, 1)``) is cut into vertical strips of columns with
 equal area; each strip is scanned row by row, so every pairwise distance is
-computed once. While scanning, a strip keeps the current run length of each
-of its columns (vertical lines of the lower triangle), of each diagonal
-``k = i - j`` and of the current row (a row of the lower triangle is a column
-of the upper triangle, by symmetry). Runs that touch a strip's left or right
-edge are stored as prefix/suffix lengths and stitched across strips
-afterwards, so the result does not depend on the number of strips.
+computed once. Vertical lines of the whole matrix are the columns of the
+lower triangle plus its rows (a row of the lower triangle is a column of the
+upper one, by symmetry); diagonal lines are its diagonals, counted twice.
 
 Each row of a strip is done in three steps: (1) distances of the row
 segment, one contiguous pass per coordinate, the last pass comparing with
-the threshold and storing one hit byte per cell; (2) a branch-free,
-vectorised pass that updates the column and diagonal run lengths of every
-cell and flags the cells that close a column, diagonal or row run; (3) a
-sparse pass that gathers the flags of 64 cells into bit masks and visits
-only the set bits to update the histograms. Step (1) alone is the
-count-only floor (:func:`count_recurrences` uses the same code).
+the threshold and storing one hit byte per cell (step (1) alone is the
+count-only floor, :func:`count_recurrences`); (2) the bytes are packed into
+64-cell words and, for each kind of line, level masks are updated with word
+operations only: bit b of level l is set when the run ending at cell b holds
+at least l + 1 cells (for columns: this cell and level l - 1 of the cell
+above; for diagonals the cell up-left; for rows the cell to the left). The
+population counts C(l) of the levels give the number of lines holding at
+least l cells, C(l) - C(l + 1), hence every line shorter than _K without a
+single branch per line; (3) runs that reach _K cells (rare) record their
+start row where they reach it and are counted with their exact length where
+they stop.
+
+Each strip counts the pieces of rows and diagonals that cross its edges as
+lines of their own and stores their prefix/suffix lengths; the stitching
+step takes those pieces out again and puts the joined lines in, so the
+result does not depend on the number of strips.
 
 Memory is O(n_strips * N); strips run in parallel (``prange``).
 
@@ -31,14 +38,35 @@ uses the same per-pair arithmetic, so both agree bit for bit at ties.
 from __future__ import annotations
 
 import numpy as np
+from llvmlite import ir
 from numba import njit, prange
-from numba.cpython.unsafe.numbers import trailing_zeros
+from numba.core import cgutils, types
+from numba.cpython.unsafe.numbers import leading_zeros, trailing_zeros
+from numba.extending import intrinsic
 
 __all__: list[str] = []
 
 _GATHER = np.uint64(0x0102040810204080)
 _TOP = np.uint64(56)
 _ONE = np.uint64(1)
+_63 = np.uint64(63)
+#: Runs shorter than _K cells are counted from bit masks alone (branch-free);
+#: longer ones, rare, get their exact length from their start row.
+_K = 8
+
+
+@intrinsic
+def _popcount(typingctx, x):
+    """Number of set bits of a uint64 (LLVM's ctpop; vectorises)."""
+
+    def codegen(context, builder, signature, args):
+        i64 = ir.IntType(64)
+        fn = cgutils.get_or_insert_function(
+            builder.module, ir.FunctionType(i64, [i64]), "llvm.ctpop.i64"
+        )
+        return builder.call(fn, args)
+
+    return types.int64(types.uint64), codegen
 
 
 def strip_edges(n: int, first_offset: int, n_strips: int) -> np.ndarray:
@@ -87,14 +115,19 @@ def _row_distances(xt, i, c0, ncols, metric_code, buf):
 
 @njit(cache=True, inline="always")
 def _row_hits(xt, i, c0, ncols, metric_code, thr, buf, hit):
-    # hit[1 + jj] = 1 when the pair (i, c0 + jj) recurs (hit[0] is left as
-    # is). Same arithmetic as _row_distances, but the last coordinate's term
-    # is added (or maxed) and compared in the same pass. Slices indexed by
-    # the loop counter keep the loads contiguous (vector loads, no gathers).
+    # hit[1 + jj] = 1 when the pair (i, c0 + jj) recurs (hit[0] is left as is).
+    _hits_into(xt, i, c0, ncols, metric_code, thr, buf, hit[1 : ncols + 1])
+
+
+@njit(cache=True, inline="always")
+def _hits_into(xt, i, c0, ncols, metric_code, thr, buf, out):
+    # out[jj] = 1 when the pair (i, c0 + jj) recurs. Same arithmetic as
+    # _row_distances, but the last coordinate's term is added (or maxed) and
+    # compared in the same pass. Slices indexed by the loop counter keep the
+    # loads contiguous (vector loads, no gathers).
     m = xt.shape[0]
     last = xt[m - 1, c0 : c0 + ncols]
     u = xt[m - 1, i]
-    out = hit[1 : ncols + 1]
     if m == 1:
         if metric_code == 0:
             for jj in range(ncols):
@@ -136,122 +169,222 @@ def _row_hits(xt, i, c0, ncols, metric_code, thr, buf, hit):
             out[jj] = (d if d > b else b) <= thr
 
 
+@njit(cache=True, inline="always")
+def _run_so_far(lev, w, b, start, i):
+    # Length of the run (of one kind) ending at lane 64 w + b of this row,
+    # read off the level masks; runs of _K or more cells use their start row.
+    bit = _ONE << np.uint64(b)
+    if lev[_K - 1, w + 1] & bit:
+        return i - start + 1
+    d = 0
+    while d < _K - 1 and (lev[d, w + 1] & bit):
+        d += 1
+    return d
+
+
 @njit(cache=True)
-def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dpre, dsuf, coltop):
+def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dpre, dsuf):
     n = xt.shape[1]
     we = max(theiler, 1)
     width = c1 - c0
     if width <= 0 or c0 + we >= n:
         return
+    K = _K
+    # 64 lanes (cells) per word; one spare lane for diagonals leaving the
+    # strip. Level arrays carry a zero word in front (index 0) and behind,
+    # so shifts across word edges need no branch.
+    nw = width // 64 + 1
     buf = np.empty(width, dtype=np.float64)
-    # hit[jj + 1] is cell (i, c0 + jj); hit[0] = 0 stops backward row scans.
-    hit = np.zeros(width + 1, dtype=np.uint8)
-    # Run lengths ending in the previous row (old) and in this row (new):
-    # col[jj] down column jj, dia[jj] along the diagonal through column
-    # jj - 1 (so the diagonal entering column jj reads dia_old[jj]).
-    col_old = np.zeros(width, dtype=np.int32)
-    col_new = np.zeros(width, dtype=np.int32)
-    dia_old = np.zeros(width + 1, dtype=np.int32)
-    dia_new = np.zeros(width + 1, dtype=np.int32)
-    # Line-end flags, one byte per cell, read eight at a time: a column
-    # (end_c), diagonal (end_d) or row (end_r) run stops before this cell.
-    n_words = (width + 7) // 8
-    end_c = np.zeros(8 * n_words, dtype=np.uint8)
-    end_d = np.zeros(8 * n_words, dtype=np.uint8)
-    end_r = np.zeros(8 * n_words, dtype=np.uint8)
-    words_c = end_c.view(np.uint64)
-    words_d = end_d.view(np.uint64)
-    words_r = end_r.view(np.uint64)
-    join_top = theiler == 0
+    hb = np.zeros(64 * nw, dtype=np.uint8)
+    hw = hb.view(np.uint64)
+    hbits = np.zeros(nw, dtype=np.uint64)
+    # lev[l, w + 1] bit b: the run of that kind ending at lane 64 w + b holds
+    # at least l + 1 cells. Columns and diagonals keep the previous row.
+    col_old = np.zeros((K, nw + 2), dtype=np.uint64)
+    col_new = np.zeros((K, nw + 2), dtype=np.uint64)
+    dia_old = np.zeros((K, nw + 2), dtype=np.uint64)
+    dia_new = np.zeros((K, nw + 2), dtype=np.uint64)
+    row = np.zeros((K, nw + 2), dtype=np.uint64)
+    # pre_*: diagonals unbroken since the strip's left edge (prefix runs).
+    pre_old = np.zeros(nw + 2, dtype=np.uint64)
+    pre_new = np.zeros(nw + 2, dtype=np.uint64)
+    # cnt_*[l] = number of cells whose run so far holds >= l cells.
+    cnt_c = np.zeros(K + 1, dtype=np.int64)
+    cnt_d = np.zeros(K + 1, dtype=np.int64)
+    cnt_r = np.zeros(K + 1, dtype=np.int64)
+    long_c = 0
+    long_d = 0
+    long_r = 0
+    cstart = np.zeros(width, dtype=np.int64)
+    dstart = np.zeros(n, dtype=np.int64)
+    allones = ~np.uint64(0)
+    p_words = 0
     ncols = 0
     for i in range(c0 + we, n):
         ncols = min(c1, i - we + 1) - c0
-        _row_hits(xt, i, c0, ncols, metric_code, thr, buf, hit)
-        # Branch-free run update of every cell (vectorised); the few cells
-        # that close a line are flagged and handled below.
-        for jj in range(ncols):
-            h = hit[jj + 1]
-            c = col_old[jj]
-            d = dia_old[jj]
-            col_new[jj] = (c + 1) * h
-            dia_new[jj + 1] = (d + 1) * h
-            miss = h == 0
-            end_c[jj] = (c != 0) & miss
-            end_d[jj] = (d != 0) & miss
-            end_r[jj] = (hit[jj] != 0) & miss
-        for g in range(0, (ncols + 7) // 8, 8):
-            # Gather the 0/1 flag bytes of 64 cells into bit masks (the
-            # multiplier moves byte b's low bit to bit 56 + b) and visit only
-            # the set bits, one kind of line at a time: no per-cell branch.
-            mc = np.uint64(0)
-            md = np.uint64(0)
-            mr = np.uint64(0)
-            for w in range(g, min(g + 8, n_words)):
-                sh = np.uint64(8 * (w - g))
-                mc |= ((words_c[w] * _GATHER) >> _TOP) << sh
-                md |= ((words_d[w] * _GATHER) >> _TOP) << sh
-                mr |= ((words_r[w] * _GATHER) >> _TOP) << sh
-            if (mc | md | mr) == 0:
+        _hits_into(xt, i, c0, ncols, metric_code, thr, buf, hb)
+        nwa = min(nw, ncols // 64 + 1)
+        tot = 0
+        for w in range(nwa):
+            x = np.uint64(0)
+            for q in range(8):
+                x |= ((hw[8 * w + q] * _GATHER) >> _TOP) << np.uint64(8 * q)
+            hbits[w] = x
+            col_new[0, w + 1] = x
+            dia_new[0, w + 1] = x
+            row[0, w + 1] = x
+            tot += _popcount(x)
+        cnt_c[1] += tot
+        cnt_d[1] += tot
+        cnt_r[1] += tot
+        # Branch-free level update: a cell extends the run of the cell above
+        # (column), up-left (diagonal) or left (row) by one.
+        for lv in range(1, K):
+            sc = 0
+            sd = 0
+            sr = 0
+            for w in range(nwa):
+                h = hbits[w]
+                xc = h & col_old[lv - 1, w + 1]
+                col_new[lv, w + 1] = xc
+                xd = h & ((dia_old[lv - 1, w + 1] << _ONE) | (dia_old[lv - 1, w] >> _63))
+                dia_new[lv, w + 1] = xd
+                xr = h & ((row[lv - 1, w + 1] << _ONE) | (row[lv - 1, w] >> _63))
+                row[lv, w + 1] = xr
+                sc += _popcount(xc)
+                sd += _popcount(xd)
+                sr += _popcount(xr)
+            cnt_c[lv + 1] += sc
+            cnt_d[lv + 1] += sd
+            cnt_r[lv + 1] += sr
+        # Long runs (>= K cells) are rare: note where they reach K cells and
+        # count their exact length where they stop.
+        pend = -1
+        for w in range(nwa):
+            h = hbits[w]
+            oc = col_old[K - 1, w + 1]
+            rc = col_new[K - 1, w + 1] & ~oc
+            ec = oc & ~h
+            od = (dia_old[K - 1, w + 1] << _ONE) | (dia_old[K - 1, w] >> _63)
+            rd = dia_new[K - 1, w + 1] & ~od
+            ed = od & ~h
+            ar = row[K - 1, w + 1]
+            sr = ar & ~((ar << _ONE) | (row[K - 1, w] >> _63))
+            er = ar & ~((ar >> _ONE) | (row[K - 1, w + 2] << _63))
+            if (rc | ec | rd | ed | sr | er) == 0:
                 continue
-            base = 8 * g
-            while mc != 0:
-                jj = base + np.int64(trailing_zeros(mc))
-                mc &= mc - _ONE
-                c = col_old[jj]
-                if join_top and i - c == c0 + jj + we:
-                    # A column's first run starts at row j + we; with
-                    # theiler = 0 it continues through the line of identity.
-                    coltop[c0 + jj] = c
+            base = 64 * w
+            long_c += _popcount(rc)
+            long_d += _popcount(rd)
+            while rc != 0:
+                jj = base + np.int64(trailing_zeros(rc))
+                rc &= rc - _ONE
+                cstart[jj] = i - K + 1
+            while ec != 0:
+                jj = base + np.int64(trailing_zeros(ec))
+                ec &= ec - _ONE
+                hv[s, i - cstart[jj]] += 1
+            while rd != 0:
+                jj = base + np.int64(trailing_zeros(rd))
+                rd &= rd - _ONE
+                dstart[i - c0 - jj] = i - K + 1
+            while ed != 0:
+                jj = base + np.int64(trailing_zeros(ed))
+                ed &= ed - _ONE
+                hd[s, i - dstart[i - c0 - jj]] += 1
+            # Row runs: the k-th lane reaching K cells pairs with the k-th
+            # run end (one run may be open from the previous word).
+            while er != 0:
+                e = base + np.int64(trailing_zeros(er))
+                er &= er - _ONE
+                if pend >= 0:
+                    st = pend
+                    pend = -1
                 else:
-                    hv[s, c] += 1
-            while md != 0:
-                jj = base + np.int64(trailing_zeros(md))
-                md &= md - _ONE
-                d = dia_old[jj]
-                if d == jj:
-                    dpre[s, i - c0 - jj] = d
-                else:
-                    hd[s, d] += 1
-            while mr != 0:
-                jj = base + np.int64(trailing_zeros(mr))
-                mr &= mr - _ONE
-                r = 1
-                while hit[jj - r]:
-                    r += 1
-                if r == jj:
-                    rpre[s, i] = r
-                else:
-                    hv[s, r] += 1
-        r = 0
-        while hit[ncols - r]:
-            r += 1
-        if r == ncols:
-            rpre[s, i] = r
+                    st = base + np.int64(trailing_zeros(sr))
+                    sr &= sr - _ONE
+                hv[s, e - st + K] += 1
+                long_r += 1
+            if sr != 0:
+                pend = base + np.int64(trailing_zeros(sr))
+        # Diagonal prefix runs (from the strip's left edge) that stop here.
+        pw = min(p_words + 1, nwa)
+        p_words = 0
+        for w in range(pw):
+            sp = (pre_old[w + 1] << _ONE) | (pre_old[w] >> _63)
+            h = hbits[w]
+            nx = h & (sp | (_ONE if w == 0 else np.uint64(0)))
+            pre_new[w + 1] = nx
+            if nx != 0:
+                p_words = w + 1
+            ep = sp & ~h
+            while ep != 0:
+                jj = 64 * w + np.int64(trailing_zeros(ep))
+                ep &= ep - _ONE
+                if jj < width:
+                    dpre[s, i - c0 - jj] = jj
+        pre_new[pw + 1] = 0
+        # Row prefix (from lane 0) and suffix (ending at the row's last cell).
+        if hbits[0] & _ONE:
+            r = 0
+            w = 0
+            while w < nwa and hbits[w] == allones:
+                r += 64
+                w += 1
+            if w < nwa:
+                r += np.int64(trailing_zeros(~hbits[w]))
+            rpre[s, i] = min(r, ncols)
+        e = ncols - 1
+        w = e // 64
+        b = e - 64 * w
+        x = hbits[w] << np.uint64(63 - b)
+        r = 64 if x == allones else np.int64(leading_zeros(~x))
+        if r >= b + 1:
+            r = b + 1
+            w -= 1
+            while w >= 0 and hbits[w] == allones:
+                r += 64
+                w -= 1
+            if w >= 0:
+                r += np.int64(leading_zeros(~hbits[w]))
         rsuf[s, i] = r
         if ncols == width:
             # The diagonal through (i, c1 - 1) leaves the strip here.
-            d = dia_new[width]
             k = i - (c1 - 1)
+            d = _run_so_far(dia_new, (width - 1) // 64, (width - 1) % 64, dstart[k], i)
             if d == width:
                 dpre[s, k] = d
             dsuf[s, k] = d
         col_old, col_new = col_new, col_old
         dia_old, dia_new = dia_new, dia_old
-    for jj in range(width):
-        c = col_old[jj]
-        if c > 0:
-            if join_top and c == n - (c0 + jj) - we:
-                coltop[c0 + jj] = c
-            else:
-                hv[s, c] += 1
-    # Diagonals ending on the last row (the one through column c1 - 1, if
-    # any, was stored above with the same values).
+        pre_old, pre_new = pre_new, pre_old
+    # Runs still open on the last row.
+    i = n - 1
     for jj in range(ncols):
-        d = dia_old[jj + 1]
-        k = n - 1 - c0 - jj
+        w = jj // 64
+        bit = _ONE << np.uint64(jj - 64 * w)
+        if col_old[K - 1, w + 1] & bit:
+            hv[s, n - cstart[jj]] += 1
+        k = i - c0 - jj
+        d = _run_so_far(dia_old, w, jj - 64 * w, dstart[k], i)
+        if d >= K:
+            hd[s, d] += 1
         if d == jj + 1:
             dpre[s, k] = d
         dsuf[s, k] = d
+    # cnt[l] - cnt[l + 1] lines hold >= l cells; K and more were counted exactly.
+    _fold(cnt_c, long_c, hv, s)
+    _fold(cnt_r, long_r, hv, s)
+    _fold(cnt_d, long_d, hd, s)
+
+
+@njit(cache=True, inline="always")
+def _fold(cnt, n_long, hist, s):
+    g_next = n_long
+    for lv in range(_K - 1, 0, -1):
+        g = cnt[lv] - cnt[lv + 1]
+        hist[s, lv] += g - g_next
+        g_next = g
 
 
 @njit(cache=True)
@@ -259,11 +392,13 @@ def _stitch(edges, pre, suf, last, hist, tail):
     """Join the prefix/suffix runs of consecutive strips along each line.
 
     Line q (a row or a diagonal of the lower triangle) covers columns
-    [0, last[q]). A strip whose segment is all ones passes its length on;
-    otherwise the carried run plus its prefix is one finished line, and its
-    suffix is carried on. When ``tail`` is non-empty the run touching the
-    line's end is returned there instead of counted (theiler = 0 joins it
-    with the column below the line of identity).
+    [0, last[q]). Each strip has counted its pieces of the line as lines of
+    their own; here the pieces that touch a strip edge are taken out again
+    and the joined lines put in. A strip whose segment is all ones passes its
+    length on; otherwise the carried run plus its prefix is one finished
+    line, and its suffix is carried on. When ``tail`` is non-empty the run
+    touching the line's end is returned there instead of counted (theiler =
+    0 joins it with the column below the line of identity).
     """
     n_strips = edges.shape[0] - 1
     keep_tail = tail.shape[0] > 0
@@ -275,14 +410,22 @@ def _stitch(edges, pre, suf, last, hist, tail):
             if c0 >= end:
                 break
             seglen = min(edges[s + 1], end) - c0
+            if seglen <= 0:
+                continue
             p = pre[s, q]
             if p == seglen:
+                hist[seglen] -= 1
                 carry += seglen
             else:
+                u = suf[s, q]
+                if p > 0:
+                    hist[p] -= 1
+                if u > 0:
+                    hist[u] -= 1
                 t = carry + p
                 if t > 0:
                     hist[t] += 1
-                carry = suf[s, q]
+                carry = u
         if keep_tail:
             tail[q] = carry
         elif carry > 0:
@@ -290,11 +433,37 @@ def _stitch(edges, pre, suf, last, hist, tail):
 
 
 @njit(cache=True, parallel=True)
-def _scan_all(xt, thr, metric_code, theiler, edges, hd, hv, rpre, rsuf, dpre, dsuf, coltop):
+def _top_runs(xt, thr, metric_code, out):
+    # theiler = 0: length of the run starting at (j + 1, j) down column j.
+    n = xt.shape[1]
+    m = xt.shape[0]
+    for j in prange(n - 1):
+        i = j + 1
+        while i < n:
+            if metric_code == 0:
+                d = xt[0, j] - xt[0, i]
+                acc = d * d
+                for c in range(1, m):
+                    d = xt[c, j] - xt[c, i]
+                    acc += d * d
+            else:
+                acc = abs(xt[0, j] - xt[0, i])
+                for c in range(1, m):
+                    d = abs(xt[c, j] - xt[c, i])
+                    if d > acc:
+                        acc = d
+            if not acc <= thr:
+                break
+            i += 1
+        out[j] = i - (j + 1)
+
+
+@njit(cache=True, parallel=True)
+def _scan_all(xt, thr, metric_code, theiler, edges, hd, hv, rpre, rsuf, dpre, dsuf):
     for s in prange(edges.shape[0] - 1):
         _scan_strip(
             xt, thr, metric_code, theiler, edges[s], edges[s + 1], s, hd, hv,
-            rpre, rsuf, dpre, dsuf, coltop,
+            rpre, rsuf, dpre, dsuf,
         )  # fmt: skip
 
 
@@ -327,9 +496,8 @@ def line_histograms(
     rsuf = np.zeros((ns, n), dtype=np.int64)
     dpre = np.zeros((ns, n), dtype=np.int64)
     dsuf = np.zeros((ns, n), dtype=np.int64)
-    coltop = np.zeros(n, dtype=np.int64)
     if n > we:
-        _scan_all(xt, thr, metric_code, theiler, edges, hd, hv, rpre, rsuf, dpre, dsuf, coltop)
+        _scan_all(xt, thr, metric_code, theiler, edges, hd, hv, rpre, rsuf, dpre, dsuf)
     diag_lower = hd.sum(axis=0)
     vert = hv.sum(axis=0)
     del hd, hv
@@ -345,7 +513,13 @@ def line_histograms(
     if theiler == 0:
         diag[n] += 1
         # Column j of the whole matrix: upper part (= row j of the lower
-        # triangle), the cell (j, j), then the lower part.
+        # triangle), the cell (j, j), then the lower part. The strips counted
+        # the lower part's first run as a line of its own.
+        coltop = np.zeros(n, dtype=np.int64)
+        if n > 1:
+            _top_runs(xt, thr, metric_code, coltop)
+        top = coltop[coltop > 0]
+        np.subtract.at(vert, top, 1)
         np.add.at(vert, row_tail + 1 + coltop, 1)
     return diag, vert
 
@@ -405,6 +579,62 @@ def pair_distances(xt, rows, cols, metric_code):
     return out
 
 
+@njit(cache=True, inline="always")
+def _bracket_row(xt, i, c0, ncols, metric_code, lo, hi, buf, flag):
+    # Distances of the row segment (same arithmetic as _row_distances); the
+    # last coordinate's pass also counts the cells <= lo and flags those in
+    # (lo, hi], so buf is written once and reread only at flagged cells.
+    m = xt.shape[0]
+    acc = buf[:ncols]
+    last = xt[m - 1, c0 : c0 + ncols]
+    u = xt[m - 1, i]
+    below = 0
+    if m == 1:
+        for jj in range(ncols):
+            d = last[jj] - u
+            v = d * d if metric_code == 0 else abs(d)
+            acc[jj] = v
+            below += v <= lo
+            flag[jj] = (v <= hi) & (v > lo)
+        return below
+    row = xt[0, c0 : c0 + ncols]
+    v0 = xt[0, i]
+    if metric_code == 0:
+        for jj in range(ncols):
+            d = row[jj] - v0
+            acc[jj] = d * d
+        for c in range(1, m - 1):
+            row = xt[c, c0 : c0 + ncols]
+            v0 = xt[c, i]
+            for jj in range(ncols):
+                d = row[jj] - v0
+                acc[jj] += d * d
+        for jj in range(ncols):
+            d = last[jj] - u
+            v = acc[jj] + d * d
+            acc[jj] = v
+            below += v <= lo
+            flag[jj] = (v <= hi) & (v > lo)
+    else:
+        for jj in range(ncols):
+            acc[jj] = abs(row[jj] - v0)
+        for c in range(1, m - 1):
+            row = xt[c, c0 : c0 + ncols]
+            v0 = xt[c, i]
+            for jj in range(ncols):
+                d = abs(row[jj] - v0)
+                b = acc[jj]
+                acc[jj] = d if d > b else b
+        for jj in range(ncols):
+            d = abs(last[jj] - u)
+            b = acc[jj]
+            v = d if d > b else b
+            acc[jj] = v
+            below += v <= lo
+            flag[jj] = (v <= hi) & (v > lo)
+    return below
+
+
 @njit(cache=True, parallel=True)
 def _bracket_all(xt, lo, hi, metric_code, theiler, edges, starts, caps, below, filled, out):
     n = xt.shape[1]
@@ -412,7 +642,13 @@ def _bracket_all(xt, lo, hi, metric_code, theiler, edges, starts, caps, below, f
     for s in prange(edges.shape[0] - 1):
         c0 = edges[s]
         c1 = edges[s + 1]
-        buf = np.empty(max(c1 - c0, 1), dtype=np.float64)
+        width = max(c1 - c0, 1)
+        buf = np.empty(width, dtype=np.float64)
+        # One flag byte per cell inside the bracket, read 8 at a time; the
+        # bracket holds ~0.2 % of the cells, so whole words are mostly zero.
+        n_words = (width + 7) // 8
+        flag = np.zeros(8 * n_words, dtype=np.uint8)
+        words = flag.view(np.uint64)
         nb = 0
         nf = 0
         base = starts[s]
@@ -421,16 +657,17 @@ def _bracket_all(xt, lo, hi, metric_code, theiler, edges, starts, caps, below, f
             ncols = min(c1, i - we + 1) - c0
             if ncols <= 0:
                 continue
-            _row_distances(xt, i, c0, ncols, metric_code, buf)
-            row_below = 0
-            for jj in range(ncols):
-                row_below += buf[jj] <= lo
-            nb += row_below
-            for jj in range(ncols):
-                v = buf[jj]
-                if v <= hi and v > lo:
+            nb += _bracket_row(xt, i, c0, ncols, metric_code, lo, hi, buf, flag)
+            for w in range((ncols + 7) // 8):
+                x = words[w]
+                if x == 0:
+                    continue
+                mk = (x * _GATHER) >> _TOP
+                while mk != 0:
+                    jj = 8 * w + np.int64(trailing_zeros(mk))
+                    mk &= mk - _ONE
                     if nf < cap:
-                        out[base + nf] = v
+                        out[base + nf] = buf[jj]
                     nf += 1
         below[s] = nb
         filled[s] = nf
