@@ -41,9 +41,9 @@ class Case:
     meta: dict[str, Any] = field(default_factory=dict)
 
 
-def _npy(array: np.ndarray, *, allow_pickle: bool = False) -> bytes:
+def _npy(array: np.ndarray) -> bytes:
     buf = io.BytesIO()
-    np.save(buf, array, allow_pickle=allow_pickle)
+    np.save(buf, array, allow_pickle=False)
     return buf.getvalue()
 
 
@@ -107,7 +107,11 @@ def _trial_cases(work: Path) -> list[Case]:
         (
             "npy pickled objects",
             "obj.npy",
-            _npy(np.array([None, {}], dtype=object), allow_pickle=True),
+            # An object-dtype header (NEP 1) over an opaque body: the reader must refuse it
+            # from the header alone, so the corpus needs no real pickle stream.
+            _npy_with_header(
+                "{'descr': '|O', 'fortran_order': False, 'shape': (2,), }", b"\x80\x04" + bytes(30)
+            ),
         ),
         (
             "npy claims terabytes",
@@ -216,7 +220,14 @@ def _scan_cases(work: Path) -> list[Case]:
         ("pts empty", "empty.pts", b""),
         ("heightmap 1-D", "line.npy", _npy(np.zeros(50))),
         ("heightmap all NaN", "nan.npy", _npy(grid_bad)),
-        ("heightmap object", "obj.npy", _npy(np.array([[None]], dtype=object), allow_pickle=True)),
+        (
+            "heightmap object",
+            "obj.npy",
+            _npy_with_header(
+                "{'descr': '|O', 'fortran_order': False, 'shape': (1, 1), }",
+                b"\x80\x04" + bytes(14),
+            ),
+        ),
         (
             "heightmap claims terabytes",
             "huge.npy",
