@@ -84,18 +84,19 @@ def strip_edges(n: int, first_offset: int, n_strips: int) -> np.ndarray:
 
 
 @njit(cache=True, inline="always")
-def _row_distances(xt, i, c0, ncols, metric_code, buf):
-    # One pass per coordinate keeps the inner loop contiguous (vectorisable)
-    # while each pair still sums its squared differences in index order.
-    m = xt.shape[0]
-    acc = buf[:ncols]
+def _accumulate(xt, i, c0, ncols, metric_code, acc, n_coords):
+    # Partial distances of the row segment over coordinates 0 .. n_coords - 1
+    # (n_coords >= 1): squared differences summed in index order, or their max.
+    # One pass per coordinate keeps the inner loop contiguous (vectorisable).
+    # Every kernel that compares distances with a threshold starts here, so the
+    # streaming, count-only, bracket and dense paths all see the same values.
     row = xt[0, c0 : c0 + ncols]
     v = xt[0, i]
     if metric_code == 0:
         for jj in range(ncols):
             d = row[jj] - v
             acc[jj] = d * d
-        for c in range(1, m):
+        for c in range(1, n_coords):
             row = xt[c, c0 : c0 + ncols]
             v = xt[c, i]
             for jj in range(ncols):
@@ -104,13 +105,18 @@ def _row_distances(xt, i, c0, ncols, metric_code, buf):
     else:
         for jj in range(ncols):
             acc[jj] = abs(row[jj] - v)
-        for c in range(1, m):
+        for c in range(1, n_coords):
             row = xt[c, c0 : c0 + ncols]
             v = xt[c, i]
             for jj in range(ncols):
                 d = abs(row[jj] - v)
                 b = acc[jj]
                 acc[jj] = d if d > b else b
+
+
+@njit(cache=True, inline="always")
+def _row_distances(xt, i, c0, ncols, metric_code, buf):
+    _accumulate(xt, i, c0, ncols, metric_code, buf[:ncols], xt.shape[0])
 
 
 @njit(cache=True, inline="always")
@@ -138,31 +144,12 @@ def _hits_into(xt, i, c0, ncols, metric_code, thr, buf, out):
                 out[jj] = abs(last[jj] - u) <= thr
         return
     acc = buf[:ncols]
-    row = xt[0, c0 : c0 + ncols]
-    v = xt[0, i]
+    _accumulate(xt, i, c0, ncols, metric_code, acc, m - 1)
     if metric_code == 0:
-        for jj in range(ncols):
-            d = row[jj] - v
-            acc[jj] = d * d
-        for c in range(1, m - 1):
-            row = xt[c, c0 : c0 + ncols]
-            v = xt[c, i]
-            for jj in range(ncols):
-                d = row[jj] - v
-                acc[jj] += d * d
         for jj in range(ncols):
             d = last[jj] - u
             out[jj] = acc[jj] + d * d <= thr
     else:
-        for jj in range(ncols):
-            acc[jj] = abs(row[jj] - v)
-        for c in range(1, m - 1):
-            row = xt[c, c0 : c0 + ncols]
-            v = xt[c, i]
-            for jj in range(ncols):
-                d = abs(row[jj] - v)
-                b = acc[jj]
-                acc[jj] = d if d > b else b
         for jj in range(ncols):
             d = abs(last[jj] - u)
             b = acc[jj]
@@ -597,18 +584,8 @@ def _bracket_row(xt, i, c0, ncols, metric_code, lo, hi, buf, flag):
             below += v <= lo
             flag[jj] = (v <= hi) & (v > lo)
         return below
-    row = xt[0, c0 : c0 + ncols]
-    v0 = xt[0, i]
+    _accumulate(xt, i, c0, ncols, metric_code, acc, m - 1)
     if metric_code == 0:
-        for jj in range(ncols):
-            d = row[jj] - v0
-            acc[jj] = d * d
-        for c in range(1, m - 1):
-            row = xt[c, c0 : c0 + ncols]
-            v0 = xt[c, i]
-            for jj in range(ncols):
-                d = row[jj] - v0
-                acc[jj] += d * d
         for jj in range(ncols):
             d = last[jj] - u
             v = acc[jj] + d * d
@@ -616,15 +593,6 @@ def _bracket_row(xt, i, c0, ncols, metric_code, lo, hi, buf, flag):
             below += v <= lo
             flag[jj] = (v <= hi) & (v > lo)
     else:
-        for jj in range(ncols):
-            acc[jj] = abs(row[jj] - v0)
-        for c in range(1, m - 1):
-            row = xt[c, c0 : c0 + ncols]
-            v0 = xt[c, i]
-            for jj in range(ncols):
-                d = abs(row[jj] - v0)
-                b = acc[jj]
-                acc[jj] = d if d > b else b
         for jj in range(ncols):
             d = abs(last[jj] - u)
             b = acc[jj]

@@ -153,6 +153,13 @@ def _hysteresis(h: NDArray[np.float64], low: float, high: float) -> NDArray[np.i
     return state
 
 
+def _check_hysteresis(low_fraction: float, high_fraction: float, fn: str) -> None:
+    # Both contact detectors enter stance below the low level and leave above the high one.
+    if not 0 < low_fraction < high_fraction < 1:
+        allowed = "0 < low_fraction < high_fraction < 1"
+        raise InvalidParameterError("low_fraction", fn, allowed, (low_fraction, high_fraction))
+
+
 def foot_contacts(
     height: ArrayLike,
     *,
@@ -203,13 +210,7 @@ def foot_contacts(
     fn = "foot_contacts"
     h = as_float_array("height", height, fn, ndim=1, min_length=4, allow_nan=True)
     fs = check_positive_float("frame_rate_hz", frame_rate_hz, fn)
-    if not 0 < low_fraction < high_fraction < 1:
-        raise InvalidParameterError(
-            "low_fraction",
-            fn,
-            "0 < low_fraction < high_fraction < 1",
-            (low_fraction, high_fraction),
-        )
+    _check_hysteresis(low_fraction, high_fraction, fn)
     vfrac = check_positive_float("velocity_fraction", velocity_fraction, fn)
     min_phase = round(check_positive_float("min_phase_s", min_phase_s, fn, allow_zero=True) * fs)
     min_lift = check_positive_float("min_lift_m", min_lift_m, fn, allow_zero=True)
@@ -278,13 +279,7 @@ def foot_contacts_from_speed(
     fn = "foot_contacts_from_speed"
     v = as_float_array("speed", speed, fn, ndim=1, min_length=4, allow_nan=True)
     fs = check_positive_float("frame_rate_hz", frame_rate_hz, fn)
-    if not 0 < low_fraction < high_fraction < 1:
-        raise InvalidParameterError(
-            "low_fraction",
-            fn,
-            "0 < low_fraction < high_fraction < 1",
-            (low_fraction, high_fraction),
-        )
+    _check_hysteresis(low_fraction, high_fraction, fn)
     min_phase = round(check_positive_float("min_phase_s", min_phase_s, fn, allow_zero=True) * fs)
     finite = np.isfinite(v)
     if finite.sum() < 4:
