@@ -88,19 +88,19 @@ def sequential(sm, store, targets) -> float:
 
 
 def pooled(sm, store, targets, workers: int) -> float:
-    from service.pipeline import ensure_default_profile
+    from service.pipeline import ensure_default_recipe
 
     with sm() as s:
-        ensure_default_profile(s)
+        ensure_default_recipe(s)
         repo.enqueue_job(session=s, kind="score", target_kind="scan", target_id=targets[-1][1])
     pool = LocalPool(workers)
     # Warm the pool (spawn + imports + numba cache) on one job outside the timing.
     JobRunner(sessionmaker=sm, store=store, executor=pool, poll_s=0.05).run_until_idle(3600)
     with sm() as s:
-        default = repo.get_profile(session=s, name="default")
+        default = repo.get_recipe(session=s, name="default")
         from storage.repo.jobs import enqueue_jobs
 
-        enqueue_jobs(session=s, kind="score", targets=targets, profile_hash=default.hash)
+        enqueue_jobs(session=s, kind="score", targets=targets, recipe_hash=default.hash)
     t0 = time.perf_counter()
     JobRunner(sessionmaker=sm, store=store, executor=pool, poll_s=0.05).run_until_idle(36000)
     elapsed = time.perf_counter() - t0

@@ -49,7 +49,7 @@ def _child(n: int) -> None:
     """One timed run in a fresh process, so peak RSS is this run's alone."""
     import resource
 
-    from measures.pointcloud import points_to_heightmap
+    from measures.terrain.pointcloud import points_to_heightmap
 
     pts = make_cloud(n)
     t0 = time.perf_counter()
@@ -70,7 +70,7 @@ def _child(n: int) -> None:
 
 
 def _compare(n: int) -> None:
-    from measures.pointcloud import points_to_heightmap
+    from measures.terrain.pointcloud import points_to_heightmap
 
     pts = make_cloud(n, seed=11)
     kw = {"cell_m": TRAY_M / 256, "crop": 4 * TRAY_M / 256}

@@ -30,7 +30,7 @@ def _points(n: int) -> np.ndarray:
 
 def _worker(kind: str, n: int, repeats: int) -> None:
     from measures import _rqa_kernels as k
-    from measures.recurrence import _prepare, _resolve_threshold, rqa, rqa_dense
+    from measures.dynamics.recurrence import _prepare, _resolve_threshold, rqa, rqa_dense
 
     small = _points(300)
     rqa(small, recurrence_rate=0.05)  # load compiled kernels before timing

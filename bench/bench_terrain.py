@@ -16,7 +16,7 @@ import time
 import numpy as np
 
 from measures import hurst_exponent, radial_psd, terrain_summary
-from measures._synthesis import self_affine_surface
+from measures.terrain._synthesis import self_affine_surface
 
 
 def _median_time(fn, repeats):

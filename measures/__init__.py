@@ -1,36 +1,45 @@
-"""gaitscape's numerical core: pure functions on numpy arrays.
+"""gaitscape's numerical core: pure functions on numpy arrays, by family.
 
-Every public name of every measure family is re-exported here, so
-``from measures import rqa`` works. Each module defines ``__all__``; this
-file only gathers them (one module per family, see DEVELOPERS.md).
+``measures.information`` is the shared core that both sides call;
+``measures.dynamics`` embeds and quantifies recurrence; ``measures.movement``
+and ``measures.terrain`` build their summaries from those two;
+``measures.correspondence`` relates the two sides across arenas. Imports run
+one way: correspondence -> movement, terrain -> dynamics, information.
+
+Every public name of every family is re-exported here (``from measures import
+rqa`` works). Families load lazily on first use, so importing
+``measures.errors`` (as the web process does) does not load numba or scipy.
 """
 
-# Star imports are deliberate here: each family module owns its public names
-# through ``__all__`` and this file must not need editing when one is added.
-from measures._types import *  # noqa: F403
-from measures._validation import *  # noqa: F403
-from measures.areal import *  # noqa: F403
-from measures.bodyframe import *  # noqa: F403
-from measures.causal import *  # noqa: F403
-from measures.correspondence import *  # noqa: F403
-from measures.correspondence_local import *  # noqa: F403
-from measures.correspondence_multi import *  # noqa: F403
-from measures.description import *  # noqa: F403
-from measures.embedding import *  # noqa: F403
-from measures.entropy import *  # noqa: F403
-from measures.fractal import *  # noqa: F403
-from measures.gait import *  # noqa: F403
-from measures.kinematics import *  # noqa: F403
-from measures.movement import *  # noqa: F403
-from measures.mutual_info import *  # noqa: F403
-from measures.ordinal import *  # noqa: F403
-from measures.pointcloud import *  # noqa: F403
-from measures.recurrence import *  # noqa: F403
-from measures.registration import *  # noqa: F403
-from measures.sampen import *  # noqa: F403
-from measures.spectra import *  # noqa: F403
-from measures.surrogates import *  # noqa: F403
-from measures.symbolic import *  # noqa: F403
-from measures.terrain import *  # noqa: F403
+from __future__ import annotations
 
-__version__ = "0.1.0"
+import importlib
+from typing import Any
+
+from measures._types import *  # noqa: F403
+from measures.errors import *  # noqa: F403
+
+__version__ = "0.2.0"
+
+# The order in which a name is looked up; each family's __init__ gathers the
+# ``__all__`` of its modules, so a new public name needs no edit here.
+FAMILIES = ("information", "dynamics", "movement", "terrain", "correspondence")
+
+
+def __getattr__(name: str) -> Any:
+    if name.startswith("__"):
+        raise AttributeError(name)
+    for family in FAMILIES:
+        module = importlib.import_module(f"measures.{family}")
+        if name in module.__all__:
+            value = getattr(module, name)
+            globals()[name] = value
+            return value
+    raise AttributeError(f"module 'measures' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    names = set(globals())
+    for family in FAMILIES:
+        names.update(getattr(importlib.import_module(f"measures.{family}"), "__all__", ()))
+    return sorted(names)

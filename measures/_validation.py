@@ -13,43 +13,9 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from measures.errors import InsufficientDataError, InvalidParameterError
+
 __all__ = ["InsufficientDataError", "InvalidParameterError"]
-
-
-class InvalidParameterError(ValueError):
-    """A parameter or input array is outside what a measure accepts.
-
-    Parameters
-    ----------
-    parameter : str
-        Name of the offending parameter.
-    function : str
-        Public function that rejected it.
-    allowed : str
-        Human description of the allowed values.
-    given : object
-        What the caller passed (summarised for arrays).
-    """
-
-    def __init__(self, parameter: str, function: str, allowed: str, given: Any) -> None:
-        self.parameter = parameter
-        self.function = function
-        self.allowed = allowed
-        self.given = given
-        super().__init__(
-            f"The {parameter!r} parameter of {function} must be {allowed}. Got {_summarise(given)}."
-        )
-
-
-class InsufficientDataError(InvalidParameterError):
-    """The input is well-formed but too short or too sparse for the estimate."""
-
-
-def _summarise(value: Any) -> str:
-    if isinstance(value, np.ndarray):
-        return f"an array of shape {value.shape} and dtype {value.dtype}"
-    text = repr(value)
-    return text if len(text) <= 80 else text[:77] + "..."
 
 
 def check_choice(name: str, value: Any, function: str, choices: Iterable[Any]) -> Any:

@@ -19,7 +19,7 @@ from service import __version__
 from service.dashboard import page_router as dashboard_pages
 from service.deps import FailedAuthLimiter
 from service.errors import install_error_handlers
-from service.pipeline import ensure_default_profile, start_job_runner
+from service.pipeline import ensure_default_recipe, start_job_runner
 from service.routes import ROUTERS
 from service.schemas import Health
 from service.security import install_hardening
@@ -69,7 +69,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     resources = open_resources(settings)
 
     with resources.sessionmaker() as session:
-        ensure_default_profile(session)
+        ensure_default_recipe(session)
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:

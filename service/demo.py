@@ -172,10 +172,10 @@ def summary_text(corr: dict[str, Any], *, top: int = 10, report_path: Path | Non
     from service.report import strongest_pairs
 
     lines = [INVENTED, ""]
-    prof = corr.get("profile") or {}
+    prof = corr.get("recipe") or {}
     lines.append(
         f"Study: {corr.get('n_arenas')} arenas, {corr.get('n_subjects')} subjects, "
-        f"{corr.get('n_trials')} trials; profile {prof.get('name')} v{prof.get('version')} "
+        f"{corr.get('n_trials')} trials; recipe {prof.get('name')} v{prof.get('version')} "
         f"({str(prof.get('hash', ''))[:12]}); {len(corr.get('rows') or [])} measure pairs, "
         f"{corr.get('n_permutations')} arena permutations"
         + (" (exact)" if corr.get("exact_permutations") else "")
@@ -294,7 +294,7 @@ def run_demo(
                 client.get(
                     "/v1/correspondence",
                     params={
-                        "profile": "default",
+                        "recipe": "default",
                         "format": "json",
                         "n_permutations": n_permutations,
                         "n_boot": n_boot,
@@ -308,7 +308,7 @@ def run_demo(
             html = render_report(
                 session=session,
                 store=app.state.store,
-                profile="default",
+                recipe="default",
                 correspondence=result.correspondence,
             )
         result.report_path.write_text(html, encoding="utf-8")

@@ -9,7 +9,7 @@ from fastapi import FastAPI, Request
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import TimeoutError as PoolTimeout
 
-from measures._validation import InvalidParameterError
+from measures.errors import InvalidParameterError
 from storage import errors as storage_errors
 
 __all__ = ["error_body", "error_status", "install_error_handlers"]

@@ -27,10 +27,10 @@ __all__ = [
     "MarkerSetPublic",
     "MarkerSetsPublic",
     "Page",
-    "ProfileCreate",
-    "ProfileCreated",
-    "ProfilePublic",
-    "ProfilesPublic",
+    "RecipeCreate",
+    "RecipeCreated",
+    "RecipePublic",
+    "RecipesPublic",
     "RescorePublic",
     "RescoreRequest",
     "ScanPublic",
@@ -384,20 +384,20 @@ class TokenCreated(TokenPublic):
 TokensPublic = Page[TokenPublic]
 
 
-# -- profiles, jobs, scores (scoring pipeline) ------------------------------------------------
-class ProfileCreate(_In):
-    """A new version of analysis profile ``name``: sections of overrides onto the defaults."""
+# -- recipes, jobs, scores (scoring pipeline) ------------------------------------------------
+class RecipeCreate(_In):
+    """A new version of analysis recipe ``name``: sections of overrides onto the defaults."""
 
     name: str = Field(min_length=1, max_length=200, examples=["fine-grid"])
     parameters: dict[str, dict[str, Any]] = Field(
         default_factory=dict,
         description="Overrides by section: movement, terrain, heightmap. Unnamed parameters "
-        "take today's defaults; the stored profile holds every parameter.",
+        "take today's defaults; the stored recipe holds every parameter.",
         examples=[{"heightmap": {"cell_m": 0.0005}, "movement": {"rqa_recurrence_rate": 0.03}}],
     )
 
 
-class ProfilePublic(_Out):
+class RecipePublic(_Out):
     id: int
     name: str
     version: int
@@ -406,18 +406,18 @@ class ProfilePublic(_Out):
     created_at: datetime | None = None
 
 
-class ProfileCreated(ProfilePublic):
+class RecipeCreated(RecipePublic):
     created: bool = Field(description="False when the parameters equal the latest version's.")
 
 
-ProfilesPublic = Page[ProfilePublic]
+RecipesPublic = Page[RecipePublic]
 
 
 class JobDetail(JobPublic):
-    """A job with its profile hash, attempt budget and lease."""
+    """A job with its recipe hash, attempt budget and lease."""
 
-    profile_hash: str | None = Field(
-        default=None, description="Profile the job scores under; null: the latest 'default'."
+    recipe_hash: str | None = Field(
+        default=None, description="Recipe the job scores under; null: the latest 'default'."
     )
     max_attempts: int = 3
     lease_until: datetime | None = None
@@ -429,9 +429,9 @@ JobsPublic = Page[JobDetail]
 
 
 class RescoreRequest(_In):
-    """Which scans and trials to score again, and under which profile."""
+    """Which scans and trials to score again, and under which recipe."""
 
-    profile: str = Field(default="default", min_length=1, max_length=200)
+    recipe: str = Field(default="default", min_length=1, max_length=200)
     version: int | None = Field(default=None, ge=1, description="Null: the latest version.")
     scan_ids: list[int] = []
     trial_ids: list[int] = []
@@ -446,7 +446,7 @@ class RescoreRequest(_In):
 
 
 class RescorePublic(BaseModel):
-    profile: ProfilePublic
+    recipe: RecipePublic
     job_ids: list[int]
     count: int
 
@@ -461,7 +461,7 @@ class ScoreRowPublic(_Out):
     subject_id: int | None = None
     subject: str | None = None
     condition: str | None = None
-    profile_hash: str
+    recipe_hash: str
     measure: str
     value: float | None = None
     unit: str = ""
@@ -506,7 +506,7 @@ class CorrespondencePublic(BaseModel):
     n_arenas: int
     n_subjects: int
     n_trials: int
-    profile: dict[str, Any]
+    recipe: dict[str, Any]
     scans: Literal["latest", "mean"]
     n_permutations: int
     exact_permutations: bool
@@ -536,7 +536,7 @@ class LocalCorrespondenceRowPublic(BaseModel):
 class LocalCorrespondencePublic(BaseModel):
     """Window-level movement measures against the terrain patch under the animal."""
 
-    profile: dict[str, Any]
+    recipe: dict[str, Any]
     window_s: float
     rows: list[LocalCorrespondenceRowPublic]
     within_trial: list[dict[str, Any]]

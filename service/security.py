@@ -49,7 +49,7 @@ Receive = Callable[[], Awaitable[Message]]
 Send = Callable[[Message], Awaitable[None]]
 ASGIApp = Callable[[Scope, Receive, Send], Awaitable[None]]
 
-MAX_BODY_BYTES = 1024**2  # JSON bodies here are a few kB; profiles with many overrides < 100 kB
+MAX_BODY_BYTES = 1024**2  # JSON bodies here are a few kB; recipes with many overrides < 100 kB
 _REQUEST_ID_RE = re.compile(r"^[A-Za-z0-9._:-]{1,64}$")
 
 SECURITY_HEADERS: tuple[tuple[bytes, bytes], ...] = (

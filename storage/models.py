@@ -37,9 +37,10 @@ __all__ = [
     "TOKEN_SCOPES",
     "Arena",
     "Base",
+    "Derived",
     "Job",
     "MarkerSet",
-    "Profile",
+    "Recipe",
     "Scan",
     "Score",
     "Study",
@@ -253,10 +254,10 @@ class Trial(Base):
     subject: Mapped[Subject] = relationship()
 
 
-class Profile(Base):
+class Recipe(Base):
     """An immutable, versioned set of analysis parameters."""
 
-    __tablename__ = "profile"
+    __tablename__ = "recipe"
     __table_args__ = (UniqueConstraint("name", "version"),)
 
     id: Mapped[int] = mapped_column(primary_key=True)
@@ -268,11 +269,11 @@ class Profile(Base):
 
 
 class Score(Base):
-    """One number computed for a scan or a trial under a profile."""
+    """One number computed for a scan or a trial under a recipe."""
 
     __tablename__ = "score"
     __table_args__ = (
-        UniqueConstraint("target_kind", "target_id", "profile_hash", "measure"),
+        UniqueConstraint("target_kind", "target_id", "recipe_hash", "measure"),
         CheckConstraint(_in("target_kind", TARGET_KINDS), name="target_kind"),
         Index("ix_score_target", "target_kind", "target_id"),
     )
@@ -280,16 +281,38 @@ class Score(Base):
     id: Mapped[int] = mapped_column(primary_key=True)
     target_kind: Mapped[str] = mapped_column(String(10))
     target_id: Mapped[int] = mapped_column(Integer)
-    profile_hash: Mapped[str] = mapped_column(String(64), index=True)
+    recipe_hash: Mapped[str] = mapped_column(String(64), index=True)
     measure: Mapped[str] = mapped_column(String(200), index=True)
     value: Mapped[float | None] = mapped_column(Float)
     unit: Mapped[str] = mapped_column(String(50), default="")
     ci_low: Mapped[float | None] = mapped_column(Float)
     ci_high: Mapped[float | None] = mapped_column(Float)
     surrogate_z: Mapped[float | None] = mapped_column(Float)
+    # Why a value is missing, which automatic choice was made, which band was
+    # fitted: a NaN is never stored without its reason.
+    note: Mapped[str] = mapped_column(Text, default="")
     code_version: Mapped[str] = mapped_column(String(100))
     input_sha256: Mapped[str] = mapped_column(String(64))
     computed_at: Mapped[datetime] = mapped_column(UTCDateTime(), default=utcnow)
+
+
+class Derived(Base):
+    """An array a scoring job stored for later views (plot arrays, per-window
+    measures): views read these, they never recompute them."""
+
+    __tablename__ = "derived"
+    __table_args__ = (
+        UniqueConstraint("target_kind", "target_id", "recipe_hash", "kind"),
+        CheckConstraint(_in("target_kind", TARGET_KINDS), name="target_kind"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    target_kind: Mapped[str] = mapped_column(String(10))
+    target_id: Mapped[int] = mapped_column(Integer)
+    recipe_hash: Mapped[str] = mapped_column(String(64), index=True)
+    kind: Mapped[str] = mapped_column(String(50))
+    sha256: Mapped[str] = mapped_column(String(64))
+    created_at: Mapped[datetime] = _created()
 
 
 class Job(Base):
@@ -309,7 +332,7 @@ class Job(Base):
     kind: Mapped[str] = mapped_column(String(50))
     target_kind: Mapped[str] = mapped_column(String(10))
     target_id: Mapped[int] = mapped_column(Integer)
-    profile_hash: Mapped[str | None] = mapped_column(String(64))
+    recipe_hash: Mapped[str | None] = mapped_column(String(64))
     state: Mapped[str] = mapped_column(String(10), default="queued")
     progress: Mapped[float] = mapped_column(Float, default=0.0)
     message: Mapped[str] = mapped_column(Text, default="")

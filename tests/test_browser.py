@@ -87,7 +87,7 @@ def _shot(page, name: str) -> None:
 def test_failed_login_is_refused(live) -> None:
     page = live["page"]
     page.goto(live["base"] + "/ui/login")
-    page.fill("#token", "gsk_not-a-real-token")
+    page.fill("#token", "gaitscape_not-a-real-token")
     page.click("button[type=submit]")
     page.wait_for_selector("#login-msg.error")
     assert "Token refused" in page.inner_text("#login-msg")

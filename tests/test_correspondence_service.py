@@ -21,9 +21,9 @@ from fastapi.testclient import TestClient
 from statsmodels.multivariate.cancorr import CanCorr
 
 from measures._types import Score
-from measures.correspondence_multi import first_canonical_correlation
+from measures.correspondence.multivariate import first_canonical_correlation
+from service.analysis.grid import CONTRACT_FIELDS, Selection, load_study
 from service.app import create_app
-from service.correspondence import CONTRACT_FIELDS, Selection, load_study
 from service.settings import get_settings
 from storage import repo
 from storage.models import Scan, Trial
@@ -44,7 +44,7 @@ class Study:
         self.sm = self.app.state.sessionmaker
         with self.sm() as s:
             _, secret = repo.create_token(session=s, scopes=["read"], label="t")
-            self.profile, _ = repo.create_profile(session=s, name="default", parameters={"a": 1})
+            self.recipe, _ = repo.create_recipe(session=s, name="default", parameters={"a": 1})
         self.client = TestClient(self.app, headers={"Authorization": f"Bearer {secret}"})
 
     def arena(self, name: str) -> int:
@@ -75,7 +75,7 @@ class Study:
                 session=s,
                 target_kind="scan",
                 target_id=row.id,
-                profile_hash=self.profile.hash,
+                recipe_hash=self.recipe.hash,
                 scores=items,
                 code_version="test",
                 input_sha256=row.sha256,
@@ -103,7 +103,7 @@ class Study:
                 session=s,
                 target_kind="trial",
                 target_id=row.id,
-                profile_hash=self.profile.hash,
+                recipe_hash=self.recipe.hash,
                 scores=[Score(k, v, "1") for k, v in scores.items()],
                 code_version="test",
                 input_sha256=row.sha256,
@@ -111,7 +111,7 @@ class Study:
             return row.id
 
     def get(self, **params):
-        res = self.client.get("/v1/correspondence", params={"profile": "default", **params})
+        res = self.client.get("/v1/correspondence", params={"recipe": "default", **params})
         assert res.status_code == 200, res.text
         return res
 
@@ -156,7 +156,7 @@ def test_known_effect_json_contract_and_statsmodels(study, rng):
     # Reference: statsmodels MixedLM (REML) on the table the service assembled.
     with study.sm() as s:
         table = load_study(
-            session=s, profile_hash=study.profile.hash, selection=Selection()
+            session=s, recipe_hash=study.recipe.hash, selection=Selection()
         ).analysis_table()
     ref = sm.MixedLM(
         table["rqa_det"], sm.add_constant(table["sq_m"]), groups=table["subject_id"]
@@ -186,9 +186,9 @@ def test_latest_and_mean_scans(study):
     study.scan(a, {"sq_m": 3.0}, captured_at=now + timedelta(days=1))
     study.trial(a, study.subject("M0"), {"rqa_det": 0.5})
     with study.sm() as s:
-        latest = load_study(session=s, profile_hash=study.profile.hash, selection=Selection())
+        latest = load_study(session=s, recipe_hash=study.recipe.hash, selection=Selection())
         mean = load_study(
-            session=s, profile_hash=study.profile.hash, selection=Selection(scans="mean")
+            session=s, recipe_hash=study.recipe.hash, selection=Selection(scans="mean")
         )
     assert latest.arenas.loc[a, "sq_m"] == 3.0  # the later capture
     assert mean.arenas.loc[a, "sq_m"] == 2.0  # (1 + 3) / 2
@@ -211,10 +211,10 @@ def test_selection_filters(study, rng):
         ("sq_m", "rqa_det")
     ]
     bad = study.client.get(
-        "/v1/correspondence", params={"profile": "default", "terrain_measure": "nope"}
+        "/v1/correspondence", params={"recipe": "default", "terrain_measure": "nope"}
     )
     assert bad.status_code == 400 and "nope" in bad.json()["detail"]
-    assert study.client.get("/v1/correspondence", params={"profile": "none"}).status_code == 404
+    assert study.client.get("/v1/correspondence", params={"recipe": "none"}).status_code == 404
 
 
 def test_design_warnings(study, rng):
@@ -255,7 +255,7 @@ def test_missing_values_use_complete_pairs(study, rng):
             session=s,
             target_kind="trial",
             target_id=trial.id,
-            profile_hash=study.profile.hash,
+            recipe_hash=study.recipe.hash,
             scores=[Score("sample_entropy", float("nan"), "1")],
             code_version="t",
             input_sha256="x",

@@ -47,7 +47,7 @@ def test_pages_are_static_shells_with_strict_headers(client_and_token, path: str
     assert "default-src 'self'" in csp and "unsafe-eval" not in csp
     assert r.headers["x-content-type-options"] == "nosniff"
     assert 'src="/ui/static/plotly.min.js"' in r.text and 'src="/ui/static/app.js"' in r.text
-    assert "gsk_" not in r.text  # a shell never carries a token or data
+    assert "gaitscape_" not in r.text  # a shell never carries a token or data
 
 
 def test_static_assets_are_served_and_others_are_not(client_and_token) -> None:

@@ -78,7 +78,7 @@ def test_demo_store_is_a_normal_store(demo_dir) -> None:
         check=True,
     )
     secret = made.stdout.strip()
-    assert secret.startswith("gsk_") and "\n" not in secret
+    assert secret.startswith("gaitscape_") and "\n" not in secret
     client = TestClient(create_app(get_settings(data_dir=out, job_runner=False)))
     auth = {"Authorization": f"Bearer {secret}"}
     assert client.get("/v1/arenas", headers=auth).json()["count"] == 7

@@ -21,10 +21,10 @@ from service.pipeline import (
     Compute,
     JobRunner,
     LocalPool,
-    ensure_default_profile,
+    ensure_default_recipe,
     scan_flow,
 )
-from service.pipeline.profiles import default_parameters
+from service.pipeline.recipes import default_parameters
 from storage import repo
 from storage.artifacts import ArtifactStore
 from storage.db import make_engine, make_sessionmaker, sqlite_url, upgrade
@@ -44,7 +44,7 @@ class Store:
         self.sessionmaker = make_sessionmaker(self.engine)
         self.store = ArtifactStore(root / "data" / "artifacts")
         with self.sessionmaker() as s:
-            ensure_default_profile(s)
+            ensure_default_recipe(s)
             self.arena_id = repo.create_arena(
                 session=s, name=f"tray-{root.name}", kind="runway", scale_band_m=(0.004, 0.05)
             ).id
@@ -62,11 +62,11 @@ class Store:
             )  # fmt: skip
             return scan.id
 
-    def enqueue(self, kind: str, target_id: int, profile_hash: str | None = None, **kw: Any) -> int:
+    def enqueue(self, kind: str, target_id: int, recipe_hash: str | None = None, **kw: Any) -> int:
         with self.sessionmaker() as s:
             return repo.enqueue_job(
                 session=s, kind="score", target_kind=kind, target_id=target_id,
-                profile_hash=profile_hash, **kw,
+                recipe_hash=recipe_hash, **kw,
             ).id  # fmt: skip
 
     def job(self, job_id: int) -> Any:
@@ -127,13 +127,13 @@ def test_scan_job_scores_with_reproducibility_fields_and_progress(lab: Store, po
     rows = lab.scores("scan", scan_id)
     with lab.sessionmaker() as s:
         scan = repo.get_scan(session=s, scan_id=scan_id)
-        default = repo.get_profile(session=s, name="default")
+        default = repo.get_recipe(session=s, name="default")
     assert scan.heightmap_sha256 and lab.store.exists(scan.heightmap_sha256)
     names = {r.measure for r in rows}
     assert {"sq_m", "sdr", "hurst_psd", "permutation_entropy_2d"} <= names
     for r in rows:
         assert r.input_sha256 == scan.sha256
-        assert r.profile_hash == default.hash
+        assert r.recipe_hash == default.hash
         assert measures.__version__ in r.code_version
         assert r.unit is not None
     # Sq of the stored heightmap restricted to the arena band is positive and below the raw Sq.
@@ -151,10 +151,10 @@ def test_dead_worker_job_is_retried_and_scores_are_written_once(lab: Store, pool
     assert Path(flag).exists()  # the worker really died once
     assert (job.state, job.attempts) == ("done", 2)
     first = {r.measure: (r.id, r.value) for r in lab.scores("scan", scan_id)}
-    # Score the same target under the same profile again: rows are updated in place.
+    # Score the same target under the same recipe again: rows are updated in place.
     with lab.sessionmaker() as s:
-        default_hash = repo.get_profile(session=s, name="default").hash
-    lab.enqueue("scan", scan_id, profile_hash=default_hash)
+        default_hash = repo.get_recipe(session=s, name="default").hash
+    lab.enqueue("scan", scan_id, recipe_hash=default_hash)
     lab.runner(pool).run_until_idle(120)
     again = {r.measure: (r.id, r.value) for r in lab.scores("scan", scan_id)}
     assert again == first
@@ -193,28 +193,28 @@ def test_expired_lease_of_a_dead_runner_is_claimed_again(lab: Store, pool: Any) 
     assert (job.state, job.attempts) == ("done", 2)
 
 
-def test_new_profile_version_leaves_old_scores_untouched(lab: Store, pool: Any) -> None:
+def test_new_recipe_version_leaves_old_scores_untouched(lab: Store, pool: Any) -> None:
     scan_id = lab.add_heightmap(seed=5)
     lab.enqueue("scan", scan_id)
     lab.runner(pool).run_until_idle(120)
     before = {
-        (r.measure, r.profile_hash): (r.value, r.computed_at) for r in lab.scores("scan", scan_id)
+        (r.measure, r.recipe_hash): (r.value, r.computed_at) for r in lab.scores("scan", scan_id)
     }
     params = default_parameters()
     params["terrain"]["slope_bin_deg"] = 3.0
     with lab.sessionmaker() as s:
-        v2, created = repo.create_profile(session=s, name="default", parameters=params)
+        v2, created = repo.create_recipe(session=s, name="default", parameters=params)
     assert created and v2.version == 2
-    lab.enqueue("scan", scan_id, profile_hash=v2.hash)
+    lab.enqueue("scan", scan_id, recipe_hash=v2.hash)
     lab.runner(pool).run_until_idle(120)
     rows = lab.scores("scan", scan_id)
     old = {
-        (r.measure, r.profile_hash): (r.value, r.computed_at)
+        (r.measure, r.recipe_hash): (r.value, r.computed_at)
         for r in rows
-        if (r.measure, r.profile_hash) in before
+        if (r.measure, r.recipe_hash) in before
     }
     assert old == before
-    new = {r.measure: r.value for r in rows if r.profile_hash == v2.hash}
+    new = {r.measure: r.value for r in rows if r.recipe_hash == v2.hash}
     assert len(new) == len(before)
     # Coarser slope bins hold fewer distinct outcomes: the plug-in entropy cannot grow
     # (grouping outcomes never increases Shannon entropy; Cover & Thomas 2006, ch. 2).

@@ -79,7 +79,7 @@ def test_concurrent_uploads_and_reads(tmp_path: Path, backend: str) -> None:
     def read(k: int) -> None:
         paths = [
             ("/v1/scores", {"limit": 50}),
-            ("/v1/correspondence", {"profile": "default", "format": "json"}),
+            ("/v1/correspondence", {"recipe": "default", "format": "json"}),
             ("/v1/trials", {"limit": 20}),
             ("/v1/jobs", {"state": "queued", "limit": 5}),
         ]

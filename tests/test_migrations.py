@@ -43,7 +43,7 @@ def test_upgrade_head_on_postgres_equals_models():
 
 
 def _snapshot(engine):
-    """Every row of every table, as sorted tuples of strings (types vary by backend)."""
+    """Every row of every table, as sorted lists of (column, value) pairs as strings."""
     from sqlalchemy import MetaData, select
 
     meta = MetaData()
@@ -53,49 +53,80 @@ def _snapshot(engine):
         for name, table in meta.tables.items():
             if name == "alembic_version":
                 continue
-            rows = conn.execute(select(table)).all()
-            out[name] = sorted(tuple(str(v) for v in row) for row in rows)
+            rows = conn.execute(select(table)).mappings().all()
+            out[name] = sorted(tuple(sorted((k, str(v)) for k, v in row.items())) for row in rows)
     return out
 
 
-def test_upgrade_from_the_first_release_keeps_every_row(tmp_path):
-    # A store created by the first release (revision 0001_initial), filled through the
-    # repository, then upgraded to head: every row of every old table is unchanged.
-    import numpy as np
+def _renamed(rows, old, new, extra=()):
+    return sorted(
+        tuple(sorted([*((new if k == old else k, v) for k, v in row), *extra])) for row in rows
+    )
 
-    from measures import Score
+
+def test_upgrade_from_the_second_release_keeps_every_row(tmp_path):
+    # A store at revision 0002_studies (the first release's "profiles"), filled through
+    # plain SQL for the renamed tables and the repository for the rest, then upgraded to
+    # head: every row survives; profiles become recipes, profile_hash becomes recipe_hash,
+    # scores gain an empty note.
+    from sqlalchemy import text
+
     from storage import repo
-    from storage.artifacts import ArtifactStore
     from storage.db import make_sessionmaker
 
     engine = make_engine(sqlite_url(tmp_path))
-    upgrade(engine, "0001_initial")
-    store = ArtifactStore(tmp_path / "store")
+    upgrade(engine, "0002_studies")
     with make_sessionmaker(engine)() as session:
         arena = repo.create_arena(session=session, name="tray", kind="runway")
         roles = {"anterior": "a", "posterior": "b", "feet": {"LF": "c", "RF": "d"}}
         subject = repo.create_subject(session=session, label="s1", species="x", marker_roles=roles)
-        csv = tmp_path / "t.csv"
-        walk = np.cumsum(np.ones((20, 12)), axis=0)
-        header = "time," + ",".join(f"{m}_{ax}" for m in "abcd" for ax in "xyz")
-        rows = [",".join([f"{k / 300:.9f}", *map(str, r)]) for k, r in enumerate(walk)]
-        csv.write_text(header + "\n" + "\n".join(rows) + "\n")
-        trial, _ = repo.ingest_trial(
-            session=session, store=store, staged=store.put_file(csv), filename="t.csv",
-            meta={"arena_id": arena.id, "subject_id": subject.id, "units": "mm",
-                  "frame_rate_hz": 300.0},
-        )  # fmt: skip
-        prof, _ = repo.create_profile(session=session, name="default", parameters={"a": 1})
-        repo.save_scores(
-            session=session, target_kind="trial", target_id=trial.id, profile_hash=prof.hash,
-            scores=[Score("rqa_det", 0.9, "1")], code_version="0.1.0", input_sha256=trial.sha256,
-        )  # fmt: skip
-        repo.enqueue_job(session=session, kind="score", target_kind="trial", target_id=trial.id)
         repo.create_token(session=session, scopes=["read"], label="old")
+        arena_id, subject_id = arena.id, subject.id
+    now = "2026-12-01 10:00:00.000000"
+    with engine.begin() as conn:
+        conn.execute(
+            text(
+                "INSERT INTO trial (id, arena_id, subject_id, sha256, filename, format, units,"
+                " size_bytes, frame_rate_hz, n_frames, n_markers, marker_names, condition,"
+                " meta, created_at) VALUES (1, :a, :s, :h, 't.csv', 'csv', 'mm', 10, 300.0, 20,"
+                ' 4, \'["a", "b", "c", "d"]\', \'\', \'{}\', :now)'
+            ),
+            {"a": arena_id, "s": subject_id, "h": "ab" * 32, "now": now},
+        )
+        conn.execute(
+            text(
+                "INSERT INTO profile (id, name, version, parameters, hash, created_at)"
+                " VALUES (1, 'default', 1, '{\"a\": 1}', :h, :now)"
+            ),
+            {"h": "cd" * 32, "now": now},
+        )
+        conn.execute(
+            text(
+                "INSERT INTO score (id, target_kind, target_id, profile_hash, measure, value,"
+                " unit, code_version, input_sha256, computed_at) VALUES (1, 'trial', 1, :p,"
+                " 'rqa_det', 0.9, '1', '0.1.0', :h, :now)"
+            ),
+            {"p": "cd" * 32, "h": "ab" * 32, "now": now},
+        )
+        conn.execute(
+            text(
+                "INSERT INTO job (id, kind, target_kind, target_id, profile_hash, state,"
+                " progress, message, attempts, max_attempts, created_at, updated_at)"
+                " VALUES (1, 'score', 'trial', 1, :p, 'queued', 0.0, '', 0, 3, :now, :now)"
+            ),
+            {"p": "cd" * 32, "now": now},
+        )
     before = _snapshot(engine)
     assert all(before[t] for t in ("arena", "subject", "trial", "profile", "score", "job", "token"))
     upgrade(engine)
     after = _snapshot(engine)
-    assert {t: after[t] for t in before} == before
+    assert "profile" not in after
+    assert after["recipe"] == before["profile"]
+    assert after["score"] == _renamed(
+        before["score"], "profile_hash", "recipe_hash", extra=[("note", "")]
+    )
+    assert after["job"] == _renamed(before["job"], "profile_hash", "recipe_hash")
+    for table in ("arena", "subject", "trial", "token", "study", "marker_set"):
+        assert after[table] == before[table], table
     assert _diff(engine) == []
     engine.dispose()

@@ -60,15 +60,15 @@ def test_uploads_are_scored_without_asking_and_rescore_works(tmp_path: Path) -> 
         assert {"rqa_det", "stride_frequency_hz"} & {r["measure"] for r in rows}
         assert all(r["subject"] == "s1" and r["arena"] == "tray" for r in rows)
         v2 = c.post(
-            "/v1/profiles", json={"name": "coarse", "parameters": {"heightmap": {"cell_m": 0.002}}}
+            "/v1/recipes", json={"name": "coarse", "parameters": {"heightmap": {"cell_m": 0.002}}}
         ).json()
-        again = c.post("/v1/jobs/rescore", json={"profile": "coarse", "arena_ids": [arena["id"]]})
+        again = c.post("/v1/jobs/rescore", json={"recipe": "coarse", "arena_ids": [arena["id"]]})
         assert again.status_code == 202 and again.json()["count"] == 2
         for job_id in again.json()["job_ids"]:
             assert wait_done(c, job_id)["state"] == "done"
         wide = pd.read_csv(io.StringIO(c.get("/v1/export/scores", params={"shape": "wide"}).text))
-        assert len(wide) == 4  # two targets under two profile hashes
-        assert set(wide["profile_hash"]) == {
+        assert len(wide) == 4  # two targets under two recipe hashes
+        assert set(wide["recipe_hash"]) == {
             v2["hash"],
-            c.get("/v1/profiles/default").json()["hash"],
+            c.get("/v1/recipes/default").json()["hash"],
         }

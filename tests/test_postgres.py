@@ -43,7 +43,7 @@ def test_concurrent_claims_never_share_a_job(tmp_path: Path, pg_url: str) -> Non
     with lab.sessionmaker() as s:
         for _ in range(20):
             repo.enqueue_job(session=s, kind="score", target_kind="scan", target_id=scan_id,
-                             profile_hash=uuid.uuid4().hex)  # fmt: skip
+                             recipe_hash=uuid.uuid4().hex)  # fmt: skip
     claimed: list[int] = []
 
     def worker() -> None:
@@ -68,7 +68,7 @@ def test_scan_job_scores_once_on_postgres(tmp_path: Path, pg_url: str) -> None:
     pool = LocalPool(1)
     try:
         for _ in range(2):  # the second run upserts the same rows
-            job_id = lab.enqueue("scan", scan_id, profile_hash=None)
+            job_id = lab.enqueue("scan", scan_id, recipe_hash=None)
             lab.runner(pool).run_until_idle(120)
             assert lab.job(job_id).state == "done"
     finally:

@@ -217,21 +217,21 @@ def test_trial_needs_ids(session, store, tmp_path, arena, subject, rng):
     assert list(store.iter_shas()) == [] and not any(store.tmp_dir.iterdir())
 
 
-# --- profiles, scores, jobs -------------------------------------------------------------
-def test_profiles_version_and_hash(session):
-    p1, c1 = repo.create_profile(session=session, name="default", parameters={"b": 1, "a": 2})
-    p1b, c1b = repo.create_profile(session=session, name="default", parameters={"a": 2, "b": 1})
-    p2, _ = repo.create_profile(session=session, name="default", parameters={"a": 3})
+# --- recipes, scores, jobs -------------------------------------------------------------
+def test_recipes_version_and_hash(session):
+    p1, c1 = repo.create_recipe(session=session, name="default", parameters={"b": 1, "a": 2})
+    p1b, c1b = repo.create_recipe(session=session, name="default", parameters={"a": 2, "b": 1})
+    p2, _ = repo.create_recipe(session=session, name="default", parameters={"a": 3})
     assert c1 and not c1b and p1b.id == p1.id and p2.version == 2
     # canonical JSON: sorted keys, no spaces
     assert p1.hash == hashlib.sha256(b'{"a":2,"b":1}').hexdigest()
-    assert repo.get_profile(session=session, name="default").version == 2
+    assert repo.get_recipe(session=session, name="default").version == 2
 
 
 def test_scores_upsert_on_the_unique_key(session):
     s = [SimpleNamespace(name="Sq", value=1.5, unit="m", ci_low=None, ci_high=None,
                          surrogate_z=float("nan"))]  # fmt: skip
-    kw = dict(session=session, target_kind="scan", target_id=1, profile_hash="p" * 64,
+    kw = dict(session=session, target_kind="scan", target_id=1, recipe_hash="p" * 64,
               code_version="0.1.0", input_sha256="a" * 64)  # fmt: skip
     repo.save_scores(scores=s, **kw)
     s[0].value = 2.5
@@ -265,7 +265,7 @@ def test_jobs_enqueue_claim_fail_retry(session):
 # --- tokens -----------------------------------------------------------------------------
 def test_token_verify_revoke_expire(session):
     token, secret = repo.create_token(session=session, scopes=["upload", "read"], label="rig")
-    assert re.fullmatch(r"gsk_[A-Za-z0-9_-]{43}", secret)  # token_urlsafe(32): 43 chars
+    assert re.fullmatch(r"gaitscape_[A-Za-z0-9_-]{43}", secret)  # token_urlsafe(32): 43 chars
     assert token.secret_sha256 == hashlib.sha256(secret.encode()).hexdigest()
     assert secret not in (token.scopes, token.label, token.secret_sha256)
     assert repo.authenticate(session=session, secret=secret).id == token.id

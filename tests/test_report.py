@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 
 from service.app import open_resources
-from service.pipeline.profiles import ensure_default_profile
+from service.pipeline.recipes import ensure_default_recipe
 from service.settings import get_settings
 from storage import repo
 
@@ -56,7 +56,7 @@ def build_small_store(data_dir: Path, *, duration_s: float = 3.0) -> dict:
     files.mkdir(parents=True, exist_ok=True)
     out: dict = {"settings": settings, "arenas": [], "trials": [], "scans": [], "sq": {}}
     with res.sessionmaker() as session:
-        prof = ensure_default_profile(session)
+        prof = ensure_default_recipe(session)
         subjects = [
             repo.create_subject(
                 session=session, label=label, species="demo vole (invented)", marker_roles=ROLES
@@ -99,7 +99,7 @@ def build_small_store(data_dir: Path, *, duration_s: float = 3.0) -> dict:
                 session=session,
                 target_kind="scan",
                 target_id=scan.id,
-                profile_hash=prof.hash,
+                recipe_hash=prof.hash,
                 scores=[
                     _score("sq_m", sq, "m"),
                     _score("hurst_psd", 0.8),
@@ -133,7 +133,7 @@ def build_small_store(data_dir: Path, *, duration_s: float = 3.0) -> dict:
                     session=session,
                     target_kind="trial",
                     target_id=trial.id,
-                    profile_hash=prof.hash,
+                    recipe_hash=prof.hash,
                     scores=[
                         _score("stride_frequency_hz", freq, "Hz"),
                         _score("duty_factor", 0.6 + 0.01 * ((a + s) % 3)),
@@ -177,7 +177,7 @@ def test_report_has_every_section(report_html: str) -> None:
     ):
         assert f'<section id="{section}">' in report_html, section
     assert "Invented data" in report_html
-    assert "default v1" in report_html  # profile name and version
+    assert "default v1" in report_html  # recipe name and version
 
 
 def test_report_is_self_contained(report_html: str) -> None:

@@ -24,11 +24,11 @@ def study(tmp_path_factory):
     with lab.sessionmaker() as s:
         lab.arena_id = repo.create_arena(session=s, name="gravel", kind="runway").id
         _, secret = repo.create_token(session=s, scopes=["read"])
-        default = repo.get_profile(session=s, name="default")
+        default = repo.get_recipe(session=s, name="default")
     scan_id = lab.add_heightmap(seed=1)
     with lab.sessionmaker() as s:
         repo.save_scores(
-            session=s, target_kind="scan", target_id=scan_id, profile_hash=default.hash,
+            session=s, target_kind="scan", target_id=scan_id, recipe_hash=default.hash,
             scores=[Score("sq_m", 0.002, "m"), Score("sdr", 0.15, "1")],
             code_version="test", input_sha256="a" * 64,
         )  # fmt: skip
@@ -41,15 +41,15 @@ def test_query_filters_and_context(study) -> None:
     body = client.get("/v1/scores", params={"scan_id": scan_id, "measure": "sq_m"}).json()
     assert body["count"] == 1
     row = body["data"][0]
-    assert (row["arena"], row["value"], row["unit"], row["profile_hash"]) == (
+    assert (row["arena"], row["value"], row["unit"], row["recipe_hash"]) == (
         "gravel",
         0.002,
         "m",
         default.hash,
     )
-    assert client.get("/v1/scores", params={"profile": "default"}).json()["count"] == 2
+    assert client.get("/v1/scores", params={"recipe": "default"}).json()["count"] == 2
     assert client.get("/v1/scores", params={"target_kind": "trial"}).json()["count"] == 0
-    assert client.get("/v1/scores", params={"profile": "missing"}).status_code == 404
+    assert client.get("/v1/scores", params={"recipe": "missing"}).status_code == 404
 
 
 def test_tidy_csv_json_parquet_read_back(study) -> None:
@@ -62,12 +62,12 @@ def test_tidy_csv_json_parquet_read_back(study) -> None:
         "target_id",
         "arena",
         "subject",
-        "profile",
+        "recipe",
         "measure",
         "value",
         "unit",
     }
-    assert sorted(frame["measure"]) == ["sdr", "sq_m"] and set(frame["profile"]) == {"default v1"}
+    assert sorted(frame["measure"]) == ["sdr", "sq_m"] and set(frame["recipe"]) == {"default v1"}
     assert frame.set_index("measure")["value"].to_dict() == {"sq_m": 0.002, "sdr": 0.15}
     pq = client.get("/v1/export/scores", params={"format": "parquet"})
     assert pq.headers["content-type"] == "application/vnd.apache.parquet"

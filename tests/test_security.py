@@ -73,7 +73,7 @@ def test_cli_token_expires_days(tmp_path: Path, capsys: pytest.CaptureFixture[st
         == 0
     )
     secret = capsys.readouterr().out.strip()
-    assert re.fullmatch(r"gsk_\S+", secret)
+    assert re.fullmatch(r"gaitscape_\S+", secret)
     app = make_app(tmp_path)
     with app.state.sessionmaker() as session:
         token = repo.authenticate(session=session, secret=secret)

@@ -93,7 +93,7 @@ def test_correspondence_and_export_limited_to_a_study(lab, rng):
     everything = lab.get(n_permutations=99, n_boot=99).json()
     assert everything["n_arenas"] == 11
     csv = lab.client.get(
-        "/v1/export/analysis-table", params={"profile": "default", "study": "gravel"}
+        "/v1/export/analysis-table", params={"recipe": "default", "study": "gravel"}
     )
     assert csv.status_code == 200 and csv.headers["content-type"].startswith("text/csv")
     table = pd.read_csv(io.StringIO(csv.text))
@@ -102,7 +102,7 @@ def test_correspondence_and_export_limited_to_a_study(lab, rng):
 
 
 def _get_status(self, path, **params):
-    return self.client.get(path, params={"profile": "default", **params}).status_code
+    return self.client.get(path, params={"recipe": "default", **params}).status_code
 
 
 Lab.get_status = _get_status
@@ -132,7 +132,7 @@ def test_speed_confound_over_http_and_statsmodels_on_export(lab, rng):
     assert_allclose(design["power"]["detectable_abs_spearman_rho"], detectable_rank_correlation(8))
     # Export (Parquet) and refit with statsmodels directly: the adjusted slope agrees.
     res = lab.client.get(
-        "/v1/export/analysis-table", params={"profile": "default", "format": "parquet"}
+        "/v1/export/analysis-table", params={"recipe": "default", "format": "parquet"}
     )
     assert res.status_code == 200
     table = pd.read_parquet(io.BytesIO(res.content))
@@ -150,7 +150,7 @@ def test_speed_confound_over_http_and_statsmodels_on_export(lab, rng):
 def test_unknown_covariate_is_a_clear_400(lab, rng):
     _slowing_study(lab, rng, n_arenas=5, n_subjects=3, reps=1)
     res = lab.client.get(
-        "/v1/correspondence", params={"profile": "default", "covariate": "wind_speed"}
+        "/v1/correspondence", params={"recipe": "default", "covariate": "wind_speed"}
     )
     assert res.status_code in (400, 422) and "wind_speed" in res.text
 

@@ -1,4 +1,4 @@
-"""Scoring pipeline: profiles, compute tasks, executors, flows and the job runner.
+"""Scoring pipeline: recipes, compute tasks, executors, flows and the job runner.
 
 ``start_job_runner(settings, resources)`` is what the app's lifespan calls; the demo and
 benchmarks build a :class:`JobRunner` themselves and call ``run_until_idle()``.
@@ -10,17 +10,17 @@ from typing import Any
 
 from service.pipeline.executors import DaskPool, LocalPool, make_executor
 from service.pipeline.flows import FLOWS, Compute, JobContext, scan_flow, trial_flow
-from service.pipeline.profiles import (
-    DEFAULT_PROFILE,
+from service.pipeline.recipes import (
+    DEFAULT_RECIPE,
     complete_parameters,
     default_parameters,
-    ensure_default_profile,
-    resolve_profile,
+    ensure_default_recipe,
+    resolve_recipe,
 )
 from service.pipeline.runner import SCORE_JOB_KIND, JobRunner
 
 __all__ = [
-    "DEFAULT_PROFILE",
+    "DEFAULT_RECIPE",
     "FLOWS",
     "SCORE_JOB_KIND",
     "Compute",
@@ -30,9 +30,9 @@ __all__ = [
     "LocalPool",
     "complete_parameters",
     "default_parameters",
-    "ensure_default_profile",
+    "ensure_default_recipe",
     "make_executor",
-    "resolve_profile",
+    "resolve_recipe",
     "scan_flow",
     "start_job_runner",
     "trial_flow",

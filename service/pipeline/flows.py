@@ -33,7 +33,7 @@ class JobContext:
     job_id: int
     target_kind: str
     target_id: int
-    profile_hash: str
+    recipe_hash: str
     parameters: dict[str, Any]
     sessionmaker: Any
     store: Any
@@ -49,13 +49,13 @@ class JobContext:
             self.listener(self.job_id, value, message)
 
     def save(self, scores: tuple[Any, ...], *, code_version: str, input_sha256: str) -> None:
-        # Upsert on (target, profile hash, measure): a re-run never writes a score twice.
+        # Upsert on (target, recipe hash, measure): a re-run never writes a score twice.
         with self.session() as session:
             repo.save_scores(
                 session=session,
                 target_kind=self.target_kind,
                 target_id=self.target_id,
-                profile_hash=self.profile_hash,
+                recipe_hash=self.recipe_hash,
                 scores=scores,
                 code_version=code_version,
                 input_sha256=input_sha256,
@@ -120,7 +120,7 @@ def trial_flow(ctx: JobContext) -> Generator[Compute, Any, None]:
     roles = {k: roles[k] for k in ("anterior", "posterior", "feet") if k in roles}
     params = dict(ctx.parameters["movement"])
     if params.get("treadmill_speed_m_s") is None and trial.treadmill_speed_m_s is not None:
-        # The belt speed is a fact of the recording, not a profile choice.
+        # The belt speed is a fact of the recording, not a recipe choice.
         params["treadmill_speed_m_s"] = trial.treadmill_speed_m_s
     read_meta = {k: meta.get(k) for k in ("units", "frame_rate_hz", "marker_names")}
     ctx.progress(0.05, "reading, preprocessing and scoring the trial")

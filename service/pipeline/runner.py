@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from service.pipeline.flows import FLOWS, Compute, Flow, JobContext
-from service.pipeline.profiles import resolve_profile
+from service.pipeline.recipes import resolve_recipe
 from storage import repo
 from storage.repo.jobs import release_job
 
@@ -140,11 +140,11 @@ class JobRunner:
     def _begin(self, job: Any) -> None:
         try:
             with self.sessionmaker() as session:
-                profile = resolve_profile(session, job.profile_hash)
+                recipe = resolve_recipe(session, job.recipe_hash)
             flow = self.flows[job.target_kind]
             ctx = JobContext(
                 job_id=job.id, target_kind=job.target_kind, target_id=job.target_id,
-                profile_hash=profile.hash, parameters=profile.parameters,
+                recipe_hash=recipe.hash, parameters=recipe.parameters,
                 sessionmaker=self.sessionmaker, store=self.store, listener=self.listener,
             )  # fmt: skip
             active = _Active(job.id, flow(ctx), beat_at=time.monotonic())

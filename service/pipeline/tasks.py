@@ -1,4 +1,4 @@
-"""Compute tasks: pure functions of (stored file, format, meta, profile parameters).
+"""Compute tasks: pure functions of (stored file, format, meta, recipe parameters).
 
 They run in worker processes (the local pool or a Dask cluster), read files with
 ``storage.readers`` and return plain results (arrays and ``measures.Score`` tuples). They

@@ -1,7 +1,7 @@
 """The correspondence report: one self-contained HTML page with server-side figures.
 
-``render_report(session=, store=, profile=, study=)`` runs the correspondence
-(``service.correspondence``) and assembles ``report.html``, limited to one study when ``study``
+``render_report(session=, store=, recipe=, study=)`` runs the correspondence
+(``service.analysis.grid``) and assembles ``report.html``, limited to one study when ``study``
 names one; ``GET /v1/correspondence/report`` serves the same page.
 """
 
@@ -27,7 +27,7 @@ def render_report(
     *,
     session: Any,
     store: Any,
-    profile: str = "default",
+    recipe: str = "default",
     version: int | None = None,
     correspondence: dict[str, Any] | None = None,
     n_permutations: int = 9999,
@@ -35,25 +35,25 @@ def render_report(
     seed: int = 0,
     study: str | None = None,
 ) -> str:
-    """Compute (unless given) the correspondence of ``profile`` and return the report HTML.
+    """Compute (unless given) the correspondence of ``recipe`` and return the report HTML.
 
     ``study``: a study name; counts, figures and correspondence then cover its arenas,
     subjects, trials and scans only (membership rule: ``storage.repo.studies``), and the
     summary names it. NotFound for an unknown study.
     """
     if correspondence is None:
-        from service.correspondence import Selection, correspondence_report
+        from service.analysis.grid import Selection, correspondence_report
 
         correspondence = correspondence_report(
             session=session,
-            profile=profile,
+            recipe=recipe,
             version=version,
             selection=Selection(study=study),
             n_permutations=n_permutations,
             n_boot=n_boot,
             seed=seed,
         )
-    data = load_study(session=session, profile=profile, study=study)
+    data = load_study(session=session, recipe=recipe, study=study)
     return build_report(
-        session=session, store=store, correspondence=correspondence, profile=profile, study=data
+        session=session, store=store, correspondence=correspondence, recipe=recipe, study=data
     )

@@ -237,8 +237,8 @@ def _summary_section(study: StudyData, correspondence: Mapping[str, Any]) -> str
         ("subjects", n_s),
         ("trials (scored / uploaded)", f"{n_t} / {len(study.trials)}"),
         ("scans", len(study.scans)),
-        ("profile", f"{study.profile_name} v{study.profile_version}"),
-        ("profile hash", study.profile_hash),
+        ("recipe", f"{study.recipe_name} v{study.recipe_version}"),
+        ("recipe hash", study.recipe_hash),
         ("code version", "; ".join(study.code_versions) or f"gaitscape {__version__}"),
         ("report generated", datetime.now(UTC).isoformat(timespec="seconds")),
     ]
@@ -460,13 +460,13 @@ def build_report(
     session: Any,
     store: Any,
     correspondence: Mapping[str, Any],
-    profile: str | None = None,
+    recipe: str | None = None,
     study: StudyData | None = None,
 ) -> str:
-    """The report for ``profile`` as one HTML string (no external resources); without
+    """The report for ``recipe`` as one HTML string (no external resources); without
     ``study`` data it is loaded for the study the correspondence names (if any)."""
     if study is None:
-        study = load_study(session=session, profile=profile, study=correspondence.get("study"))
+        study = load_study(session=session, recipe=recipe, study=correspondence.get("study"))
     roughness = {a: v.get(TERRAIN_ROUGHNESS_KEY, np.nan) for a, v in study.terrain.items()}
     colours = figures.arena_colours([a.id for a in study.arenas], roughness)
     warnings = design_warnings(study, correspondence)
@@ -480,7 +480,7 @@ def build_report(
     parts = [
         "<!doctype html><html lang='en'><head><meta charset='utf-8'>",
         "<meta name='viewport' content='width=device-width, initial-scale=1'>",
-        f"<title>gaitscape report: {_e(study.profile_name)}"
+        f"<title>gaitscape report: {_e(study.recipe_name)}"
         f"{' - ' + _e(study.study_name) if study.study_name else ''}</title>"
         f"<style>{_CSS}</style></head>",
         "<body><main><h1>gaitscape correspondence report</h1>",

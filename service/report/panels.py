@@ -1,4 +1,4 @@
-"""Plot arrays for the report, recomputed from stored artifacts with the profile's parameters.
+"""Plot arrays for the report, recomputed from stored artifacts with the recipe's parameters.
 
 Terrain: hillshade, radially averaged PSD with its power-law fit, slope histogram, from each
 arena's stored heightmap. Movement: one trial's recurrence plot, SSA pair and step-cycle

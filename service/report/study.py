@@ -1,4 +1,4 @@
-"""Gather one study's records and scores under one profile, for the report.
+"""Gather one study's records and scores under one recipe, for the report.
 
 Everything here reads the database and the artifact store through ``storage.repo``; nothing
 is computed that the pipeline did not store, except plot arrays (``service.report.panels``).
@@ -40,9 +40,9 @@ class TrialScores:
 class StudyData:
     """What the report shows, in plain Python: ids, names, values, units."""
 
-    profile_name: str
-    profile_version: int
-    profile_hash: str
+    recipe_name: str
+    recipe_version: int
+    recipe_hash: str
     parameters: dict[str, Any]
     arenas: list[Any]  # storage.models.Arena rows
     subjects: list[Any]
@@ -70,19 +70,19 @@ class StudyData:
         return any("invented" in t.lower() for t in texts)
 
 
-def _profile(session: Any, name: str | None) -> Any:
-    from service.pipeline.profiles import DEFAULT_PROFILE, ensure_default_profile
+def _recipe(session: Any, name: str | None) -> Any:
+    from service.pipeline.recipes import DEFAULT_RECIPE, ensure_default_recipe
 
-    if name is None or name == DEFAULT_PROFILE:
-        return ensure_default_profile(session)
-    return repo.get_profile(session=session, name=name)
+    if name is None or name == DEFAULT_RECIPE:
+        return ensure_default_recipe(session)
+    return repo.get_recipe(session=session, name=name)
 
 
-def _scores_by_target(session: Any, kind: str, profile_hash: str) -> dict[int, list[Any]]:
+def _scores_by_target(session: Any, kind: str, recipe_hash: str) -> dict[int, list[Any]]:
     rows = _all(
         lambda **kw: repo.list_scores(session=session, **kw),
         target_kind=kind,
-        profile_hash=profile_hash,
+        recipe_hash=recipe_hash,
     )
     out: dict[int, list[Any]] = defaultdict(list)
     for row in rows:
@@ -90,10 +90,10 @@ def _scores_by_target(session: Any, kind: str, profile_hash: str) -> dict[int, l
     return out
 
 
-def load_study(*, session: Any, profile: str | None = None, study: str | None = None) -> StudyData:
-    """The store's records (or those of study ``study``, by name) with the scores of profile
-    ``profile`` (latest ``default``); NotFound for an unknown study."""
-    prof = _profile(session, profile)
+def load_study(*, session: Any, recipe: str | None = None, study: str | None = None) -> StudyData:
+    """The store's records (or those of study ``study``, by name) with the scores of recipe
+    ``recipe`` (latest ``default``); NotFound for an unknown study."""
+    prof = _recipe(session, recipe)
     sid = None if study is None else repo.get_study_by_name(session=session, name=study).id
     arenas = _all(lambda **kw: repo.list_arenas(session=session, study_id=sid, **kw))
     subjects = _all(lambda **kw: repo.list_subjects(session=session, study_id=sid, **kw))
@@ -101,10 +101,10 @@ def load_study(*, session: Any, profile: str | None = None, study: str | None = 
     trials = _all(lambda **kw: repo.list_trials(session=session, study_id=sid, **kw))
     # Terrain and movement values exactly as the correspondence uses them (latest scored scan
     # of each arena; diagnostics left out), so figures and table agree.
-    from service.correspondence import Selection
-    from service.correspondence import load_study as load_tables
+    from service.analysis.grid import Selection
+    from service.analysis.grid import load_study as load_tables
 
-    tables = load_tables(session=session, profile_hash=prof.hash, selection=Selection(study=study))
+    tables = load_tables(session=session, recipe_hash=prof.hash, selection=Selection(study=study))
     terrain = {
         int(a): {m: float(row[m]) for m in tables.terrain_measures}
         for a, row in tables.arenas.iterrows()
@@ -143,9 +143,9 @@ def load_study(*, session: Any, profile: str | None = None, study: str | None = 
         if j.state == "failed":
             failed.append(f"{j.target_kind} {j.target_id}: {(j.error or '').strip()[:200]}")
     return StudyData(
-        profile_name=prof.name,
-        profile_version=prof.version,
-        profile_hash=prof.hash,
+        recipe_name=prof.name,
+        recipe_version=prof.version,
+        recipe_hash=prof.hash,
         parameters=dict(prof.parameters or {}),
         arenas=arenas,
         subjects=subjects,

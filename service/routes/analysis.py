@@ -9,7 +9,7 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Query, Request, Response
 from starlette.concurrency import run_in_threadpool
 
-from service.correspondence import Selection, load_study
+from service.analysis.grid import Selection, load_study
 from service.deps import ReadToken
 from storage import repo
 from storage.errors import BadInput
@@ -34,7 +34,7 @@ def _texts(values: list[str]) -> tuple[str, ...]:
 async def export_analysis_table(
     request: Request,
     token: ReadToken,
-    profile: str,
+    recipe: str,
     version: int | None = None,
     format: Literal["csv", "parquet"] = "csv",
     study: Annotated[str | None, Query(description="Limit to this study's members.")] = None,
@@ -60,12 +60,12 @@ async def export_analysis_table(
 
     def build() -> bytes:
         with request.app.state.sessionmaker() as session:
-            prof = repo.get_profile(session=session, name=profile, version=version)
-            tables = load_study(session=session, profile_hash=prof.hash, selection=selection)
+            prof = repo.get_recipe(session=session, name=recipe, version=version)
+            tables = load_study(session=session, recipe_hash=prof.hash, selection=selection)
         if tables.trials.empty:
-            raise BadInput("no scored trials in this selection under this profile")
+            raise BadInput("no scored trials in this selection under this recipe")
         frame = tables.export_table()
-        frame.insert(1, "profile", f"{prof.name}@{prof.version}")
+        frame.insert(1, "recipe", f"{prof.name}@{prof.version}")
         if format == "parquet":
             buf = io.BytesIO()
             frame.to_parquet(buf, index=False)
@@ -73,7 +73,7 @@ async def export_analysis_table(
         return frame.to_csv(index=False).encode()
 
     body = await run_in_threadpool(build)
-    stem = re.sub(r"[^A-Za-z0-9_.-]+", "_", f"{profile}-{study}" if study else profile)
+    stem = re.sub(r"[^A-Za-z0-9_.-]+", "_", f"{recipe}-{study}" if study else recipe)
     name = f"gaitscape-analysis-{stem}.{format}"
     return Response(
         body,

@@ -9,8 +9,8 @@ from fastapi.responses import PlainTextResponse
 from pydantic import Field
 from starlette.concurrency import run_in_threadpool
 
-from service.correspondence import Selection, correspondence_report, rows_csv
-from service.correspondence_local import local_report
+from service.analysis.grid import Selection, correspondence_report, rows_csv
+from service.analysis.local import local_report
 from service.deps import ReadToken
 from service.schemas import CorrespondencePublic, LocalCorrespondencePublic
 
@@ -40,7 +40,7 @@ MeasureList = Annotated[
     list[str],
     Query(
         description="Measures to pair (repeat or comma-separate). Empty: the headline "
-        "measures (service.correspondence.HEADLINE_MEASURES); 'all': every scored, "
+        "measures (service.analysis.grid.HEADLINE_MEASURES); 'all': every scored, "
         "non-diagnostic measure."
     ),
 ]
@@ -88,7 +88,7 @@ def _selection(
 async def get_correspondence(
     request: Request,
     token: ReadToken,
-    profile: str,
+    recipe: str,
     version: int | None = None,
     format: Literal["json", "csv"] = "json",
     arena_id: IntList = [],  # noqa: B006 (FastAPI copies query defaults)
@@ -124,7 +124,7 @@ async def get_correspondence(
         with request.app.state.sessionmaker() as session:
             return correspondence_report(
                 session=session,
-                profile=profile,
+                recipe=recipe,
                 version=version,
                 selection=selection,
                 n_permutations=n_permutations,
@@ -158,7 +158,7 @@ LocalPermutations = Annotated[int, Query(ge=99, le=99_999, description="Cyclic-s
 async def get_local_correspondence(
     request: Request,
     token: ReadToken,
-    profile: str,
+    recipe: str,
     version: int | None = None,
     arena_id: IntList = [],  # noqa: B006
     subject_id: IntList = [],  # noqa: B006
@@ -173,7 +173,7 @@ async def get_local_correspondence(
     selection = _selection(arena_id, subject_id, condition, trial_id, [], [], "latest")
     return await _local(
         request,
-        profile=profile,
+        recipe=recipe,
         version=version,
         selection=selection,
         window_s=window_s,
@@ -188,7 +188,7 @@ async def get_trial_local_correspondence(
     trial_id: int,
     request: Request,
     token: ReadToken,
-    profile: str,
+    recipe: str,
     version: int | None = None,
     window_s: WindowS = 2.0,
     margin_m: MarginM = None,
@@ -198,7 +198,7 @@ async def get_trial_local_correspondence(
     """Local correspondence of one overground trial (within-trial Spearman per window pair)."""
     return await _local(
         request,
-        profile=profile,
+        recipe=recipe,
         version=version,
         trial_ids=[trial_id],
         window_s=window_s,

@@ -1,4 +1,4 @@
-"""Jobs: the scoring work queued for each upload, and re-scoring under any profile."""
+"""Jobs: the scoring work queued for each upload, and re-scoring under any recipe."""
 
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ from service.routes.arenas import Limit, Offset
 from service.schemas import (
     JobDetail,
     JobsPublic,
-    ProfilePublic,
+    RecipePublic,
     RescorePublic,
     RescoreRequest,
 )
@@ -44,17 +44,17 @@ def list_jobs(
 
 @router.post("/rescore", status_code=status.HTTP_202_ACCEPTED)
 def rescore(body: RescoreRequest, session: SessionDep, token: AnalyseToken) -> RescorePublic:
-    """Queue scoring of the selected scans and trials under a profile version."""
-    profile = repo.get_profile(session=session, name=body.profile, version=body.version)
+    """Queue scoring of the selected scans and trials under a recipe version."""
+    recipe = repo.get_recipe(session=session, name=body.recipe, version=body.version)
     targets = select_targets(
         session=session, scan_ids=body.scan_ids, trial_ids=body.trial_ids,
         arena_ids=body.arena_ids, everything=body.all,
     )  # fmt: skip
     jobs = enqueue_jobs(
-        session=session, kind=SCORE_JOB_KIND, targets=targets, profile_hash=profile.hash
+        session=session, kind=SCORE_JOB_KIND, targets=targets, recipe_hash=recipe.hash
     )
     return RescorePublic(
-        profile=ProfilePublic.model_validate(profile),
+        recipe=RecipePublic.model_validate(recipe),
         job_ids=[int(j.id) for j in jobs],
         count=len(jobs),
     )

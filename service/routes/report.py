@@ -25,7 +25,7 @@ REPORT_HEADERS = {
 async def get_report(
     request: Request,
     token: ReadToken,
-    profile: str = "default",
+    recipe: str = "default",
     version: int | None = None,
     n_permutations: Annotated[int, Query(ge=99, le=99_999)] = 9999,
     n_boot: Annotated[int, Query(ge=99, le=99_999)] = 1999,
@@ -42,7 +42,7 @@ async def get_report(
             return render_report(
                 session=session,
                 store=request.app.state.store,
-                profile=profile,
+                recipe=recipe,
                 version=version,
                 n_permutations=n_permutations,
                 n_boot=n_boot,

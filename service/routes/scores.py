@@ -22,7 +22,7 @@ router = APIRouter(tags=["scores"])
 
 # Columns that identify a target in the wide table (one row each).
 WIDE_KEYS = ("target_kind", "target_id", "arena_id", "arena", "subject_id", "subject",
-             "condition", "profile", "profile_hash")  # fmt: skip
+             "condition", "recipe", "recipe_hash")  # fmt: skip
 MEDIA = {"csv": "text/csv; charset=utf-8", "json": "application/json",
          "parquet": "application/vnd.apache.parquet"}  # fmt: skip
 
@@ -34,7 +34,7 @@ class ScoreFilters(BaseModel):
     trial_id: int | None = None
     scan_id: int | None = None
     condition: str | None = None
-    profile_hash: str | None = None
+    recipe_hash: str | None = None
     measure: str | None = None
     study_id: int | None = None
 
@@ -53,18 +53,18 @@ def score_filters(
     trial_id: RowId = None,
     scan_id: RowId = None,
     condition: str | None = None,
-    profile: Annotated[str | None, Query(description="Profile name (latest version).")] = None,
-    profile_version: Annotated[int | None, Query(ge=1)] = None,
-    profile_hash: str | None = None,
+    recipe: Annotated[str | None, Query(description="Recipe name (latest version).")] = None,
+    recipe_version: Annotated[int | None, Query(ge=1)] = None,
+    recipe_hash: str | None = None,
     measure: str | None = None,
 ) -> ScoreFilters:
-    """The filters shared by the query and the export; a profile name becomes its hash, a
+    """The filters shared by the query and the export; a recipe name becomes its hash, a
     study name its id."""
-    if profile is not None:
-        profile_hash = repo.get_profile(session=session, name=profile, version=profile_version).hash
+    if recipe is not None:
+        recipe_hash = repo.get_recipe(session=session, name=recipe, version=recipe_version).hash
     return ScoreFilters(
         target_kind=target_kind, arena_id=arena_id, subject_id=subject_id, trial_id=trial_id,
-        scan_id=scan_id, condition=condition, profile_hash=profile_hash, measure=measure,
+        scan_id=scan_id, condition=condition, recipe_hash=recipe_hash, measure=measure,
         study_id=study_id,
     )  # fmt: skip
 
@@ -82,12 +82,12 @@ def list_scores(
     return ScoresPublic(data=[ScoreRowPublic.model_validate(r) for r in rows], count=count)
 
 
-def _profile_labels(session: Any) -> dict[str, str]:
+def _recipe_labels(session: Any) -> dict[str, str]:
     # Equal parameters share a hash; the earliest name and version labels it.
     labels: dict[str, str] = {}
     offset = 0
     while True:
-        rows, count = repo.list_profiles(session=session, offset=offset, limit=1000)
+        rows, count = repo.list_recipes(session=session, offset=offset, limit=1000)
         for p in rows:
             labels.setdefault(p.hash, f"{p.name} v{p.version}")
         offset += len(rows)
@@ -96,17 +96,17 @@ def _profile_labels(session: Any) -> dict[str, str]:
 
 
 def _tidy_rows(session: Any, filters: ScoreFilters) -> Iterator[dict[str, Any]]:
-    labels = _profile_labels(session)
+    labels = _recipe_labels(session)
     for row in iter_score_rows(session=session, **filters.model_dump()):
         row.pop("score_id", None)
-        row["profile"] = labels.get(row["profile_hash"], "")
+        row["recipe"] = labels.get(row["recipe_hash"], "")
         computed = row.get("computed_at")
         row["computed_at"] = None if computed is None else computed.isoformat()
         yield row
 
 
 TIDY_COLUMNS = [c for c in SCORE_ROW_COLUMNS if c != "score_id"]
-TIDY_COLUMNS.insert(TIDY_COLUMNS.index("profile_hash"), "profile")
+TIDY_COLUMNS.insert(TIDY_COLUMNS.index("recipe_hash"), "recipe")
 
 
 def _csv_lines(rows: Iterator[dict[str, Any]], columns: list[str]) -> Iterator[str]:
@@ -137,8 +137,8 @@ def _frame(rows: Iterator[dict[str, Any]], shape: str) -> Any:
         return frame
     if frame.empty:
         return pd.DataFrame(columns=list(WIDE_KEYS))
-    # A target under one profile hash is one row; its context columns are constant there.
-    ident = ["target_kind", "target_id", "profile_hash"]
+    # A target under one recipe hash is one row; its context columns are constant there.
+    ident = ["target_kind", "target_id", "recipe_hash"]
     values = frame.pivot_table(index=ident, columns="measure", values="value", aggfunc="first")
     values.columns.name = None
     context = frame[list(WIDE_KEYS)].drop_duplicates(subset=ident)

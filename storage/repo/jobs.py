@@ -33,7 +33,7 @@ def enqueue_job(
     kind: str,
     target_kind: str,
     target_id: int,
-    profile_hash: str | None = None,
+    recipe_hash: str | None = None,
     max_attempts: int = 3,
 ) -> Job:
     """Queue a job; an open (queued/running) job with the same key is returned instead."""
@@ -48,9 +48,9 @@ def enqueue_job(
             Job.kind == kind,
             Job.target_kind == target_kind,
             Job.target_id == target_id,
-            Job.profile_hash.is_(None)
-            if profile_hash is None
-            else Job.profile_hash == profile_hash,
+            Job.recipe_hash.is_(None)
+            if recipe_hash is None
+            else Job.recipe_hash == recipe_hash,
             Job.state.in_(("queued", "running")),
         )
         .order_by(Job.id)
@@ -62,7 +62,7 @@ def enqueue_job(
         kind=kind,
         target_kind=target_kind,
         target_id=target_id,
-        profile_hash=profile_hash,
+        recipe_hash=recipe_hash,
         max_attempts=max_attempts,
         state="queued",
         progress=0.0,
@@ -97,11 +97,11 @@ def list_jobs(
     kind: str | None = None,
     target_kind: str | None = None,
     target_id: int | None = None,
-    profile_hash: str | None = None,
+    recipe_hash: str | None = None,
     offset: int = 0,
     limit: int = 100,
 ) -> tuple[list[Job], int]:
-    """Jobs by id, optionally in one state, of one kind, for one target or profile hash."""
+    """Jobs by id, optionally in one state, of one kind, for one target or recipe hash."""
     stmt = select(Job).order_by(Job.id)
     if state is not None:
         if state not in JOB_STATES:
@@ -113,8 +113,8 @@ def list_jobs(
         stmt = stmt.where(Job.target_kind == target_kind)
     if target_id is not None:
         stmt = stmt.where(Job.target_id == target_id)
-    if profile_hash is not None:
-        stmt = stmt.where(Job.profile_hash == profile_hash)
+    if recipe_hash is not None:
+        stmt = stmt.where(Job.recipe_hash == recipe_hash)
     return paginate(session, stmt, offset=offset, limit=limit)
 
 
@@ -256,7 +256,7 @@ def enqueue_jobs(
     session: Session,
     kind: str,
     targets: Iterable[tuple[str, int]],
-    profile_hash: str | None = None,
+    recipe_hash: str | None = None,
     max_attempts: int = 3,
 ) -> list[Job]:
     """``enqueue_job`` for many targets in one transaction (open jobs are reused)."""
@@ -269,9 +269,9 @@ def enqueue_jobs(
         for j in session.scalars(
             select(Job).where(
                 Job.kind == kind,
-                Job.profile_hash.is_(None)
-                if profile_hash is None
-                else Job.profile_hash == profile_hash,
+                Job.recipe_hash.is_(None)
+                if recipe_hash is None
+                else Job.recipe_hash == recipe_hash,
                 Job.state.in_(("queued", "running")),
             )
         )
@@ -284,7 +284,7 @@ def enqueue_jobs(
         if job is None:
             job = Job(
                 kind=kind, target_kind=target_kind, target_id=target_id,
-                profile_hash=profile_hash, max_attempts=max_attempts, state="queued",
+                recipe_hash=recipe_hash, max_attempts=max_attempts, state="queued",
                 progress=0.0, message="queued", attempts=0,
             )  # fmt: skip
             session.add(job)

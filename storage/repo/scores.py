@@ -1,4 +1,4 @@
-"""Analysis profiles and score rows."""
+"""Analysis recipes and score rows."""
 
 from __future__ import annotations
 
@@ -12,89 +12,89 @@ from sqlalchemy import Select, and_, func, or_, select
 from sqlalchemy.orm import Session
 
 from storage.errors import BadInput, NotFound
-from storage.models import TARGET_KINDS, Arena, Profile, Scan, Score, Subject, Trial, utcnow
+from storage.models import TARGET_KINDS, Arena, Recipe, Scan, Score, Subject, Trial, utcnow
 from storage.repo._common import need_text, paginate
 from storage.repo.studies import get_study, scan_ids_in_study, trial_ids_in_study
 
 __all__ = [
-    "create_profile",
-    "get_profile",
-    "get_profile_by_hash",
+    "create_recipe",
+    "get_recipe",
+    "get_recipe_by_hash",
     "iter_score_rows",
-    "list_profiles",
+    "list_recipes",
     "list_scores",
-    "profile_hash",
     "query_scores",
+    "recipe_hash",
     "save_scores",
 ]
 
 
-def profile_hash(parameters: dict[str, Any]) -> str:
+def recipe_hash(parameters: dict[str, Any]) -> str:
     """sha256 of the parameters as canonical JSON (sorted keys, no spaces)."""
     try:
         text = json.dumps(parameters, sort_keys=True, separators=(",", ":"), allow_nan=False)
     except (TypeError, ValueError) as exc:
-        raise BadInput(f"profile parameters must be plain JSON: {exc}") from None
+        raise BadInput(f"recipe parameters must be plain JSON: {exc}") from None
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-def create_profile(
+def create_recipe(
     *, session: Session, name: str, parameters: dict[str, Any]
-) -> tuple[Profile, bool]:
-    """A new version of profile ``name``; the latest one back if its parameters are equal."""
+) -> tuple[Recipe, bool]:
+    """A new version of recipe ``name``; the latest one back if its parameters are equal."""
     name = need_text(name, name="name")
     if not isinstance(parameters, dict):
-        raise BadInput("profile parameters must be a JSON object")
-    digest = profile_hash(parameters)
+        raise BadInput("recipe parameters must be a JSON object")
+    digest = recipe_hash(parameters)
     latest = _latest(session, name)
     if latest is not None and latest.hash == digest:
         return latest, False
-    profile = Profile(
+    recipe = Recipe(
         name=name,
         version=1 if latest is None else latest.version + 1,
         parameters=json.loads(json.dumps(parameters)),
         hash=digest,
     )
-    session.add(profile)
+    session.add(recipe)
     session.commit()
-    session.refresh(profile)
-    return profile, True
+    session.refresh(recipe)
+    return recipe, True
 
 
-def _latest(session: Session, name: str) -> Profile | None:
+def _latest(session: Session, name: str) -> Recipe | None:
     return session.scalar(
-        select(Profile).where(Profile.name == name).order_by(Profile.version.desc()).limit(1)
+        select(Recipe).where(Recipe.name == name).order_by(Recipe.version.desc()).limit(1)
     )
 
 
-def get_profile(*, session: Session, name: str, version: int | None = None) -> Profile:
-    """Profile ``name`` at ``version`` (the latest when None), or NotFound."""
+def get_recipe(*, session: Session, name: str, version: int | None = None) -> Recipe:
+    """Recipe ``name`` at ``version`` (the latest when None), or NotFound."""
     if version is None:
         row = _latest(session, name)
     else:
         row = session.scalar(
-            select(Profile).where(Profile.name == name, Profile.version == version)
+            select(Recipe).where(Recipe.name == name, Recipe.version == version)
         )
     if row is None:
-        raise NotFound("profile", name if version is None else f"{name} v{version}")
+        raise NotFound("recipe", name if version is None else f"{name} v{version}")
     return row
 
 
-def get_profile_by_hash(*, session: Session, profile_hash: str) -> Profile:
-    """The earliest profile with this parameter hash, or NotFound."""
+def get_recipe_by_hash(*, session: Session, recipe_hash: str) -> Recipe:
+    """The earliest recipe with this parameter hash, or NotFound."""
     row = session.scalar(
-        select(Profile).where(Profile.hash == profile_hash).order_by(Profile.id).limit(1)
+        select(Recipe).where(Recipe.hash == recipe_hash).order_by(Recipe.id).limit(1)
     )
     if row is None:
-        raise NotFound("profile", profile_hash)
+        raise NotFound("recipe", recipe_hash)
     return row
 
 
-def list_profiles(
+def list_recipes(
     *, session: Session, offset: int = 0, limit: int = 100
-) -> tuple[list[Profile], int]:
-    """Profiles by id (every version)."""
-    return paginate(session, select(Profile).order_by(Profile.id), offset=offset, limit=limit)
+) -> tuple[list[Recipe], int]:
+    """Recipes by id (every version)."""
+    return paginate(session, select(Recipe).order_by(Recipe.id), offset=offset, limit=limit)
 
 
 def _num(value: Any) -> float | None:
@@ -109,7 +109,7 @@ def save_scores(
     session: Session,
     target_kind: str,
     target_id: int,
-    profile_hash: str,
+    recipe_hash: str,
     scores: Iterable[Any],
     code_version: str,
     input_sha256: str,
@@ -128,7 +128,7 @@ def save_scores(
             select(Score).where(
                 Score.target_kind == target_kind,
                 Score.target_id == target_id,
-                Score.profile_hash == profile_hash,
+                Score.recipe_hash == recipe_hash,
                 Score.measure.in_(names),
             )
         )
@@ -139,7 +139,7 @@ def save_scores(
         row = existing.get(item.name) or Score(
             target_kind=target_kind,
             target_id=target_id,
-            profile_hash=profile_hash,
+            recipe_hash=recipe_hash,
             measure=item.name,
         )
         row.value = _num(item.value)
@@ -160,7 +160,7 @@ def list_scores(
     session: Session,
     target_kind: str | None = None,
     target_id: int | None = None,
-    profile_hash: str | None = None,
+    recipe_hash: str | None = None,
     measure: str | None = None,
     offset: int = 0,
     limit: int = 100,
@@ -171,8 +171,8 @@ def list_scores(
         stmt = stmt.where(Score.target_kind == target_kind)
     if target_id is not None:
         stmt = stmt.where(Score.target_id == target_id)
-    if profile_hash is not None:
-        stmt = stmt.where(Score.profile_hash == profile_hash)
+    if recipe_hash is not None:
+        stmt = stmt.where(Score.recipe_hash == recipe_hash)
     if measure is not None:
         stmt = stmt.where(Score.measure == measure)
     return paginate(session, stmt, offset=offset, limit=limit)
@@ -181,7 +181,7 @@ def list_scores(
 #: Columns of a score row with its context, in export order.
 SCORE_ROW_COLUMNS = (
     "target_kind", "target_id", "arena_id", "arena", "subject_id", "subject", "condition",
-    "profile_hash", "measure", "value", "unit", "ci_low", "ci_high", "surrogate_z",
+    "recipe_hash", "measure", "value", "unit", "ci_low", "ci_high", "surrogate_z",
     "code_version", "input_sha256", "computed_at", "score_id",
 )  # fmt: skip
 
@@ -194,7 +194,7 @@ def _score_rows_stmt(
     trial_id: int | None,
     scan_id: int | None,
     condition: str | None,
-    profile_hash: str | None,
+    recipe_hash: str | None,
     measure: str | None,
     study_id: int | None = None,
 ) -> Select[Any]:
@@ -208,7 +208,7 @@ def _score_rows_stmt(
             Trial.subject_id.label("subject_id"),
             Subject.label.label("subject"),
             Trial.condition.label("condition"),
-            Score.profile_hash,
+            Score.recipe_hash,
             Score.measure,
             Score.value,
             Score.unit,
@@ -240,8 +240,8 @@ def _score_rows_stmt(
         stmt = stmt.where(Trial.subject_id == subject_id)
     if condition is not None:
         stmt = stmt.where(Trial.condition == condition)
-    if profile_hash is not None:
-        stmt = stmt.where(Score.profile_hash == profile_hash)
+    if recipe_hash is not None:
+        stmt = stmt.where(Score.recipe_hash == recipe_hash)
     if measure is not None:
         stmt = stmt.where(Score.measure == measure)
     if study_id is not None:
@@ -265,7 +265,7 @@ def query_scores(
     trial_id: int | None = None,
     scan_id: int | None = None,
     condition: str | None = None,
-    profile_hash: str | None = None,
+    recipe_hash: str | None = None,
     measure: str | None = None,
     study_id: int | None = None,
     offset: int = 0,
@@ -277,7 +277,7 @@ def query_scores(
         get_study(session=session, study_id=study_id)
     stmt = _score_rows_stmt(
         target_kind=target_kind, arena_id=arena_id, subject_id=subject_id, trial_id=trial_id,
-        scan_id=scan_id, condition=condition, profile_hash=profile_hash, measure=measure,
+        scan_id=scan_id, condition=condition, recipe_hash=recipe_hash, measure=measure,
         study_id=study_id,
     )  # fmt: skip
     if not isinstance(offset, int) or offset < 0:
@@ -297,7 +297,7 @@ def iter_score_rows(
         get_study(session=session, study_id=filters["study_id"])
     stmt = _score_rows_stmt(**{k: filters.get(k) for k in (
         "target_kind", "arena_id", "subject_id", "trial_id", "scan_id", "condition",
-        "profile_hash", "measure", "study_id",
+        "recipe_hash", "measure", "study_id",
     )})  # fmt: skip
     last = 0
     while True:

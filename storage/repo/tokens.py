@@ -25,7 +25,7 @@ __all__ = [
     "revoke_token",
 ]
 
-TOKEN_PREFIX = "gsk_"
+TOKEN_PREFIX = "gaitscape_"
 
 
 def hash_secret(secret: str) -> str:
@@ -49,14 +49,14 @@ def create_token(
     label: str = "",
     expires_at: datetime | None = None,
 ) -> tuple[Token, str]:
-    """A new token and its secret (``gsk_`` + 43 url-safe characters; shown only now)."""
+    """A new token and its secret (``gaitscape_`` + 43 url-safe characters; shown only now)."""
     if expires_at is not None and expires_at.tzinfo is None:
         raise BadInput("expires_at must be timezone-aware")
     secret = TOKEN_PREFIX + secrets.token_urlsafe(32)
     token = Token(
         label=(label or "").strip(),
         scopes=_scopes(scopes),
-        prefix=secret[:8],
+        prefix=secret[:14],
         secret_sha256=hash_secret(secret),
         expires_at=expires_at,
     )

@@ -177,7 +177,7 @@ function scoreTable(scores) {
     { label: "value", get: s => s.value, num: true },
     { label: "unit", get: s => s.unit },
     { label: "surrogate z", get: s => s.surrogate_z, num: true },
-    { label: "profile", get: s => s.profile || (s.profile_hash || "").slice(0, 10) },
+    { label: "recipe", get: s => s.recipe || (s.recipe_hash || "").slice(0, 10) },
   ], scores, scores.length + " scores");
 }
 
@@ -287,16 +287,16 @@ async function download(path, filename) {
 }
 
 async function correspondencePage() {
-  const profiles = await all("/v1/profiles");
-  const names = [...new Set(profiles.map(p => p.name))];
-  const prof = el("select", { id: "profile", name: "profile" }, names.map(n => el("option", { value: n, text: n })));
+  const recipes = await all("/v1/recipes");
+  const names = [...new Set(recipes.map(p => p.name))];
+  const prof = el("select", { id: "recipe", name: "recipe" }, names.map(n => el("option", { value: n, text: n })));
   const tSel = el("select", { id: "terrain", multiple: true, size: 6 });
   const mSel = el("select", { id: "movement", multiple: true, size: 6 });
   const run = el("button", { type: "button", id: "run", text: "Compute" });
   const dl = (label, path, file) => el("button", { type: "button", class: "secondary", onclick: () => download(path(), file).catch(showError) }, label);
-  const q = () => "profile=" + encodeURIComponent(prof.value) + (study() ? "&" + studyParam() : "");
+  const q = () => "recipe=" + encodeURIComponent(prof.value) + (study() ? "&" + studyParam() : "");
   const out = el("div", { id: "corr-out" });
-  show(el("div", { class: "controls" }, el("label", {}, "profile", prof), el("label", {}, "terrain measures", tSel),
+  show(el("div", { class: "controls" }, el("label", {}, "recipe", prof), el("label", {}, "terrain measures", tSel),
     el("label", {}, "movement measures", mSel), run),
     el("div", { class: "controls" },
       dl("Correspondence CSV", () => "/v1/correspondence?format=csv&" + q() + selected(), "correspondence.csv"),

@@ -1,0 +1,332 @@
+"""Local correspondence from stored artifacts: trial path onto the arena's heightmap.
+
+Blocking; the routes call it through ``run_in_threadpool``. The statistics are in
+:mod:`measures.correspondence.local` (non-overlapping windows, cyclic-shift p-values).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+from sqlalchemy.orm import Session
+
+from measures.errors import InsufficientDataError, InvalidParameterError
+from service.analysis.grid import (
+    Selection,
+    _all_rows,
+    _scan_time,
+    _scores_by_target,
+    _select_trials,
+    _value,
+    clean,
+)
+from storage import repo
+from storage.errors import BadInput
+
+__all__ = ["LOCAL_DEFAULTS", "local_report", "trial_windows"]
+
+# -- local correspondence ---------------------------------------------------------------------
+#: Defaults of the local analysis (query parameters override them).
+LOCAL_DEFAULTS: dict[str, Any] = {
+    "window_s": 2.0,  # non-overlapping windows: see measures.correspondence.local
+    "margin_m": None,  # None: a quarter of the subject's body length, else 0.02 m
+    "n_permutations": 999,
+}
+_FALLBACK_MARGIN_M = 0.02
+
+
+def _section(parameters: dict[str, Any], name: str, defaults: dict[str, Any]) -> dict[str, Any]:
+    sub = parameters.get(name)
+    merged = dict(defaults)
+    if isinstance(sub, dict):
+        merged.update({k: v for k, v in sub.items() if k in defaults})
+    return merged
+
+
+def _markers(session: Session, store: Any, trial: Any, p: dict[str, Any]) -> np.ndarray:
+    """Preprocessed markers (frames, markers, 3) in m: the stored artifact, else recomputed."""
+    from measures.movement.kinematics import preprocess_trial
+
+    if trial.preprocessed_sha256:
+        arr = store.get_array(trial.preprocessed_sha256)
+        if arr.ndim == 3 and arr.shape[1:] == (trial.n_markers, 3):
+            return np.asarray(arr, dtype=np.float64)
+    data = repo.load_trial_data(session=session, store=store, trial_id=trial.id)
+    pre = preprocess_trial(
+        data.markers,
+        frame_rate_hz=data.frame_rate_hz,
+        max_gap_s=p["max_gap_s"],
+        cutoff_hz=p["cutoff_hz"],
+        order=p["filter_order"],
+        remove_spikes=p["remove_spikes"],
+        spike_threshold=p["spike_threshold"],
+        min_segment_s=p["min_segment_s"],
+    )
+    return pre.markers
+
+
+def _heightmap(
+    store: Any, scan: Any
+) -> tuple[np.ndarray, tuple[float, float], tuple[float, float]]:
+    z = np.array(store.get_array(scan.heightmap_sha256), dtype=np.float64)
+    if scan.valid_mask_sha256:
+        z[~np.asarray(store.get_array(scan.valid_mask_sha256), dtype=bool)] = np.nan
+    meta = scan.meta or {}
+    origin = meta.get("grid_origin_xy_m") or (meta.get("reader") or {}).get("origin_xy_m")
+    dy = scan.grid_dy_m or scan.grid_dx_m
+    return z, (float(scan.grid_dx_m), float(dy)), tuple(origin or (0.0, 0.0))  # type: ignore[return-value]
+
+
+def _to_scan_frame(points: np.ndarray, registration: Any) -> np.ndarray:
+    """Arena-frame points into the scan's frame (``registration`` maps scan -> arena)."""
+    if not registration:
+        return points
+    mat = np.asarray(registration, dtype=np.float64).reshape(4, 4)
+    inv = np.linalg.inv(mat)
+    return points @ inv[:3, :3].T + inv[:3, 3]
+
+
+def _embedding(signal: np.ndarray, fs: float, scores: dict[str, Any], p: dict[str, Any]):
+    from measures.dynamics.embedding import embedding_dimension, first_ami_minimum
+
+    delay_s, dim = (_value(scores.get(k)) for k in ("embedding_delay_s", "embedding_dimension"))
+    delay = round(delay_s * fs) if math.isfinite(delay_s) else None
+    if p.get("embedding_delay") is not None:
+        delay = int(p["embedding_delay"])
+    if not delay:
+        delay = first_ami_minimum(signal, max_lag=max(2, min(round(0.5 * fs), signal.size // 10)))
+    if p.get("embedding_dimension") is not None:
+        dim = int(p["embedding_dimension"])
+    if not math.isfinite(dim):
+        dim = embedding_dimension(signal, delay=delay, max_dim=int(p.get("max_dimension", 8)))
+    return max(1, int(delay)), max(1, int(dim))
+
+
+def _local_scan(session: Session, trial: Any) -> Any:
+    scans = [
+        s
+        for s in _all_rows(repo.list_scans, session=session, arena_id=trial.arena_id)
+        if s.heightmap_sha256 and s.grid_dx_m
+    ]
+    if not scans:
+        raise BadInput(f"arena {trial.arena_id} has no heightmap to map trial {trial.id} onto")
+    return max(scans, key=_scan_time)
+
+
+def trial_windows(
+    *,
+    session: Session,
+    store: Any,
+    trial_id: int,
+    recipe: Any,
+    window_s: float,
+    margin_m: float | None,
+) -> dict[str, Any]:
+    """Window movement measures and the terrain patch under the animal for one trial."""
+    from measures.correspondence.local import window_movement_measures, window_terrain_patches
+    from measures.movement.bodyframe import body_frame
+    from measures.movement.kinematics import valid_segments
+    from measures.movement.summary import MOVEMENT_DEFAULTS
+    from measures.terrain.summary import TERRAIN_DEFAULTS
+
+    trial = repo.get_trial(session=session, trial_id=trial_id)
+    arena = repo.get_arena(session=session, arena_id=trial.arena_id)
+    if trial.treadmill_speed_m_s is not None or arena.kind == "treadmill":
+        raise BadInput(f"trial {trial.id} is on a treadmill; local correspondence needs overground")
+    subject = repo.get_subject(session=session, subject_id=trial.subject_id)
+    if subject.marker_set is None:
+        raise BadInput(f"subject {subject.id} has no marker roles")
+    params = recipe.parameters or {}
+    p = _section(params, "movement", MOVEMENT_DEFAULTS)
+    order = tuple(_section(params, "terrain", TERRAIN_DEFAULTS)["ordinal_order"])
+    roles, names = subject.marker_set.roles, list(trial.marker_names)
+    ant = [names.index(n) for n in np.atleast_1d(roles["anterior"])]
+    post = [names.index(n) for n in np.atleast_1d(roles["posterior"])]
+    limb = p["signal_limb"] or p["reference_limb"]
+    foot = names.index(roles["feet"][limb])
+    markers = _markers(session, store, trial, p)
+    fs = float(trial.frame_rate_hz)
+    body = body_frame(markers, anterior=ant, posterior=post, up=p["up"])
+    a, b = max(
+        valid_segments(markers, min_length=8, marker_indices=[*ant, *post, foot]),
+        key=lambda s: s[1] - s[0],
+        default=(0, 0),
+    )
+    axis = {"x": 0, "y": 1, "z": 2}[p["signal_axis"]]
+    signal = body.markers[a:b, foot, axis]
+    trial_scores = _scores_by_target(session, recipe.hash, "trial", {trial.id}).get(trial.id, {})
+    delay, dim = _embedding(signal, fs, trial_scores, p)
+    wm = window_movement_measures(
+        signal,
+        frame_rate_hz=fs,
+        window_s=window_s,
+        delay=delay,
+        dimension=dim,
+        start_time_s=a / fs,
+        recurrence_rate=p["rqa_recurrence_rate"],
+        symbol_order=p["symbol_order"],
+        seed=p["seed"],
+    )
+    scan = _local_scan(session, trial)
+    z, spacing, origin = _heightmap(store, scan)
+    if margin_m is None:
+        margin_m = subject.body_length_m / 4 if subject.body_length_m else _FALLBACK_MARGIN_M
+    path = _to_scan_frame(body.origin, scan.registration)[:, :2]
+    patches = window_terrain_patches(
+        path,
+        time_s=np.arange(markers.shape[0]) / fs,
+        window_start_s=wm.window_start_s,
+        window_stop_s=wm.window_stop_s,
+        z=z,
+        grid_spacing_m=spacing,
+        origin_xy_m=origin,
+        margin_m=margin_m,
+        ordinal_order=order,
+    )
+    return {
+        "trial_id": trial.id,
+        "arena_id": trial.arena_id,
+        "subject_id": trial.subject_id,
+        "scan_id": scan.id,
+        "embedding_delay_samples": delay,
+        "embedding_dimension": dim,
+        "margin_m": margin_m,
+        "window_start_s": wm.window_start_s,
+        "window_stop_s": wm.window_stop_s,
+        "terrain": dict(zip(patches.names, patches.values.T, strict=True)),
+        "movement": wm.values,
+        "centre_xy_m": patches.centre_xy_m,
+        "coverage": patches.coverage,
+    }
+
+
+def local_report(
+    *,
+    session: Session,
+    store: Any,
+    recipe: str,
+    version: int | None = None,
+    trial_ids: Sequence[int] = (),
+    selection: Selection = Selection(),
+    window_s: float = LOCAL_DEFAULTS["window_s"],
+    margin_m: float | None = None,
+    n_permutations: int = LOCAL_DEFAULTS["n_permutations"],
+    seed: int = 0,
+) -> dict[str, Any]:
+    """Local correspondence for the given trials (or the selection's overground trials)."""
+    from measures.correspondence.local import local_correspondence
+
+    prof = repo.get_recipe(session=session, name=recipe, version=version)
+    warnings: list[str] = []
+    ids = list(trial_ids) or [t.id for t in _select_trials(session, selection)]
+    per_trial = []
+    for tid in ids:
+        try:
+            per_trial.append(
+                trial_windows(
+                    session=session,
+                    store=store,
+                    trial_id=tid,
+                    recipe=prof,
+                    window_s=window_s,
+                    margin_m=margin_m,
+                )
+            )
+        except (BadInput, InvalidParameterError, InsufficientDataError, ValueError) as exc:
+            if trial_ids and len(ids) == 1:
+                raise
+            warnings.append(f"trial {tid} left out: {exc}")
+    if not per_trial:
+        raise BadInput("no trial in this selection could be mapped onto a heightmap")
+    t_names = list(per_trial[0]["terrain"])
+    m_names = list(per_trial[0]["movement"])
+    terrain = np.vstack([np.column_stack([w["terrain"][n] for n in t_names]) for w in per_trial])
+    movement = np.vstack([np.column_stack([w["movement"][n] for n in m_names]) for w in per_trial])
+    index = np.concatenate([np.full(len(w["window_start_s"]), k) for k, w in enumerate(per_trial)])
+    res = local_correspondence(
+        terrain,
+        movement,
+        index,
+        terrain_names=t_names,
+        movement_names=m_names,
+        n_permutations=n_permutations,
+        seed=seed,
+    )
+    rows, within = [], []
+    for r in res.rows:
+        rows.append(
+            {
+                k: getattr(r, k)
+                for k in (
+                    "terrain_measure",
+                    "movement_measure",
+                    "slope",
+                    "ci_low",
+                    "ci_high",
+                    "p_value",
+                    "mixed_p_value",
+                    "statistic",
+                    "n_trials",
+                    "n_windows",
+                )
+            }
+            | {"rho_within_median": r.rho_within_median}
+        )
+        for k, code in enumerate(res.trial_codes):
+            within.append(
+                {
+                    "trial_id": per_trial[code]["trial_id"],
+                    "terrain_measure": r.terrain_measure,
+                    "movement_measure": r.movement_measure,
+                    "spearman_rho": r.rho_within[k],
+                    "p_value": r.p_within[k],
+                }
+            )
+    if len(per_trial) < 3:
+        warnings.append(
+            f"Only {len(per_trial)} trials: the across-trial slope rests on very few groups."
+        )
+    trials_out = []
+    for w in per_trial:
+        windows = [
+            {
+                "start_s": w["window_start_s"][i],
+                "stop_s": w["window_stop_s"][i],
+                "centre_xy_m": w["centre_xy_m"][i].tolist(),
+                "coverage": w["coverage"][i],
+                **{n: w["terrain"][n][i] for n in t_names},
+                **{n: w["movement"][n][i] for n in m_names},
+            }
+            for i in range(len(w["window_start_s"]))
+        ]
+        keys = (
+            "trial_id",
+            "arena_id",
+            "subject_id",
+            "scan_id",
+            "embedding_delay_samples",
+            "embedding_dimension",
+            "margin_m",
+        )
+        trials_out.append({k: w[k] for k in keys} | {"windows": windows})
+    return clean(
+        {
+            "recipe": {"name": prof.name, "version": prof.version, "hash": prof.hash},
+            "window_s": window_s,
+            "rows": rows,
+            "within_trial": within,
+            "trials": trials_out,
+            "warnings": warnings,
+            "n_trials": len(per_trial),
+            "n_windows": int(index.size),
+            "n_permutations": res.n_permutations,
+            "method": (
+                "Non-overlapping windows; p_value from independent cyclic shifts of each "
+                "trial's terrain series (torus translation), which keeps autocorrelation; "
+                "mixed_p_value (Wald, windows exchangeable within trial) for reference only."
+            ),
+        }
+    )

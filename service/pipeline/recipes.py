@@ -1,0 +1,133 @@
+"""Analysis recipes: the complete parameter set one scoring run uses.
+
+A recipe holds every parameter, not only the ones a user changed: the stored JSON (and so
+its hash) alone fixes the computation, whatever defaults a later release ships. Sections:
+``movement`` (``measures.MOVEMENT_DEFAULTS``), ``terrain`` (``measures.TERRAIN_DEFAULTS``) and
+``heightmap`` (keyword arguments of ``measures.points_to_heightmap``). Each section carries its
+own seed, so there is no second, top-level seed to disagree with them.
+"""
+
+from __future__ import annotations
+
+import copy
+import inspect
+import json
+from collections.abc import Mapping
+from typing import Any
+
+from measures.errors import InvalidParameterError
+
+__all__ = [
+    "DEFAULT_RECIPE",
+    "SECTIONS",
+    "complete_parameters",
+    "default_parameters",
+    "ensure_default_recipe",
+    "resolve_recipe",
+]
+
+DEFAULT_RECIPE = "default"
+SECTIONS = ("movement", "terrain", "heightmap")
+# Grid spacing of rasterised scans: 1 mm, five times the ~0.2 mm resolution of small-animal
+# capture (common practice) so most cells average several points.
+DEFAULT_CELL_M = 0.001
+_FUNCTION = "analysis recipe"
+
+
+def _jsonable(value: Any) -> Any:
+    # Tuples become lists: the stored form is JSON, and the hash is taken on that form.
+    return json.loads(json.dumps(value, allow_nan=False))
+
+
+def _heightmap_defaults() -> dict[str, Any]:
+    from measures import points_to_heightmap
+
+    params = inspect.signature(points_to_heightmap).parameters
+    out = {
+        name: p.default
+        for name, p in params.items()
+        if p.kind is inspect.Parameter.KEYWORD_ONLY and p.default is not inspect.Parameter.empty
+    }
+    out["cell_m"] = DEFAULT_CELL_M
+    return out
+
+
+def default_parameters() -> dict[str, Any]:
+    """The complete default parameter set, as plain JSON."""
+    import measures
+
+    return _jsonable(
+        {
+            "movement": measures.MOVEMENT_DEFAULTS,
+            "terrain": measures.TERRAIN_DEFAULTS,
+            "heightmap": _heightmap_defaults(),
+        }
+    )
+
+
+def _check_value(section: str, key: str, value: Any, default: Any) -> None:
+    # Light type check against the default; the measures check ranges when a job runs.
+    if default is None or value is None:
+        return
+    number = (int, float)
+    same = isinstance(value, bool) == isinstance(default, bool) and (
+        (isinstance(default, number) and isinstance(value, number))
+        or isinstance(value, type(default))
+    )
+    if not same:
+        raise InvalidParameterError(
+            f"{section}.{key}", _FUNCTION, f"a {type(default).__name__} like {default!r}", value
+        )
+
+
+def complete_parameters(given: Mapping[str, Any] | None) -> dict[str, Any]:
+    """Merge ``given`` (sections of overrides) onto the defaults; reject unknown names.
+
+    Raises ``InvalidParameterError`` naming the section and key.
+    """
+    out = default_parameters()
+    for section, overrides in (given or {}).items():
+        if section not in SECTIONS:
+            raise InvalidParameterError(
+                "parameters", _FUNCTION, f"sections among {SECTIONS}", section
+            )
+        if not isinstance(overrides, Mapping):
+            raise InvalidParameterError(
+                section, _FUNCTION, "a JSON object of parameters", overrides
+            )
+        for key, value in overrides.items():
+            if key not in out[section]:
+                raise InvalidParameterError(
+                    f"{section}.{key}", _FUNCTION, f"keys among {sorted(out[section])}", key
+                )
+            _check_value(section, key, value, out[section][key])
+            out[section][key] = copy.deepcopy(value)
+    try:
+        return _jsonable(out)
+    except (TypeError, ValueError) as exc:
+        raise InvalidParameterError(
+            "parameters", _FUNCTION, "plain finite JSON", str(exc)
+        ) from None
+
+
+def ensure_default_recipe(session: Any) -> Any:
+    """Create recipe ``default`` v1 from the current defaults when no ``default`` exists."""
+    from storage import repo
+    from storage.errors import NotFound
+
+    try:
+        return repo.get_recipe(session=session, name=DEFAULT_RECIPE)
+    except NotFound:
+        recipe, _ = repo.create_recipe(
+            session=session, name=DEFAULT_RECIPE, parameters=default_parameters()
+        )
+        return recipe
+
+
+def resolve_recipe(session: Any, recipe_hash: str | None) -> Any:
+    """The recipe a job runs under: by hash, or the latest ``default`` when it names none."""
+    from storage import repo
+
+    if recipe_hash is None:
+        return ensure_default_recipe(session)
+    return repo.get_recipe_by_hash(session=session, recipe_hash=recipe_hash)

@@ -1,0 +1,177 @@
+"""Tests for measures.information.symbolic: ordinal pattern codes, binning, partitions, joint alphabets."""
+
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+import ordpy
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+
+from measures import (
+    InsufficientDataError,
+    InvalidParameterError,
+    joint_symbols,
+    ordinal_patterns,
+    quantile_symbols,
+    threshold_symbols,
+)
+
+
+def _lexicographic_rank(perms: np.ndarray) -> np.ndarray:
+    """Reference: rank of each permutation (last axis) among itertools.permutations.
+
+    itertools yields permutations in lexicographic order (Python docs), so this
+    is an obviously correct, slow implementation of the documented code.
+    """
+    d = perms.shape[-1]
+    table = {p: i for i, p in enumerate(itertools.permutations(range(d)))}
+    flat = perms.reshape(-1, d)
+    return np.array([table[tuple(int(v) for v in row)] for row in flat]).reshape(perms.shape[:-1])
+
+
+# ---------------------------------------------------------------- ordinal codes
+
+
+def test_ordinal_docstring_examples_of_ordpy():
+    # Source: ordpy 1.2.3 docstring of ordinal_sequence (general-purpose PyPI
+    # library): [4,7,9,10,6,11,3], dx=2 gives (0,1),(0,1),(0,1),(1,0),(0,1),(1,0);
+    # with taux=2: (0,1),(0,1),(1,0),(0,1),(1,0).
+    x = [4, 7, 9, 10, 6, 11, 3]
+    np.testing.assert_array_equal(
+        ordinal_patterns(x, order=2, min_windows_per_pattern=0), [0, 0, 0, 1, 0, 1]
+    )
+    np.testing.assert_array_equal(
+        ordinal_patterns(x, order=2, delay=2, min_windows_per_pattern=0), [0, 0, 1, 0, 1]
+    )
+    # Same docstring, 2D: [[1,2,1,4],[8,3,4,5],[6,7,5,6]], dx=dy=2.
+    field = [[1, 2, 1, 4], [8, 3, 4, 5], [6, 7, 5, 6]]
+    expected = _lexicographic_rank(
+        np.array(
+            [
+                [[0, 1, 3, 2], [1, 0, 2, 3], [0, 1, 2, 3]],
+                [[1, 2, 3, 0], [0, 1, 3, 2], [0, 1, 2, 3]],
+            ]
+        )
+    )
+    np.testing.assert_array_equal(
+        ordinal_patterns(field, order=(2, 2), min_windows_per_pattern=0), expected
+    )
+
+
+@pytest.mark.parametrize("order", [3, 4, 5])
+@pytest.mark.parametrize("delay", [1, 2, 3])
+def test_ordinal_codes_match_ordpy_1d_with_ties(rng, order, delay):
+    # Reference: ordpy.ordinal_sequence (stable argsort), ranked lexicographically.
+    # Integer-valued data make ties frequent, so the tie rule is exercised.
+    x = rng.integers(0, 3, size=400).astype(float)
+    ours = ordinal_patterns(x, order=order, delay=delay, min_windows_per_pattern=0)
+    ref = _lexicographic_rank(ordpy.ordinal_sequence(x, dx=order, taux=delay))
+    np.testing.assert_array_equal(ours, ref)
+
+
+@pytest.mark.parametrize("order", [(2, 2), (3, 2), (2, 3), (1, 3), (4, 1)])
+@pytest.mark.parametrize("delay", [1, 2, (1, 2)])
+def test_ordinal_codes_match_ordpy_2d(rng, order, delay):
+    # Reference: ordpy.ordinal_sequence on images (windows read row by row).
+    z = rng.normal(size=(30, 37))
+    z[::4, ::3] = 0.0  # some ties
+    tx, ty = delay if isinstance(delay, tuple) else (delay, delay)
+    ours = ordinal_patterns(z, order=order, delay=delay, min_windows_per_pattern=0)
+    ref = _lexicographic_rank(ordpy.ordinal_sequence(z, dx=order[0], dy=order[1], taux=tx, tauy=ty))
+    np.testing.assert_array_equal(ours, ref)
+
+
+def test_monotone_and_reversed_series_codes():
+    # Analytic (module convention): increasing windows are the identity
+    # permutation, code 0; decreasing windows are the reversal, code D! - 1.
+    up = np.arange(300.0)
+    assert set(ordinal_patterns(up, order=4).tolist()) == {0}
+    assert set(ordinal_patterns(up[::-1], order=4).tolist()) == {math.factorial(4) - 1}
+
+
+def test_too_few_windows_rejected():
+    # CHECKS B5 pitfall [ORACLE]: 3 x 3 patches on 512 x 512 noise give 260,100
+    # windows for 9! = 362,880 patterns; the estimate is biased (H = 0.94), so
+    # the default rule (>= 10 windows per pattern) must refuse it.
+    z = np.random.default_rng(12345).normal(size=(512, 512))
+    with pytest.raises(InsufficientDataError):
+        ordinal_patterns(z, order=(3, 3))
+    with pytest.raises(InsufficientDataError):
+        ordinal_patterns(np.arange(50.0), order=4)  # 47 windows < 240
+
+
+def test_ordinal_bad_parameters():
+    with pytest.raises(InvalidParameterError):
+        ordinal_patterns(np.arange(100.0), order=1)
+    with pytest.raises(InvalidParameterError):
+        ordinal_patterns(np.ones((10, 10)), order=3)  # a field needs (dx, dy)
+    with pytest.raises(InvalidParameterError):
+        ordinal_patterns([1.0, np.nan, 2.0, 3.0], order=2, min_windows_per_pattern=0)
+
+
+@settings(max_examples=40, deadline=None)
+@given(arrays(np.int64, st.integers(30, 120), elements=st.integers(-20, 20)))
+def test_ordinal_codes_invariant_under_increasing_maps(x):
+    # Property (Bandt & Pompe 2002: patterns depend only on order relations):
+    # a strictly increasing map, here 2 x^3 + 5 (exact in float64 for these
+    # integers, so ties are preserved), leaves every code unchanged.
+    xf = x.astype(float)
+    a = ordinal_patterns(xf, order=3, min_windows_per_pattern=0)
+    b = ordinal_patterns(2.0 * xf**3 + 5.0, order=3, min_windows_per_pattern=0)
+    np.testing.assert_array_equal(a, b)
+
+
+# ---------------------------------------------------------------- binning
+
+
+def test_quantile_symbols_equiprobable(rng):
+    # Definition (equiprobable partition, common practice): each of n_bins
+    # symbols takes N / n_bins of the samples, to within one sample for
+    # continuous data.
+    x = rng.normal(size=10_000)
+    for n_bins in (2, 3, 7):
+        counts = np.bincount(quantile_symbols(x, n_bins=n_bins))
+        assert len(counts) == n_bins
+        assert counts.max() - counts.min() <= 2
+    z = rng.normal(size=(64, 50))
+    s = quantile_symbols(z, n_bins=4)
+    assert s.shape == z.shape
+    assert np.bincount(s.ravel()).min() >= 800 - 2
+
+
+def test_quantile_symbols_order_and_ties():
+    # Equal values share a symbol, and symbols increase with the value.
+    x = np.array([3.0, 1.0, 2.0, 2.0, 2.0, 5.0])
+    s = quantile_symbols(x, n_bins=3)
+    assert len(set(s[[2, 3, 4]].tolist())) == 1
+    assert np.all(np.diff(s[np.argsort(x, kind="stable")]) >= 0)
+
+
+def test_threshold_symbols_generating_partition():
+    # Crutchfield & Feldman 2003 (CHECKS A7): symbol = [x >= 0.5] for the
+    # logistic map.
+    x = np.array([0.1, 0.5, 0.49, 0.99])
+    np.testing.assert_array_equal(threshold_symbols(x, thresholds=0.5), [0, 1, 0, 1])
+    np.testing.assert_array_equal(threshold_symbols(x, thresholds=[0.2, 0.6]), [0, 1, 1, 2])
+    with pytest.raises(InvalidParameterError):
+        threshold_symbols(x, thresholds=[0.6, 0.2])
+
+
+def test_joint_symbols_product_alphabet(rng):
+    a = rng.integers(0, 3, size=5000)
+    b = rng.integers(10, 14, size=5000)
+    j = joint_symbols([a, b])
+    # Bijection with the observed pairs (definition of a joint alphabet).
+    pairs = set(zip(a.tolist(), b.tolist(), strict=True))
+    assert j.max() + 1 == len(pairs) == 12
+    mapping = {}
+    for pair, code in zip(zip(a.tolist(), b.tolist(), strict=True), j.tolist(), strict=True):
+        assert mapping.setdefault(pair, code) == code
+    np.testing.assert_array_equal(joint_symbols(np.stack([a, b])), j)
+    with pytest.raises(InvalidParameterError):
+        joint_symbols([a, b[:-1]])
