@@ -1,4 +1,4 @@
-"""Tests for measures.information.symbolic: ordinal pattern codes, binning, partitions, joint alphabets."""
+"""Tests for measures.information.symbolic: ordinal codes, binning, partitions, joint alphabets."""
 
 from __future__ import annotations
 
