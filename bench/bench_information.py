@@ -1,7 +1,8 @@
 """Benchmarks of the shared information-theoretic estimators.
 
-Run ``python bench/bench_information.py [section ...]``; with no argument every
-section runs. Each section prints the median of a few repeats of our function
+Run ``python bench/bench_information.py [--quick] [section ...]``; with no
+section every section runs; ``--quick`` uses smaller inputs and fewer repeats
+(for a loaded machine or CI). Each section prints the median of a few repeats of our function
 and, where a general-purpose library does the same job, its median and the
 ratio (reference / ours, > 1 means we are faster). Machines are shared and
 noisy: read the ratios, not the digits.
@@ -15,8 +16,11 @@ from __future__ import annotations
 import sys
 import time
 from collections.abc import Callable
+from pathlib import Path
 
 import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # measures from the checkout
 
 
 def _median_seconds(fn: Callable[[], object], repeats: int = 5) -> float:
@@ -150,15 +154,55 @@ def bench_causal_sampen_mi_surrogates() -> None:
     _report("phase_surrogate, 1024x1024 field", ours)
 
 
+# ---------------------------------------------------------------- LZ76
+
+
+def bench_lz76() -> None:
+    """LZ76 by suffix array against the quadratic Kaspar-Schuster loop and antropy."""
+    import antropy
+
+    from measures import lz76_complexity
+    from measures.information.entropy import _lz76_phrases_quadratic, dense_symbols
+
+    rng = np.random.default_rng(0)
+    print("lz76 (ratio = reference / ours)")
+    sizes = (90_000,) if QUICK else (90_000, 300_000)
+    repeats = 1 if QUICK else 3
+    for n in sizes:
+        for label, seq in (
+            ("random binary", rng.integers(0, 2, n)),
+            ("random 6 symbols", rng.integers(0, 6, n)),
+        ):
+            dense = dense_symbols(seq, "bench", ndim=1)[0]
+            ours = _median_seconds(lambda s=seq: lz76_complexity(s), repeats=3)
+            quad = _median_seconds(lambda d=dense: _lz76_phrases_quadratic(d), repeats=repeats)
+            _report(f"lz76_complexity, {n} {label}", ours, quad, "quadratic")
+            if label == "random binary":
+                ref = _median_seconds(lambda s=seq: antropy.lziv_complexity(s), repeats=repeats)
+                _report(f"lz76_complexity, {n} {label}", ours, ref, "antropy")
+    big = rng.integers(0, 2, 1_000_000)
+    ours = _median_seconds(lambda: lz76_complexity(big), repeats=3)
+    _report("lz76_complexity, 10^6 random binary (target <= 1 s)", ours)
+    periodic = np.tile(rng.integers(0, 2, 100), 10_000)
+    ours = _median_seconds(lambda: lz76_complexity(periodic), repeats=3)
+    _report("lz76_complexity, 10^6 period-100", ours)
+
+
 SECTIONS: dict[str, Callable[[], None]] = {
     "symbolic": bench_symbolic_entropy_ordinal,
     "causal": bench_causal_sampen_mi_surrogates,
+    "lz76": bench_lz76,
 }
+
+QUICK = False
 
 
 def main(argv: list[str] | None = None) -> None:
-    """Run the named sections (all when none are given)."""
-    names = (sys.argv[1:] if argv is None else argv) or list(SECTIONS)
+    """Run the named sections (all when none are given); ``--quick`` for small inputs."""
+    global QUICK
+    args = sys.argv[1:] if argv is None else list(argv)
+    QUICK = "--quick" in args
+    names = [a for a in args if a != "--quick"] or list(SECTIONS)
     for name in names:
         if name not in SECTIONS:
             raise SystemExit(f"unknown section {name!r}; choose from {sorted(SECTIONS)}")
