@@ -15,6 +15,27 @@ lexicographically. ``(0, 1, ..., D-1)`` (an increasing window) is code 0 and
 ``(D-1, ..., 1, 0)`` (a decreasing window) is code ``D! - 1``. 2D windows are
 read row by row (``dy`` rows of ``dx`` columns) before sorting, after Ribeiro
 et al. (2012).
+
+Ties
+----
+Equal values in a window (quantised heights, integer DEMs, a scanner's
+resolution steps) have no order. ``ties="stable"`` keeps them in order of
+appearance (the earlier value ranks lower), which turns every tie into an
+increasing run and biases the pattern distribution towards the monotone
+patterns. ``ties="random"`` (seeded random tie-breaking) gives every sample
+one uniform random key and breaks each tie by it, which is the same as adding
+noise smaller than the resolution (a dither): tied windows spread over the
+orders they are compatible with. The share of windows that contain a tie
+(:func:`tie_fraction`) is reported by every ordinal function as a diagnostic;
+when it is large the pixel-scale order is simply not in the data and no tie
+rule recovers it (module tests: a smooth self-affine surface, Hurst 0.8,
+rounded to 0.05 Sq has ties in 97 % of its 2 x 2 windows and its permutation
+entropy moves by -0.13 with stable ties and +0.06 with random ones).
+References: M. Zanin et al. (2012), Entropy 14:1553 and L. Zunino et al.
+(2017), Phys. Lett. A 381:1883 discuss the bias of equal values (citations
+from memory); C. Bian et al. (2012), Phys. Rev. E 85:021906, code tied
+patterns as symbols of their own instead (not done here: it makes the
+alphabet, and the score, depend on the resolution).
 """
 
 from __future__ import annotations
@@ -34,11 +55,16 @@ from measures._validation import (
 
 __all__ = [
     "MIN_WINDOWS_PER_PATTERN",
+    "TIE_RULES",
     "joint_symbols",
     "ordinal_patterns",
     "quantile_symbols",
     "threshold_symbols",
+    "tie_fraction",
 ]
+
+#: Tie rules of the ordinal functions (module notes).
+TIE_RULES = ("stable", "random")
 
 #: Default number of windows required per possible pattern (n_windows >= 10 * D!).
 #: With fewer, most patterns are seen a handful of times and the normalised
@@ -91,14 +117,17 @@ def _window_columns(
     return [x2[r * ty : r * ty + ny, c * tx : c * tx + nx] for r in range(dy) for c in range(dx)]
 
 
-def _lehmer_codes(columns: list[NDArray[np.float64]]) -> NDArray[np.int64]:
-    """Lexicographic rank of the stable argsort permutation of each window.
+def _lehmer_codes(
+    columns: list[NDArray[np.float64]], keys: list[NDArray[np.float64]] | None = None
+) -> NDArray[np.int64]:
+    """Lexicographic rank of the argsort permutation of each window.
 
     For the sorting permutation pi, digit i of the Lehmer code is the number of
     later entries of pi smaller than pi_i. Written per window position q this
     is the number of earlier values strictly greater than x_q, placed at digit
-    rank(q); with stable ranks this needs only the D(D-1)/2 pairwise
-    comparisons, no sort (ties: the earlier value ranks lower).
+    rank(q); with a strict order this needs only the D(D-1)/2 pairwise
+    comparisons, no sort. Ties: the earlier value ranks lower (stable), or,
+    with ``keys``, the value with the smaller key ranks lower.
     """
     d = len(columns)
     shape = columns[0].shape
@@ -106,7 +135,12 @@ def _lehmer_codes(columns: list[NDArray[np.float64]]) -> NDArray[np.int64]:
     inversions = [np.zeros(shape, dtype=np.int8) for _ in range(d)]
     for q in range(1, d):
         for p in range(q):
-            earlier_not_greater = columns[p] <= columns[q]
+            if keys is None:
+                earlier_not_greater = columns[p] <= columns[q]
+            else:
+                earlier_not_greater = (columns[p] < columns[q]) | (
+                    (columns[p] == columns[q]) & (keys[p] <= keys[q])
+                )
             rank[q] += earlier_not_greater
             rank[p] += ~earlier_not_greater
             inversions[q] += ~earlier_not_greater
@@ -117,12 +151,85 @@ def _lehmer_codes(columns: list[NDArray[np.float64]]) -> NDArray[np.int64]:
     return code
 
 
+def _tied_windows(columns: list[NDArray[np.float64]]) -> NDArray[np.bool_]:
+    """True for windows holding at least two equal values."""
+    tied = np.zeros(columns[0].shape, dtype=bool)
+    for q in range(1, len(columns)):
+        for p in range(q):
+            tied |= columns[p] == columns[q]
+    return tied
+
+
+def _prepare_windows(x, order, delay, min_windows_per_pattern, fn):
+    arr = as_float_array("x", x, fn, ndim=(1, 2))
+    dx, dy = _parse_order(order, arr.ndim, fn)
+    tx, ty = _parse_delay(delay, arr.ndim, fn)
+    d = dx * dy
+    if d > _MAX_PATTERN_LENGTH:
+        raise InvalidParameterError("order", fn, f"at most {_MAX_PATTERN_LENGTH} sites", order)
+    columns = _window_columns(arr, dx, dy, tx, ty)
+    n_windows = columns[0].size
+    needed = float(min_windows_per_pattern) * math.factorial(d)
+    if n_windows < 1 or n_windows < needed:
+        raise InsufficientDataError(
+            "x",
+            fn,
+            f"long enough for >= {min_windows_per_pattern:g} windows per pattern "
+            f"({needed:.0f} windows for {math.factorial(d)} patterns; got {n_windows})",
+            arr,
+        )
+    return arr, columns, (dx, dy, tx, ty)
+
+
+def _check_ties(ties: str, fn: str) -> str:
+    if ties not in TIE_RULES:
+        raise InvalidParameterError("ties", fn, f"one of {TIE_RULES!r}", ties)
+    return ties
+
+
+def _codes_with_rule(arr, columns, geometry, ties, seed):
+    """Codes under a tie rule (random keys drawn per sample from ``seed``)."""
+    if ties == "stable":
+        return _lehmer_codes(columns)
+    dx, dy, tx, ty = geometry
+    keys = np.random.default_rng(seed).random(arr.shape)
+    return _lehmer_codes(columns, _window_columns(keys, dx, dy, tx, ty))
+
+
+def tie_fraction(
+    x: ArrayLike, *, order: int | tuple[int, int], delay: int | tuple[int, int] = 1
+) -> float:
+    """Share of the ordinal windows of a series or field that contain equal values.
+
+    Parameters
+    ----------
+    x, order, delay
+        As for :func:`ordinal_patterns`.
+
+    Returns
+    -------
+    float in [0, 1]
+        Windows with at least one pair of equal values / all windows. A
+        diagnostic of quantisation: the order inside such windows is not in
+        the data (module notes).
+
+    Examples
+    --------
+    >>> tie_fraction([1.0, 1.0, 2.0, 3.0, 3.0], order=2)
+    0.5
+    """
+    _, columns, _ = _prepare_windows(x, order, delay, 0.0, "tie_fraction")
+    return float(_tied_windows(columns).mean())
+
+
 def ordinal_patterns(
     x: ArrayLike,
     *,
     order: int | tuple[int, int],
     delay: int | tuple[int, int] = 1,
     min_windows_per_pattern: float = MIN_WINDOWS_PER_PATTERN,
+    ties: str = "stable",
+    seed: int = 0,
 ) -> NDArray[np.int64]:
     """Ordinal pattern code of every overlapping window of a series or field.
 
@@ -139,12 +246,18 @@ def ordinal_patterns(
     min_windows_per_pattern : float, default 10
         Require ``n_windows >= min_windows_per_pattern * D!`` (pass 0 to
         switch the check off, e.g. for worked examples).
+    ties : {"stable", "random"}, default "stable"
+        Tie rule (module notes): order of appearance, or seeded random
+        tie-breaking (one uniform key per sample, drawn from ``seed``).
+    seed : int, default 0
+        Seed of the random keys (``ties="random"`` only).
 
     Returns
     -------
     ndarray of int64, shape (N - (D-1) delay,) or (ny - (dy-1) delay_y, nx - (dx-1) delay_x)
-        Codes in ``0 .. D! - 1``: the lexicographic rank of the stable argsort
-        of each window (module docstring). The code order is the order of
+        Codes in ``0 .. D! - 1``: the lexicographic rank of the argsort of
+        each window (module docstring). The share of windows with ties is
+        :func:`tie_fraction`. The code order is the order of
         ordpy's ``ordinal_distribution(..., return_missing=True, ordered=True)``.
 
     Raises
@@ -163,24 +276,9 @@ def ordinal_patterns(
     array([0, 0, 0, 1, 0, 1])
     """
     fn = "ordinal_patterns"
-    arr = as_float_array("x", x, fn, ndim=(1, 2))
-    dx, dy = _parse_order(order, arr.ndim, fn)
-    tx, ty = _parse_delay(delay, arr.ndim, fn)
-    d = dx * dy
-    if d > _MAX_PATTERN_LENGTH:
-        raise InvalidParameterError("order", fn, f"at most {_MAX_PATTERN_LENGTH} sites", order)
-    columns = _window_columns(arr, dx, dy, tx, ty)
-    n_windows = columns[0].size
-    needed = float(min_windows_per_pattern) * math.factorial(d)
-    if n_windows < 1 or n_windows < needed:
-        raise InsufficientDataError(
-            "x",
-            fn,
-            f"long enough for >= {min_windows_per_pattern:g} windows per pattern "
-            f"({needed:.0f} windows for {math.factorial(d)} patterns; got {n_windows})",
-            arr,
-        )
-    codes = _lehmer_codes(columns)
+    _check_ties(ties, fn)
+    arr, columns, geometry = _prepare_windows(x, order, delay, min_windows_per_pattern, fn)
+    codes = _codes_with_rule(arr, columns, geometry, ties, seed)
     return codes.reshape(-1) if arr.ndim == 1 else codes
 
 
