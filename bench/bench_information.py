@@ -54,36 +54,49 @@ def bench_symbolic_entropy_ordinal() -> None:
         entropy_density_2d,
         lz76_complexity,
         quantile_symbols,
+        two_part_code,
     )
 
     rng = np.random.default_rng(0)
-    series = rng.normal(size=90_000)
-    field = rng.normal(size=(2048, 2048))
-    coin = rng.integers(0, 2, size=90_000)
-    print("symbolic / entropy / ordinal")
+    n = 20_000 if QUICK else 90_000
+    side = 512 if QUICK else 2048
+    series = rng.normal(size=n)
+    field = rng.normal(size=(side, side))
+    coin = rng.integers(0, 2, size=n)
+    print(f"symbolic / entropy / ordinal (series {n}, field {side}^2)")
 
     ours = _median_seconds(lambda: complexity_entropy(series, order=5))
     ref = _median_seconds(lambda: ordpy.complexity_entropy(series, dx=5))
-    _report("complexity_entropy, 90k series, D=5", ours, ref, "ordpy")
+    _report(f"complexity_entropy, {n} series, D=5", ours, ref, "ordpy")
+    quantised = np.round(series * 4) / 4
+    ours = _median_seconds(lambda: complexity_entropy(quantised, order=5, ties="random"))
+    ref = _median_seconds(lambda: complexity_entropy(quantised, order=5))
+    _report(f"complexity_entropy, {n} quantised, ties random", ours, ref, "stable")
 
-    small = field[:512, :512]
+    small = field[: side // 4, : side // 4] if QUICK else field[:512, :512]
     ours = _median_seconds(lambda: complexity_entropy(small, order=(2, 2)))
     ref = _median_seconds(lambda: ordpy.complexity_entropy(small, dx=2, dy=2), repeats=3)
-    _report("complexity_entropy, 512x512 field, 2x2", ours, ref, "ordpy")
+    _report(f"complexity_entropy, {small.shape} field, 2x2", ours, ref, "ordpy")
 
     ours = _median_seconds(lambda: complexity_entropy(field, order=(2, 2)), repeats=3)
-    _report("complexity_entropy, 2048x2048 field, 2x2", ours)
+    _report(f"complexity_entropy, {side}x{side} field, 2x2", ours)
 
     ours = _median_seconds(lambda: block_entropies(coin))
-    _report("block_entropies, 90k binary, default L", ours)
+    _report(f"block_entropies, {n} binary, default L", ours)
 
     binned = quantile_symbols(field, n_bins=2)
     ours = _median_seconds(lambda: entropy_density_2d(binned), repeats=3)
-    _report("entropy_density_2d, 2048x2048 binary, default M", ours)
+    _report(f"entropy_density_2d, {side}x{side} binary, default M", ours)
 
     ours = _median_seconds(lambda: lz76_complexity(coin), repeats=3)
     ref = _median_seconds(lambda: antropy.lziv_complexity(coin), repeats=3)
-    _report("lz76_complexity, 90k binary", ours, ref, "antropy")
+    _report(f"lz76_complexity, {n} binary", ours, ref, "antropy")
+
+    ours = _median_seconds(lambda: two_part_code(coin), repeats=3)
+    ref = _median_seconds(lambda: block_entropies(coin), repeats=3)
+    _report(f"two_part_code, {n} binary, default windows", ours, ref, "block_entropies")
+    ours = _median_seconds(lambda: two_part_code(binned), repeats=3)
+    _report(f"two_part_code, {side}x{side} binary field, 64x64 tiles", ours)
 
 
 # ---------------------------------------------------------------- causal, sampen, MI, surrogates
@@ -116,25 +129,26 @@ def bench_causal_sampen_mi_surrogates() -> None:
     )
 
     rng = np.random.default_rng(0)
-    golden = _golden_mean(90_000)
-    series = rng.normal(size=90_000)
+    n = 20_000 if QUICK else 90_000
+    golden = _golden_mean(n)
+    series = rng.normal(size=n)
     short = series[:20_000]
     print("causal / description / sampen / mutual information / surrogates")
 
     ours = _median_seconds(lambda: causal_states(golden, max_history=6), repeats=3)
-    _report("causal_states, 90k golden mean, L=6", ours)
+    _report(f"causal_states, {n} golden mean, L=6", ours)
     ours = _median_seconds(lambda: causal_states(golden), repeats=3)
-    _report("causal_states, 90k golden mean, default L (9)", ours)
+    _report(f"causal_states, {n} golden mean, default L", ours)
     ours = _median_seconds(lambda: two_part_code(golden), repeats=3)
-    _report("two_part_code, 90k golden mean, default windows", ours)
+    _report(f"two_part_code, {n} golden mean, default windows", ours)
 
     ours = _median_seconds(lambda: sample_entropy(short), repeats=3)
     ref = _median_seconds(lambda: antropy.sample_entropy(short), repeats=3)
     _report("sample_entropy, 20k, m=2", ours, ref, "antropy")
     ours = _median_seconds(lambda: sample_entropy(series), repeats=3)
-    _report("sample_entropy, 90k, m=2", ours)
+    _report(f"sample_entropy, {n}, m=2", ours)
     ours = _median_seconds(lambda: multiscale_entropy(series), repeats=3)
-    _report("multiscale_entropy, 90k, scales 1..20", ours)
+    _report(f"multiscale_entropy, {n}, scales 1..20", ours)
 
     x = series[:20_000]
     y = x + rng.normal(size=x.size)
@@ -146,12 +160,14 @@ def bench_causal_sampen_mi_surrogates() -> None:
 
     ours = _median_seconds(lambda: iaaft_surrogate(series[:4096] ** 3, seed=1), repeats=3)
     _report("iaaft_surrogate, 4096 samples, defaults (<=200 it.)", ours)
-    field = rng.normal(size=(256, 256)) ** 2
+    fside = 128 if QUICK else 256
+    field = rng.normal(size=(fside, fside)) ** 2
     ours = _median_seconds(lambda: iaaft_surrogate(field, seed=1), repeats=3)
-    _report("iaaft_surrogate, 256x256 field, defaults (<=200 it.)", ours)
-    big = rng.normal(size=(1024, 1024))
+    _report(f"iaaft_surrogate, {fside}x{fside} field, defaults (<=200 it.)", ours)
+    bside = 512 if QUICK else 1024
+    big = rng.normal(size=(bside, bside))
     ours = _median_seconds(lambda: phase_surrogate(big, seed=1), repeats=3)
-    _report("phase_surrogate, 1024x1024 field", ours)
+    _report(f"phase_surrogate, {bside}x{bside} field", ours)
 
 
 # ---------------------------------------------------------------- LZ76
@@ -231,17 +247,20 @@ def bench_surrogates() -> None:
     )
     _report("surrogate_zscore PE 2x2, 512x512, phase", ours)
     trial = np.cumsum(rng.standard_normal((9000 if QUICK else 90_000, 7)), axis=0)
-    ours = _median_seconds(
-        lambda: surrogate_zscore(
-            lambda a: float(np.std(np.diff(a[:, 0]))),
-            trial,
-            n_surrogates=n_sur,
-            method="iaaft",
-            multichannel=True,
-        ),
-        repeats=1,
-    )
-    _report(f"surrogate_zscore multichannel IAAFT, {trial.shape}", ours)
+    for cap in (20, None):
+        ours = _median_seconds(
+            lambda c=cap: surrogate_zscore(
+                lambda a: float(np.std(np.diff(a[:, 0]))),
+                trial,
+                n_surrogates=n_sur,
+                method="iaaft",
+                multichannel=True,
+                max_iter=c,
+            ),
+            repeats=1,
+        )
+        label = "default (<=200)" if cap is None else f"<={cap}"
+        _report(f"zscore mc IAAFT {trial.shape}, {n_sur} sur., it. {label}", ours)
 
 
 SECTIONS: dict[str, Callable[[], None]] = {

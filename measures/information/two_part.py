@@ -84,12 +84,12 @@ from measures._validation import (
 from measures.information._counting import dense_symbols
 from measures.information.entropy import causal_neighbourhood
 
-__all__ = ["DEFAULT_WINDOW", "TwoPartCode", "two_part_code"]
+__all__ = ["TWO_PART_WINDOW", "TwoPartCode", "two_part_code"]
 
 _FUNC = "two_part_code"
 
 #: Sites per window by default: 4096 symbols in 1D, a 64 x 64 tile in 2D.
-DEFAULT_WINDOW = 4096
+TWO_PART_WINDOW = 4096
 
 # Context-size cap: at least 8 sites per possible (context, symbol) cell.
 _SITES_PER_CELL = 8
@@ -194,7 +194,7 @@ def _fits(offsets: tuple[tuple[int, ...], ...], shape: tuple[int, ...]) -> bool:
 def _windows(dense: NDArray[np.int64], window: int | tuple[int, int] | None):
     """Cut the input into full windows, shape (n_win, *window_shape)."""
     if dense.ndim == 1:
-        w = DEFAULT_WINDOW if window is None else window
+        w = TWO_PART_WINDOW if window is None else window
         if isinstance(w, tuple):
             if len(w) != 1:
                 raise InvalidParameterError("window", _FUNC, "an int for a 1D input", window)
@@ -205,7 +205,7 @@ def _windows(dense: NDArray[np.int64], window: int | tuple[int, int] | None):
         n_win = dense.size // w
         return dense[: n_win * w].reshape(n_win, w), (w,), comparable
     if window is None or isinstance(window, (int, np.integer)):
-        side = math.isqrt(DEFAULT_WINDOW if window is None else int(window))
+        side = math.isqrt(TWO_PART_WINDOW if window is None else int(window))
         shape = (side, side)
     else:
         if len(window) != 2:
