@@ -28,18 +28,33 @@ How this implementation works
    States whose histories disagree on a successor are split until none do;
    unobserved successors are compatible with any. A state holding only
    length-L histories uses the state of the length-L suffix of xb instead.
-4. The closed strongly connected class of the state graph carrying the most
-   data is kept (transient states are dropped); its stationary distribution
-   gives C_mu and h_mu.
+4. Every closed strongly connected class of the state graph is a candidate
+   machine (transient states are dropped). Each is synchronised on the
+   sequence (:meth:`CausalStateModel.state_sequence`) and the one that
+   explains the largest share of the sequence is kept (ties: the one carrying
+   the most data); its stationary distribution gives C_mu and h_mu.
+5. Coverage check: ``synchronised_fraction`` is the share of the N - 1
+   predicted symbols that the kept machine is synchronised on *and* that it
+   allows (non-zero emission probability). A correct machine misses only the
+   symbols before synchronisation (about L at the start, plus transient
+   stretches such as long runs of 1 in the even process), so it explains
+   nearly everything. Below :data:`SYNCHRONISED_THRESHOLD` (0.95) the result is
+   flagged ``reliable=False`` with a ``note``: the machine describes only part
+   of the data (typically a history length too short for the structure, e.g.
+   a long period) and its C_mu and h_mu must not be reported as the process's.
 
 Defaults (stated rules)
 -----------------------
 * ``max_history=None``: the largest L >= 1 with ``50 * k**(L + 1) <= N``, so
   that every (history, next symbol) cell has about 50 expected counts at a
-  uniform spread (a working rule, see the module tests). Fewer than
-  ``50 * k**2`` symbols raise :class:`InsufficientDataError`. A constant
-  sequence (k = 1) gets L = 1 and one state.
-* ``alpha=None``: ``alpha = 0.01 / k**(L + 1)``. One run makes about
+  uniform spread (a working rule, see the module tests). A sequence whose
+  words saturate supports more: if W(d + 1) = W(d) for some d with
+  ``50 * W(d + 1) <= N`` (W(j) the number of distinct j-words observed; the
+  last d symbols then fix the next one, as in a periodic sequence), L is at
+  least d + 1, because transitions are read off histories of length L - 1.
+  Fewer than ``50 * k**2`` symbols raise :class:`InsufficientDataError`. A
+  constant sequence (k = 1) gets L = 1 and one state.
+* ``alpha=None``: ``alpha = 0.01 / k**(L + 1)``. One run makes at most about
   ``k**(L + 1)`` tests (one per child history), so the expected number of false
   splits per run is at most about 0.01 (a Bonferroni-style bound).
 * An explicit ``max_history`` with ``k**(max_history + 1) > N`` (more possible
@@ -57,7 +72,7 @@ observed: levels of entropy convergence", Chaos 13:25-54.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -67,7 +82,10 @@ from scipy.sparse.csgraph import connected_components
 from measures._validation import InsufficientDataError, InvalidParameterError
 from measures.information._homogeneity import homogeneity_pvalue
 
-__all__ = ["CausalStateModel", "causal_states"]
+__all__ = ["SYNCHRONISED_THRESHOLD", "CausalStateModel", "causal_states"]
+
+#: Share of the predicted symbols a machine must explain to be ``reliable``.
+SYNCHRONISED_THRESHOLD = 0.95
 
 _FUNC = "causal_states"
 _CELL_COUNT = 50  # expected counts per (history, symbol) cell for the default L
@@ -103,6 +121,14 @@ class CausalStateModel:
         The history length and per-test level actually used.
     n_symbols : int
         Length of the input sequence.
+    synchronised_fraction : float
+        Share of the N - 1 predicted symbols on which the machine is
+        synchronised and which it allows (see the module notes).
+    reliable : bool
+        ``synchronised_fraction >= SYNCHRONISED_THRESHOLD``.
+    note : str
+        Empty when reliable, else why the machine must not be used as the
+        process's causal states.
     """
 
     statistical_complexity: float
@@ -116,6 +142,9 @@ class CausalStateModel:
     max_history: int
     alpha: float
     n_symbols: int
+    synchronised_fraction: float
+    reliable: bool
+    note: str
     # History code -> state lookups (codes in base k, newest symbol least
     # significant) used to synchronise the machine on a sequence.
     _lookup_long: tuple[NDArray[np.int64], NDArray[np.int64]] = field(repr=False)
@@ -200,7 +229,7 @@ def causal_states(
     alphabet, s = np.unique(raw, return_inverse=True)
     s = s.astype(np.int64)
     k, n = alphabet.size, s.size
-    L = _choose_history(max_history, k, n)
+    L = _choose_history(max_history, k, n, s)
     if alpha is None:
         alpha = _FAMILY_ERROR / float(k) ** (L + 1)
     elif not (isinstance(alpha, (int, float)) and 0.0 < alpha < 1.0):
@@ -211,19 +240,47 @@ def causal_states(
         return _single_symbol_model(alphabet, L, float(alpha), n)
     assign, members = _split_states(levels, k, L, float(alpha))
     _determinise(levels, assign, members, k, L)
-    return _build_model(levels, assign, members, alphabet, L, float(alpha), n)
+    return _best_model(levels, assign, members, alphabet, L, float(alpha), s)
 
 
 # ----------------------------------------------------------------------------- helpers
 
 
-def _choose_history(max_history: int | None, k: int, n: int) -> int:
+def _distinct_words(s: NDArray[np.int64], k: int, length: int) -> int:
+    """Number of distinct words of ``length`` symbols in ``s`` (W(length))."""
+    if length > s.size:
+        return 0
+    return int(np.unique(_window_codes(s, k, length)).size)
+
+
+def _determining_history(s: NDArray[np.int64], k: int, n: int) -> int:
+    """One more than the first d with W(d + 1) = W(d), if 50 * W(d + 1) <= N; else 0.
+
+    W(d + 1) = W(d) means every d-word has one continuation: the last d symbols
+    fix the next one (a periodic or otherwise saturated sequence). CSSR reads
+    transitions off histories of length L - 1, so L = d + 1.
+    """
+    previous = k
+    d = 1
+    while float(k) ** (d + 1) < _MAX_CODE and d + 1 <= n:
+        words = _distinct_words(s, k, d + 1)
+        if _CELL_COUNT * words > n:
+            return 0
+        if words == previous:
+            return d + 1 if float(k) ** (d + 2) < _MAX_CODE else 0
+        previous = words
+        d += 1
+    return 0
+
+
+def _choose_history(max_history: int | None, k: int, n: int, s: NDArray[np.int64]) -> int:
     if max_history is None:
         if k == 1:  # a constant sequence: every history length gives one state
             return 1
         L = 0
         while _CELL_COUNT * float(k) ** (L + 2) <= n and float(k) ** (L + 2) < _MAX_CODE:
             L += 1
+        L = max(L, _determining_history(s, k, n))
         if L < 1:
             raise InsufficientDataError(
                 "symbols", _FUNC, f"at least {_CELL_COUNT * k**2} symbols for {k} distinct ones", n
@@ -418,7 +475,8 @@ def _apply_split(levels, assign, members, st, holders, groups, k, L):
         members[gid] = [m for m in all_members if assign[m[0]][m[1]] == gid]
 
 
-def _build_model(levels, assign, members, alphabet, L, alpha, n):
+def _best_model(levels, assign, members, alphabet, L, alpha, s):
+    """The candidate machine (closed class) that explains most of ``s``."""
     k = alphabet.size
     n_all = len(members)
     trans = np.full((n_all, k), -1, dtype=np.int64)
@@ -428,7 +486,38 @@ def _build_model(levels, assign, members, alphabet, L, alpha, n):
         if holders:
             trans[st] = np.max(sigs, axis=0)
             counts[st] = sum(levels[lev][1][i] for lev, i in holders)
-    keep = _closed_class(trans, counts)
+    best = None
+    for keep in _closed_classes(trans, counts):  # heaviest first
+        model = _build_model(levels, assign, alphabet, L, alpha, s.size, trans, counts, keep)
+        fraction = _synchronised_fraction(model, s)
+        if best is None or fraction > best[0]:
+            best = (fraction, model)
+    fraction, model = best
+    reliable = fraction >= SYNCHRONISED_THRESHOLD
+    note = ""
+    if not reliable:
+        note = (
+            f"machine explains {fraction:.0%} of the sequence (< {SYNCHRONISED_THRESHOLD:.0%}): "
+            f"histories of length {L} do not capture the structure; C_mu and h_mu are not "
+            "the process's"
+        )
+    return replace(model, synchronised_fraction=fraction, reliable=reliable, note=note)
+
+
+def _synchronised_fraction(model: CausalStateModel, s: NDArray[np.int64]) -> float:
+    """Share of the N - 1 predicted symbols the machine is synchronised on and allows."""
+    if s.size < 2:
+        return 1.0
+    states = model.state_sequence(model.alphabet[s])
+    pred, nxt = states[:-1], s[1:]
+    ok = pred >= 0
+    explained = np.zeros(pred.size, dtype=bool)
+    explained[ok] = model.emission_probabilities[pred[ok], nxt[ok]] > 0
+    return float(explained.mean())
+
+
+def _build_model(levels, assign, alphabet, L, alpha, n, trans, counts, keep):
+    n_all = trans.shape[0]
     remap = np.full(n_all, -1, dtype=np.int64)
     remap[keep] = np.arange(keep.size)
     t_kept = np.where(trans[keep] >= 0, remap[np.maximum(trans[keep], 0)], -1)
@@ -451,13 +540,16 @@ def _build_model(levels, assign, members, alphabet, L, alpha, n):
         max_history=L,
         alpha=alpha,
         n_symbols=n,
+        synchronised_fraction=float("nan"),
+        reliable=False,
+        note="coverage not checked",
         _lookup_long=look_long,
         _lookup_short=look_short,
     )
 
 
-def _closed_class(trans, counts) -> NDArray[np.int64]:
-    """States of the closed strongly connected class carrying the most counts."""
+def _closed_classes(trans, counts) -> list[NDArray[np.int64]]:
+    """States of each closed strongly connected class, heaviest (most counts) first."""
     n_all = trans.shape[0]
     src, dst = np.nonzero((trans >= 0) & (counts > 0))
     tgt = trans[src, dst]
@@ -468,8 +560,10 @@ def _closed_class(trans, counts) -> NDArray[np.int64]:
     weight = np.bincount(label, weights=counts.sum(axis=1), minlength=n_comp)
     has_out = np.bincount(label[src], minlength=n_comp) > 0
     candidates = np.nonzero(leaves & has_out)[0]
-    best = candidates[np.argmax(weight[candidates])] if candidates.size else np.argmax(weight)
-    return np.nonzero(label == best)[0]
+    if not candidates.size:
+        candidates = np.array([int(np.argmax(weight))])
+    order = candidates[np.argsort(-weight[candidates], kind="stable")]
+    return [np.nonzero(label == c)[0] for c in order]
 
 
 def _stationary(trans, probs) -> NDArray[np.float64]:
@@ -523,6 +617,9 @@ def _single_symbol_model(alphabet, L, alpha, n) -> CausalStateModel:
         max_history=L,
         alpha=alpha,
         n_symbols=n,
+        synchronised_fraction=1.0,
+        reliable=True,
+        note="",
         _lookup_long=one,
         _lookup_short=one if L >= 1 else empty,
     )

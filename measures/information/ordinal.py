@@ -2,7 +2,17 @@
 
 The same functions take a series ``(N,)`` with ``order=int`` and a field
 ``(ny, nx)`` with ``order=(dx, dy)``; pattern codes come from
-:func:`measures.ordinal_patterns` (stable ties, lexicographic codes).
+:func:`measures.ordinal_patterns` (lexicographic codes).
+
+Ties: every function here takes ``ties="stable" | "random"`` (see
+:mod:`measures.information.symbolic`) and reports the share of windows with
+ties. :func:`complexity_entropy` keeps ``ties="stable"`` as its default (its
+documented contract); the movement and terrain summaries pass
+``ties="random"``, which makes the score far less sensitive to quantisation.
+With ``ties="random"``, ``n_draws`` distributions from independent keys are
+averaged; one draw is the default because the draw-to-draw spread of the
+frequencies is about sqrt(p / n_windows), far below the estimation error, for
+any input long enough for the 10-windows-per-pattern rule.
 """
 
 from __future__ import annotations
@@ -14,9 +24,16 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from measures._validation import InvalidParameterError, check_positive_int
-from measures.information.symbolic import MIN_WINDOWS_PER_PATTERN, ordinal_patterns
+from measures.information.symbolic import (
+    MIN_WINDOWS_PER_PATTERN,
+    _check_ties,
+    _codes_with_rule,
+    _prepare_windows,
+    _tied_windows,
+)
 
 __all__ = [
+    "ComplexityEntropy",
     "ComplexityEntropyBounds",
     "OrdinalDistribution",
     "complexity_entropy",
@@ -37,12 +54,21 @@ class OrdinalDistribution:
     n_windows : int
     order : int or (int, int)
     delay : int or (int, int)
+    tie_fraction : float
+        Share of windows holding equal values (a quantisation diagnostic).
+    ties : str
+        The tie rule used, ``"stable"`` or ``"random"``.
+    n_draws : int
+        Random tie-breaking draws averaged (1 for stable ties).
     """
 
     probabilities: NDArray[np.float64]
     n_windows: int
     order: int | tuple[int, int]
     delay: int | tuple[int, int]
+    tie_fraction: float = 0.0
+    ties: str = "stable"
+    n_draws: int = 1
 
     @property
     def n_patterns(self) -> int:
@@ -56,13 +82,21 @@ def ordinal_distribution(
     order: int | tuple[int, int],
     delay: int | tuple[int, int] = 1,
     min_windows_per_pattern: float = MIN_WINDOWS_PER_PATTERN,
+    ties: str = "stable",
+    n_draws: int = 1,
+    seed: int = 0,
 ) -> OrdinalDistribution:
     """Probability vector of ordinal patterns of a series or field.
 
     Parameters
     ----------
-    x, order, delay, min_windows_per_pattern
+    x, order, delay, min_windows_per_pattern, ties
         As for :func:`measures.ordinal_patterns`.
+    n_draws : int, default 1
+        With ``ties="random"``: number of independent tie-breaking draws whose
+        frequencies are averaged (draws are skipped when nothing is tied).
+    seed : int, default 0
+        Seed of the draws (seeds of the draws are spawned from it).
 
     Returns
     -------
@@ -80,13 +114,32 @@ def ordinal_distribution(
     >>> ordinal_distribution(np.arange(100.0), order=3).probabilities
     array([1., 0., 0., 0., 0., 0.])
     """
-    codes = ordinal_patterns(
-        x, order=order, delay=delay, min_windows_per_pattern=min_windows_per_pattern
-    )
-    d = int(order) if np.ndim(x) == 1 else int(order[0]) * int(order[1])  # type: ignore[index]
-    counts = np.bincount(codes.ravel(), minlength=math.factorial(d))
+    fn = "ordinal_distribution"
+    _check_ties(ties, fn)
+    n_draws = check_positive_int("n_draws", n_draws, fn)
+    arr, columns, geometry = _prepare_windows(x, order, delay, min_windows_per_pattern, fn)
+    d = geometry[0] * geometry[1]
+    tied = float(_tied_windows(columns).mean())
+    if ties == "stable" or tied == 0.0:
+        draw_seeds: list = [None]
+        ties_used, draws = ties, 1
+    else:
+        draw_seeds = np.random.SeedSequence(seed).spawn(n_draws) if n_draws > 1 else [seed]
+        ties_used, draws = ties, n_draws
+    counts = np.zeros(math.factorial(d))
+    n_windows = columns[0].size
+    for draw_seed in draw_seeds:
+        rule = "stable" if draw_seed is None else "random"
+        codes = _codes_with_rule(arr, columns, geometry, rule, draw_seed)
+        counts += np.bincount(codes.ravel(), minlength=counts.size)
     return OrdinalDistribution(
-        probabilities=counts / codes.size, n_windows=int(codes.size), order=order, delay=delay
+        probabilities=counts / (n_windows * len(draw_seeds)),
+        n_windows=int(n_windows),
+        order=order,
+        delay=delay,
+        tie_fraction=tied,
+        ties=ties_used,
+        n_draws=draws,
     )
 
 
@@ -135,12 +188,52 @@ def jensen_shannon_complexity(
     return np.clip(h, 0.0, 1.0) + 0.0, np.clip(q0 * js * h, 0.0, 1.0) + 0.0
 
 
+class ComplexityEntropy(tuple):
+    """``(H, C)`` as a plain pair, with the tie diagnostic as attributes.
+
+    Unpacks and compares like the tuple ``(H, C)`` (the documented return of
+    :func:`complexity_entropy`); ``tie_fraction``, ``ties`` and ``n_windows``
+    ride along.
+    """
+
+    tie_fraction: float
+    ties: str
+    n_windows: int
+
+    def __new__(
+        cls, h: float, c: float, *, tie_fraction: float, ties: str, n_windows: int
+    ) -> ComplexityEntropy:
+        obj = super().__new__(cls, (h, c))
+        obj.tie_fraction = tie_fraction
+        obj.ties = ties
+        obj.n_windows = n_windows
+        return obj
+
+    def __getnewargs_ex__(self) -> tuple[tuple[float, float], dict]:
+        # Pickle support (results cross process pools).
+        kwargs = {"tie_fraction": self.tie_fraction, "ties": self.ties, "n_windows": self.n_windows}
+        return (self[0], self[1]), kwargs
+
+    @property
+    def entropy(self) -> float:
+        """H, the normalised permutation entropy."""
+        return self[0]
+
+    @property
+    def complexity(self) -> float:
+        """C, the Jensen-Shannon statistical complexity."""
+        return self[1]
+
+
 def complexity_entropy(
     x: ArrayLike,
     *,
     order: int | tuple[int, int],
     delay: int | tuple[int, int] = 1,
-) -> tuple[float, float]:
+    ties: str = "stable",
+    n_draws: int = 1,
+    seed: int = 0,
+) -> ComplexityEntropy:
     """Normalised permutation entropy and Jensen-Shannon statistical complexity.
 
     Parameters
@@ -151,13 +244,22 @@ def complexity_entropy(
         Pattern length D for a series; patch ``(dx, dy)`` for a field.
     delay : int or (int, int), default 1
         Embedding delay in samples (a pair ``(delay_x, delay_y)`` for fields).
+    ties : {"stable", "random"}, default "stable"
+        ``"stable"``: ties keep order of appearance (stable sort), the
+        documented default. ``"random"``: seeded random tie-breaking, far less
+        sensitive to quantisation (see :mod:`measures.information.symbolic`);
+        the summaries use it.
+    n_draws, seed
+        Random tie-breaking draws averaged, and their seed (``ties="random"``).
 
     Returns
     -------
-    (H, C) : tuple of float, both in [0, 1]
-        H = S[P] / ln D!, C = Q_J[P, U] H (see :func:`jensen_shannon_complexity`).
-        Ties keep order of appearance. Requires at least 10 windows per
-        possible pattern (:data:`measures.MIN_WINDOWS_PER_PATTERN`).
+    ComplexityEntropy
+        The pair ``(H, C)``, both in [0, 1]: H = S[P] / ln D!,
+        C = Q_J[P, U] H (see :func:`jensen_shannon_complexity`); attributes
+        ``tie_fraction`` (share of windows with equal values), ``ties`` and
+        ``n_windows``. Requires at least 10 windows per possible pattern
+        (:data:`measures.MIN_WINDOWS_PER_PATTERN`).
 
     References
     ----------
@@ -171,9 +273,15 @@ def complexity_entropy(
     >>> complexity_entropy(np.arange(100.0), order=3)
     (0.0, 0.0)
     """
-    dist = ordinal_distribution(x, order=order, delay=delay)
+    dist = ordinal_distribution(x, order=order, delay=delay, ties=ties, n_draws=n_draws, seed=seed)
     h, c = jensen_shannon_complexity(dist.probabilities)
-    return float(h), float(c)
+    return ComplexityEntropy(
+        float(h),
+        float(c),
+        tie_fraction=dist.tie_fraction,
+        ties=dist.ties,
+        n_windows=dist.n_windows,
+    )
 
 
 def _grouped_complexity(

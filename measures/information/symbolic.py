@@ -15,12 +15,34 @@ lexicographically. ``(0, 1, ..., D-1)`` (an increasing window) is code 0 and
 ``(D-1, ..., 1, 0)`` (a decreasing window) is code ``D! - 1``. 2D windows are
 read row by row (``dy`` rows of ``dx`` columns) before sorting, after Ribeiro
 et al. (2012).
+
+Ties
+----
+Equal values in a window (quantised heights, integer DEMs, a scanner's
+resolution steps) have no order. ``ties="stable"`` keeps them in order of
+appearance (the earlier value ranks lower), which turns every tie into an
+increasing run and biases the pattern distribution towards the monotone
+patterns. ``ties="random"`` (seeded random tie-breaking) gives every sample
+one uniform random key and breaks each tie by it, which is the same as adding
+noise smaller than the resolution (a dither): tied windows spread over the
+orders they are compatible with. The share of windows that contain a tie
+(:func:`tie_fraction`) is reported by every ordinal function as a diagnostic;
+when it is large the pixel-scale order is simply not in the data and no tie
+rule recovers it (module tests: a smooth self-affine surface, Hurst 0.8,
+rounded to 0.05 Sq has ties in 97 % of its 2 x 2 windows and its permutation
+entropy moves by -0.13 with stable ties and +0.06 with random ones).
+References: M. Zanin et al. (2012), Entropy 14:1553 and L. Zunino et al.
+(2017), Phys. Lett. A 381:1883 discuss the bias of equal values (citations
+from memory); C. Bian et al. (2012), Phys. Rev. E 85:021906, code tied
+patterns as symbols of their own instead (not done here: it makes the
+alphabet, and the score, depend on the resolution).
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -34,11 +56,19 @@ from measures._validation import (
 
 __all__ = [
     "MIN_WINDOWS_PER_PATTERN",
+    "STATE_CELL_COUNT",
+    "TIE_RULES",
+    "StateSymbols",
     "joint_symbols",
     "ordinal_patterns",
     "quantile_symbols",
+    "state_symbols",
     "threshold_symbols",
+    "tie_fraction",
 ]
+
+#: Tie rules of the ordinal functions (module notes).
+TIE_RULES = ("stable", "random")
 
 #: Default number of windows required per possible pattern (n_windows >= 10 * D!).
 #: With fewer, most patterns are seen a handful of times and the normalised
@@ -91,14 +121,17 @@ def _window_columns(
     return [x2[r * ty : r * ty + ny, c * tx : c * tx + nx] for r in range(dy) for c in range(dx)]
 
 
-def _lehmer_codes(columns: list[NDArray[np.float64]]) -> NDArray[np.int64]:
-    """Lexicographic rank of the stable argsort permutation of each window.
+def _lehmer_codes(
+    columns: list[NDArray[np.float64]], keys: list[NDArray[np.float64]] | None = None
+) -> NDArray[np.int64]:
+    """Lexicographic rank of the argsort permutation of each window.
 
     For the sorting permutation pi, digit i of the Lehmer code is the number of
     later entries of pi smaller than pi_i. Written per window position q this
     is the number of earlier values strictly greater than x_q, placed at digit
-    rank(q); with stable ranks this needs only the D(D-1)/2 pairwise
-    comparisons, no sort (ties: the earlier value ranks lower).
+    rank(q); with a strict order this needs only the D(D-1)/2 pairwise
+    comparisons, no sort. Ties: the earlier value ranks lower (stable), or,
+    with ``keys``, the value with the smaller key ranks lower.
     """
     d = len(columns)
     shape = columns[0].shape
@@ -106,7 +139,12 @@ def _lehmer_codes(columns: list[NDArray[np.float64]]) -> NDArray[np.int64]:
     inversions = [np.zeros(shape, dtype=np.int8) for _ in range(d)]
     for q in range(1, d):
         for p in range(q):
-            earlier_not_greater = columns[p] <= columns[q]
+            if keys is None:
+                earlier_not_greater = columns[p] <= columns[q]
+            else:
+                earlier_not_greater = (columns[p] < columns[q]) | (
+                    (columns[p] == columns[q]) & (keys[p] <= keys[q])
+                )
             rank[q] += earlier_not_greater
             rank[p] += ~earlier_not_greater
             inversions[q] += ~earlier_not_greater
@@ -117,12 +155,85 @@ def _lehmer_codes(columns: list[NDArray[np.float64]]) -> NDArray[np.int64]:
     return code
 
 
+def _tied_windows(columns: list[NDArray[np.float64]]) -> NDArray[np.bool_]:
+    """True for windows holding at least two equal values."""
+    tied = np.zeros(columns[0].shape, dtype=bool)
+    for q in range(1, len(columns)):
+        for p in range(q):
+            tied |= columns[p] == columns[q]
+    return tied
+
+
+def _prepare_windows(x, order, delay, min_windows_per_pattern, fn):
+    arr = as_float_array("x", x, fn, ndim=(1, 2))
+    dx, dy = _parse_order(order, arr.ndim, fn)
+    tx, ty = _parse_delay(delay, arr.ndim, fn)
+    d = dx * dy
+    if d > _MAX_PATTERN_LENGTH:
+        raise InvalidParameterError("order", fn, f"at most {_MAX_PATTERN_LENGTH} sites", order)
+    columns = _window_columns(arr, dx, dy, tx, ty)
+    n_windows = columns[0].size
+    needed = float(min_windows_per_pattern) * math.factorial(d)
+    if n_windows < 1 or n_windows < needed:
+        raise InsufficientDataError(
+            "x",
+            fn,
+            f"long enough for >= {min_windows_per_pattern:g} windows per pattern "
+            f"({needed:.0f} windows for {math.factorial(d)} patterns; got {n_windows})",
+            arr,
+        )
+    return arr, columns, (dx, dy, tx, ty)
+
+
+def _check_ties(ties: str, fn: str) -> str:
+    if ties not in TIE_RULES:
+        raise InvalidParameterError("ties", fn, f"one of {TIE_RULES!r}", ties)
+    return ties
+
+
+def _codes_with_rule(arr, columns, geometry, ties, seed):
+    """Codes under a tie rule (random keys drawn per sample from ``seed``)."""
+    if ties == "stable":
+        return _lehmer_codes(columns)
+    dx, dy, tx, ty = geometry
+    keys = np.random.default_rng(seed).random(arr.shape)
+    return _lehmer_codes(columns, _window_columns(keys, dx, dy, tx, ty))
+
+
+def tie_fraction(
+    x: ArrayLike, *, order: int | tuple[int, int], delay: int | tuple[int, int] = 1
+) -> float:
+    """Share of the ordinal windows of a series or field that contain equal values.
+
+    Parameters
+    ----------
+    x, order, delay
+        As for :func:`ordinal_patterns`.
+
+    Returns
+    -------
+    float in [0, 1]
+        Windows with at least one pair of equal values / all windows. A
+        diagnostic of quantisation: the order inside such windows is not in
+        the data (module notes).
+
+    Examples
+    --------
+    >>> tie_fraction([1.0, 1.0, 2.0, 3.0, 3.0], order=2)
+    0.5
+    """
+    _, columns, _ = _prepare_windows(x, order, delay, 0.0, "tie_fraction")
+    return float(_tied_windows(columns).mean())
+
+
 def ordinal_patterns(
     x: ArrayLike,
     *,
     order: int | tuple[int, int],
     delay: int | tuple[int, int] = 1,
     min_windows_per_pattern: float = MIN_WINDOWS_PER_PATTERN,
+    ties: str = "stable",
+    seed: int = 0,
 ) -> NDArray[np.int64]:
     """Ordinal pattern code of every overlapping window of a series or field.
 
@@ -139,12 +250,18 @@ def ordinal_patterns(
     min_windows_per_pattern : float, default 10
         Require ``n_windows >= min_windows_per_pattern * D!`` (pass 0 to
         switch the check off, e.g. for worked examples).
+    ties : {"stable", "random"}, default "stable"
+        Tie rule (module notes): order of appearance, or seeded random
+        tie-breaking (one uniform key per sample, drawn from ``seed``).
+    seed : int, default 0
+        Seed of the random keys (``ties="random"`` only).
 
     Returns
     -------
     ndarray of int64, shape (N - (D-1) delay,) or (ny - (dy-1) delay_y, nx - (dx-1) delay_x)
-        Codes in ``0 .. D! - 1``: the lexicographic rank of the stable argsort
-        of each window (module docstring). The code order is the order of
+        Codes in ``0 .. D! - 1``: the lexicographic rank of the argsort of
+        each window (module docstring). The share of windows with ties is
+        :func:`tie_fraction`. The code order is the order of
         ordpy's ``ordinal_distribution(..., return_missing=True, ordered=True)``.
 
     Raises
@@ -163,24 +280,9 @@ def ordinal_patterns(
     array([0, 0, 0, 1, 0, 1])
     """
     fn = "ordinal_patterns"
-    arr = as_float_array("x", x, fn, ndim=(1, 2))
-    dx, dy = _parse_order(order, arr.ndim, fn)
-    tx, ty = _parse_delay(delay, arr.ndim, fn)
-    d = dx * dy
-    if d > _MAX_PATTERN_LENGTH:
-        raise InvalidParameterError("order", fn, f"at most {_MAX_PATTERN_LENGTH} sites", order)
-    columns = _window_columns(arr, dx, dy, tx, ty)
-    n_windows = columns[0].size
-    needed = float(min_windows_per_pattern) * math.factorial(d)
-    if n_windows < 1 or n_windows < needed:
-        raise InsufficientDataError(
-            "x",
-            fn,
-            f"long enough for >= {min_windows_per_pattern:g} windows per pattern "
-            f"({needed:.0f} windows for {math.factorial(d)} patterns; got {n_windows})",
-            arr,
-        )
-    codes = _lehmer_codes(columns)
+    _check_ties(ties, fn)
+    arr, columns, geometry = _prepare_windows(x, order, delay, min_windows_per_pattern, fn)
+    codes = _codes_with_rule(arr, columns, geometry, ties, seed)
     return codes.reshape(-1) if arr.ndim == 1 else codes
 
 
@@ -300,3 +402,202 @@ def joint_symbols(symbol_arrays: Sequence[ArrayLike]) -> NDArray[np.int64]:
         bound *= len(values)
     _, out = np.unique(code, return_inverse=True)
     return out.reshape(shape).astype(np.int64)
+
+
+#: Support rule of :func:`state_symbols`: an alphabet of K cells is allowed
+#: when ``STATE_CELL_COUNT * K**3 <= n``, i.e. causal-state reconstruction on
+#: the symbols can still use histories of length 2 under its own 50-counts
+#: rule (:func:`measures.causal_states`).
+STATE_CELL_COUNT = 50
+_MAX_CELLS_PER_COMPONENT = 8
+
+
+@dataclass(frozen=True)
+class StateSymbols:
+    """Symbols of a multichannel state and the parameters that made them.
+
+    Attributes
+    ----------
+    symbols : ndarray of int64, shape (n,) (``"quantile"``) or
+        (n - (order - 1) delay,) (``"ordinal"``)
+        Codes ``0 .. alphabet_size - 1``.
+    alphabet_size : int
+        Number of possible symbols (cells or joint patterns), whether seen or not.
+    method : str
+        ``"quantile"`` or ``"ordinal"``.
+    n_components : int
+        Leading components used.
+    cells_per_component : int
+        Quantile cells per component (``"quantile"``), or ``order!`` patterns
+        per component (``"ordinal"``).
+    edges : tuple of tuple of float
+        Per component, the inner quantile edges (``"quantile"``; empty for
+        ``"ordinal"``).
+    order, delay : int
+        Ordinal pattern length and delay (``"ordinal"``; 0 for ``"quantile"``).
+    tie_fraction : float
+        Share of ordinal windows with ties over all components (``"ordinal"``),
+        or of samples equal to a cell edge (``"quantile"``).
+    rule : str
+        How the parameters were chosen, in words.
+    """
+
+    symbols: NDArray[np.int64]
+    alphabet_size: int
+    method: str
+    n_components: int
+    cells_per_component: int
+    edges: tuple[tuple[float, ...], ...]
+    order: int
+    delay: int
+    tie_fraction: float
+    rule: str
+
+
+def state_symbols(
+    state: ArrayLike,
+    *,
+    method: str = "quantile",
+    n_components: int | None = None,
+    cells_per_component: int | None = None,
+    order: int = 2,
+    delay: int = 1,
+    seed: int = 0,
+) -> StateSymbols:
+    """Symbolise a multichannel state (n samples x d components) into one symbol per time.
+
+    Parameters
+    ----------
+    state : array_like of float, shape (n, d)
+        Components in order of importance (e.g. the leading components of a
+        multichannel singular spectrum analysis); a 1D array is one component.
+    method : {"quantile", "ordinal"}, default "quantile"
+        ``"quantile"``: each of the leading components is cut into
+        equiprobable cells (sample quantiles, :func:`quantile_symbols`) and the
+        symbol is the cell of the joint partition (``q**m`` cells).
+        ``"ordinal"``: multichannel ordinal patterns, the ordinal pattern of
+        each leading component (random tie-breaking, :func:`ordinal_patterns`)
+        joined into one symbol (``(order!)**m`` patterns).
+    n_components : int, optional
+        m, the leading components used. Default ``min(d, 2)``: oscillations of
+        a state appear as pairs of components (common practice in singular
+        spectrum analysis, Vautard & Ghil 1989, from memory).
+    cells_per_component : int, optional
+        q for ``"quantile"``. Default: the largest q in 2..8 with
+        ``50 * (q**m)**3 <= n`` (:data:`STATE_CELL_COUNT`), so that causal-state
+        reconstruction on the symbols still supports histories of length 2.
+    order, delay : int
+        Ordinal pattern length (default 2: up/down per component) and delay.
+    seed : int
+        Seed of the ordinal tie-breaking keys.
+
+    Returns
+    -------
+    StateSymbols
+
+    Raises
+    ------
+    InsufficientDataError
+        When even q = 2 (or the ordinal alphabet) breaks the support rule.
+
+    References
+    ----------
+    Quantile (equiprobable) partitions: C. S. Daw, C. E. A. Finney & E. R.
+    Tracy (2003), Rev. Sci. Instrum. 74:915 (from memory). Joining the
+    per-channel ordinal patterns of Bandt & Pompe (2002) into one symbol is
+    common practice for multichannel data.
+
+    Examples
+    --------
+    >>> t = np.arange(4000)
+    >>> orbit = np.column_stack([np.cos(2 * np.pi * t / 40), np.sin(2 * np.pi * t / 40)])
+    >>> out = state_symbols(orbit)
+    >>> out.alphabet_size, out.cells_per_component
+    (4, 2)
+    """
+    fn = "state_symbols"
+    arr = as_float_array("state", state, fn, ndim=(1, 2))
+    arr = arr.reshape(-1, 1) if arr.ndim == 1 else arr
+    n, d = arr.shape
+    if method not in ("quantile", "ordinal"):
+        raise InvalidParameterError("method", fn, "'quantile' or 'ordinal'", method)
+    m = min(d, 2) if n_components is None else check_positive_int("n_components", n_components, fn)
+    if m > d:
+        raise InvalidParameterError("n_components", fn, f"at most the {d} components given", m)
+    lead = arr[:, :m]
+    if method == "ordinal":
+        order = check_positive_int("order", order, fn, minimum=2)
+        delay = check_positive_int("delay", delay, fn)
+        per = math.factorial(order)
+        k = per**m
+        if STATE_CELL_COUNT * float(k) ** 3 > n:
+            raise InsufficientDataError(
+                "state", fn, f"at least {STATE_CELL_COUNT * k**3} samples for {k} patterns", arr
+            )
+        codes = [
+            ordinal_patterns(
+                lead[:, j],
+                order=order,
+                delay=delay,
+                min_windows_per_pattern=0,
+                ties="random",
+                seed=seed + j,
+            )
+            for j in range(m)
+        ]
+        ties = [tie_fraction(lead[:, j], order=order, delay=delay) for j in range(m)]
+        symbols = np.zeros(codes[0].size, dtype=np.int64)
+        for c in codes:
+            symbols = symbols * per + c
+        return StateSymbols(
+            symbols=symbols,
+            alphabet_size=k,
+            method=method,
+            n_components=m,
+            cells_per_component=per,
+            edges=(),
+            order=order,
+            delay=delay,
+            tie_fraction=float(np.mean(ties)),
+            rule=f"ordinal patterns of order {order} (delay {delay}) of the {m} leading "
+            "components joined; ties broken at random (seeded)",
+        )
+    if cells_per_component is None:
+        q = 1
+        while q < _MAX_CELLS_PER_COMPONENT and STATE_CELL_COUNT * float(q + 1) ** (3 * m) <= n:
+            q += 1
+        if q < 2:
+            raise InsufficientDataError(
+                "state",
+                fn,
+                f"at least {STATE_CELL_COUNT * 2 ** (3 * m)} samples for 2 cells "
+                f"on each of {m} components",
+                arr,
+            )
+        rule = (
+            f"largest q in 2..{_MAX_CELLS_PER_COMPONENT} with {STATE_CELL_COUNT} * (q**m)**3 "
+            f"<= n, m = {m} leading components"
+        )
+    else:
+        q = check_positive_int("cells_per_component", cells_per_component, fn, minimum=2)
+        rule = "given"
+    edges = []
+    symbols = np.zeros(n, dtype=np.int64)
+    on_edge = np.zeros(n, dtype=bool)
+    for j in range(m):
+        cut = np.quantile(lead[:, j], np.arange(1, q) / q)
+        edges.append(tuple(float(v) for v in cut))
+        symbols = symbols * q + np.searchsorted(cut, lead[:, j], side="right")
+        on_edge |= np.isin(lead[:, j], cut)
+    return StateSymbols(
+        symbols=symbols.astype(np.int64),
+        alphabet_size=q**m,
+        method=method,
+        n_components=m,
+        cells_per_component=q,
+        edges=tuple(edges),
+        order=0,
+        delay=0,
+        tie_fraction=float(on_edge.mean()),
+        rule=rule,
+    )

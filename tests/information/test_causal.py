@@ -15,7 +15,12 @@ from _testing import assert_allclose
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from measures import InsufficientDataError, InvalidParameterError, causal_states
+from measures import (
+    SYNCHRONISED_THRESHOLD,
+    InsufficientDataError,
+    InvalidParameterError,
+    causal_states,
+)
 
 LOG2_3 = math.log2(3)
 H_GOLDEN = 0.918296  # H(2/3, 1/3) in bits, CHECKS A4/A5 [ANALYTIC]
@@ -252,3 +257,58 @@ def test_pooling_keeps_the_level_on_rare_symbols():
     assert p > 0.05
     # A clear difference is still found after pooling.
     assert homogeneity_pvalue(np.array([900, 90, 9, 1]), np.array([10, 80, 9, 1])) < 1e-10
+
+
+def _random_period(period: int, seed: int) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    while True:
+        pattern = rng.integers(0, 2, period)
+        if len({tuple(np.roll(pattern, r)) for r in range(period)}) == period:
+            return pattern
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(("period", "seed"), [(53, 1), (97, 2), (120, 3), (199, 4)])
+def test_long_random_periods_are_found(period, seed):
+    # CHECKS A3 (general period p): h = 0, C_mu = log2 p with p equiprobable
+    # states [ANALYTIC]. Random binary patterns of period 50-200 need histories
+    # longer than the default cell rule allows at this N; the saturation rule
+    # (module notes) finds the determining length.
+    x = np.tile(_random_period(period, seed), 20_000 // period + 1)[:20_000]
+    m = causal_states(x)
+    assert m.n_states == period
+    assert_allclose(m.statistical_complexity, math.log2(period), rtol=1e-12)
+    assert m.entropy_rate == 0.0
+    assert m.reliable and m.synchronised_fraction > 0.99 and m.note == ""
+
+
+def test_too_short_history_is_flagged_never_silently_wrong():
+    # A deterministic machine (h = 0) with fewer than p states cannot produce a
+    # sequence of period p [ANALYTIC]; with histories far too short for a
+    # random period-100 pattern, any such machine must be flagged, and every
+    # flagged machine explains less than the stated threshold.
+    flagged = 0
+    for seed in range(6):
+        x = np.tile(_random_period(100, 10 + seed), 200)
+        m = causal_states(x, max_history=6)
+        if m.entropy_rate == 0.0 and m.n_states < 100:
+            assert not m.reliable
+        if not m.reliable:
+            flagged += 1
+            assert m.synchronised_fraction < SYNCHRONISED_THRESHOLD
+            assert "explains" in m.note
+    assert flagged >= 1
+
+
+def test_correct_machines_explain_almost_everything(rng):
+    # CHECKS A1/A4/A5 machines: only the symbols before synchronisation are
+    # unexplained (about L of them, plus transient runs of 1 in the even
+    # process at the start).
+    for x in (
+        rng.integers(0, 2, 30_000),
+        simulate(GOLDEN_MEAN, 30_000, seed=1),
+        simulate(EVEN_PROCESS, 30_000, seed=2),
+        np.tile([0, 1, 1], 10_000),
+    ):
+        m = causal_states(x)
+        assert m.reliable and m.synchronised_fraction > 0.999

@@ -245,6 +245,51 @@ def test_lz76_matches_antropy(rng):
         )
 
 
+def _lz76_test_set(seed: int) -> list[np.ndarray]:
+    """Random, periodic, binary and multi-symbol sequences, short and long."""
+    rng = np.random.default_rng(seed)
+    out = [np.array([0]), np.array([1, 1]), np.array([0, 1])]
+    for n in (2, 3, 7, 50, 333, 2000):
+        for k in (2, 3, 7):
+            out.append(rng.integers(0, k, n))
+            out.append(np.tile(rng.integers(0, k, int(rng.integers(1, 40))), n)[:n])
+    out.append((rng.random(3000) < 0.05).astype(int))  # long runs of 0
+    out.append(np.concatenate([rng.integers(0, 4, 500), np.zeros(500, dtype=int)]))
+    return out
+
+
+def test_lz76_suffix_array_parse_equals_quadratic_and_antropy():
+    # The O(n log n) parser must give the phrase count of Kaspar & Schuster's
+    # quadratic loop (kept as _lz76_phrases_quadratic) and of antropy 0.2.3's
+    # lziv_complexity (an independent implementation of the same parsing,
+    # CHECKS A10) on every sequence of the test set.
+    from measures.information.entropy import _lz76_phrases_quadratic
+
+    for seq in _lz76_test_set(5):
+        ours = lz76_complexity(seq).phrases
+        assert ours == _lz76_phrases_quadratic(seq.astype(np.int64)), seq[:20]
+        assert ours == antropy.lziv_complexity(seq), seq[:20]
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.integers(0, 3), min_size=1, max_size=120))
+def test_lz76_property_equals_quadratic(seq):
+    from measures.information.entropy import _lz76_phrases_quadratic
+
+    arr = np.asarray(seq)
+    dense = np.unique(arr, return_inverse=True)[1].astype(np.int64)
+    assert lz76_complexity(arr).phrases == _lz76_phrases_quadratic(dense)
+
+
+def test_lz76_large_alphabet(rng):
+    # More than 256 symbols takes the wide suffix-array path.
+    seq = rng.integers(0, 1000, 5000)
+    from measures.information.entropy import _lz76_phrases_quadratic
+
+    dense = np.unique(seq, return_inverse=True)[1].astype(np.int64)
+    assert lz76_complexity(seq).phrases == _lz76_phrases_quadratic(dense)
+
+
 def test_lz76_fair_coin_and_period():
     # CHECKS A10 [ORACLE, antropy, seed 12345]: fair coin n = 1e4 gives
     # normalised 1.036 +- 0.02 (slow convergence from above); period-3 `011`

@@ -14,10 +14,12 @@ from hypothesis.extra.numpy import arrays
 
 from measures import (
     InsufficientDataError,
+    InvalidParameterError,
     complexity_entropy,
     complexity_entropy_bounds,
     jensen_shannon_complexity,
     ordinal_distribution,
+    tie_fraction,
 )
 
 
@@ -197,3 +199,93 @@ def test_bounds_endpoints():
     b = complexity_entropy_bounds(120, n_points=500)
     for h, c in ((b.entropy_max, b.complexity_max), (b.entropy_min, b.complexity_min)):
         assert_allclose([h[0], c[0], h[-1], c[-1]], [0.0, 0.0, 1.0, 0.0], atol=1e-12)
+
+
+# ---------------------------------------------------------------- ties
+
+
+def test_tie_fraction_worked_example_and_birthday_rule(rng):
+    # [ANALYTIC] Worked example: windows (1,1), (1,2), (2,3), (3,3) -> 2 of 4.
+    assert tie_fraction([1.0, 1.0, 2.0, 3.0, 3.0], order=2) == 0.5
+    # i.i.d. uniform on k values: a window of D values holds a tie with
+    # probability 1 - k! / ((k - D)! k^D) (the birthday problem).
+    k, d = 6, 3
+    expected = 1 - math.perm(k, d) / k**d
+    x = rng.integers(0, k, 200_000).astype(float)
+    assert_allclose(tie_fraction(x, order=d), expected, atol=0.005)  # ~5 sd
+    f = rng.integers(0, k, (400, 400)).astype(float)
+    assert_allclose(tie_fraction(f, order=(3, 1)), expected, atol=0.005)
+    assert tie_fraction(rng.normal(size=1000), order=4) == 0.0
+
+
+def test_random_ties_make_iid_integers_look_like_noise(rng):
+    # [ANALYTIC] i.i.d. integers with i.i.d. uniform tie-breaking keys are an
+    # i.i.d. sequence of distinct values, so every pattern has probability
+    # 1 / D! and H = 1 (CHECKS B1 for noise). Stable ties bias H below 1.
+    x = rng.integers(0, 3, 2**17).astype(float)
+    stable = complexity_entropy(x, order=4)
+    rand = complexity_entropy(x, order=4, ties="random", seed=3)
+    assert 1 - rand[0] < 2e-3 and rand[1] < 2e-3  # CHECKS B1/B4 tolerances
+    assert stable[0] < 0.95
+    assert rand.tie_fraction == stable.tie_fraction > 0.5
+    field = rng.integers(0, 2, (512, 512)).astype(float)
+    h2, _ = complexity_entropy(field, order=(2, 2), ties="random", seed=1)
+    assert 1 - h2 < 2e-3
+
+
+def test_constant_input_random_ties_are_uniform():
+    # [ANALYTIC] Every window tied: stable ties give one pattern (H = 0),
+    # random ties give all patterns alike (H -> 1).
+    x = np.ones(50_000)
+    assert complexity_entropy(x, order=3)[0] == 0.0
+    res = complexity_entropy(x, order=3, ties="random")
+    assert res.tie_fraction == 1.0 and res[0] > 0.999
+
+
+def test_no_ties_means_rules_agree(white_noise):
+    # Without ties the rule never acts: identical to stable and to ordpy
+    # (CHECKS B1 oracle).
+    a = complexity_entropy(white_noise, order=5)
+    b = complexity_entropy(white_noise, order=5, ties="random", n_draws=3)
+    assert tuple(a) == tuple(b) and a.tie_fraction == 0.0
+    assert_allclose(a[0], ordpy.complexity_entropy(white_noise, dx=5)[0], rtol=1e-9)
+
+
+def test_quantised_surface_random_ties_within_002():
+    # Issue requirement: rounding a self-affine surface (Hurst 0.5, 512 x 512,
+    # measures.terrain._synthesis) to 0.05 Sq moves permutation entropy by at
+    # most 0.02 with the summaries' tie rule; stable ties move it further.
+    from measures.terrain._synthesis import self_affine_surface
+
+    z = self_affine_surface(512, 0.5, seed=1)
+    step = 0.05 * z.std()
+    zq = np.round(z / step) * step
+    ref = complexity_entropy(z, order=(2, 2))
+    rand = complexity_entropy(zq, order=(2, 2), ties="random", seed=2)
+    stable = complexity_entropy(zq, order=(2, 2))
+    assert rand.tie_fraction > 0.5  # the rounding really creates ties
+    assert abs(rand[0] - ref[0]) <= 0.02
+    assert abs(stable[0] - ref[0]) > 0.02
+
+
+def test_draws_are_seeded_and_averaged(rng):
+    x = rng.integers(0, 4, 20_000).astype(float)
+    a = ordinal_distribution(x, order=3, ties="random", seed=5, n_draws=4)
+    b = ordinal_distribution(x, order=3, ties="random", seed=5, n_draws=4)
+    c = ordinal_distribution(x, order=3, ties="random", seed=6)
+    assert np.array_equal(a.probabilities, b.probabilities) and a.n_draws == 4
+    assert_allclose(a.probabilities.sum(), 1.0)
+    # Draw-to-draw spread ~ sqrt(p / n) = 0.006: the averages agree to 0.02.
+    assert_allclose(a.probabilities, c.probabilities, atol=0.02)
+
+
+def test_result_unpacks_and_pickles():
+    import pickle
+
+    res = complexity_entropy(np.arange(100.0), order=3)
+    h, c = res
+    assert (h, c) == (0.0, 0.0) == res
+    back = pickle.loads(pickle.dumps(res))
+    assert back == res and back.tie_fraction == res.tie_fraction == 0.0
+    with pytest.raises(InvalidParameterError):
+        complexity_entropy(np.arange(100.0), order=3, ties="average")

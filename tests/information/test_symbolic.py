@@ -18,6 +18,7 @@ from measures import (
     joint_symbols,
     ordinal_patterns,
     quantile_symbols,
+    state_symbols,
     threshold_symbols,
 )
 
@@ -175,3 +176,80 @@ def test_joint_symbols_product_alphabet(rng):
     np.testing.assert_array_equal(joint_symbols(np.stack([a, b])), j)
     with pytest.raises(InvalidParameterError):
         joint_symbols([a, b[:-1]])
+
+
+# ---------------------------------------------------------------- multichannel state
+
+
+def _circle(n: int, period: int) -> np.ndarray:
+    # An exactly periodic orbit: one period, tiled (so equal phases give
+    # bit-identical states and hence identical cells).
+    t = np.arange(period)
+    one = np.column_stack(
+        [np.cos(2 * np.pi * t / period + 0.1), np.sin(2 * np.pi * t / period + 0.1)]
+    )
+    return np.tile(one, (n // period, 1))
+
+
+@pytest.mark.parametrize("method", ["quantile", "ordinal"])
+def test_state_symbols_periodic_orbit_has_log2_period_states(method):
+    # CHECKS A3 (general period p): a periodic orbit of period 40 samples gives
+    # a period-40 symbol sequence, so C_mu = log2 40 and h = 0 [ANALYTIC].
+    from measures import causal_states
+
+    out = state_symbols(_circle(40_000, 40), method=method)
+    m = causal_states(out.symbols)
+    assert m.reliable
+    assert m.n_states == 40
+    assert abs(m.statistical_complexity - math.log2(40)) < 1e-9
+    assert m.entropy_rate == 0.0
+
+
+@pytest.mark.parametrize("method", ["quantile", "ordinal"])
+def test_state_symbols_separate_a_noisy_orbit(method):
+    # The same orbit with phase diffusion and observation noise: the symbols
+    # carry randomness (h > 0.5 bit) and a different statistical complexity
+    # (more than 0.5 bit from log2 40), so the symbolisation tells the two apart.
+    from measures import causal_states
+
+    rng = np.random.default_rng(0)
+    n = 40_000
+    phase = 2 * np.pi * np.arange(n) / 40 + np.cumsum(rng.normal(0, 0.15, n))
+    noisy = np.column_stack([np.cos(phase), np.sin(phase)]) + rng.normal(0, 0.2, (n, 2))
+    m = causal_states(state_symbols(noisy, method=method).symbols)
+    assert m.entropy_rate > 0.5
+    assert abs(m.statistical_complexity - math.log2(40)) > 0.5
+
+
+def test_state_symbols_iid_state_is_a_uniform_source(rng):
+    # [ANALYTIC] Independent components cut at their quantiles give i.i.d.
+    # symbols, uniform over q**m cells: C_mu = 0, h = log2(q**m) = log2 9.
+    from measures import causal_states
+
+    out = state_symbols(rng.normal(size=(40_000, 3)))
+    assert out.n_components == 2 and out.cells_per_component == 3
+    assert out.alphabet_size == 9
+    assert np.bincount(out.symbols).min() > 0.9 * 40_000 / 9
+    m = causal_states(out.symbols)
+    assert m.n_states == 1
+    assert abs(m.entropy_rate - math.log2(9)) < 0.01
+
+
+def test_state_symbols_rule_and_parameters(rng):
+    # Stated rule: the largest q with 50 * (q**m)**3 <= n.
+    x = rng.normal(size=(40_000, 2))
+    out = state_symbols(x)
+    assert out.cells_per_component == 3  # 50 * 9**3 = 36,450 <= 40,000 < 50 * 16**3
+    assert "50" in out.rule
+    for j in range(2):
+        assert np.allclose(out.edges[j], np.quantile(x[:, j], [1 / 3, 2 / 3]))
+    big = state_symbols(rng.normal(size=(210_000, 2)))
+    assert big.cells_per_component == 4  # 50 * 16**3 = 204,800 <= 210,000
+    given = state_symbols(x, cells_per_component=5, n_components=1)
+    assert given.alphabet_size == 5 and given.rule == "given"
+    with pytest.raises(InsufficientDataError):
+        state_symbols(rng.normal(size=(1000, 2)))
+    with pytest.raises(InvalidParameterError):
+        state_symbols(x, method="kmeans")
+    with pytest.raises(InvalidParameterError):
+        state_symbols(x, n_components=3)
