@@ -349,7 +349,9 @@ def _surrogate_z(estimator, zb, p, notes, name):
     try:
         from measures.information.surrogates import surrogate_test
     except ImportError:
-        notes.append(f"{name}: measures.information.surrogates.surrogate_test unavailable; no surrogate z")
+        notes.append(
+            f"{name}: measures.information.surrogates.surrogate_test unavailable; no surrogate z"
+        )
         return None
     try:
         res = surrogate_test(
