@@ -47,6 +47,7 @@ __all__ = [
     "WindowedRQA",
     "joint_recurrence",
     "recurrence_plot_image",
+    "recurrence_rate_at",
     "recurrence_threshold",
     "rqa",
     "rqa_dense",
@@ -477,6 +478,25 @@ def recurrence_threshold(
     return float(eps)
 
 
+def recurrence_rate_at(
+    points: ArrayLike, *, threshold: float, theiler: int = 1, metric: str = "euclidean"
+) -> float:
+    """Recurrence rate of ``points`` at a given distance ``threshold`` (one counting pass).
+
+    Examples
+    --------
+    >>> recurrence_rate_at(np.arange(5.0), threshold=1.0)
+    0.4
+    """
+    fn = "recurrence_rate_at"
+    xt, theiler, _, _ = _prepare(points, fn, theiler, 1, 1, metric)
+    eps = check_positive_float("threshold", threshold, fn, allow_zero=True)
+    code = _METRICS[metric]
+    theiler = max(theiler, 1)
+    count = _k.count_recurrences(xt, eps * eps if code == 0 else eps, code, theiler)
+    return count / _n_lower(xt.shape[1], theiler)
+
+
 @dataclass(frozen=True)
 class JointRecurrence:
     """Result of :func:`joint_recurrence`.
@@ -514,6 +534,7 @@ def joint_recurrence(
     seed: int = 0,
     threshold_x: float | None = None,
     threshold_y: float | None = None,
+    rates: tuple[float, float] | None = None,
 ) -> JointRecurrence:
     """Joint recurrence of two simultaneous trajectories (maximum norm), streamed.
 
@@ -533,6 +554,9 @@ def joint_recurrence(
         Maximum-norm thresholds to use instead of the recurrence-rate
         quantile (e.g. computed once per system with
         :func:`recurrence_threshold` when one system enters several pairs).
+    rates : (float, float), optional
+        The recurrence rates those thresholds give (saves two passes when
+        known; otherwise counted).
 
     Returns
     -------
@@ -560,8 +584,11 @@ def joint_recurrence(
     if eps_y is None:
         eps_y = _comparison_threshold(yt, 1, theiler, rate, "sampled", seed)
     pairs = _n_lower(n, theiler)
-    count_x = _k.count_recurrences(xt, eps_x, 1, theiler)
-    count_y = _k.count_recurrences(yt, eps_y, 1, theiler)
+    if rates is None:
+        count_x = _k.count_recurrences(xt, eps_x, 1, theiler)
+        count_y = _k.count_recurrences(yt, eps_y, 1, theiler)
+    else:
+        count_x, count_y = rates[0] * pairs, rates[1] * pairs
     nan = math.nan
     if eps_x <= 0 or eps_y <= 0 or pairs == 0:
         return JointRecurrence(nan, count_x / max(pairs, 1), count_y / max(pairs, 1), nan,

@@ -251,7 +251,9 @@ def surrogate_z(
     rng = np.random.default_rng(p["seed"])
     rows = []
     for _ in range(n_sur):
-        sur = surrogates.iaaft_surrogate(small, rng=rng, multichannel=True)
+        sur = surrogates.iaaft_surrogate(
+            small, rng=rng, multichannel=True, max_iter=int(p["surrogate_max_iter"])
+        )
         scores = state_scores(np.asarray(sur), d, rate, p, threshold_method="exact")
         rows.append(_numbers(scores))
     z = {}
@@ -288,7 +290,7 @@ def interlimb(
     """Joint recurrence (Romano et al. 2004) of each pair of body-frame foot trajectories."""
     names = tuple(feet)
     n = next(iter(feet.values())).shape[0]
-    q = max(1, min(delay, math.ceil(n / p["interlimb_max_points"])))
+    q = max(1, min(max(1, delay // 2), math.ceil(n / p["interlimb_max_points"])))
     small = {k: decimate(v, q) for k, v in feet.items()}
     theiler = max(1, round(delay / q))
     rate = p["rqa_recurrence_rate"]
@@ -298,6 +300,12 @@ def interlimb(
         )
         for k, v in small.items()
     }
+    rr = {
+        k: recurrence.joint_recurrence(
+            v, v, theiler=theiler, threshold_x=eps[k], threshold_y=eps[k]
+        ).rr_x
+        for k, v in small.items()
+    }
     sync = np.full((len(names), len(names)), np.nan)
     jrr = np.full_like(sync, np.nan)
     for i, a in enumerate(names):
@@ -305,7 +313,7 @@ def interlimb(
             b = names[j]
             res = recurrence.joint_recurrence(
                 small[a], small[b], recurrence_rate=rate, theiler=theiler,
-                threshold_x=eps[a], threshold_y=eps[b],
+                threshold_x=eps[a], threshold_y=eps[b], rates=(rr[a], rr[b]),
             )  # fmt: skip
             sync[i, j] = sync[j, i] = res.synchronisation
             jrr[i, j] = jrr[j, i] = res.jrr

@@ -135,7 +135,8 @@ MOVEMENT_DEFAULTS: dict[str, Any] = {
     # surrogates and interlimb coordination
     "n_surrogates": 19,  # 19: smallest one-sided p 0.05
     "surrogate_max_points": 2500,  # exact RQA threshold up to ~2,800 points
-    "interlimb_max_points": 20_000,
+    "surrogate_max_iter": 50,  # IAAFT iterations per surrogate
+    "interlimb_max_points": 8000,
 }
 
 _AXES = {"x": 0, "y": 1, "z": 2}
@@ -631,8 +632,12 @@ def _state_stage(state, delay, fs, p, book: _Book, extra: dict[str, float]):
         if name == "rqa_entr" and not np.isfinite(v):
             note = "no diagonal line reaches lmin (ENTR undefined)"
         book.add(name, v, unit, note, z=None if z is None else float(z))
+    # A thumbnail of at most plot_max_size blocks needs no more than 16 points
+    # per block: the image is taken from the state decimated that far.
+    q_img = max(1, math.ceil(points.shape[0] / (16 * p["plot_max_size"])))
     return recurrence.recurrence_plot_image(
-        points, recurrence_rate=p["rqa_recurrence_rate"], max_size=p["plot_max_size"],
+        wb.decimate(points, q_img), recurrence_rate=p["rqa_recurrence_rate"],
+        max_size=p["plot_max_size"],
         metric=p["rqa_metric"], seed=p["seed"],
     ).image  # fmt: skip
 
