@@ -269,8 +269,9 @@ def foot_contacts_from_speed(
     min_speed_m_s : float, default 0.05
     height : array (n_frames,), optional
         Foot height (m). A "swing" shorter than ``min_swing_fraction`` of
-        the foot's median swing that lifts the foot by less than
-        ``min_lift_fraction`` of its median swing lift is foot skate (a
+        the upper quartile of the foot's swing durations that lifts the foot
+        by less than ``min_lift_fraction`` of the upper quartile of its swing
+        lifts is foot skate (a
         planted foot sliding at touch-down, common in retargeted capture):
         the stances on either side are merged, so a stride is never split
         there. Without ``height`` the duration rule alone decides.
@@ -326,7 +327,9 @@ def _merge_skates(
         return tds, los
     swings = [(lo, td) for lo, td in zip(los[:-1], tds[1:], strict=True)]
     dur = np.array([td - lo for lo, td in swings], dtype=float)
-    short = dur < min_swing_fraction * np.median(dur)
+    # Upper quartiles as references: at most one skate per stride, so at least
+    # half the "swings" are real ones even when every stance skates.
+    short = dur < min_swing_fraction * np.percentile(dur, 75)
     skate = short
     if height is not None:
         lift = np.array(
@@ -335,7 +338,7 @@ def _merge_skates(
                 for lo, td in swings
             ]
         )
-        ref = np.nanmedian(lift)
+        ref = np.nanpercentile(lift, 75)
         if ref > 0:
             skate = short & ~(lift >= min_lift_fraction * ref)
     out_td, out_lo = [tds[0]], []

@@ -25,9 +25,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import CubicSpline
-from scipy.ndimage import median_filter
+from scipy.ndimage import maximum_filter1d, median_filter
 from scipy.signal import butter, filtfilt
-from scipy.special import ndtri
 
 from measures._validation import (
     InsufficientDataError,
@@ -58,8 +57,6 @@ MARKER_RESOLUTION_M = 2e-4
 #: Running-median span of the spike detector: 5 frames at 300 Hz (handles
 #: spikes of up to 2 frames there), scaled with the frame rate elsewhere.
 SPIKE_WINDOW_S = 5.0 / 300.0
-#: Quantile of the median deviations that sets the motion part of the spike scale.
-MOTION_QUANTILE = 0.9
 #: Flagged-frame fraction above which preprocessing warns (our choice: a clean
 #: capture flags well under 1 %; a few percent means spikes, swaps or a
 #: detector that does not fit the data).
@@ -320,24 +317,23 @@ def detect_spikes(
     threshold: float = 8.0,
     window: int = 5,
     resolution_m: float = MARKER_RESOLUTION_M,
-    motion_quantile: float | None = MOTION_QUANTILE,
+    motion_scaled: bool = True,
 ) -> SpikeReport:
     """Flag isolated outliers (spikes) and step changes (jumps) per marker.
 
     Spikes: the distance of each sample from a running median of ``window``
-    frames (per axis), divided by a robust scale, exceeds ``threshold``. A
-    running median follows smooth motion to second order but not a one- or
-    two-frame excursion. The scale is the largest of
+    frames (per axis) exceeds ``threshold`` times a scale. A running median
+    follows smooth motion to second order but not a one- or two-frame
+    excursion. The scale at frame t is the largest of
 
-    * ``1.4826 * MAD`` of the deviations (the noise, where the marker is
-      mostly still or slow),
-    * the marker's own motion: the ``motion_quantile`` quantile of the
-      deviations divided by the normal quantile at that level. At low frame
-      rates smooth but fast motion (a swinging foot at 30 Hz) departs from a
-      3-frame median by centimetres, and a noise-only scale would call every
-      swing a spike; up to ``1 - motion_quantile`` of the frames may be
-      spikes before they inflate this scale;
-    * ``resolution_m``, the capture resolution.
+    * ``1.4826 * MAD`` of the deviations (the noise),
+    * ``resolution_m``, the capture resolution,
+    * with ``motion_scaled``, the marker's own motion there: the largest
+      second difference ``|m[t-1] - 2 m[t] + m[t+1]|`` of the running median
+      within the window. Smooth motion departs from its running median by
+      about half its second difference, so fast curved motion (a foot at the
+      top of its swing at 30 Hz, centimetres per frame) is never a spike,
+      while an excursion the median does not follow still is.
 
     Jumps: steps of the running-median trajectory itself whose robust z
     exceeds ``threshold``; they are reported, never altered.
@@ -353,8 +349,8 @@ def detect_spikes(
     resolution_m : float, default 2e-4
         Floor on the robust scale (common practice: about 0.2 mm for
         small-animal marker capture).
-    motion_quantile : float or None, default 0.9
-        None switches the motion term off (noise and resolution only).
+    motion_scaled : bool, default True
+        False gives the noise-and-resolution scale alone.
 
     Returns
     -------
@@ -370,12 +366,6 @@ def detect_spikes(
     thr = check_positive_float("threshold", threshold, fn)
     win = check_positive_int("window", window, fn, minimum=3)
     floor = check_positive_float("resolution_m", resolution_m, fn)
-    z_q = None
-    if motion_quantile is not None:
-        q = check_positive_float("motion_quantile", motion_quantile, fn)
-        if not 0.5 < q < 1:
-            raise InvalidParameterError("motion_quantile", fn, "in (0.5, 1) or None", q)
-        z_q = (q, float(ndtri(q)))
     spikes, jumps = [], []
     for k in range(arr.shape[1]):
         x = arr[:, k]
@@ -388,8 +378,12 @@ def detect_spikes(
         xs = x[idx]
         med = median_filter(xs, size=(win, 1), mode="nearest")
         dev = np.linalg.norm(xs - med, axis=1)
-        motion = 0.0 if z_q is None else float(np.quantile(dev, z_q[0])) / z_q[1]
-        spikes.append(idx[_robust_outliers(dev, thr, max(floor, motion))].astype(np.int64))
+        scale: float | NDArray[np.float64] = floor
+        if motion_scaled:
+            curv = np.zeros(dev.size)
+            curv[1:-1] = np.linalg.norm(med[:-2] - 2 * med[1:-1] + med[2:], axis=1)
+            scale = np.maximum(maximum_filter1d(curv, size=win, mode="nearest"), floor)
+        spikes.append(idx[_robust_outliers(dev, thr, scale)].astype(np.int64))
         step = np.linalg.norm(np.diff(med, axis=0), axis=1)
         # The step into frame j+1 marks the jump; the median's other steps are
         # smooth motion and set the scale.
@@ -397,9 +391,11 @@ def detect_spikes(
     return SpikeReport(tuple(spikes), tuple(jumps), thr)
 
 
-def _robust_outliers(values: NDArray[np.float64], thr: float, floor: float) -> NDArray[np.bool_]:
+def _robust_outliers(
+    values: NDArray[np.float64], thr: float, floor: float | NDArray[np.float64]
+) -> NDArray[np.bool_]:
     centre = np.median(values)
-    scale = max(1.4826 * np.median(np.abs(values - centre)), floor)
+    scale = np.maximum(1.4826 * np.median(np.abs(values - centre)), floor)
     return (values - centre) / scale > thr
 
 
