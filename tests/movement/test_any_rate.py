@@ -7,6 +7,8 @@ scipy's filtfilt as the reference of the FFT cut-off search.
 
 from __future__ import annotations
 
+import itertools
+
 import numpy as np
 import pytest
 from _testing import assert_allclose
@@ -134,7 +136,7 @@ def _skating(m: np.ndarray) -> np.ndarray:
         tds = np.flatnonzero(planted[1:] & ~planted[:-1]) + 1
         los = np.flatnonzero(~planted[1:] & planted[:-1]) + 1
         offset = np.zeros(m.shape[0])
-        for td, nxt in zip(tds[:-1], tds[1:], strict=True):
+        for td, nxt in itertools.pairwise(tds):
             lo = los[(los > td) & (los < nxt)][0]
             offset[td:lo] = 0.006 * np.clip((np.arange(lo - td) - 6) / 4, 0, 1)
             offset[lo:nxt] = 0.006 * (1 - np.arange(nxt - lo) / (nxt - lo))
