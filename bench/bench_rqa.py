@@ -29,7 +29,7 @@ def _points(n: int) -> np.ndarray:
 
 
 def _worker(kind: str, n: int, repeats: int) -> None:
-    from measures import _rqa_kernels as k
+    from measures.dynamics import _rqa_kernels as k
     from measures.dynamics.recurrence import _prepare, _resolve_threshold, rqa, rqa_dense
 
     small = _points(300)

@@ -23,6 +23,9 @@ class Score:
         Optional confidence interval.
     surrogate_z : float or None
         Optional z-score against surrogates.
+    note : str
+        Why a value is NaN, or how it was obtained when that matters
+        (automatic choices, surrogate settings); "" when nothing to say.
     """
 
     name: str
@@ -31,3 +34,4 @@ class Score:
     ci_low: float | None = None
     ci_high: float | None = None
     surrogate_z: float | None = None
+    note: str = ""

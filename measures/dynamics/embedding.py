@@ -27,6 +27,7 @@ __all__ = [
     "AMIResult",
     "CaoResult",
     "FNNResult",
+    "MultichannelSSA",
     "SingularSpectrum",
     "average_mutual_information",
     "cao_embedding",
@@ -34,6 +35,8 @@ __all__ = [
     "embedding_dimension",
     "false_nearest_neighbours",
     "first_ami_minimum",
+    "lag_covariance",
+    "multichannel_ssa",
     "singular_spectrum",
 ]
 
@@ -329,9 +332,9 @@ class SingularSpectrum:
         the centred series (up to edge effects).
     variance_share : ndarray, shape (window,)
         eigenvalues / their sum.
-    components : ndarray, shape (window, N)
-        Reconstructed components by diagonal averaging; they sum to the
-        centred series.
+    components : ndarray, shape (n_reconstructed, N)
+        Reconstructed components by diagonal averaging, leading first; with
+        every component reconstructed they sum to the centred series.
     n_components : int
         Smallest r whose leading r shares sum to at least ``variance_fraction``.
     mean : float
@@ -360,10 +363,93 @@ def _diagonal_averages(
     return sums / counts
 
 
+def lag_covariance(
+    x: NDArray[np.float64], *, window: int, lag_step: int = 1
+) -> NDArray[np.float64]:
+    """X^T X of the (multichannel) trajectory matrix without forming X.
+
+    Row t of X is ``(x_t, x_{t+s}, ..., x_{t+(L-1)s})`` with every channel at
+    each lag (lag-major, as :func:`delay_embed`), K = N - (L-1)s rows. The
+    block of lags (i, j) is ``sum_{t<K} x_{t+is}^T x_{t+js}``: for each lag
+    difference d = j - i it is the full lagged product ``x[:N-ds]^T x[ds:]``
+    minus a head (t + is below is) and a tail (past is + K) that are at most
+    (L-1)s terms long, so the cost is O(N c^2 L) in BLAS products instead of
+    O(N (cL)^2), and the sums are as exact as the direct ones.
+
+    Parameters
+    ----------
+    x : ndarray (N, c), centred
+    window : int
+        L, number of lags.
+    lag_step : int, default 1
+        s, samples between lags.
+
+    Returns
+    -------
+    ndarray (c L, c L), symmetric
+    """
+    n, c = x.shape
+    s = lag_step
+    span = (window - 1) * s
+    k = n - span
+    out = np.empty((window, c, window, c))
+    for d in range(window):
+        off = d * s
+        full = x[: n - off].T @ x[off:]  # (c, c): sum over u of x_u^T x_{u+off}
+        # head[i] = sum over u < i s; tail[i] = sum over u >= i s + K.
+        u_head = np.arange(span + 1)
+        prod_h = x[u_head][:, :, None] * x[np.minimum(u_head + off, n - 1)][:, None, :]
+        cum_h = np.concatenate((np.zeros((1, c, c)), np.cumsum(prod_h, axis=0)))
+        tail_lo = k  # u from i s + K ... n - off - 1
+        u_tail = np.arange(tail_lo, n - off)
+        prod_t = x[u_tail][:, :, None] * x[u_tail + off][:, None, :]
+        # suffix sums: rev_cum[m] = sum of prod_t[m:]
+        rev_cum = np.concatenate((np.cumsum(prod_t[::-1], axis=0)[::-1], np.zeros((1, c, c))))
+        for i in range(window - d):
+            j = i + d
+            block = full - cum_h[i * s] - rev_cum[i * s]
+            out[i, :, j, :] = block
+            out[j, :, i, :] = block.T
+    return out.reshape(window * c, window * c)
+
+
+def _principal_components(
+    x: NDArray[np.float64], vecs: NDArray[np.float64], window: int, lag_step: int
+) -> NDArray[np.float64]:
+    """X @ vecs without forming X: one (K, c) @ (c, r) product per lag."""
+    n, c = x.shape
+    k = n - (window - 1) * lag_step
+    e = vecs.reshape(window, c, -1)
+    out = np.zeros((k, vecs.shape[1]))
+    for i in range(window):
+        out += x[i * lag_step : i * lag_step + k] @ e[i]
+    return out
+
+
+def _leading_eigh(
+    cov: NDArray[np.float64], n_keep: int
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """All eigenvalues (descending, clipped at 0) and the leading n_keep eigenvectors."""
+    vals, vecs = np.linalg.eigh(cov)
+    order = np.argsort(vals)[::-1]
+    return np.clip(vals[order], 0.0, None), vecs[:, order[:n_keep]]
+
+
 def singular_spectrum(
-    x: ArrayLike, *, window: int, variance_fraction: float = 0.9
+    x: ArrayLike,
+    *,
+    window: int,
+    variance_fraction: float = 0.9,
+    n_reconstructed: int | None = None,
 ) -> SingularSpectrum:
     """Singular spectrum analysis (SSA) with diagonal-averaged reconstruction.
+
+    The decomposition goes through the L x L lag-covariance matrix (its
+    eigenvectors are the right singular vectors of the trajectory matrix X,
+    its eigenvalues the squared singular values over K); only the components
+    asked for are projected and reconstructed, so the cost is O(N L) plus
+    O(L^3) instead of the O(N L^2) of an SVD of X. Components agree with the
+    SVD route to round-off (tested to 1e-10).
 
     Parameters
     ----------
@@ -371,6 +457,8 @@ def singular_spectrum(
     window : int
         Embedding window L (2 <= L <= N / 2 is usual).
     variance_fraction : float in (0, 1], default 0.9
+    n_reconstructed : int, optional
+        Number of leading components to reconstruct (default: all L).
 
     Returns
     -------
@@ -382,6 +470,13 @@ def singular_spectrum(
     from experimental data", Physica D 20:217; N. Golyandina, V. Nekrutkin &
     A. Zhigljavsky (2001), Analysis of Time Series Structure: SSA and
     Related Techniques, Chapman & Hall (diagonal averaging).
+
+    Examples
+    --------
+    >>> t = np.arange(400)
+    >>> ssa = singular_spectrum(np.sin(2 * np.pi * t / 40), window=40, n_reconstructed=2)
+    >>> round(float(ssa.variance_share[:2].sum()), 6)
+    1.0
     """
     fn = "singular_spectrum"
     arr = _series(x, fn)
@@ -391,14 +486,142 @@ def singular_spectrum(
         raise InsufficientDataError(
             "window", fn, f"at most N / 2 + 1 = {arr.size // 2 + 1}", window
         )
+    n_rec = window if n_reconstructed is None else n_reconstructed
+    n_rec = check_positive_int("n_reconstructed", n_rec, fn, minimum=1)
+    n_rec = min(n_rec, window)
     mean = float(arr.mean())
-    traj = delay_embed(arr - mean, dimension=window, delay=1)
-    u, sv, vt = np.linalg.svd(traj, full_matrices=False)
-    eig = sv**2 / traj.shape[0]
+    centred = (arr - mean)[:, None]
+    k = arr.size - window + 1
+    vals, vecs = _leading_eigh(lag_covariance(centred, window=window), n_rec)
+    eig = vals / k
     share = eig / eig.sum()
-    comps = _diagonal_averages(u, sv, vt)
+    pcs = _principal_components(centred, vecs, window, 1)  # = u * sv of the SVD route
+    comps = _diagonal_averages(pcs, np.ones(n_rec), vecs.T)
     n_comp = int(np.searchsorted(np.cumsum(share), frac - 1e-12) + 1)
     return SingularSpectrum(
         eigenvalues=eig, variance_share=share, components=comps,
         n_components=min(n_comp, window), mean=mean,
+    )  # fmt: skip
+
+
+@dataclass(frozen=True)
+class MultichannelSSA:
+    """Multichannel singular spectrum analysis (M-SSA) of a state.
+
+    Attributes
+    ----------
+    state : ndarray (K, n_components)
+        Principal components: the windowed vectors projected on the leading
+        eigenvectors (the embedded state), K = N - (window - 1) lag_step.
+    eigenvalues : ndarray (window * channels,)
+        Eigenvalues of the lag-covariance matrix / K, descending.
+    variance_share : ndarray, same shape
+    eofs : ndarray (window, channels, n_components)
+        Leading eigenvectors (space-time patterns).
+    n_components : int
+        Chosen by the rule of :func:`multichannel_ssa`.
+    window, lag_step : int
+    mean : ndarray (channels,)
+    """
+
+    state: NDArray[np.float64]
+    eigenvalues: NDArray[np.float64]
+    variance_share: NDArray[np.float64]
+    eofs: NDArray[np.float64]
+    n_components: int
+    window: int
+    lag_step: int
+    mean: NDArray[np.float64]
+
+    def reconstruct(self, component: int) -> NDArray[np.float64]:
+        """Reconstructed component ``component`` in every channel, (N, channels)."""
+        a = self.state[:, component]
+        e = self.eofs[:, :, component]  # (L, c)
+        k, s = a.size, self.lag_step
+        n = k + (self.window - 1) * s
+        out = np.zeros((n, e.shape[1]))
+        counts = np.zeros(n)
+        for i in range(self.window):
+            out[i * s : i * s + k] += a[:, None] * e[i][None, :]
+            counts[i * s : i * s + k] += 1
+        return out / counts[:, None]
+
+
+def multichannel_ssa(
+    x: ArrayLike,
+    *,
+    window: int,
+    lag_step: int = 1,
+    variance_fraction: float = 0.9,
+    min_components: int = 2,
+    max_components: int = 6,
+) -> MultichannelSSA:
+    """Windowed PCA over every channel: the embedded state of a multichannel series.
+
+    The trajectory matrix holds, per row, every channel at lags 0, s, ...,
+    (L-1)s. Its lag-covariance matrix (built by :func:`lag_covariance`,
+    never forming X) is diagonalised and the windowed vectors are projected
+    on the leading eigenvectors. Rule for the number of components: the
+    smallest r whose leading eigenvalues hold ``variance_fraction`` of the
+    variance, clipped to ``[min_components, max_components]``.
+
+    Parameters
+    ----------
+    x : array_like (N, channels), one unit for every channel (not rescaled,
+        so each channel weighs by its own variance)
+    window : int
+        L, number of lags (>= 2).
+    lag_step : int, default 1
+        Samples between lags; the window spans (L - 1) s samples.
+    variance_fraction : float in (0, 1], default 0.9
+    min_components, max_components : int, defaults 2 and 6
+
+    Returns
+    -------
+    MultichannelSSA
+
+    References
+    ----------
+    D. S. Broomhead & G. P. King (1986), Physica D 20:217; M. Ghil et al.
+    (2002), "Advanced spectral methods for climatic time series", Rev.
+    Geophys. 40(1):1003 (multichannel SSA); G. Plaut & R. Vautard (1994),
+    J. Atmos. Sci. 51:210 (from memory).
+
+    Examples
+    --------
+    >>> t = np.arange(600)
+    >>> x = np.column_stack([np.sin(2 * np.pi * t / 50), np.cos(2 * np.pi * t / 50)])
+    >>> m = multichannel_ssa(x, window=10, lag_step=2)
+    >>> m.state.shape, m.n_components
+    ((582, 2), 2)
+    """
+    fn = "multichannel_ssa"
+    arr = as_float_array("x", x, fn, ndim=(1, 2))
+    arr = arr[:, None] if arr.ndim == 1 else arr
+    window = check_positive_int("window", window, fn, minimum=2)
+    s = check_positive_int("lag_step", lag_step, fn)
+    frac = check_positive_float("variance_fraction", variance_fraction, fn)
+    lo = check_positive_int("min_components", min_components, fn)
+    hi = check_positive_int("max_components", max_components, fn, minimum=lo)
+    n, c = arr.shape
+    if n - (window - 1) * s < max(2 * window, 10) or frac > 1:
+        raise InsufficientDataError(
+            "x", fn, f"more than {(window - 1) * s + 2 * window} samples for this window", arr
+        )
+    mean = arr.mean(axis=0)
+    centred = arr - mean
+    k = n - (window - 1) * s
+    cov = lag_covariance(centred, window=window, lag_step=s)
+    n_max = min(hi, window * c)
+    vals, vecs = _leading_eigh(cov, n_max)
+    eig = vals / k
+    total = eig.sum()
+    share = eig / total if total > 0 else np.zeros_like(eig)
+    r = int(np.searchsorted(np.cumsum(share), frac - 1e-12) + 1)
+    r = int(np.clip(r, min(lo, n_max), n_max))
+    vecs = vecs[:, :r]
+    state = _principal_components(centred, vecs, window, s)
+    return MultichannelSSA(
+        state=state, eigenvalues=eig, variance_share=share,
+        eofs=vecs.reshape(window, c, r), n_components=r, window=window, lag_step=s, mean=mean,
     )  # fmt: skip

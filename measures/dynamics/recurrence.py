@@ -41,10 +41,14 @@ from measures._validation import (
 from measures.dynamics import _rqa_kernels as _k
 
 __all__ = [
+    "JointRecurrence",
     "RQAResult",
     "RecurrencePlotImage",
     "WindowedRQA",
+    "joint_recurrence",
     "recurrence_plot_image",
+    "recurrence_rate_at",
+    "recurrence_threshold",
     "rqa",
     "rqa_dense",
     "windowed_rqa",
@@ -448,6 +452,153 @@ def rqa_dense(
         diag, vert, n=n, theiler=theiler, lmin=lmin, vmin=vmin,
         threshold=eps, metric=metric, method=method,
     )  # fmt: skip
+
+
+def recurrence_threshold(
+    points: ArrayLike,
+    *,
+    recurrence_rate: float = DEFAULT_RECURRENCE_RATE,
+    theiler: int = 1,
+    metric: str = "euclidean",
+    threshold_method: str = "sampled",
+    seed: int = 0,
+) -> float:
+    """The distance eps that :func:`rqa` would use for ``recurrence_rate``.
+
+    Examples
+    --------
+    >>> round(recurrence_threshold(np.arange(10.0), recurrence_rate=0.2), 6)
+    2.0
+    """
+    fn = "recurrence_threshold"
+    xt, theiler, _, _ = _prepare(points, fn, theiler, 1, 1, metric)
+    _, eps, _ = _resolve_threshold(
+        xt, fn, metric, theiler, None, recurrence_rate, threshold_method, seed
+    )
+    return float(eps)
+
+
+def recurrence_rate_at(
+    points: ArrayLike, *, threshold: float, theiler: int = 1, metric: str = "euclidean"
+) -> float:
+    """Recurrence rate of ``points`` at a given distance ``threshold`` (one counting pass).
+
+    Examples
+    --------
+    >>> recurrence_rate_at(np.arange(5.0), threshold=1.0)
+    0.4
+    """
+    fn = "recurrence_rate_at"
+    xt, theiler, _, _ = _prepare(points, fn, theiler, 1, 1, metric)
+    eps = check_positive_float("threshold", threshold, fn, allow_zero=True)
+    code = _METRICS[metric]
+    theiler = max(theiler, 1)
+    count = _k.count_recurrences(xt, eps * eps if code == 0 else eps, code, theiler)
+    return count / _n_lower(xt.shape[1], theiler)
+
+
+@dataclass(frozen=True)
+class JointRecurrence:
+    """Result of :func:`joint_recurrence`.
+
+    Attributes
+    ----------
+    jrr : float
+        Joint recurrence rate: share of admissible pairs recurrent in both.
+    rr_x, rr_y : float
+        Recurrence rates of each system at its own threshold.
+    synchronisation : float
+        ``(S - RR) / (1 - RR)`` with ``S = JRR / RR`` and RR the mean of the
+        two rates: 0 for independent systems (JRR = RR^2), 1 when every
+        recurrence of one is a recurrence of the other.
+    threshold_x, threshold_y : float
+        Maximum-norm thresholds used.
+    n : int
+    """
+
+    jrr: float
+    rr_x: float
+    rr_y: float
+    synchronisation: float
+    threshold_x: float
+    threshold_y: float
+    n: int
+
+
+def joint_recurrence(
+    x: ArrayLike,
+    y: ArrayLike,
+    *,
+    recurrence_rate: float = DEFAULT_RECURRENCE_RATE,
+    theiler: int = 1,
+    seed: int = 0,
+    threshold_x: float | None = None,
+    threshold_y: float | None = None,
+    rates: tuple[float, float] | None = None,
+) -> JointRecurrence:
+    """Joint recurrence of two simultaneous trajectories (maximum norm), streamed.
+
+    JR_ij = R^x_ij R^y_ij, each system at the threshold that gives it the
+    recurrence rate ``recurrence_rate`` (sampled quantile as in :func:`rqa`).
+    With the maximum norm, "both recur" is one recurrence of the stacked
+    state ``(x / eps_x, y / eps_y)`` at threshold 1, so the joint count is one
+    streaming pass and no matrix is stored.
+
+    Parameters
+    ----------
+    x, y : array_like (N,) or (N, m), same N
+    recurrence_rate : float in (0, 1), default 0.05
+    theiler : int, default 1
+    seed : int, default 0
+    threshold_x, threshold_y : float, optional
+        Maximum-norm thresholds to use instead of the recurrence-rate
+        quantile (e.g. computed once per system with
+        :func:`recurrence_threshold` when one system enters several pairs).
+    rates : (float, float), optional
+        The recurrence rates those thresholds give (saves two passes when
+        known; otherwise counted).
+
+    Returns
+    -------
+    JointRecurrence
+
+    References
+    ----------
+    M. C. Romano, M. Thiel, J. Kurths & W. von Bloh (2004), "Multivariate
+    recurrence plots", Phys. Lett. A 330:214-223; M. C. Romano et al. (2005),
+    Europhys. Lett. 71:466 (the joint probability of recurrence index);
+    Marwan et al. (2007), Phys. Rep. 438, sec. 3.7.
+    """
+    fn = "joint_recurrence"
+    xt, theiler, _, _ = _prepare(x, fn, theiler, 1, 1, "maximum")
+    yt, _, _, _ = _prepare(y, fn, theiler, 1, 1, "maximum")
+    n = xt.shape[1]
+    if yt.shape[1] != n:
+        raise InvalidParameterError("y", fn, f"{n} points, as x", yt.T)
+    _, rate = _check_threshold_args(fn, None, recurrence_rate, "sampled")
+    theiler = max(theiler, 1)
+    eps_x = threshold_x
+    if eps_x is None:
+        eps_x = _comparison_threshold(xt, 1, theiler, rate, "sampled", seed)
+    eps_y = threshold_y
+    if eps_y is None:
+        eps_y = _comparison_threshold(yt, 1, theiler, rate, "sampled", seed)
+    pairs = _n_lower(n, theiler)
+    if rates is None:
+        count_x = _k.count_recurrences(xt, eps_x, 1, theiler)
+        count_y = _k.count_recurrences(yt, eps_y, 1, theiler)
+    else:
+        count_x, count_y = rates[0] * pairs, rates[1] * pairs
+    nan = math.nan
+    if eps_x <= 0 or eps_y <= 0 or pairs == 0:
+        return JointRecurrence(nan, count_x / max(pairs, 1), count_y / max(pairs, 1), nan,
+                               eps_x, eps_y, n)  # fmt: skip
+    stacked = np.ascontiguousarray(np.concatenate((xt / eps_x, yt / eps_y)))
+    joint = _k.count_recurrences(stacked, 1.0, 1, theiler)
+    rr_x, rr_y, jrr = count_x / pairs, count_y / pairs, joint / pairs
+    rr = 0.5 * (rr_x + rr_y)
+    sync = ((jrr / rr) - rr) / (1 - rr) if 0 < rr < 1 else nan
+    return JointRecurrence(jrr, rr_x, rr_y, float(sync), eps_x, eps_y, n)
 
 
 @dataclass(frozen=True)

@@ -243,6 +243,9 @@ def foot_contacts_from_speed(
     high_fraction: float = 0.2,
     min_phase_s: float = 0.01,
     min_speed_m_s: float = 0.05,
+    height: ArrayLike | None = None,
+    min_swing_fraction: float = 0.5,
+    min_lift_fraction: float = 0.25,
 ) -> FootContacts:
     """Touch-down and lift-off frames of one foot from its speed over the ground.
 
@@ -264,6 +267,17 @@ def foot_contacts_from_speed(
     low_fraction, high_fraction : float, defaults 0.1 and 0.2
     min_phase_s : float, default 0.01
     min_speed_m_s : float, default 0.05
+    height : array (n_frames,), optional
+        Foot height (m). A "swing" shorter than ``min_swing_fraction`` of
+        the upper quartile of the foot's swing durations that lifts the foot
+        by less than ``min_lift_fraction`` of the upper quartile of its swing
+        lifts is foot skate (a
+        planted foot sliding at touch-down, common in retargeted capture):
+        the stances on either side are merged, so a stride is never split
+        there. Without ``height`` the duration rule alone decides.
+    min_swing_fraction, min_lift_fraction : float, defaults 0.5 and 0.25
+        Our choice: a real swing of a steady gait lasts close to the median
+        swing and lifts the foot close to the median lift.
 
     Returns
     -------
@@ -294,9 +308,46 @@ def foot_contacts_from_speed(
             for td, lo_ in _run_stances(v[a:b], still[a:b], low, high, np.inf, min_phase):
                 tds.append(a + td)
                 los.append(a + lo_)
+    h = None if height is None else as_float_array("height", height, fn, ndim=1, allow_nan=True)
+    tds, los = _merge_skates(tds, los, h, min_swing_fraction, min_lift_fraction)
     return FootContacts(
         np.asarray(tds, dtype=np.int64), np.asarray(los, dtype=np.int64), low, high, 0.0
     )
+
+
+def _merge_skates(
+    tds: list[int],
+    los: list[int],
+    height: NDArray[np.float64] | None,
+    min_swing_fraction: float,
+    min_lift_fraction: float,
+) -> tuple[list[int], list[int]]:
+    """Merge stances separated by a short swing that does not lift the foot (skate)."""
+    if len(tds) < 3:
+        return tds, los
+    swings = [(lo, td) for lo, td in zip(los[:-1], tds[1:], strict=True)]
+    dur = np.array([td - lo for lo, td in swings], dtype=float)
+    # Upper quartiles as references: at most one skate per stride, so at least
+    # half the "swings" are real ones even when every stance skates.
+    short = dur < min_swing_fraction * np.percentile(dur, 75)
+    skate = short
+    if height is not None:
+        lift = np.array(
+            [
+                np.nanmax(height[lo : td + 1]) - 0.5 * (height[lo] + height[td]) if td > lo else 0.0
+                for lo, td in swings
+            ]
+        )
+        ref = np.nanpercentile(lift, 75)
+        if ref > 0:
+            skate = short & ~(lift >= min_lift_fraction * ref)
+    out_td, out_lo = [tds[0]], []
+    for i, is_skate in enumerate(skate):
+        if not is_skate:
+            out_lo.append(los[i])
+            out_td.append(tds[i + 1])
+    out_lo.append(los[-1])
+    return out_td, out_lo
 
 
 def _ground_speed(
@@ -486,6 +537,7 @@ def gait_parameters(
     contact_method: str = "speed",
     speed_low_fraction: float = 0.1,
     speed_high_fraction: float = 0.2,
+    heading: str = "axis",
 ) -> GaitParameters:
     """Strides, stride frequency and length, duty factor, interlimb phase.
 
@@ -508,6 +560,8 @@ def gait_parameters(
         height (:func:`foot_contacts`, for flat ground and slow feet).
     speed_low_fraction, speed_high_fraction : float, defaults 0.1 and 0.2
         Hysteresis of the speed-based detector.
+    heading : {"axis", "velocity", "auto"}, default "axis"
+        Heading source of the body frame (see :func:`measures.body_frame`).
 
     Returns
     -------
@@ -532,6 +586,7 @@ def gait_parameters(
         up=up,
         frame_rate_hz=fs,
         treadmill_speed_m_s=treadmill_speed_m_s,
+        heading=heading,
     )
     ref = reference_limb if reference_limb in index else sorted(index)[0]
     limbs: dict[str, LimbStrides] = {}
@@ -544,6 +599,7 @@ def gait_parameters(
                 low_fraction=speed_low_fraction,
                 high_fraction=speed_high_fraction,
                 min_phase_s=min_phase_s,
+                height=height,
             )
         else:
             contacts = foot_contacts(

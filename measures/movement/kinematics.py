@@ -25,13 +25,14 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import CubicSpline
-from scipy.ndimage import median_filter
+from scipy.ndimage import maximum_filter1d, median_filter
 from scipy.signal import butter, filtfilt
 
 from measures._validation import (
     InsufficientDataError,
     InvalidParameterError,
     as_float_array,
+    check_choice,
     check_positive_float,
     check_positive_int,
 )
@@ -47,11 +48,19 @@ __all__ = [
     "lowpass_filter",
     "preprocess_trial",
     "residual_analysis",
+    "spike_window_frames",
     "valid_segments",
 ]
 
 #: Marker resolution of small-animal capture (common practice: about 0.2 mm).
 MARKER_RESOLUTION_M = 2e-4
+#: Running-median span of the spike detector: 5 frames at 300 Hz (handles
+#: spikes of up to 2 frames there), scaled with the frame rate elsewhere.
+SPIKE_WINDOW_S = 5.0 / 300.0
+#: Flagged-frame fraction above which preprocessing warns (our choice: a clean
+#: capture flags well under 1 %; a few percent means spikes, swaps or a
+#: detector that does not fit the data).
+FLAGGED_WARN_FRACTION = 0.02
 
 
 @dataclass(frozen=True)
@@ -147,6 +156,13 @@ class PreprocessedTrial:
     valid_fraction : float
         Fraction of frames inside kept segments.
     filter_order : int
+    flagged_fraction : float
+        Fraction of frames in which at least one marker was flagged as a spike.
+    spike_window : int
+        Running-median length (frames) used by the spike detector.
+    warnings : tuple of str
+        Plain-language warnings (flagged fraction above
+        :data:`FLAGGED_WARN_FRACTION`).
     """
 
     markers: NDArray[np.float64]
@@ -158,6 +174,9 @@ class PreprocessedTrial:
     segments: tuple[tuple[int, int], ...]
     valid_fraction: float
     filter_order: int
+    flagged_fraction: float = 0.0
+    spike_window: int = 5
+    warnings: tuple[str, ...] = ()
 
 
 # --------------------------------------------------------------------- helpers
@@ -280,21 +299,42 @@ def fill_gaps(markers: ArrayLike, *, frame_rate_hz: float, max_gap_s: float = 0.
 
 
 # ------------------------------------------------------------- spike detection
+def spike_window_frames(frame_rate_hz: float, window_s: float = SPIKE_WINDOW_S) -> int:
+    """Odd running-median length in frames spanning ``window_s`` (at least 3).
+
+    Examples
+    --------
+    >>> spike_window_frames(300.0), spike_window_frames(30.0), spike_window_frames(1000.0)
+    (5, 3, 17)
+    """
+    w = max(3, round(window_s * frame_rate_hz))
+    return w if w % 2 else w + 1
+
+
 def detect_spikes(
     markers: ArrayLike,
     *,
     threshold: float = 8.0,
     window: int = 5,
     resolution_m: float = MARKER_RESOLUTION_M,
+    motion_scaled: bool = True,
 ) -> SpikeReport:
     """Flag isolated outliers (spikes) and step changes (jumps) per marker.
 
     Spikes: the distance of each sample from a running median of ``window``
-    frames (per axis), divided by a robust scale ``max(1.4826 * MAD,
-    resolution_m)``, exceeds ``threshold``. A running median follows smooth
-    motion to second order but not a one- or two-frame excursion, so the
-    deviation is a stationary statistic even when a foot alternates between
-    stance and fast swing (a plain velocity outlier test would flag swing).
+    frames (per axis) exceeds ``threshold`` times a scale. A running median
+    follows smooth motion to second order but not a one- or two-frame
+    excursion. The scale at frame t is the largest of
+
+    * ``1.4826 * MAD`` of the deviations (the noise),
+    * ``resolution_m``, the capture resolution,
+    * with ``motion_scaled``, the marker's own motion there: the largest
+      second difference ``|m[t-1] - 2 m[t] + m[t+1]|`` of the running median
+      within the window. Smooth motion departs from its running median by
+      about half its second difference, so fast curved motion (a foot at the
+      top of its swing at 30 Hz, centimetres per frame) is never a spike,
+      while an excursion the median does not follow still is.
+
     Jumps: steps of the running-median trajectory itself whose robust z
     exceeds ``threshold``; they are reported, never altered.
 
@@ -304,10 +344,13 @@ def detect_spikes(
     threshold : float, default 8.0
         Robust z threshold (1.4826 MAD is the normal-consistent SD).
     window : int, default 5
-        Odd running-median length in frames (handles spikes up to 2 frames).
+        Odd running-median length in frames; :func:`spike_window_frames`
+        scales it to the frame rate (5 frames at 300 Hz, 3 at 30 Hz).
     resolution_m : float, default 2e-4
-        Floor on the robust scale: the capture resolution (common practice:
-        about 0.2 mm for small-animal marker capture).
+        Floor on the robust scale (common practice: about 0.2 mm for
+        small-animal marker capture).
+    motion_scaled : bool, default True
+        False gives the noise-and-resolution scale alone.
 
     Returns
     -------
@@ -335,7 +378,12 @@ def detect_spikes(
         xs = x[idx]
         med = median_filter(xs, size=(win, 1), mode="nearest")
         dev = np.linalg.norm(xs - med, axis=1)
-        spikes.append(idx[_robust_outliers(dev, thr, floor)].astype(np.int64))
+        scale: float | NDArray[np.float64] = floor
+        if motion_scaled:
+            curv = np.zeros(dev.size)
+            curv[1:-1] = np.linalg.norm(med[:-2] - 2 * med[1:-1] + med[2:], axis=1)
+            scale = np.maximum(maximum_filter1d(curv, size=win, mode="nearest"), floor)
+        spikes.append(idx[_robust_outliers(dev, thr, scale)].astype(np.int64))
         step = np.linalg.norm(np.diff(med, axis=0), axis=1)
         # The step into frame j+1 marks the jump; the median's other steps are
         # smooth motion and set the scale.
@@ -343,9 +391,11 @@ def detect_spikes(
     return SpikeReport(tuple(spikes), tuple(jumps), thr)
 
 
-def _robust_outliers(values: NDArray[np.float64], thr: float, floor: float) -> NDArray[np.bool_]:
+def _robust_outliers(
+    values: NDArray[np.float64], thr: float, floor: float | NDArray[np.float64]
+) -> NDArray[np.bool_]:
     centre = np.median(values)
-    scale = max(1.4826 * np.median(np.abs(values - centre)), floor)
+    scale = np.maximum(1.4826 * np.median(np.abs(values - centre)), floor)
     return (values - centre) / scale > thr
 
 
@@ -444,6 +494,7 @@ def residual_analysis(
     fit_from_hz: float | None = None,
     order: int = 2,
     segments: tuple[tuple[int, int], ...] | None = None,
+    method: str = "fft",
 ) -> ResidualAnalysis:
     """Winter's residual analysis: cut-off and noise RMS per signal.
 
@@ -465,6 +516,17 @@ def residual_analysis(
     order : int, default 2
     segments : tuple of (int, int), optional
         Filter each segment separately and pool the residuals (default: one).
+    method : {"fft", "filtfilt"}, default "fft"
+        ``"filtfilt"`` filters every segment once per candidate.
+        ``"fft"`` takes one FFT per channel and segment and gets every
+        candidate's residual power by Parseval: the zero-lag filter's gain
+        is ``|H(f)|^2``, so the residual spectrum is ``X(f) (1 - |H(f)|^2)``.
+        The segment has its end-to-end line removed (a low-pass passes a
+        line unchanged, so the residual does not contain it) and is extended
+        oddly to twice its length, which makes it continuous when taken as
+        periodic. Edges are handled differently from filtfilt's padding, so
+        residuals differ slightly near the tail; the cut-offs agree within
+        one candidate step (tested).
 
     Returns
     -------
@@ -494,22 +556,63 @@ def residual_analysis(
     segs = segments if segments is not None else ((0, signals.shape[0]),)
     if not segs:
         raise InsufficientDataError("segments", fn, "at least one segment", segs)
-    resid = np.empty((cand.size, signals.shape[1]))
-    for i, fc in enumerate(cand):
-        sq = np.zeros(signals.shape[1])
-        count = 0
-        for a, b in segs:
-            part = signals[a:b]
-            sq += (
-                (part - lowpass_filter(part, frame_rate_hz=fs, cutoff_hz=fc, order=order)) ** 2
-            ).sum(axis=0)
-            count += b - a
-        resid[i] = np.sqrt(sq / count)
+    check_choice("method", method, fn, ("fft", "filtfilt"))
+    if method == "fft":
+        resid = _residuals_fft(signals, segs, cand, fs, order)
+    else:
+        resid = _residuals_filtfilt(signals, segs, cand, fs, order)
     slope_int = np.polyfit(cand[tail], resid[tail], 1)
     intercept = slope_int[1]
     below = resid <= intercept[None, :]
     first = np.where(below.any(axis=0), below.argmax(axis=0), cand.size - 1)
     return ResidualAnalysis(cand, resid, intercept, cand[first], float(fit_from))
+
+
+def _residuals_filtfilt(signals, segs, cand, fs, order):
+    resid = np.empty((cand.size, signals.shape[1]))
+    count = sum(b - a for a, b in segs)
+    for i, fc in enumerate(cand):
+        sq = np.zeros(signals.shape[1])
+        for a, b in segs:
+            part = signals[a:b]
+            sq += (
+                (part - lowpass_filter(part, frame_rate_hz=fs, cutoff_hz=fc, order=order)) ** 2
+            ).sum(axis=0)
+        resid[i] = np.sqrt(sq / count)
+    return resid
+
+
+def _residuals_fft(signals, segs, cand, fs, order):
+    """Residual RMS per candidate by Parseval on the odd extension of each segment."""
+    sq = np.zeros((cand.size, signals.shape[1]))
+    count = 0
+    for a, b in segs:
+        part = signals[a:b]
+        n = part.shape[0]
+        if n <= 3 * (order + 1):  # as lowpass_filter: too short to filter
+            raise InsufficientDataError(
+                "x", "residual_analysis", f"segments > {3 * (order + 1)}", n
+            )
+        ramp = np.linspace(0.0, 1.0, n)[:, None]
+        detr = part - (part[:1] + ramp * (part[-1:] - part[:1]))
+        ext = np.concatenate((detr, -detr[::-1]), axis=0)  # length 2n, odd about both ends
+        power = np.abs(np.fft.rfft(ext, axis=0)) ** 2
+        # rfft of a real length-2n series: interior bins count twice in Parseval.
+        weight = np.full(power.shape[0], 2.0)
+        weight[0] = 1.0
+        weight[-1] = 1.0
+        freqs = np.fft.rfftfreq(2 * n, d=1.0 / fs)
+        # One pass of a bilinear-transform Butterworth has |H|^2 = 1 / (1 +
+        # (tan(pi f / fs) / tan(pi f_d / fs))^(2N)) (see
+        # butterworth_design_cutoff_hz); filtfilt's gain is that |H|^2.
+        c = (2.0**0.5 - 1.0) ** (1.0 / (2 * order))
+        warped = np.tan(np.pi * np.minimum(freqs, 0.5 * fs * (1 - 1e-12)) / fs)
+        ratio = warped[None, :] * c / np.tan(np.pi * cand / fs)[:, None]
+        gains = 1.0 / (1.0 + ratio ** (2 * order))
+        # Energy of the residual of the extension, half of which is the segment's.
+        sq += ((1.0 - gains) ** 2 * weight) @ power / (2 * n) / 2.0
+        count += n
+    return np.sqrt(sq / count)
 
 
 # ------------------------------------------------------------------ pipeline
@@ -539,6 +642,8 @@ def preprocess_trial(
     remove_spikes: bool = True,
     spike_threshold: float = 8.0,
     min_segment_s: float = 0.1,
+    spike_window_s: float = SPIKE_WINDOW_S,
+    flagged_warn_fraction: float = FLAGGED_WARN_FRACTION,
 ) -> PreprocessedTrial:
     """Spike removal, gap filling, residual analysis and zero-lag low-pass.
 
@@ -559,6 +664,12 @@ def preprocess_trial(
     min_segment_s : float, default 0.1
         Valid segments shorter than this are dropped (set to NaN): they are
         too short for the filter's edge padding and for any cycle measure.
+    spike_window_s : float, default 5/300 s
+        Span of the spike detector's running median (see
+        :func:`spike_window_frames`): 5 frames at 300 Hz, 3 at 30 Hz.
+    flagged_warn_fraction : float, default 0.02
+        A warning is added when more than this fraction of the frames holds
+        a flagged marker.
 
     Returns
     -------
@@ -584,7 +695,18 @@ def preprocess_trial(
     fs = check_positive_float("frame_rate_hz", frame_rate_hz, fn)
     table = _cutoff_table(cutoff_hz, arr.shape[1], fs, fn)
     min_len = max(round(check_positive_float("min_segment_s", min_segment_s, fn) * fs), 16)
-    spikes = detect_spikes(arr, threshold=spike_threshold)
+    window = spike_window_frames(fs, check_positive_float("spike_window_s", spike_window_s, fn))
+    spikes = detect_spikes(arr, threshold=spike_threshold, window=window)
+    flagged = np.zeros(arr.shape[0], dtype=bool)
+    for frames in spikes.spike_frames:
+        flagged[frames] = True
+    flagged_fraction = float(flagged.mean()) if flagged.size else 0.0
+    warn = []
+    if flagged_fraction > check_positive_float("flagged_warn_fraction", flagged_warn_fraction, fn):
+        warn.append(
+            f"spike detector flagged {100 * flagged_fraction:.1f} % of frames "
+            f"(> {100 * flagged_warn_fraction:.1f} %): check for marker swaps or noisy capture"
+        )
     work = arr.copy()
     if remove_spikes:
         for k, frames in enumerate(spikes.spike_frames):
@@ -592,9 +714,13 @@ def preprocess_trial(
     gaps = fill_gaps(work, frame_rate_hz=fs, max_gap_s=max_gap_s)
     segments = tuple(s for s in gaps.segments if s[1] - s[0] >= min_len)
     if not segments:
+        longest = max((b - a for a, b in gaps.segments), default=0)
         raise InsufficientDataError(
-            "markers", fn, f"a gap-free stretch of at least {min_len} frames", arr
-        )
+            "markers", fn,
+            f"a gap-free stretch of at least {min_len} frames ({min_len / fs:.3g} s); "
+            f"the longest has {longest} of {arr.shape[0]} frames",
+            arr,
+        )  # fmt: skip
     flat = gaps.markers.reshape(arr.shape[0], -1)
     analysis = residual_analysis(flat, frame_rate_hz=fs, order=order, segments=segments)
     noise = np.clip(analysis.intercept, 0.0, None).reshape(arr.shape[1], 3)
@@ -610,4 +736,7 @@ def preprocess_trial(
                 part[:, sel], frame_rate_hz=fs, cutoff_hz=fc, order=order
             )
     valid = sum(b - a for a, b in segments) / arr.shape[0]
-    return PreprocessedTrial(out, fs, table, noise, gaps, spikes, segments, float(valid), order)
+    return PreprocessedTrial(
+        out, fs, table, noise, gaps, spikes, segments, float(valid), order,
+        flagged_fraction, window, tuple(warn),
+    )  # fmt: skip

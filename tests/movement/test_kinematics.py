@@ -1,4 +1,4 @@
-"""Tests for measures.movement.kinematics: Butterworth correction, residuals, gaps, spikes."""
+"""Tests for measures.movement.kinematics: Butterworth correction, residual analysis, gaps."""
 
 from __future__ import annotations
 

@@ -81,6 +81,11 @@ def test_one_step_class_has_zero_class_entropy(walk_summary) -> None:
 # change when the trial is rotated; every other score is a body-frame or
 # height-relative quantity and must not.
 PER_AXIS_QC = {"noise_floor_m"}
+# Scores of the whole-body state go through an eigendecomposition, so rotating
+# the trial changes them at round-off; on a strictly periodic walker many pair
+# distances tie at the recurrence threshold and round-off moves a few pairs
+# across it (RR 0.05 +- 3e-6, ENTR +- 0.3 %). Counting scores get 1 %.
+STATE_PREFIXES = ("rqa_", "interlimb_", "permutation", "js_", "entropy_rate", "lz76", "sample_")
 
 
 def test_invariant_to_rigid_motion_about_vertical(walk_summary) -> None:
@@ -90,8 +95,11 @@ def test_invariant_to_rigid_motion_about_vertical(walk_summary) -> None:
     moved = _summary(m @ rot.T + np.array([3.0, -1.0, 0.2]), **FIXED)
     for a, b in zip(walk_summary.scores, moved.scores, strict=True):
         assert a.name == b.name
-        if a.name not in PER_AXIS_QC:
-            assert_allclose(b.value, a.value, rtol=1e-6, atol=1e-9, err_msg=a.name)
+        if a.name in PER_AXIS_QC:
+            continue
+        loose = a.name.startswith(STATE_PREFIXES) or a.surrogate_z is not None
+        tol = {"rtol": 1e-2, "atol": 1e-3} if loose else {"rtol": 1e-6, "atol": 1e-9}
+        assert_allclose(b.value, a.value, err_msg=a.name, **tol)
 
 
 def test_invariant_to_marker_order(walk_summary) -> None:
