@@ -23,6 +23,9 @@ class Score:
         Optional confidence interval.
     surrogate_z : float or None
         Optional z-score against surrogates.
+    note : str
+        Why the value is NaN, or what was chosen automatically ("" when
+        nothing needs saying). Every NaN value carries one.
     """
 
     name: str
@@ -31,3 +34,4 @@ class Score:
     ci_low: float | None = None
     ci_high: float | None = None
     surrogate_z: float | None = None
+    note: str = ""
