@@ -39,6 +39,7 @@ _METHODS = ("psd", "variogram", "madogram", "boxcount")
 # Below half the cells valid, interpolation makes up most of the surface:
 # no Hurst exponent is fitted (our choice, stated).
 MIN_VALID_FRACTION = 0.5
+_MAX_TRANSECTS = 1024
 
 
 @dataclass(frozen=True, eq=False)
@@ -256,10 +257,14 @@ def _lags_px(band, step, n, default_hi_frac):
 
 def _increments(arr, mask, lags, p):
     """Mean |z(x+h) - z(x)|^p per transect (rows, then columns if 2-D): (n_lines, n_lags)."""
-    lines = [arr[None, :]] if arr.ndim == 1 else [arr, arr.T]
+    # At most _MAX_TRANSECTS evenly spaced rows (and columns): H is the median
+    # over transects, which 1024 of them pin down as well as 4096 do.
+    sr = max(1, -(-arr.shape[0] // _MAX_TRANSECTS)) if arr.ndim == 2 else 1
+    sc = max(1, -(-arr.shape[-1] // _MAX_TRANSECTS)) if arr.ndim == 2 else 1
+    lines = [arr[None, :]] if arr.ndim == 1 else [arr[::sr], np.ascontiguousarray(arr.T[::sc])]
     masks = [None] * len(lines)
     if mask is not None:
-        masks = [mask[None, :]] if arr.ndim == 1 else [mask, mask.T]
+        masks = [mask[None, :]] if arr.ndim == 1 else [mask[::sr], mask.T[::sc]]
     out = []
     for zz, mm in zip(lines, masks, strict=True):
         cols = []

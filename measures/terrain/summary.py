@@ -77,7 +77,7 @@ TERRAIN_DEFAULTS: dict[str, Any] = {
     # The ordinal scores' surrogates use the whole field (fused kernel); the
     # symbol-field scores' z-scores use the central tile of at most this many
     # cells, value and surrogates alike (noted when the tile is smaller).
-    "surrogate_tile_cells": 512 * 512,
+    "surrogate_tile_cells": 256 * 256,
     "thumbnail_px": 256,  # longer side of the hillshade thumbnail
     "hillshade_azimuth_deg": 135.0,
     "hillshade_altitude_deg": 45.0,
