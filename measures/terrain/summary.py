@@ -574,29 +574,43 @@ def terrain_summary(
     dx, dy : float, m
         Spacing along x (axis 1) and y (axis 0); ``dy`` defaults to ``dx``.
     valid : bool array (ny, nx), optional
-        Cells that hold data. The information estimators need a full grid:
-        holes are filled with the mean height for them (noted).
+        Cells that hold data. ``hole_fraction`` is a score. Spectra and the
+        PSD and box-counting Hurst fits use harmonically interpolated holes
+        and wavelengths above 4 hole radii; below ``min_valid_fraction``
+        valid cells they are NaN with a note. The information estimators
+        use the interpolated surface.
     band_m : (lo, hi) in m, optional
-        Animal-scale wavelength band (either side may be None).
+        Animal-scale wavelength band (either side may be None). With the
+        default ``hurst_band="common"`` it is also the one band every Hurst
+        estimator fits; without it the common band is 4 cells to 1/8 of the
+        shorter side.
     params : mapping, optional
         Overrides of :data:`TERRAIN_DEFAULTS` (unknown keys are an error).
 
     Returns
     -------
     TerrainSummary
-        Scores (snake_case, unit suffix where dimensional): ``sq_m, sa_m, ssk,
-        sku, sp_m, sv_m, sz_m, sdq, sdr, sal_m, str, rms_slope_psd,
-        psd_anisotropy_ratio, lay_direction_deg, psd_slope, hurst_<method>,
-        fractal_dimension_<method>, hurst_<method>_r2, psd_band_lo_m,
+        Scores (snake_case, unit suffix where dimensional): ``hole_fraction,
+        sq_m, sa_m, ssk, sku, sp_m, sv_m, sz_m, sdq, sdr, sal_m, str,
+        rms_slope_psd, psd_anisotropy_ratio, lay_direction_deg, psd_slope,
+        hurst_<method>, fractal_dimension_<method>, hurst_<method>_r2,
+        hurst_<method>_band_lo_m, hurst_<method>_band_hi_m, psd_band_lo_m,
         psd_band_hi_m, slope_entropy_bits, aspect_entropy_bits,
-        permutation_entropy_2d, js_complexity_2d, entropy_density_2d_bits,
-        excess_entropy_2d_bits``.
+        permutation_entropy_2d, js_complexity_2d,
+        permutation_entropy_2d_tie_fraction, entropy_density_2d_bits,
+        excess_entropy_2d_bits, effective_complexity_2d_bits,
+        total_information_2d_bits_per_site``. Every NaN score has a ``note``;
+        the complexity scores named in ``surrogate_scores`` carry a
+        ``surrogate_z`` against ``n_surrogates`` 2-D phase surrogates. The
+        notes, the hillshade thumbnail and the radial PSD with its fit are
+        fields of the result, for the pipeline to store.
 
     References
     ----------
     ISO 25178-2:2012; Jacobs, Junge & Pastewka (2017); Gneiting, Ševčíková &
     Percival (2012); Bandt & Pompe (2002), Ribeiro et al. (2012), Rosso et
-    al. (2007); Feldman & Crutchfield (2003); Theiler et al. (1992) for
+    al. (2007); Feldman & Crutchfield (2003); Gell-Mann & Lloyd (1996) for
+    effective complexity and total information; Theiler et al. (1992) for
     phase-randomised surrogates.
     """
     fn = "terrain_summary"

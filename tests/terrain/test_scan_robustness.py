@@ -315,3 +315,16 @@ def test_flat_tray_cloud_agrees_with_its_heightmap():
     assert abs(cloud.Sq - ref.Sq) <= 0.5 * NOISE_M
     assert cloud.Sku < 4.0
     assert cloud.Sv <= ref.Sv + 5 * NOISE_M and cloud.Sp <= ref.Sp + 5 * NOISE_M
+
+
+def test_total_information_of_white_noise_is_two_bits_per_site(rng):
+    # Analytic (Shannon 1948): white-noise heights in 4 equiprobable quantile symbols
+    # are i.i.d. uniform over 4 symbols, 2 bits per site; the two-part code's total
+    # information per site approaches that from above (model bits are few).
+    z = rng.normal(0, 1e-3, (256, 256))
+    s = terrain_summary(z, 1e-3, params={"surrogate_scores": [], "hurst_methods": []})
+    ti = s.score("total_information_2d_bits_per_site")
+    if "does not take 2-D fields" in ti.note:
+        pytest.skip("shared two_part_code without 2-D fields in this build")
+    assert 2.0 - 0.02 <= ti.value <= 2.0 + 0.15
+    assert np.isfinite(s.score("effective_complexity_2d_bits").value)
