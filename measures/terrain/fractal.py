@@ -24,12 +24,22 @@ from measures._validation import (
     check_choice,
     check_positive_float,
 )
-from measures.terrain._surface import check_grid, fill_holes, level
+from measures.terrain._surface import (
+    check_grid,
+    fill_holes,
+    hole_scale_cells,
+    inpaint_holes,
+    level,
+)
 from measures.terrain.spectra import profile_psd, radial_psd
 
 __all__ = ["HurstResult", "SelfAffineBand", "hurst_exponent", "self_affine_band"]
 
 _METHODS = ("psd", "variogram", "madogram", "boxcount")
+# Below half the cells valid, interpolation makes up most of the surface:
+# no Hurst exponent is fitted (our choice, stated).
+MIN_VALID_FRACTION = 0.5
+_MAX_TRANSECTS = 1024
 
 
 @dataclass(frozen=True, eq=False)
@@ -247,10 +257,14 @@ def _lags_px(band, step, n, default_hi_frac):
 
 def _increments(arr, mask, lags, p):
     """Mean |z(x+h) - z(x)|^p per transect (rows, then columns if 2-D): (n_lines, n_lags)."""
-    lines = [arr[None, :]] if arr.ndim == 1 else [arr, arr.T]
+    # At most _MAX_TRANSECTS evenly spaced rows (and columns): H is the median
+    # over transects, which 1024 of them pin down as well as 4096 do.
+    sr = max(1, -(-arr.shape[0] // _MAX_TRANSECTS)) if arr.ndim == 2 else 1
+    sc = max(1, -(-arr.shape[-1] // _MAX_TRANSECTS)) if arr.ndim == 2 else 1
+    lines = [arr[None, :]] if arr.ndim == 1 else [arr[::sr], np.ascontiguousarray(arr.T[::sc])]
     masks = [None] * len(lines)
     if mask is not None:
-        masks = [mask[None, :]] if arr.ndim == 1 else [mask, mask.T]
+        masks = [mask[None, :]] if arr.ndim == 1 else [mask[::sr], mask.T[::sc]]
     out = []
     for zz, mm in zip(lines, masks, strict=True):
         cols = []
@@ -341,6 +355,7 @@ def hurst_exponent(
     band: tuple[float, float] | None = None,
     dy: float | None = None,
     valid: ArrayLike | None = None,
+    min_valid_fraction: float = MIN_VALID_FRACTION,
 ) -> HurstResult:
     """Hurst exponent and fractal dimension of a heightmap or a profile.
 
@@ -376,7 +391,12 @@ def hurst_exponent(
     band : (lo, hi) in m, optional
     dy : float, m, optional
     valid : bool array, optional
-        Holes; increments across them are skipped, the PSD fills them.
+        Holes. Increments across them are skipped; for the PSD and box
+        counting they are interpolated (harmonic) and, for the PSD, the band
+        starts no shorter than 4 hole radii (95th percentile of the distance
+        to data inside holes), where interpolation no longer shapes the spectrum.
+    min_valid_fraction : float
+        Fewer valid cells than this fraction: InsufficientDataError.
 
     Returns
     -------
@@ -398,6 +418,7 @@ def hurst_exponent(
     fn = "hurst_exponent"
     check_choice("method", method, fn, _METHODS)
     arr, dx_f, dy_f, mask = check_grid(z, dx, dy, valid, fn, ndim=(1, 2), min_size=8)
+    min_valid_fraction = check_positive_float("min_valid_fraction", min_valid_fraction, fn)
     fit_band = None
     if band is not None:
         try:
@@ -407,10 +428,33 @@ def hurst_exponent(
         if not lo < hi:
             raise InvalidParameterError("band", fn, "a pair with lo < hi", band)
         fit_band = (lo, hi)
-    filled = fill_holes(np.nan_to_num(arr), mask)
+    frac = 1.0 if mask is None else float(mask.mean())
+    if frac < min_valid_fraction:
+        raise InsufficientDataError(
+            "valid", fn, f"at least {min_valid_fraction:.0%} valid cells", f"{frac:.1%} valid"
+        )
+    if arr.ndim == 2 and method in ("psd", "boxcount"):
+        filled = inpaint_holes(np.nan_to_num(arr), mask)
+        spec_mask = None
+    else:
+        filled = fill_holes(np.nan_to_num(arr), mask)
+        spec_mask = mask
     found = True
     if method == "psd":
-        q, c = _spectrum(filled, dx_f, dy_f, mask)
+        q, c = _spectrum(filled, dx_f, dy_f, spec_mask)
+        if arr.ndim == 2 and mask is not None:
+            floor = 4.0 * hole_scale_cells(mask) * max(dx_f, dy_f)
+            keep = q <= 2 * np.pi / floor if floor > 0 else np.ones(q.size, bool)
+            q, c = q[keep], c[keep]
+            if fit_band is not None and fit_band[0] < floor:
+                if fit_band[1] < 2.0 * floor:
+                    raise InsufficientDataError(
+                        "band",
+                        fn,
+                        f"a band reaching beyond twice the hole scale ({floor:.3g} m)",
+                        fit_band,
+                    )
+                fit_band = (floor, fit_band[1])
         if fit_band is None:
             auto = _band_from_spectrum(q, c, arr.ndim, 0.98, 0.8, 0.4, (0.0, 1.0))
             found = auto.found
@@ -419,8 +463,8 @@ def hurst_exponent(
             fit_band = auto.band_m if found else (4 * step, n * step / 4)
         res = _psd_fit(filled, fit_band, q, c)
     elif method == "boxcount":
-        zl = level(filled, dx_f, dy_f, mask, "plane")
-        res = _boxcount_fit(zl, dx_f, mask, fit_band)
+        zl = level(filled, dx_f, dy_f, spec_mask, "plane")
+        res = _boxcount_fit(zl, dx_f, spec_mask, fit_band)
     else:
         zl = level(filled, dx_f, dy_f, mask, "plane")
         res = _structure_fit(zl, dx_f, dy_f, mask, fit_band, 2 if method == "variogram" else 1)

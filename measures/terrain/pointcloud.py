@@ -15,8 +15,18 @@ seconds; see ``bench/bench_pointcloud.py``):
 5. outlier removal: per cell, from robust cell statistics (median and
    median absolute deviation, two sorts of all points) -- or, on request, the
    k-nearest-neighbour statistical filter of open3d on all points;
-6. rasterisation (cell mean and count, ``np.bincount``) and harmonic
-   (Laplace) filling of empty cells, keeping the validity mask.
+6. rasterisation (cell mean and count, ``np.bincount``);
+7. pit removal: cells far (in robust sigmas) from the median of their 5 x 5
+   neighbourhood, in isolated groups of a few cells, become holes. The point
+   filter misses them where outliers outnumber the inliers of a sparse cell
+   or fill a corner of the grid; a real pit one cell wide is below what the
+   grid resolves anyway, while cracks and stone edges, being long or wide,
+   are kept;
+8. harmonic (Laplace) filling of empty cells, keeping the validity mask.
+
+The cell size can come from the cloud (``cell_m=None``, see
+:func:`measures.terrain.gridding.heightmap_cell_m`), and the grid's memory
+is estimated before anything is allocated (``memory_cap_bytes``).
 """
 
 from __future__ import annotations
@@ -36,6 +46,7 @@ from measures._validation import (
     check_positive_float,
     check_positive_int,
 )
+from measures.terrain.gridding import heightmap_cell_m, heightmap_memory
 
 __all__ = ["Heightmap", "points_to_heightmap"]
 
@@ -43,6 +54,11 @@ _FUNC = "points_to_heightmap"
 # Cells with fewer points than this take their reference height from the
 # neighbourhood instead of their own (unreliable) quartiles.
 _MIN_CELL_POINTS = 4
+# Pit filter: neighbourhood size (cells), rejection distance in robust
+# sigmas of the cell-minus-neighbourhood residual, and the largest group of
+# connected flagged cells still treated as pits (larger groups are relief).
+_PIT_WINDOW = 5
+_PIT_MAX_CELLS = 4
 
 
 @dataclass(frozen=True, eq=False)
@@ -76,6 +92,8 @@ class Heightmap:
     n_points_in, n_outliers, n_points_outside, n_points_used : int
         Points given, rejected as outliers, outside the crop, rasterised
         (after voxel downsampling when it was asked for).
+    n_pit_cells : int
+        Cells removed by the pit filter (then filled like empty cells).
     point_sq_m : float
         ISO 25178-2 Sq (root mean square about the mean) of the heights of
         the rasterised points, before cell averaging.
@@ -103,12 +121,14 @@ class Heightmap:
     point_sq_m: float
     plane_inlier_fraction: float
     parameters: MappingProxyType[str, Any]
+    n_pit_cells: int = 0
+    notes: tuple[str, ...] = ()
 
 
 def points_to_heightmap(
     points: ArrayLike,
     *,
-    cell_m: float,
+    cell_m: float | None = None,
     outlier_method: str = "cell",
     outlier_neighbours: int = 20,
     outlier_std: float = 2.0,
@@ -120,6 +140,8 @@ def points_to_heightmap(
     fill_holes: bool = True,
     seed: int = 0,
     max_points_for_fit: int | None = 200_000,
+    pit_sigmas: float | None = 5.0,
+    memory_cap_bytes: int | None = None,
 ) -> Heightmap:
     """Turn a terrain point cloud into a levelled heightmap.
 
@@ -128,8 +150,11 @@ def points_to_heightmap(
     points : array_like of float, shape (n, 3), m
         Scanned points (x, y, z) in any frame; n >= 3, not all identical,
         not collinear.
-    cell_m : float, m
-        Grid spacing (square cells).
+    cell_m : float or None, m
+        Grid spacing (square cells). None: 3 x the median nearest-neighbour
+        spacing of the levelled points, within arena-scale bounds
+        (:func:`measures.terrain.gridding.heightmap_cell_m`; the choice is
+        in ``notes``).
     outlier_method : {"cell", "knn", "none"}, default "cell"
         "cell": a point is an outlier when it lies more than
         ``outlier_cell_sigmas`` robust standard deviations (1.4826 MAD, at
@@ -172,6 +197,16 @@ def points_to_heightmap(
         Seeds the fit subsample and RANSAC.
     max_points_for_fit : int or None, default 200000
         Size of the random subsample the plane is fitted on; None fits on all.
+    pit_sigmas : float or None, default 5.0
+        Pit filter (step 7 of the module notes): a cell is a pit when it lies
+        more than this many robust sigmas (1.4826 MAD of all cells'
+        residuals) from the median of its 5 x 5 neighbourhood and belongs to a
+        connected group of at most 4 such cells. None switches it off.
+    memory_cap_bytes : int or None
+        Refuse (InvalidParameterError naming cells, bytes and the smallest
+        cell that fits) when the estimated memory of the job exceeds this,
+        before the grid is allocated
+        (:func:`measures.terrain.gridding.heightmap_memory`).
 
     Returns
     -------
@@ -201,7 +236,10 @@ def points_to_heightmap(
     ((10, 11), True)
     """
     pts = _check_points(points, "points", _FUNC)
-    cell_m = check_positive_float("cell_m", cell_m, _FUNC)
+    if cell_m is not None:
+        cell_m = check_positive_float("cell_m", cell_m, _FUNC)
+    if pit_sigmas is not None:
+        pit_sigmas = check_positive_float("pit_sigmas", pit_sigmas, _FUNC)
     check_choice("outlier_method", outlier_method, _FUNC, ("cell", "knn", "none"))
     check_choice("plane", plane, _FUNC, ("ransac", "lstsq", "none"))
     outlier_neighbours = check_positive_int("outlier_neighbours", outlier_neighbours, _FUNC)
@@ -235,6 +273,20 @@ def points_to_heightmap(
     lev[:, 2] += offset
     del pts
     rect = _resolve_crop(crop, fit @ rotation.T if outlier_method == "cell" else lev)
+    notes: list[str] = []
+    if cell_m is None:
+        cell_m, note = heightmap_cell_m(
+            (fit @ rotation.T)[:, :2],
+            bounds_m=(None, min(rect[1] - rect[0], rect[3] - rect[2]) / 64),
+        )
+        notes.append(note)
+    heightmap_memory(
+        rect[1] - rect[0],
+        rect[3] - rect[2],
+        cell_m,
+        n_points=n_in,
+        cap_bytes=memory_cap_bytes,
+    )
     nx = max(1, int(np.ceil((rect[1] - rect[0]) / cell_m - 1e-9)))
     ny = max(1, int(np.ceil((rect[3] - rect[2]) / cell_m - 1e-9)))
     x, y, h = lev[:, 0], lev[:, 1], lev[:, 2]
@@ -257,6 +309,14 @@ def points_to_heightmap(
     valid = count > 0
     z = np.full((ny, nx), np.nan)
     z[valid] = total[valid] / count[valid]
+    n_pits = 0
+    if pit_sigmas is not None and valid.sum() >= 9:
+        pits = _pit_cells(z, valid, pit_sigmas)
+        n_pits = int(pits.sum())
+        if n_pits:
+            valid = valid & ~pits
+            z[pits] = np.nan
+            notes.append(f"pit filter: {n_pits} cells removed and filled")
     holes = int((~valid).sum())
     if fill_holes and holes:
         z = _harmonic_fill(z, valid)
@@ -273,6 +333,8 @@ def points_to_heightmap(
         "fill_holes": bool(fill_holes),
         "seed": seed,
         "max_points_for_fit": max_points_for_fit,
+        "pit_sigmas": pit_sigmas,
+        "memory_cap_bytes": memory_cap_bytes,
     }
     for arr in (z, valid, count, normal, rotation):
         arr.setflags(write=False)
@@ -294,6 +356,8 @@ def points_to_heightmap(
         point_sq_m=float(np.std(h)),
         plane_inlier_fraction=inlier_frac,
         parameters=MappingProxyType(params),
+        n_pit_cells=n_pits,
+        notes=tuple(notes),
     )
 
 
@@ -529,6 +593,34 @@ def _cell_inliers(
     scale = np.where(dense, np.maximum(sig, pooled), max(pooled, nb_sig))
     scale = np.maximum(scale, 1e-12 * max(span, 1.0))
     return np.abs(h - ref[cell]) <= k * scale[cell]
+
+
+def _pit_cells(z: NDArray[np.float64], valid: NDArray[np.bool_], k: float) -> NDArray[np.bool_]:
+    """Isolated cells far from their neighbourhood median (see ``pit_sigmas``)."""
+    from scipy import ndimage
+
+    filled = z
+    if not valid.all():
+        # Empty cells become +big and -big on alternate squares of a
+        # checkerboard, so they cancel in the neighbourhood median instead of
+        # copying a nearby value (one outlier copied into its empty
+        # neighbours would win its own neighbourhood median).
+        big = 10.0 * float(np.nanmax(np.abs(z))) + 1.0
+        parity = (np.indices(z.shape).sum(axis=0) % 2) * 2.0 - 1.0
+        filled = np.where(valid, z, big * parity)
+    ref = ndimage.median_filter(filled, size=_PIT_WINDOW, mode="nearest")
+    resid = (z - ref)[valid]
+    sigma = 1.4826 * float(np.median(np.abs(resid - np.median(resid))))
+    if not sigma > 0:
+        return np.zeros(z.shape, dtype=bool)
+    flag = valid & (np.abs(np.nan_to_num(z - ref)) > k * sigma)
+    if not flag.any():
+        return flag
+    labels, n = ndimage.label(flag, structure=np.ones((3, 3), dtype=bool))
+    sizes = np.bincount(labels.ravel(), minlength=n + 1)
+    small = sizes <= _PIT_MAX_CELLS
+    small[0] = False
+    return small[labels]
 
 
 def _harmonic_fill(z: NDArray[np.float64], valid: NDArray[np.bool_]) -> NDArray[np.float64]:

@@ -24,7 +24,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import fft as sfft
 
 from measures._validation import InvalidParameterError, check_choice, check_positive_int
-from measures.terrain._surface import check_grid, fill_holes, level
+from measures.terrain._surface import check_grid, fill_holes, inpaint_holes, level
 
 __all__ = [
     "PSDAnisotropy",
@@ -147,7 +147,9 @@ def _prepared(z, dx, dy, valid, window, detrend, fn, *, ndim=2):
     arr, dx_f, dy_f, mask = check_grid(z, dx, dy, valid, fn, ndim=ndim, min_size=4)
     check_choice("window", window, fn, _WINDOWS)
     check_choice("detrend", detrend, fn, _DETRENDS)
-    filled = fill_holes(np.nan_to_num(arr), mask)
+    # Holes are interpolated, not mean-filled: a mean fill puts a step at every
+    # hole edge whose white spectrum buries the short-wavelength power law.
+    filled = inpaint_holes(np.nan_to_num(arr), mask)
     zl = level(filled, dx_f, dy_f, None, detrend)
     return zl, dx_f, dy_f
 
@@ -179,7 +181,8 @@ def surface_psd(
     detrend : {"plane", "mean", "none"}
         Levelling before the window.
     valid : bool array, optional
-        Holes are filled with the mean of the valid cells first.
+        Holes are filled by harmonic interpolation first
+        (:func:`measures.terrain._surface.inpaint_holes`).
 
     Returns
     -------
@@ -307,7 +310,8 @@ def profile_psd(
     detrend : {"linear", "mean", "none"}
         Per profile.
     valid : bool array, optional
-        Holes are filled with the mean of the valid cells first.
+        Holes are interpolated first (harmonic, for a heightmap) or set to
+        the mean of the valid samples (a single profile).
 
     Returns
     -------
@@ -326,7 +330,11 @@ def profile_psd(
     check_choice("detrend", detrend, fn, ("linear", "mean", "none"))
     arr, dx_f, dy_f, mask = check_grid(z, dx, dy, valid, fn, ndim=(1, 2), min_size=4)
     check_choice("window", window, fn, _WINDOWS)
-    filled = fill_holes(np.nan_to_num(arr), mask)
+    filled = (
+        fill_holes(np.nan_to_num(arr), mask)
+        if arr.ndim == 1
+        else inpaint_holes(np.nan_to_num(arr), mask)
+    )
     if filled.ndim == 1:
         profiles, step, axis_used = filled[None, :], dx_f, 1
     else:

@@ -11,6 +11,7 @@ edges would bend the very power law being fitted.
 
 from __future__ import annotations
 
+import os
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -20,11 +21,15 @@ from numpy.typing import ArrayLike, NDArray
 
 from measures._types import Score
 from measures._validation import (
+    InsufficientDataError,
     InvalidParameterError,
+    check_choice,
     check_positive_float,
     check_positive_int,
 )
-from measures.terrain._surface import check_grid, fill_holes, level
+from measures.information.symbolic import MIN_WINDOWS_PER_PATTERN
+from measures.terrain._fastfield import ordinal_counts, phase_surrogates
+from measures.terrain._surface import check_grid, fill_holes, hole_scale_cells, inpaint_holes, level
 from measures.terrain.areal import _check_band, areal_parameters, bandpass_surface
 from measures.terrain.fractal import hurst_exponent
 from measures.terrain.spectra import psd_anisotropy, radial_psd, rms_slope_from_psd, surface_psd
@@ -48,16 +53,46 @@ TERRAIN_DEFAULTS: dict[str, Any] = {
     "slope_floor_deg": 2.0,  # aspect counted only where the slope exceeds this
     "psd_bins_per_decade": 10,
     "hurst_methods": ["psd", "variogram", "madogram", "boxcount"],
+    # "common": every Hurst estimator on one band (the arena's band_m when given,
+    # else 4 cells to an eighth of the shorter side); "auto": each method's own
+    # default (the PSD's self-affine band search, the lag and box defaults).
+    "hurst_band": "common",
+    "min_valid_fraction": 0.5,  # below: no spectral or Hurst estimate (NaN, noted)
     "ordinal_order": [2, 2],  # 2-D ordinal patch (Ribeiro et al. 2012)
-    "quantile_bins": 4,  # symbols for the 2-D entropy density
+    # "random": equal heights ordered by a seeded random key (insensitive to
+    # quantisation); "stable": the earlier cell ranks lower (order of appearance).
+    "ordinal_ties": "random",
+    "quantile_bins": 4,  # symbols for the 2-D entropy density and the two-part code
     "max_neighbourhood": None,  # None: the largest the field supports
-    "surrogate_scores": ["permutation_entropy_2d"],  # each costs n_surrogates re-runs
+    "surrogate_scores": [
+        "permutation_entropy_2d",
+        "js_complexity_2d",
+        "entropy_density_2d_bits",
+        "excess_entropy_2d_bits",
+        "effective_complexity_2d_bits",
+        "total_information_2d_bits_per_site",
+    ],
     "n_surrogates": 19,
     "surrogate_seed": 20261201,
+    # The ordinal scores' surrogates use the whole field (fused kernel); the
+    # symbol-field scores' z-scores use the central tile of at most this many
+    # cells, value and surrogates alike (noted when the tile is smaller).
+    "surrogate_tile_cells": 256 * 256,
     "thumbnail_px": 256,  # longer side of the hillshade thumbnail
     "hillshade_azimuth_deg": 135.0,
     "hillshade_altitude_deg": 45.0,
 }
+
+# Threads for the FFTs of the surrogates (numba kernels use numba's own pool).
+_WORKERS = min(2, os.cpu_count() or 1)
+# Complexity scores that can carry a surrogate z-score.
+_ORDINAL_SCORES = ("permutation_entropy_2d", "js_complexity_2d")
+_FIELD_SCORES = (
+    "entropy_density_2d_bits",
+    "excess_entropy_2d_bits",
+    "effective_complexity_2d_bits",
+    "total_information_2d_bits_per_site",
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -261,112 +296,264 @@ def _merge_params(params: Mapping[str, Any] | None) -> dict[str, Any]:
     return merged
 
 
-def _hurst_scores(zl, dx, dy, mask, band, methods, notes):
-    """Hurst/fractal-dimension scores for each method; failures become NaN plus a note."""
+def _nan(name: str, unit: str, reason: str) -> Score:
+    return Score(name, float("nan"), unit, note=reason)
+
+
+def _hurst_band(p, band, shape, step, hole_floor):
+    """The one band every Hurst estimator fits (None: each method's own default)."""
+    extent = max(shape) * step
+    if p["hurst_band"] == "auto":
+        if band is None:
+            return None, "each method's default band"
+        lo, hi = max(band[0] or 0.0, 2 * step), min(band[1] or extent, extent)
+        return (lo, hi), "the arena's band"
+    if band is not None:
+        lo, hi = max(band[0] or 0.0, 2 * step), min(band[1] or extent, extent)
+        why = "the arena's band"
+    else:
+        # 4 cells: below, the grid's own sampling (aliasing, finite differences,
+        # cell averaging) shapes the spectrum; an eighth of the shorter side:
+        # above, increments saturate on a finite scan (variogram and madogram
+        # read H low) and few independent samples remain.
+        lo, hi = 4 * step, min(shape) * step / 8
+        why = "the common default band (4 cells to 1/8 of the shorter side)"
+    if hole_floor > lo:
+        lo = hole_floor
+        why += f", starting at 4 hole radii ({hole_floor:.3g} m)"
+    return (lo, hi), why
+
+
+def _hurst_scores(zl, dx, dy, mask, band, p, notes, hole_floor):
+    """Hurst/fractal-dimension scores for each method, each with its band and fit quality."""
     scores, psd_fit = [], None
     step = max(dx, dy)
-    for m in methods:
-        fit_band = band
-        if band is not None:
-            extent = max(zl.shape) * step
-            fit_band = (max(band[0] or 0.0, 2 * step), min(band[1] or extent, extent))
+    fit_band, why = _hurst_band(p, band, zl.shape, step, hole_floor)
+    notes.append(
+        "hurst: band "
+        + (f"{fit_band[0]:.3g}-{fit_band[1]:.3g} m" if fit_band else "per method")
+        + f" ({why})"
+    )
+    for m in p["hurst_methods"]:
+        names = (f"hurst_{m}", f"fractal_dimension_{m}", f"hurst_{m}_r2")
+        bands = (f"hurst_{m}_band_lo_m", f"hurst_{m}_band_hi_m")
+        extra = ("psd_slope", "psd_band_lo_m", "psd_band_hi_m") if m == "psd" else ()
         try:
-            r = hurst_exponent(zl, dx, dy=dy, method=m, band=fit_band, valid=mask)
+            if fit_band is not None and not fit_band[1] > 1.5 * fit_band[0]:
+                raise InsufficientDataError(
+                    "band_m", "terrain_summary", "a band at least 1.5 wide (hi / lo)", fit_band
+                )
+            r = hurst_exponent(
+                zl,
+                dx,
+                dy=dy,
+                method=m,
+                band=fit_band,
+                valid=mask,
+                min_valid_fraction=p["min_valid_fraction"],
+            )
         except ValueError as err:
-            notes.append(f"hurst {m}: {err}")
-            scores += [Score(f"hurst_{m}", float("nan"), "1")]
-            scores += [Score(f"fractal_dimension_{m}", float("nan"), "1")]
+            reason = f"hurst {m}: not estimated ({err})"
+            notes.append(reason)
+            scores += [_nan(n, "1", reason) for n in names]
+            scores += [_nan(n, "m", reason) for n in bands]
+            scores += [_nan(n, "1" if n == "psd_slope" else "m", reason) for n in extra]
             continue
+        band_note = f"fitted on {r.band[0]:.3g}-{r.band[1]:.3g} m, R^2 {r.r2:.3f}"
         if not r.power_law_found:
+            band_note += "; no self-affine band found, fallback band"
             notes.append(f"hurst {m}: no self-affine band found; fitted the fallback band")
-        hurst, dim = r.hurst, r.fractal_dimension
+        hurst, dim, reason = r.hurst, r.fractal_dimension, band_note
         if not 0.0 <= hurst <= 1.0:
             # A self-affine surface has 0 <= H <= 1 (D between 2 and 3); a fit outside
             # that range says the ground is not self-affine in this band (ripples,
             # cracks, scanner noise), so H and D are not reported as numbers.
-            notes.append(
+            reason = (
                 f"hurst {m}: fitted exponent {hurst:.2f} is outside the self-affine range "
-                "[0, 1] in this band; H and D reported as NaN"
+                f"[0, 1] in this band; H and D reported as NaN ({band_note})"
             )
+            notes.append(reason)
             hurst = dim = float("nan")
         scores += [
-            Score(f"hurst_{m}", hurst, "1"),
-            Score(f"fractal_dimension_{m}", dim, "1"),
+            Score(f"hurst_{m}", hurst, "1", note=reason),
+            Score(f"fractal_dimension_{m}", dim, "1", note=reason),
+            Score(f"hurst_{m}_r2", r.r2, "1", note=band_note),
+            Score(f"hurst_{m}_band_lo_m", r.band[0], "m"),
+            Score(f"hurst_{m}_band_hi_m", r.band[1], "m"),
         ]
-        scores += [Score(f"hurst_{m}_r2", r.r2, "1")]
         if m == "psd":
             psd_fit = r
             scores += [
                 # The spectral slope itself stays meaningful whatever H would be.
-                Score("psd_slope", r.slope, "1"),
+                Score("psd_slope", r.slope, "1", note=band_note),
                 Score("psd_band_lo_m", r.band[0], "m"),
                 Score("psd_band_hi_m", r.band[1], "m"),
             ]
     return scores, psd_fit
 
 
-def _information_scores(zb, p, notes):
-    """Shared 2-D information estimators on the band-limited surface (one code path)."""
+def _zscore(value: float, sur: NDArray[np.float64]) -> float | None:
+    sur = sur[np.isfinite(sur)]
+    if sur.size < 2 or not np.isfinite(value):
+        return None
+    sd = float(sur.std(ddof=1))
+    return (value - float(sur.mean())) / sd if sd > 0 else None
+
+
+def _ordinal_hc(x, order, ties, seed, raw=None):
+    from measures.information.ordinal import jensen_shannon_complexity
+
+    counts, n_ties = ordinal_counts(x, order, ties=ties, seed=seed, raw=raw)
+    n = int(counts.sum())
+    h, c = jensen_shannon_complexity(counts / n)
+    return float(h), float(c), n_ties / n, n, counts.size
+
+
+def _ordinal_scores(zb, p, notes, raw=None):
+    """Permutation entropy and JS complexity of the whole field (fused kernel), with surrogates.
+
+    ``raw``: the measured heights (ties are their equalities; see ordinal_counts).
+    """
+    order = (int(p["ordinal_order"][0]), int(p["ordinal_order"][1]))
+    ties, seed = p["ordinal_ties"], int(p["surrogate_seed"])
+    h, c, tie_frac, n_win, n_pat = _ordinal_hc(zb, order, ties, seed, raw)
+    if n_win < MIN_WINDOWS_PER_PATTERN * n_pat:
+        reason = (
+            f"ordinal scores: {n_win} windows, fewer than {MIN_WINDOWS_PER_PATTERN} per "
+            f"possible pattern ({n_pat})"
+        )
+        notes.append(reason)
+        return [
+            _nan("permutation_entropy_2d", "1", reason),
+            _nan("js_complexity_2d", "1", reason),
+            Score("permutation_entropy_2d_tie_fraction", tie_frac, "1"),
+        ]
+    tie_note = f"ties: {tie_frac:.1%} of windows hold equal heights; " + (
+        "broken at random (seeded)" if ties == "random" else "earlier cell ranks lower"
+    )
+    if tie_frac > 0.5:
+        # Random tie-breaking keeps PE within 0.02 under rounding to 0.05 Sq while
+        # under about half the windows are tied (tests); beyond, the heights'
+        # resolution, not the ground, sets the ordinal scores.
+        tie_note += "; over half the windows are tied: ordinal scores reflect the height resolution"
+    if tie_frac > 0:
+        notes.append(tie_note)
+    wanted = [n for n in _ORDINAL_SCORES if n in p["surrogate_scores"]]
+    zs: dict[str, float | None] = dict.fromkeys(_ORDINAL_SCORES)
+    if wanted and p["n_surrogates"] > 0:
+        make = phase_surrogates(zb, seed, workers=_WORKERS)
+        sur = np.array(
+            [_ordinal_hc(make(k), order, ties, seed + k + 1)[:2] for k in range(p["n_surrogates"])]
+        )
+        zs["permutation_entropy_2d"] = _zscore(h, sur[:, 0])
+        zs["js_complexity_2d"] = _zscore(c, sur[:, 1])
+    out = [
+        Score("permutation_entropy_2d", h, "1", surrogate_z=zs["permutation_entropy_2d"]),
+        Score("js_complexity_2d", c, "1", surrogate_z=zs["js_complexity_2d"]),
+        Score("permutation_entropy_2d_tie_fraction", tie_frac, "1", note=tie_note),
+    ]
+    return [s if s.name in wanted or s.surrogate_z is None else _without_z(s) for s in out]
+
+
+def _without_z(s: Score) -> Score:
+    return Score(s.name, s.value, s.unit, s.ci_low, s.ci_high, None, s.note)
+
+
+def _two_part(sym, k):
+    """(effective complexity bits, total information bits/site, note) of a symbol field.
+
+    Calls the shared two-part code; until it accepts 2-D fields this returns
+    NaN with the reason.
+    """
+    from measures.information.two_part import two_part_code
+
+    try:
+        code = two_part_code(sym, alphabet_size=k)
+    except TypeError:
+        return float("nan"), float("nan"), "two_part_code does not take 2-D fields in this build"
+    except ValueError as err:
+        return float("nan"), float("nan"), f"two-part code not computed ({err})"
+    note = getattr(code, "note", "")
+    return (
+        float(code.effective_complexity_bits),
+        float(code.total_information_bits_per_symbol),
+        note,
+    )
+
+
+def _field_values(x, p):
+    """The symbol-field scores of one field: {name: (value, note)}."""
     from measures.information.entropy import entropy_density_2d
-    from measures.information.ordinal import complexity_entropy
     from measures.information.symbolic import quantile_symbols
 
-    order = tuple(p["ordinal_order"])
-
-    def perm(x):
-        return complexity_entropy(x, order=order)[0]
-
-    def jsc(x):
-        return complexity_entropy(x, order=order)[1]
-
-    def dens(x):
-        sym = quantile_symbols(x, n_bins=p["quantile_bins"])
-        return entropy_density_2d(sym, max_neighbourhood=p["max_neighbourhood"])
-
-    h, c = complexity_entropy(zb, order=order)
-    ed = dens(zb)
-    estimators = {
-        "permutation_entropy_2d": (perm, h, "1"),
-        "js_complexity_2d": (jsc, c, "1"),
-        "entropy_density_2d_bits": (
-            lambda x: dens(x).entropy_density,
-            ed.entropy_density,
-            "bits/site",
-        ),
-        "excess_entropy_2d_bits": (lambda x: dens(x).excess_entropy, ed.excess_entropy, "bits"),
-    }
-    out = []
-    for name, (fn, value, unit) in estimators.items():
-        zscore = None
-        if name in p["surrogate_scores"]:
-            zscore = _surrogate_z(fn, zb, p, notes, name)
-        out.append(Score(name, float(value), unit, surrogate_z=zscore))
+    k = int(p["quantile_bins"])
+    sym = quantile_symbols(x, n_bins=k)
+    out = {}
+    try:
+        ed = entropy_density_2d(sym, max_neighbourhood=p["max_neighbourhood"])
+        out["entropy_density_2d_bits"] = (ed.entropy_density, "")
+        out["excess_entropy_2d_bits"] = (ed.excess_entropy, "")
+    except ValueError as err:
+        reason = f"entropy density not computed ({err})"
+        out["entropy_density_2d_bits"] = out["excess_entropy_2d_bits"] = (float("nan"), reason)
+    ec, ti, note = _two_part(sym, k)
+    out["effective_complexity_2d_bits"] = (ec, note)
+    out["total_information_2d_bits_per_site"] = (ti, note)
     return out
 
 
-def _surrogate_z(estimator, zb, p, notes, name):
-    """z-score of ``estimator`` against 2-D phase-randomised surrogates (shared module)."""
-    try:
-        from measures.information.surrogates import surrogate_test
-    except ImportError:
-        notes.append(f"{name}: surrogate_test unavailable; no surrogate z")
-        return None
-    try:
-        res = surrogate_test(
-            estimator,
-            zb,
-            kind="phase",  # 2-D fields get 2-D phase randomisation
-            n_surrogates=p["n_surrogates"],
-            seed=p["surrogate_seed"],
-        )
-    except (ValueError, TypeError) as err:
-        notes.append(f"{name}: surrogate test failed ({err})")
-        return None
-    for attr in ("z_score", "zscore", "z"):
-        if hasattr(res, attr):
-            return float(getattr(res, attr))
-    notes.append(f"{name}: surrogate result has no z-score field")
-    return None
+_FIELD_UNITS = {
+    "entropy_density_2d_bits": "bits/site",
+    "excess_entropy_2d_bits": "bits",
+    "effective_complexity_2d_bits": "bits",
+    "total_information_2d_bits_per_site": "bits/site",
+}
+
+
+def _central_tile(x, cells):
+    ny, nx = x.shape
+    if ny * nx <= cells:
+        return x
+    side = int(np.sqrt(cells))
+    ty, tx = min(ny, side), min(nx, max(side, cells // max(1, min(ny, side))))
+    y0, x0 = (ny - ty) // 2, (nx - tx) // 2
+    return x[y0 : y0 + ty, x0 : x0 + tx]
+
+
+def _field_scores(zb, p, notes):
+    """Entropy density, excess entropy, effective complexity and total information.
+
+    Values from the whole field; surrogate z-scores from the central tile
+    (value and 2-D phase surrogates of the tile alike).
+    """
+    values = _field_values(zb, p)
+    wanted = [n for n in _FIELD_SCORES if n in p["surrogate_scores"]]
+    zs: dict[str, float | None] = dict.fromkeys(_FIELD_SCORES)
+    if wanted and p["n_surrogates"] > 0:
+        tile = _central_tile(zb, int(p["surrogate_tile_cells"]))
+        if tile.shape != zb.shape:
+            notes.append(
+                f"surrogate z of the symbol-field scores: central {tile.shape[0]} x "
+                f"{tile.shape[1]} tile"
+            )
+        ref = _field_values(tile, p)
+        make = phase_surrogates(tile, int(p["surrogate_seed"]) + 7919, workers=_WORKERS)
+        sur = {n: [] for n in wanted}
+        for k in range(p["n_surrogates"]):
+            sv = _field_values(make(k).astype(np.float64), p)
+            for n in wanted:
+                sur[n].append(sv[n][0])
+        for n in wanted:
+            zs[n] = _zscore(ref[n][0], np.array(sur[n], dtype=float))
+    out = []
+    for n in _FIELD_SCORES:
+        v, note = values[n]
+        if not np.isfinite(v) and not note:
+            note = "not defined on this field"
+        out.append(Score(n, float(v), _FIELD_UNITS[n], surrogate_z=zs[n], note=note))
+        if note and not np.isfinite(v):
+            notes.append(f"{n}: {note}")
+    return out
 
 
 def terrain_summary(
@@ -387,42 +574,69 @@ def terrain_summary(
     dx, dy : float, m
         Spacing along x (axis 1) and y (axis 0); ``dy`` defaults to ``dx``.
     valid : bool array (ny, nx), optional
-        Cells that hold data. The information estimators need a full grid:
-        holes are filled with the mean height for them (noted).
+        Cells that hold data. ``hole_fraction`` is a score. Spectra and the
+        PSD and box-counting Hurst fits use harmonically interpolated holes
+        and wavelengths above 4 hole radii; below ``min_valid_fraction``
+        valid cells they are NaN with a note. The information estimators
+        use the interpolated surface.
     band_m : (lo, hi) in m, optional
-        Animal-scale wavelength band (either side may be None).
+        Animal-scale wavelength band (either side may be None). With the
+        default ``hurst_band="common"`` it is also the one band every Hurst
+        estimator fits; without it the common band is 4 cells to 1/8 of the
+        shorter side.
     params : mapping, optional
         Overrides of :data:`TERRAIN_DEFAULTS` (unknown keys are an error).
 
     Returns
     -------
     TerrainSummary
-        Scores (snake_case, unit suffix where dimensional): ``sq_m, sa_m, ssk,
-        sku, sp_m, sv_m, sz_m, sdq, sdr, sal_m, str, rms_slope_psd,
-        psd_anisotropy_ratio, lay_direction_deg, psd_slope, hurst_<method>,
-        fractal_dimension_<method>, hurst_<method>_r2, psd_band_lo_m,
+        Scores (snake_case, unit suffix where dimensional): ``hole_fraction,
+        sq_m, sa_m, ssk, sku, sp_m, sv_m, sz_m, sdq, sdr, sal_m, str,
+        rms_slope_psd, psd_anisotropy_ratio, lay_direction_deg, psd_slope,
+        hurst_<method>, fractal_dimension_<method>, hurst_<method>_r2,
+        hurst_<method>_band_lo_m, hurst_<method>_band_hi_m, psd_band_lo_m,
         psd_band_hi_m, slope_entropy_bits, aspect_entropy_bits,
-        permutation_entropy_2d, js_complexity_2d, entropy_density_2d_bits,
-        excess_entropy_2d_bits``.
+        permutation_entropy_2d, js_complexity_2d,
+        permutation_entropy_2d_tie_fraction, entropy_density_2d_bits,
+        excess_entropy_2d_bits, effective_complexity_2d_bits,
+        total_information_2d_bits_per_site``. Every NaN score has a ``note``;
+        the complexity scores named in ``surrogate_scores`` carry a
+        ``surrogate_z`` against ``n_surrogates`` 2-D phase surrogates. The
+        notes, the hillshade thumbnail and the radial PSD with its fit are
+        fields of the result, for the pipeline to store.
 
     References
     ----------
     ISO 25178-2:2012; Jacobs, Junge & Pastewka (2017); Gneiting, Ševčíková &
     Percival (2012); Bandt & Pompe (2002), Ribeiro et al. (2012), Rosso et
-    al. (2007); Feldman & Crutchfield (2003); Theiler et al. (1992) for
+    al. (2007); Feldman & Crutchfield (2003); Gell-Mann & Lloyd (1996) for
+    effective complexity and total information; Theiler et al. (1992) for
     phase-randomised surrogates.
     """
     fn = "terrain_summary"
     arr, dx_f, dy_f, mask = check_grid(z, dx, dy, valid, fn, min_size=16)
     p = _merge_params(params)
+    check_choice("hurst_band", p["hurst_band"], fn, ("common", "auto"))
+    check_choice("ordinal_ties", p["ordinal_ties"], fn, ("random", "stable"))
     notes: list[str] = []
     band = None if band_m is None else _check_band(band_m, fn)
+    hole_fraction = 0.0 if mask is None else float(1.0 - mask.mean())
+    spectral_ok = 1.0 - hole_fraction >= p["min_valid_fraction"]
+    hole_floor = 0.0
+    if mask is not None:
+        hole_floor = 4.0 * hole_scale_cells(mask) * max(dx_f, dy_f)
+        notes.append(
+            f"holes: {hole_fraction:.1%} of cells; spectra and Hurst fits use interpolated "
+            f"holes and wavelengths above {hole_floor:.3g} m; information scores use the "
+            "interpolated surface"
+        )
     zl = level(np.nan_to_num(arr), dx_f, dy_f, mask, p["detrend"])
     zb = zl if band_m is None else bandpass_surface(zl, dx_f, dy_f, band_m=band, valid=mask)
     ap = areal_parameters(
         zb, dx_f, dy_f, valid=mask, detrend=p["detrend"], acf_threshold=p["acf_threshold"]
     )
     scores = [
+        Score("hole_fraction", hole_fraction, "1"),
         Score("sq_m", ap.Sq, "m"),
         Score("sa_m", ap.Sa, "m"),
         Score("ssk", ap.Ssk, "1"),
@@ -437,14 +651,27 @@ def terrain_summary(
     ]
     if ap.str_is_upper_bound:
         notes.append("str: the ACF did not decay to s in every direction; Str is an upper bound")
-    sp2 = surface_psd(zb, dx_f, dy_f, valid=mask)
-    an = psd_anisotropy(sp2)
-    scores += [
-        Score("rms_slope_psd", rms_slope_from_psd(sp2), "1"),
-        Score("psd_anisotropy_ratio", an.ratio, "1"),
-        Score("lay_direction_deg", float(np.degrees(an.lay_direction_rad)), "deg"),
-    ]
-    hs, psd_fit = _hurst_scores(zl, dx_f, dy_f, mask, band, p["hurst_methods"], notes)
+    if spectral_ok:
+        sp2 = surface_psd(zb, dx_f, dy_f, valid=mask)
+        an = psd_anisotropy(sp2)
+        scores += [
+            Score("rms_slope_psd", rms_slope_from_psd(sp2), "1"),
+            Score("psd_anisotropy_ratio", an.ratio, "1"),
+            Score("lay_direction_deg", float(np.degrees(an.lay_direction_rad)), "deg"),
+        ]
+        del sp2
+    else:
+        reason = (
+            f"only {1 - hole_fraction:.1%} of cells hold data, below the "
+            f"{p['min_valid_fraction']:.0%} needed for a spectrum"
+        )
+        notes.append(f"spectral scores: {reason}")
+        scores += [
+            _nan("rms_slope_psd", "1", reason),
+            _nan("psd_anisotropy_ratio", "1", reason),
+            _nan("lay_direction_deg", "deg", reason),
+        ]
+    hs, psd_fit = _hurst_scores(zl, dx_f, dy_f, mask, band, p, notes, hole_floor)
     scores += hs
     ge = gradient_entropy(
         zb,
@@ -457,12 +684,27 @@ def terrain_summary(
     )
     scores += [
         Score("slope_entropy_bits", ge.slope_entropy_bits, "bits"),
-        Score("aspect_entropy_bits", ge.aspect_entropy_bits, "bits"),
+        Score(
+            "aspect_entropy_bits",
+            ge.aspect_entropy_bits,
+            "bits",
+            note="" if np.isfinite(ge.aspect_entropy_bits) else "no cell steeper than the floor",
+        ),
     ]
-    if mask is not None:
-        notes.append("information scores: holes filled with the mean height")
-    scores += _information_scores(fill_holes(zb, mask), p, notes)
-    rp = radial_psd(zl, dx_f, dy_f, valid=mask, bins_per_decade=p["psd_bins_per_decade"])
+    zi = zb if mask is None else inpaint_holes(zb, mask)
+    # Ties are equalities of the measured heights (holes never tie); after a
+    # band-pass there are none left to speak of.
+    raw = None
+    if band_m is None:
+        raw = arr if mask is None else np.where(mask, arr, np.nan)
+    scores += _ordinal_scores(zi, p, notes, raw)
+    scores += _field_scores(zi, p, notes)
+    del zi
+    if spectral_ok:
+        rp = radial_psd(zl, dx_f, dy_f, valid=mask, bins_per_decade=p["psd_bins_per_decade"])
+        radial_q, radial_c = rp.q, rp.psd
+    else:
+        radial_q = radial_c = np.array([])
     if psd_fit is not None:
         fit_q = psd_fit.fit_x
         fit_psd = np.exp(psd_fit.fit_intercept) * fit_q**psd_fit.slope
@@ -476,13 +718,19 @@ def terrain_summary(
         altitude_deg=p["hillshade_altitude_deg"],
         max_px=p["thumbnail_px"],
     )
+    scores = [
+        sc
+        if np.isfinite(sc.value) or sc.note
+        else Score(sc.name, sc.value, sc.unit, sc.ci_low, sc.ci_high, sc.surrogate_z, "undefined")
+        for sc in scores
+    ]
     return TerrainSummary(
         scores=tuple(scores),
         params=p,
         band_m=band,
         hillshade=thumb,
-        radial_q=rp.q,
-        radial_psd=rp.psd,
+        radial_q=radial_q,
+        radial_psd=radial_c,
         fit_q=fit_q,
         fit_psd=fit_psd,
         slope_counts=ge.slope_counts,

@@ -133,13 +133,22 @@ def test_real_dem_end_to_end():
         z = dem["elevation"].astype(float)
         dy = 111_200.0 * float(dem["dy"])
         dx = 111_200.0 * float(dem["dx"]) * np.cos(np.radians(float(dem["ymin"])))
-    s = terrain_summary(
-        z, dx, dy, params={"hurst_methods": ["psd", "madogram"], "surrogate_scores": []}
-    )
+    # Each method on its own default band (hurst_band="auto"), as these bounds were set.
+    params = {"hurst_methods": ["psd", "madogram"], "surrogate_scores": [], "hurst_band": "auto"}
+    s = terrain_summary(z, dx, dy, params=params)
     h = s.score("hurst_psd").value
     assert 0.15 < h < 1.0, h
     assert 0.4 < s.score("hurst_madogram").value < 0.9
     assert s.score("sq_m").value > 10.0  # hundreds of metres of relief
+    # Default: one band for both (4 cells to 1/8 of the shorter side), reported with
+    # each estimate; on this ridge-and-valley relief they still differ, which the
+    # shared band makes a statement about the ground rather than about the bands.
+    c = terrain_summary(z, dx, dy, params={**params, "hurst_band": "common"})
+    step = max(dx, dy)
+    for m in ("psd", "madogram"):
+        assert c.score(f"hurst_{m}_band_lo_m").value >= 4 * step * 0.999
+        # (lags are whole cells of the finer spacing: up to one cell of rounding)
+        assert c.score(f"hurst_{m}_band_hi_m").value <= min(z.shape) * step / 8 + step
 
 
 def test_white_noise_is_not_reported_as_self_affine(rng):
