@@ -216,7 +216,8 @@ def _read_ply(
                          what=f"element rows ({counts})")  # fmt: skip
         check_cap(vertex.count, limits.max_points, what="vertex count", setting="max_points",
                   file=file, where="element vertex")  # fmt: skip
-        return _ascii_ply(path, body, n_header, elements, vi, file=file), info, None
+        first_line = n_header + sum(el.count for el in elements[:vi]) + 1
+        return _ascii_ply(path, body, n_header, elements, vi, file=file), info, first_line
     check_size_claim(sum(el.count * el.min_stride for el in elements), available, file=file,
                      what=f"binary elements ({counts})")  # fmt: skip
     check_cap(vertex.count, limits.max_points, what="vertex count", setting="max_points",

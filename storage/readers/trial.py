@@ -120,6 +120,15 @@ def _finish(markers: np.ndarray, names: list[str], *, file: str) -> np.ndarray:
     if markers.shape[0] < 3:
         raise ReaderError(f"fewer than 3 frames ({markers.shape[0]})", file=file)
     markers = np.array(markers, dtype=np.float64)
+    # NaN is a gap (the stated convention); an infinite coordinate is a broken file.
+    inf = np.argwhere(np.isinf(markers))
+    if inf.size:
+        frame, marker, _axis = (int(v) for v in inf[0])
+        raise ReaderError(
+            f"infinite coordinate for marker {names[marker]!r} ({len(inf)} such values)",
+            file=file,
+            where=f"frame {frame}",
+        )
     # A sample is valid only when all three coordinates are.
     markers[~np.isfinite(markers).all(axis=2)] = np.nan
     present = np.isfinite(markers[:, :, 0]).any(axis=0)
