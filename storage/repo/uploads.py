@@ -23,7 +23,7 @@ from sqlalchemy.orm import Session
 
 from storage.artifacts import ArtifactStore, StagedFile, npy_bytes
 from storage.errors import ArtifactCorrupt, BadInput, Conflict
-from storage.models import TARGET_KINDS, Scan, Trial
+from storage.models import TARGET_KINDS, Job, Scan, Trial
 from storage.readers import ReaderLimits, ScanData, TrialData, read_scan, read_trial
 from storage.readers._common import canonical_unit
 from storage.repo._common import get_or_404, optional_positive, paginate
@@ -396,8 +396,6 @@ def correct_meta(
     the correction (old and new values, time) and a new scoring job are committed together.
     Returns ``(row, job_id)``.
     """
-    from storage.repo.jobs import enqueue_job
-
     if target_kind not in ("scan", "trial"):
         raise BadInput(f"target_kind must be scan or trial, got {target_kind!r}")
     fixed = sorted(set(changes) & {"arena_id", "subject_id"})
@@ -441,8 +439,20 @@ def correct_meta(
     )
     row.meta = _json_safe({"upload": merged, "reader": data.meta, "corrections": history})
     session.flush()
-    job = enqueue_job(session=session, kind=job_kind, target_kind=target_kind,
-                      target_id=row.id, commit=False)  # fmt: skip
+    # A queued job will read the corrected metadata when it starts; a running one read the
+    # old, so it does not count: a new job is queued beside it.
+    queued = session.scalar(
+        select(Job).where(Job.kind == job_kind, Job.target_kind == target_kind,
+                          Job.target_id == row.id, Job.recipe_hash.is_(None),
+                          Job.state == "queued").order_by(Job.id).limit(1)
+    )  # fmt: skip
+    job = queued
+    if job is None:
+        job = Job(kind=job_kind, target_kind=target_kind, target_id=row.id, recipe_hash=None,
+                  max_attempts=3, state="queued", progress=0.0, message="queued",
+                  attempts=0)  # fmt: skip
+        session.add(job)
+        session.flush()
     session.commit()
     session.refresh(row)
     return row, int(job.id)
