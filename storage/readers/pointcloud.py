@@ -30,7 +30,7 @@ from storage.readers._common import (
     read_head,
     unit_to_m,
 )
-from storage.readers._text import decode_text, parse_table
+from storage.readers._text import decode_text, parse_table, split_cells
 
 __all__ = ["FORMATS", "can_open", "read"]
 
@@ -405,7 +405,7 @@ def _read_text_points(
         if line.strip() and not line.lstrip().startswith(("#", "//"))
     ]
     claimed = None
-    if rows and len(rows[0][1].split()) == 1:
+    if rows and len(split_cells(rows[0][1], None)) == 1:  # a point count, not "x,y,z"
         first = rows[0][1].strip()
         if not first.isdigit():
             raise ReaderError(
