@@ -254,3 +254,26 @@ def test_limiter_window_slides() -> None:
     assert limiter.retry_after("5.6.7.8") is None  # per address
     now[0] = 10.5  # the first failure has left the window
     assert limiter.retry_after("1.2.3.4") is None
+
+
+def test_token_list_shows_expiry_and_state(tmp_path: Path, capsys) -> None:
+    from datetime import UTC, datetime, timedelta
+
+    from service.cli import main
+
+    data = tmp_path / "data"
+    assert main(["token", "create", "--data", str(data), "--scope", "upload", "--label", "rig",
+                 "--expires-days", "2"]) == 0  # fmt: skip
+    app = make_app(tmp_path)
+    with app.state.sessionmaker() as session:
+        past = datetime.now(UTC) - timedelta(days=1)
+        repo.create_token(session=session, scopes=["read"], label="old", expires_at=past)
+        repo.create_token(session=session, scopes=["read"], label="forever")
+    capsys.readouterr()
+    assert main(["token", "list", "--data", str(data)]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert lines[0].split() == ["id", "label", "scopes", "created", "expires", "revoked", "state"]
+    by_label = {line.split()[1]: line for line in lines[1:]}
+    soon = (datetime.now(UTC) + timedelta(days=2)).date().isoformat()
+    assert soon in by_label["rig"] and by_label["rig"].endswith("active")
+    assert by_label["old"].endswith("expired") and "never" in by_label["forever"]

@@ -284,3 +284,73 @@ def test_hidden_entries_are_listed(tmp_path: Path) -> None:
         ".cache": "hidden folder, not walked",
         ".partial.c3d": "hidden file, not walked",
     }
+
+
+@pytest.mark.slow
+@pytest.mark.integration
+def test_acquisition_pc_with_an_upload_only_token(tmp_path: Path, rng: np.random.Generator) -> None:
+    """A live ``gaitscape serve`` and the real ``gaitscape upload`` command with a token that
+    has nothing but the upload scope, as the README tells labs to set rig PCs up."""
+    import subprocess
+    import sys
+
+    from test_faults import REPO_ROOT, Server
+
+    data = tmp_path / "data"
+    server = Server(data, tmp_path / "server.log", GAITSCAPE_WORKERS="0").start()
+    try:
+        admin = {"Authorization": f"Bearer {(data / 'admin-token').read_text().strip()}"}
+        with httpx.Client(base_url=server.base, headers=admin, timeout=30) as client:
+            a1 = client.post("/v1/arenas", json={"name": "sand", "kind": "runway"}).json()["id"]
+            a2 = client.post("/v1/arenas", json={"name": "mesh", "kind": "runway"}).json()["id"]
+            roles = {"anterior": "snout", "posterior": "tail",
+                     "feet": {"LF": "lf", "RF": "rf", "LH": "lh", "RH": "rh"}}  # fmt: skip
+            subject = client.post("/v1/subjects", json={"label": "R1", "marker_roles": roles})
+            sid = subject.json()["id"]
+
+        def cli(*args: str) -> subprocess.CompletedProcess[str]:
+            return subprocess.run([sys.executable, "-m", "service.cli", *args], cwd=REPO_ROOT,
+                                  capture_output=True, text=True, timeout=300)  # fmt: skip
+
+        made = cli("token", "create", "--data", str(data), "--scope", "upload", "--label", "rig",
+                   "--expires-days", "30")  # fmt: skip
+        assert made.returncode == 0, made.stderr
+        rig_token = made.stdout.strip()
+        listing = cli("token", "list", "--data", str(data)).stdout
+        rig_line = next(line for line in listing.splitlines() if " rig " in line)
+        assert "upload" in rig_line and "active" in rig_line and "never" not in rig_line
+        assert "expires" in listing.splitlines()[0]
+
+        folder = tmp_path / "rig"
+        folder.mkdir()
+        (folder / "gaitscape.json").write_text(json.dumps({"units": "mm"}))
+        for i in range(3):
+            (folder / f"walk{i}.csv").write_bytes(wide_csv(rng))
+        (folder / "camera.log").write_text("not data")
+
+        def upload(arena: int, token: str = rig_token) -> subprocess.CompletedProcess[str]:
+            return cli("upload", str(folder), "--server", server.base, "--token", token,
+                       "--arena", str(arena), "--subject", str(sid), "--no-progress")  # fmt: skip
+
+        first = upload(a1)
+        assert first.returncode == 0, first.stdout + first.stderr
+        assert first.stdout.count(" new ") == 3 and "camera.log" in first.stdout
+        again = upload(a1)
+        assert again.returncode == 0 and again.stdout.count(" skipped ") == 3, again.stdout
+        other = upload(a2)  # the same files for another arena go there too
+        assert other.returncode == 0 and other.stdout.count(" new ") == 3, other.stdout
+        wrong = upload(a1, token="gaitscape_wrong")
+        assert wrong.returncode == 1
+        assert wrong.stdout.count("not attempted") == 2 and "HTTP 401" in wrong.stdout
+        with httpx.Client(base_url=server.base, headers=admin, timeout=30) as client:
+            trials = client.get("/v1/trials", params={"limit": 100}).json()["data"]
+            jobs = client.get("/v1/jobs", params={"limit": 100}).json()["data"]
+        assert sorted(t["arena_id"] for t in trials) == [a1] * 3 + [a2] * 3
+        assert len(jobs) == 6  # each record with its first job
+    finally:
+        server.stop()
+    # One access log, JSON, without query strings (the resume checks carried ?arena_id=...).
+    log = (tmp_path / "server.log").read_text()
+    access = [line for line in log.splitlines() if '"gaitscape.access"' in line]
+    assert any('"HEAD /v1/uploads/' in line for line in access)
+    assert "arena_id=" not in log and '" 200 OK' not in log  # uvicorn's own format is off
