@@ -105,15 +105,21 @@ def _norm(key: str, value: Any) -> Any:
     return value
 
 
-def meta_differences(stored: dict[str, Any], sent: dict[str, Any]) -> list[str]:
-    """Keys whose values differ between a stored upload meta and a re-sent one (sorted)."""
-    keys = (set(stored) | set(sent)) - _NOT_COMPARED
+def meta_differences(
+    stored: dict[str, Any], sent: dict[str, Any], *, sent_only: bool = False
+) -> list[str]:
+    """Keys whose values differ between a stored upload meta and a re-sent one (sorted).
+
+    ``sent_only``: compare only the keys the re-sent meta names (a key it leaves out says
+    nothing, so it is no conflict).
+    """
+    keys = (set(sent) if sent_only else set(stored) | set(sent)) - _NOT_COMPARED
     return sorted(k for k in keys if _norm(k, stored.get(k)) != _norm(k, sent.get(k)))
 
 
 def _check_same_meta(row: Scan | Trial, sent: dict[str, Any], *, kind: str) -> None:
     stored = _upload_meta(row)
-    differ = meta_differences(stored, _json_safe(sent))
+    differ = meta_differences(stored, _json_safe(sent), sent_only=True)
     if differ:
         shown = "; ".join(
             f"{k}: stored {stored.get(k)!r}, sent {_json_safe(sent).get(k)!r}" for k in differ
