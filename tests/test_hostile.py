@@ -63,6 +63,7 @@ EXPECTED: dict[str, tuple[int, str]] = {
     "escape in file name": (400, "the file name contains a control character (U+001B)"),
     "meta nested 100k deep": (400, "Form field 'meta' is longer than 65536 bytes"),
     "meta over 64 kB": (400, "Form field 'meta' is longer than 65536 bytes"),
+    "meta nested 30k deep": (400, "meta is nested deeper than 4 levels"),
     "meta is a list": (400, "meta must be a JSON object"),
     "meta unknown key": (400, "colour: Extra inputs are not permitted"),
     "treadmill 1e9 m/s": (400, "treadmill_speed_m_s: Input should be less than or equal to 100"),

@@ -186,6 +186,8 @@ def _more_trial_cases(good: bytes) -> list[Case]:
         ("NUL in file name", "walk\x00.csv", good, TRIAL_META, None),
         ("escape in file name", "walk\x1b[31m.csv", good, TRIAL_META, None),
         ("meta nested 100k deep", "deep.csv", good, {}, '{"units": ' + deep + "}"),
+        ("meta nested 30k deep", "deep2.csv", good, {},
+         '{"units": ' + "[" * 30_000 + "]" * 30_000 + "}"),
         ("meta over 64 kB", "big.csv", good, {}, json.dumps({"condition": "x" * 70_000})),
         ("meta is a list", "list.csv", good, {}, "[1, 2]"),
         ("meta unknown key", "key.csv", good, {**TRIAL_META, "colour": "red"}, None),
