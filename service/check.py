@@ -6,13 +6,16 @@ What is looked at:
   array) exists and still hashes to its name ("missing", "corrupt");
 * every object in the store is named by some row ("orphan");
 * the staging area holds no leftover partial uploads ("staging");
-* no job is ``running`` with a lease that ran out ("stuck_job": its runner died).
+* no job is ``running`` with a lease that ran out ("stuck_job": its runner died);
+* every scan and trial has at least one job ("no_job": a record stored without its first
+  job, by a server older than the one-transaction upload, or a hand-made one).
 
 ``repair=True`` removes orphans and staging leftovers older than ``grace_s`` (a live server's
 upload in flight is younger than that and is left alone) and hands stuck jobs back to the queue
 through ``fail_job``, which spends the attempt the dead runner claimed, so a job that kills
-its server every time still ends ``failed``. Rows whose file is missing or corrupt are only
-reported: a row may be the one record of a recording that cannot be made again.
+its server every time still ends ``failed``; records without a job get a scoring job queued.
+Rows whose file is missing or corrupt are only reported: a row may be the one record of a
+recording that cannot be made again.
 """
 
 from __future__ import annotations
@@ -27,7 +30,7 @@ from typing import Any
 __all__ = ["PROBLEM_KINDS", "CheckReport", "Problem", "check_store", "register_check"]
 
 #: Problem kinds, in report order. The first two are damage that repair cannot undo.
-PROBLEM_KINDS = ("missing", "corrupt", "orphan", "staging", "stuck_job")
+PROBLEM_KINDS = ("missing", "corrupt", "orphan", "staging", "stuck_job", "no_job")
 DEFAULT_GRACE_S = 600.0
 
 
@@ -205,6 +208,27 @@ def _check_jobs(session: Any, report: CheckReport, *, repair: bool) -> None:
         report.problems.append(Problem("stuck_job", f"job {job.id}", detail, fixed))
 
 
+def _check_jobless(session: Any, report: CheckReport, *, repair: bool) -> None:
+    from sqlalchemy import and_, exists, select
+
+    from storage import repo
+    from storage.models import Job, Scan, Trial
+
+    for kind, model in (("scan", Scan), ("trial", Trial)):
+        has_job = exists().where(and_(Job.target_kind == kind, Job.target_id == model.id))
+        ids = list(session.scalars(select(model.id).where(~has_job).order_by(model.id)))
+        for row_id in ids:
+            detail = "stored without a scoring job"
+            fixed = False
+            if repair:
+                job = repo.enqueue_job(
+                    session=session, kind="score", target_kind=kind, target_id=int(row_id)
+                )
+                detail += f"; queued job {job.id}"
+                fixed = True
+            report.problems.append(Problem("no_job", f"{kind} {row_id}", detail, fixed))
+
+
 def check_store(
     *,
     sessionmaker: Any,
@@ -226,6 +250,7 @@ def check_store(
         _check_orphans(store, referenced, report, repair=repair, now=now, grace_s=grace_s)
         _check_staging(store, report, repair=repair, now=now, grace_s=grace_s)
         _check_jobs(session, report, repair=repair)
+        _check_jobless(session, report, repair=repair)
     return report
 
 
@@ -263,7 +288,8 @@ def register_check(sub: Any) -> None:
     p.add_argument(
         "--repair",
         action="store_true",
-        help="remove orphan objects and staging leftovers, re-queue jobs whose lease ran out",
+        help="remove orphan objects and staging leftovers, re-queue jobs whose lease ran out, "
+        "queue a scoring job for records that have none",
     )
     p.add_argument(
         "--grace-s",

@@ -74,7 +74,20 @@ def _serve(args: argparse.Namespace) -> int:
             f"Created an admin token (shown once; also in {settings.data_dir / ADMIN_TOKEN_FILE}):"
         )
         print(secret, flush=True)
-    uvicorn.run(app, host=settings.host, port=settings.port, log_level=settings.log_level)
+    # access_log=False: the JSON access log (service/security.py) is the only one, and it
+    # never records query strings. proxy_headers=False: forwarded addresses are believed only
+    # from GAITSCAPE_TRUSTED_PROXIES (service/deps.py), never from whoever connects locally.
+    # timeout_graceful_shutdown bounds how long SIGTERM waits for open requests before the
+    # lifespan stops the job runner and its workers.
+    uvicorn.run(
+        app,
+        host=settings.host,
+        port=settings.port,
+        log_level=settings.log_level,
+        access_log=False,
+        proxy_headers=False,
+        timeout_graceful_shutdown=10,
+    )
     return 0
 
 
@@ -137,12 +150,18 @@ def _token_list(args: argparse.Namespace) -> int:
     from storage import repo
 
     def work(session: Any) -> int:
-        rows = [("id", "label", "scopes", "created", "revoked")]
+        rows = [("id", "label", "scopes", "created", "expires", "revoked", "state")]
         tokens, _ = repo.list_tokens(session=session, include_revoked=True, limit=1000)
+
+        def when(value: Any) -> str:
+            return value.isoformat(timespec="seconds") if value else ""
+
         for t in tokens:
-            revoked = t.revoked_at.isoformat(timespec="seconds") if t.revoked_at else ""
-            created = t.created_at.isoformat(timespec="seconds") if t.created_at else ""
-            rows.append((str(t.id), t.label, t.scopes, created, revoked))
+            state = "revoked" if t.revoked_at else ("active" if t.active else "expired")
+            expires = when(t.expires_at) or "never"
+            row = (str(t.id), t.label, t.scopes, when(t.created_at), expires,
+                   when(t.revoked_at), state)  # fmt: skip
+            rows.append(row)
         print(format_table(rows))
         return 0
 

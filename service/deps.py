@@ -6,6 +6,8 @@ dependencies are the one place to narrow that later (per-project tokens, say).
 
 from __future__ import annotations
 
+import functools
+import ipaddress
 import threading
 import time
 from collections import deque
@@ -25,6 +27,8 @@ __all__ = [
     "AdminToken",
     "AnyToken",
     "FailedAuthLimiter",
+    "ReadOrAnalyseToken",
+    "ReadOrUploadToken",
     "ReadToken",
     "SessionDep",
     "SettingsDep",
@@ -32,6 +36,7 @@ __all__ = [
     "TokenDep",
     "UploadToken",
     "client_ip",
+    "require_any_scope",
     "require_scope",
     "token_scopes",
 ]
@@ -42,10 +47,15 @@ SCOPES = ("read", "upload", "analyse", "admin")
 class FailedAuthLimiter:
     """Sliding-window count of failed authentications per client IP, kept in memory.
 
-    A failure is a presented token that is unknown or revoked (a missing header is not counted:
-    it guesses nothing). Past ``limit`` failures within ``window_s`` seconds the IP gets HTTP 429
-    until its oldest failure leaves the window. Per process: behind several server processes or a
-    proxy, rate-limit at the proxy as well.
+    A failure is a presented token that is unknown, revoked or expired (a missing header is not
+    counted: it guesses nothing). Past ``limit`` failures within ``window_s`` seconds, further
+    *failing* requests from that address get HTTP 429 instead of 401 until its oldest failure
+    leaves the window. A valid token is always accepted, whatever the count for its address:
+    behind a proxy or NAT many clients share one address, and one client's bad guesses must not
+    lock out the rest of the lab. (Tokens carry 256 random bits, so the limiter is there to slow
+    scans and keep logs readable, not to make guessing feasible-but-slow.) The client address is
+    the peer's, or taken from ``X-Forwarded-For`` only when the peer is one of
+    ``trusted_proxies``. Per process: with several server processes, rate-limit at the proxy too.
     """
 
     def __init__(self, *, limit: int, window_s: float, clock: Callable[[], float] = time.monotonic):
@@ -98,8 +108,46 @@ StoreDep = Annotated[ArtifactStore, Depends(get_store)]
 _bearer = HTTPBearer(auto_error=False, description="A gaitscape API token: `Bearer TOKEN`.")
 
 
+@functools.lru_cache(maxsize=64)
+def _networks(
+    proxies: tuple[str, ...],
+) -> tuple[ipaddress.IPv4Network | ipaddress.IPv6Network, ...]:
+    return tuple(ipaddress.ip_network(p, strict=False) for p in proxies)
+
+
+def _trusted(address: str, networks: tuple[Any, ...]) -> bool:
+    try:
+        ip = ipaddress.ip_address(address)
+    except ValueError:
+        return False
+    return any(ip in net for net in networks)
+
+
 def client_ip(request: Request) -> str:
-    return request.client.host if request.client else "unknown"
+    """The client's address: the peer's, unless the peer is a trusted proxy.
+
+    Behind trusted proxies, ``X-Forwarded-For`` is read from the right (each proxy appends the
+    address it saw) and the first address that is not itself a trusted proxy is the client.
+    From any other peer the header is ignored, so a client cannot pick its own address.
+    """
+    peer = request.client.host if request.client else "unknown"
+    settings = getattr(request.app.state, "settings", None)
+    proxies = tuple(getattr(settings, "trusted_proxies", None) or ())
+    if not proxies:
+        return peer
+    networks = _networks(proxies)
+    if not _trusted(peer, networks):
+        return peer
+    chain = [
+        part.strip()
+        for header in request.headers.getlist("x-forwarded-for")
+        for part in header.split(",")
+        if part.strip()
+    ]
+    for address in reversed(chain):
+        if not _trusted(address, networks):
+            return address[:64]
+    return chain[0][:64] if chain else peer
 
 
 def token_scopes(token: Any) -> set[str]:
@@ -126,7 +174,13 @@ def get_token(
     session: SessionDep,
     credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)],
 ) -> Any:
-    """The token row behind ``Authorization: Bearer TOKEN``; 401 without a valid one."""
+    """The token row behind ``Authorization: Bearer TOKEN``; 401 without a valid one, 429 for
+    a failing request from an address past the failure limit (a valid token always passes)."""
+    if credentials is None or not credentials.credentials:
+        raise _unauthorized("Missing token: send 'Authorization: Bearer TOKEN'.")
+    token = repo.authenticate(session=session, secret=credentials.credentials)
+    if token is not None:
+        return token
     limiter: FailedAuthLimiter = request.app.state.auth_limiter
     ip = client_ip(request)
     wait = limiter.retry_after(ip)
@@ -136,13 +190,8 @@ def get_token(
             detail="Too many failed authentications from this address; try again later.",
             headers={"Retry-After": str(int(wait) + 1)},
         )
-    if credentials is None or not credentials.credentials:
-        raise _unauthorized("Missing token: send 'Authorization: Bearer TOKEN'.")
-    token = repo.authenticate(session=session, secret=credentials.credentials)
-    if token is None:
-        limiter.record_failure(ip)
-        raise _unauthorized("Invalid or revoked token.")
-    return token
+    limiter.record_failure(ip)
+    raise _unauthorized("Invalid, revoked or expired token.")
 
 
 TokenDep = Annotated[Any, Depends(get_token)]
@@ -166,7 +215,28 @@ def require_scope(scope: str) -> Callable[..., Any]:
     return check
 
 
+def require_any_scope(*scopes: str) -> Callable[..., Any]:
+    """A dependency that passes the token through if it carries one of ``scopes``."""
+    unknown = [s for s in scopes if s not in SCOPES]
+    if unknown or not scopes:
+        raise ValueError(f"unknown scopes {unknown}; allowed {SCOPES}")
+
+    def check(token: TokenDep) -> Any:
+        if not set(scopes) & token_scopes(token):
+            names = " or ".join(repr(s) for s in scopes)
+            raise HTTPException(
+                status_code=status.HTTP_403_FORBIDDEN,
+                detail=f"This token lacks the {names} scope.",
+            )
+        return token
+
+    check.__name__ = "require_" + "_or_".join(scopes)
+    return check
+
+
 ReadToken = Annotated[Any, Depends(require_scope("read"))]
+ReadOrUploadToken = Annotated[Any, Depends(require_any_scope("read", "upload"))]
+ReadOrAnalyseToken = Annotated[Any, Depends(require_any_scope("read", "analyse"))]
 UploadToken = Annotated[Any, Depends(require_scope("upload"))]
 AnalyseToken = Annotated[Any, Depends(require_scope("analyse"))]
 AdminToken = Annotated[Any, Depends(require_scope("admin"))]

@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 import logging
+import math
 from typing import Any
 
 from fastapi import FastAPI, Request
+from fastapi.encoders import jsonable_encoder
+from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import TimeoutError as PoolTimeout
 
@@ -81,6 +84,7 @@ def install_error_handlers(app: FastAPI) -> None:
     app.add_exception_handler(storage_errors.StorageError, _handle)
     app.add_exception_handler(InvalidParameterError, _handle)
     app.add_exception_handler(OverflowError, _out_of_range)
+    app.add_exception_handler(RequestValidationError, _validation)
     app.add_exception_handler(PoolTimeout, _busy)
     _document_string_details(app)
 
@@ -108,6 +112,24 @@ def _document_string_details(app: FastAPI) -> None:
         return schema
 
     app.openapi = openapi  # type: ignore[method-assign]
+
+
+def _finite(value: Any) -> Any:
+    """``value`` with every non-finite float written as text (JSON has no Infinity or NaN)."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_finite(v) for v in value]
+    return value
+
+
+async def _validation(request: Request, exc: Exception) -> JSONResponse:
+    # FastAPI's own handler echoes the input; an input holding 1e400 (read as Infinity) made it
+    # fail to render and the client got a 500 (found by tests/test_hostile.py).
+    errors = exc.errors() if isinstance(exc, RequestValidationError) else []
+    return JSONResponse(status_code=422, content={"detail": _finite(jsonable_encoder(errors))})
 
 
 async def _busy(request: Request, exc: Exception) -> JSONResponse:

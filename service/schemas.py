@@ -26,6 +26,7 @@ __all__ = [
     "MarkerSetCreate",
     "MarkerSetPublic",
     "MarkerSetsPublic",
+    "MetaCorrected",
     "Page",
     "RecipeCreate",
     "RecipeCreated",
@@ -33,6 +34,7 @@ __all__ = [
     "RecipesPublic",
     "RescorePublic",
     "RescoreRequest",
+    "ScanMetaCorrection",
     "ScanPublic",
     "ScanUploadMeta",
     "ScansPublic",
@@ -45,6 +47,7 @@ __all__ = [
     "TokenCreated",
     "TokenPublic",
     "TokensPublic",
+    "TrialMetaCorrection",
     "TrialPublic",
     "TrialUploadMeta",
     "TrialsPublic",
@@ -58,7 +61,10 @@ T = TypeVar("T")
 ARENA_KINDS = ("open_field", "runway", "treadmill", "other")
 
 Scope = Literal["read", "upload", "analyse", "admin"]
-Units = Literal["m", "cm", "mm", "um", "\u00b5m", "\u03bcm"]
+# Lengths accepted on the way in (storage.readers.UNIT_SCALE): SI, and the international and
+# US survey foot that lidar and survey data come in.
+Units = Literal["m", "cm", "mm", "um", "\u00b5m", "\u03bcm", "ft", "us_ft"]
+UpAxis = Literal["x", "y", "z", "-x", "-y", "-z"]
 
 
 class _In(BaseModel):
@@ -241,15 +247,20 @@ class ScanUploadMeta(_In):
         default=None,
         gt=0,
         allow_inf_nan=False,
-        description="Heightmap cell size along x, in units.",
+        description="Heightmap cell size along x, in units (1e-7 to 1e3 m once converted).",
     )
     dy: float | None = Field(
         default=None,
         gt=0,
         allow_inf_nan=False,
-        description="Heightmap cell size along y, in units.",
+        description="Heightmap cell size along y, in units (1e-7 to 1e3 m once converted).",
     )
     captured_at: datetime | None = None
+    ground_only: bool | None = Field(
+        default=None,
+        description="LAS/LAZ: keep only ground points (class 2) when the file has any "
+        "(default true); false keeps every point.",
+    )
 
 
 class TrialUploadMeta(_In):
@@ -261,18 +272,53 @@ class TrialUploadMeta(_In):
     subject_id: int
     frame_rate_hz: float | None = Field(
         default=None,
-        gt=0,
-        le=1e6,  # hardening: no marker capture runs at a MHz; refuses absurd and Infinity rates
+        ge=1.0,
+        le=100_000.0,  # storage.readers.FRAME_RATE_RANGE_HZ
         allow_inf_nan=False,
-        description="Capture rate, needed where the file has none.",
+        description="Capture rate (1 to 100,000 Hz), needed where the file has none.",
     )
     units: Units | None = Field(default=None, description="Length unit of marker coordinates.")
-    condition: str | None = None
-    treadmill_speed_m_s: float | None = Field(default=None, ge=0, allow_inf_nan=False)
+    condition: str | None = Field(default=None, max_length=200)
+    treadmill_speed_m_s: float | None = Field(default=None, ge=0, le=100, allow_inf_nan=False)
     recorded_at: datetime | None = None
     marker_names: list[str] | None = Field(
         default=None, description="Marker names for formats that carry none (NPY)."
     )
+    up_axis: UpAxis | None = Field(
+        default=None,
+        description="Which lab axis points up (x, y, z, or negated); kept with the trial for "
+        "the scoring job, which checks it against the data.",
+    )
+
+
+class ScanMetaCorrection(_In):
+    """Corrected upload metadata of a scan: only the keys sent change (null removes one)."""
+
+    units: Units | None = None
+    dx: float | None = Field(default=None, gt=0, allow_inf_nan=False)
+    dy: float | None = Field(default=None, gt=0, allow_inf_nan=False)
+    captured_at: datetime | None = None
+    ground_only: bool | None = None
+
+
+class TrialMetaCorrection(_In):
+    """Corrected upload metadata of a trial: only the keys sent change (null removes one)."""
+
+    frame_rate_hz: float | None = Field(default=None, ge=1.0, le=100_000.0, allow_inf_nan=False)
+    units: Units | None = None
+    condition: str | None = Field(default=None, max_length=200)
+    treadmill_speed_m_s: float | None = Field(default=None, ge=0, le=100, allow_inf_nan=False)
+    recorded_at: datetime | None = None
+    marker_names: list[str] | None = None
+    up_axis: UpAxis | None = None
+
+
+class MetaCorrected(BaseModel):
+    """What a metadata correction answers: the record, what changed and the new job."""
+
+    id: int
+    changed: list[str]
+    job_id: int
 
 
 class UploadPublic(_Out):
@@ -365,6 +411,7 @@ class TokenPublic(_Out):
     )
     created_at: datetime | None = None
     revoked_at: datetime | None = None
+    expires_at: datetime | None = None
     last_used_at: datetime | None = None
 
     @field_validator("scopes", mode="before")

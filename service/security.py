@@ -7,7 +7,10 @@ and a size cap on request bodies that are not uploads.
 * **Logs**: ``gaitscape.*`` loggers write one JSON object per line (``JsonLogFormatter``):
   time, level, logger, message, request id, and the extra fields of access records
   (method, path, status, duration_ms, client). Query strings are not logged: they may carry
-  names a lab considers private, and tokens travel in headers, never in URLs.
+  names a lab considers private, and tokens travel in headers, never in URLs. This is the one
+  access log: ``gaitscape serve`` turns uvicorn's own off (it would log query strings).
+* **Errors**: an exception nothing else handled is logged with its request id and answered
+  as JSON ``{"detail": ...}`` with status 500 and the same headers as every other response.
 * **Headers**: every response gets ``X-Content-Type-Options: nosniff``, ``Referrer-Policy:
   no-referrer`` and ``X-Frame-Options: DENY``; HTML responses also a Content-Security-Policy
   that allows only this origin's scripts, styles and images (plus inline styles and data: images,
@@ -70,6 +73,7 @@ _request_id: contextvars.ContextVar[str | None] = contextvars.ContextVar(
     "gaitscape_request_id", default=None
 )
 access_log = logging.getLogger("gaitscape.access")
+error_log = logging.getLogger("gaitscape.service")
 
 
 def current_request_id() -> str | None:
@@ -186,6 +190,14 @@ class HardeningMiddleware:
         except _BodyTooLarge:
             if not state["started"]:
                 await self._too_large(send_wrapper)
+        except Exception:
+            # Anything unhandled: log it here (with the request id) and answer a JSON 500
+            # through send_wrapper, so it carries the security headers and the request id too;
+            # Starlette's fallback would write plain text past this middleware.
+            error_log.exception("unhandled error in %s %s", scope.get("method", ""), path)
+            if not state["started"]:
+                await self._json(send_wrapper, 500, "Internal server error; the request id "
+                                 f"{request_id} identifies it in the server log.")  # fmt: skip
         finally:
             access_log.info(
                 "%s %s %s",
@@ -205,13 +217,15 @@ class HardeningMiddleware:
             _request_id.reset(token)
 
     async def _too_large(self, send: Send) -> None:
-        body = json.dumps(
-            {"detail": f"Request body larger than {self.max_body_bytes} bytes."}
-        ).encode()
+        await self._json(send, 413, f"Request body larger than {self.max_body_bytes} bytes.")
+
+    @staticmethod
+    async def _json(send: Send, status: int, detail: str) -> None:
+        body = json.dumps({"detail": detail}).encode()
         await send(
             {
                 "type": "http.response.start",
-                "status": 413,
+                "status": status,
                 "headers": [
                     (b"content-type", b"application/json"),
                     (b"content-length", str(len(body)).encode()),

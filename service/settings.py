@@ -94,13 +94,53 @@ class Settings(BaseSettings):
         default="info",
         description="Log level of the server (debug, info, warning, error).",
     )
+    trusted_proxies: Annotated[list[str], NoDecode] = Field(
+        default_factory=list,
+        description="Addresses or networks (CIDR) of reverse proxies whose X-Forwarded-For "
+        "header is believed, comma-separated (e.g. 127.0.0.1,10.0.0.0/8). Empty (the default): "
+        "the header is ignored and the peer address is the client.",
+    )
+    max_points: int = Field(
+        default=20_000_000,
+        ge=3,
+        description="Most points a point-cloud or lidar upload may hold (checked from its "
+        "header before reading; 20 M points are 480 MB as float64).",
+    )
+    max_grid_cells: int = Field(
+        default=32 * 1024 * 1024,
+        ge=4,
+        description="Most cells a heightmap upload may hold (rows x columns, checked from its "
+        "header before decoding, so a compressed TIFF cannot inflate past it).",
+    )
+    max_frames: int = Field(
+        default=2_000_000,
+        ge=3,
+        description="Most frames a trial upload may hold (about 1.9 h at 300 Hz).",
+    )
+    max_marker_samples: int = Field(
+        default=20_000_000,
+        ge=3,
+        description="Most frames x markers a trial upload may hold.",
+    )
 
-    @field_validator("cors_origins", mode="before")
+    @field_validator("cors_origins", "trusted_proxies", mode="before")
     @classmethod
     def _split_origins(cls, value: Any) -> Any:
         # An environment variable arrives as one string; accept "a,b" as well as a list.
         if isinstance(value, str):
             return [item.strip() for item in value.split(",") if item.strip()]
+        return value
+
+    @field_validator("trusted_proxies")
+    @classmethod
+    def _check_proxies(cls, value: list[str]) -> list[str]:
+        import ipaddress
+
+        for item in value:
+            try:
+                ipaddress.ip_network(item, strict=False)
+            except ValueError:
+                raise ValueError(f"trusted_proxies: {item!r} is no address or network") from None
         return value
 
     @field_validator("log_level")

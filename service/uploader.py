@@ -9,6 +9,7 @@ from its extension, refined by its metadata:
 extension                  kind
 =========================  ==========================================================
 .ply .pcd .xyz .pts        scan (point cloud)
+.las .laz                  scan (lidar point cloud; ground class kept by default)
 .tif .tiff                 scan (heightmap; needs dx, dy)
 .c3d .tsv                  trial
 .csv                       trial, unless the metadata says ``kind: scan`` or gives ``dx``
@@ -16,23 +17,32 @@ extension                  kind
 .npy                       scan if the metadata gives ``dx`` or ``kind: scan``; trial if it
                            gives ``frame_rate_hz``, ``marker_names`` or ``kind: trial``;
                            otherwise the file fails with a message asking for a sidecar
-.json                      metadata only, never uploaded
-anything else              ignored
+.json                      metadata only, never uploaded (listed as ``ignored``)
+anything else              not uploaded, listed as ``ignored`` with the reason
 =========================  ==========================================================
+
+Hidden files and folders (names starting with ".") are not walked into; each one met is
+listed as ``ignored`` too, so the summary accounts for every entry it saw.
 
 Metadata for a file is merged from, weakest first: the command line (``--arena``,
 ``--subject``, ``--study``), every ``gaitscape.json`` from the walked root down to the file's
 folder (inner folders win), and the file's own sidecar ``<file>.json`` (e.g.
 ``run3.c3d.json``). Keys: ``kind``, ``arena``, ``subject`` (ids), ``study`` (a name),
-``units``, ``frame_rate_hz``, ``dx``, ``dy``,
+``units``, ``frame_rate_hz``, ``dx``, ``dy``, ``ground_only``, ``up_axis``,
 ``condition``, ``treadmill_speed_m_s``, ``recorded_at``, ``captured_at``, ``marker_names``.
 
 Resume and retries
 ------------------
-Each file is hashed (sha256) and the server asked ``HEAD /v1/uploads/{sha256}`` first; a file
-it holds is ``skipped``. Uploads are retried on connection errors and 5xx answers (but not 507,
-disk full) with exponential backoff, a bounded number of times. The run prints a summary table
-(file, kind, status new/duplicate/skipped/failed, id) and returns 1 if any file failed.
+Each file is hashed (sha256) and the server asked ``HEAD /v1/uploads/{sha256}`` with the
+file's target (``arena_id``, and ``subject_id`` for a trial) first; a file it holds *for that
+target* is ``skipped``, and one it holds only under another target is uploaded. This works
+with a token that has nothing but the ``upload`` scope. Uploads are retried on connection
+errors and 5xx answers (but not 507, disk full) with exponential backoff, a bounded number of
+times. A failure prints the server's own ``detail``. A 401 or 403 (token wrong, expired,
+revoked or lacking a scope) stops the run at once: every later file is listed as
+``not attempted``. The run prints a summary table (file, kind, status
+new/duplicate/skipped/ignored/failed/not attempted, id, message) and returns 1 if any file
+failed or was not attempted.
 """
 
 from __future__ import annotations
@@ -60,10 +70,10 @@ __all__ = [
 ]
 
 FOLDER_META = "gaitscape.json"
-SCAN_EXTS = {".ply", ".pcd", ".xyz", ".pts", ".tif", ".tiff"}
+SCAN_EXTS = {".ply", ".pcd", ".xyz", ".pts", ".tif", ".tiff", ".las", ".laz"}
 TRIAL_EXTS = {".c3d", ".tsv"}
 AMBIGUOUS_EXTS = {".csv", ".npy"}
-SCAN_META_KEYS = ("units", "dx", "dy", "captured_at", "study")
+SCAN_META_KEYS = ("units", "dx", "dy", "captured_at", "study", "ground_only")
 TRIAL_META_KEYS = (
     "study",
     "frame_rate_hz",
@@ -72,6 +82,7 @@ TRIAL_META_KEYS = (
     "treadmill_speed_m_s",
     "recorded_at",
     "marker_names",
+    "up_axis",
 )
 CHUNK = 1 << 20
 NO_RETRY_STATUSES = {507}  # disk full: trying again will not help
@@ -83,13 +94,14 @@ class PlannedFile:
     kind: str | None  # "scan", "trial" or None when it cannot be decided
     meta: dict[str, Any]
     problem: str = ""
+    ignored: str = ""  # why the file is not uploaded at all (not an error)
 
 
 @dataclass
 class UploadResult:
     path: Path
     kind: str
-    status: str  # new, duplicate, skipped, failed
+    status: str  # new, duplicate, skipped, ignored, failed, not attempted
     id: int | None = None
     sha256: str = ""
     message: str = ""
@@ -133,15 +145,16 @@ def classify(path: Path, meta: dict[str, Any]) -> tuple[str | None, str]:
     )
 
 
-def _walk(root: Path) -> Iterator[Path]:
+def _walk(root: Path, hidden: list[Path]) -> Iterator[Path]:
     if root.is_file():
         yield root
         return
     for child in sorted(root.iterdir()):
         if child.name.startswith("."):
+            hidden.append(child)
             continue
         if child.is_dir():
-            yield from _walk(child)
+            yield from _walk(child, hidden)
         elif child.is_file():
             yield child
 
@@ -173,13 +186,19 @@ def plan_uploads(
         if not root.exists():
             planned.append(PlannedFile(root, None, {}, "no such file or folder"))
             continue
-        for path in _walk(root):
+        hidden: list[Path] = []
+        for path in _walk(root, hidden):
             ext = path.suffix.lower()
-            if path.resolve() in seen or ext == ".json":
-                continue
-            if ext not in SCAN_EXTS | TRIAL_EXTS | AMBIGUOUS_EXTS:
+            if path.resolve() in seen:
                 continue
             seen.add(path.resolve())
+            if ext == ".json":
+                planned.append(PlannedFile(path, None, {}, ignored="metadata file, not uploaded"))
+                continue
+            if ext not in SCAN_EXTS | TRIAL_EXTS | AMBIGUOUS_EXTS:
+                why = f"extension {ext or '(none)'} is not a scan or trial format"
+                planned.append(PlannedFile(path, None, {}, ignored=why))
+                continue
             try:
                 meta = {**base, **_folder_meta(root, path.parent, cache)}
                 sidecar = path.with_name(path.name + ".json")
@@ -190,6 +209,9 @@ def plan_uploads(
                 continue
             kind, problem = classify(path, meta)
             planned.append(PlannedFile(path, kind, meta, problem))
+        for path in hidden:
+            what = "hidden folder" if path.is_dir() else "hidden file"
+            planned.append(PlannedFile(path, None, {}, ignored=f"{what}, not walked"))
     return planned
 
 
@@ -283,17 +305,12 @@ class _Sender:
             # Exponential backoff, capped so a long outage does not stall a run for minutes.
             self.sleep(min(self.backoff_s * 2 ** (attempt - 1), 30.0))
 
-    def has(self, sha256: str) -> tuple[bool, int]:
-        response, attempts = self._retrying(lambda: self.client.head(f"/v1/uploads/{sha256}"))
-        if response.status_code in (200, 404):
-            return response.status_code == 200, attempts
-        response.raise_for_status()
-        raise httpx.HTTPStatusError(
-            f"unexpected {response.status_code}", request=response.request, response=response
-        )
+    def has(self, sha256: str, target: dict[str, Any]) -> tuple[httpx.Response, int]:
+        """The server's answer to "do you hold this file for this target?" (200 or 404)."""
+        return self._retrying(lambda: self.client.head(f"/v1/uploads/{sha256}", params=target))
 
-    def record_id(self, sha256: str) -> int | None:
-        response = self.client.get(f"/v1/uploads/{sha256}")
+    def record_id(self, sha256: str, target: dict[str, Any]) -> int | None:
+        response = self.client.get(f"/v1/uploads/{sha256}", params=target)
         if response.status_code != 200:
             return None
         records = response.json().get("records") or []
@@ -329,25 +346,51 @@ class _Sender:
             return self._retrying(send)
 
 
+_HEAD_REASONS = {
+    401: "the token is missing, wrong, expired or revoked",
+    403: "the token lacks a scope this needs",
+}
+
+
+def _target(kind: str, meta: dict[str, Any]) -> dict[str, Any]:
+    """The resume check's query: this file's target, so only it counts as "already there"."""
+    if kind == "scan":
+        return {"kind": "scan", "arena_id": meta["arena"]}
+    return {"kind": "trial", "arena_id": meta["arena_id"], "subject_id": meta["subject_id"]}
+
+
+def _failed(item: PlannedFile, kind: str, response: httpx.Response, **kw: Any) -> UploadResult:
+    detail = _detail(response) if response.request.method != "HEAD" else ""
+    if not detail:  # a HEAD answer has no body to quote
+        detail = _HEAD_REASONS.get(response.status_code, "")
+    message = f"HTTP {response.status_code}: {detail}".rstrip(": ")
+    return UploadResult(item.path, kind, "failed", message=message, **kw)
+
+
 def _upload_one(sender: _Sender, item: PlannedFile) -> UploadResult:
     kind = item.kind or "?"
+    if item.ignored:
+        return UploadResult(item.path, "-", "ignored", message=item.ignored)
     if item.kind is None:
         return UploadResult(item.path, kind, "failed", message=item.problem)
     meta, problem = _server_meta(item.kind, item.meta)
     if problem:
         return UploadResult(item.path, kind, "failed", message=problem)
     sha = file_sha256(item.path)
+    target = _target(item.kind, meta)
     try:
-        present, _ = sender.has(sha)
-        if present:
+        check, _ = sender.has(sha, target)
+        if check.status_code == 200:
             return UploadResult(
                 item.path,
                 kind,
                 "skipped",
-                id=sender.record_id(sha),
+                id=sender.record_id(sha, target),
                 sha256=sha,
-                message="already on the server",
+                message="already on the server for this target",
             )
+        if check.status_code != 404:
+            return _failed(item, kind, check, sha256=sha)
         url = f"/v1/arenas/{meta.pop('arena')}/scans" if item.kind == "scan" else "/v1/trials"
         response, attempts = sender.upload(item.path, url, meta)
     except httpx.HTTPError as exc:
@@ -366,14 +409,7 @@ def _upload_one(sender: _Sender, item: PlannedFile) -> UploadResult:
             attempts=attempts,
             extra={"job_id": body.get("job_id")},
         )
-    return UploadResult(
-        item.path,
-        kind,
-        "failed",
-        sha256=sha,
-        attempts=attempts,
-        message=f"HTTP {response.status_code}: {_detail(response)}",
-    )
+    return _failed(item, kind, response, sha256=sha, attempts=attempts)
 
 
 def upload_files(
@@ -387,7 +423,19 @@ def upload_files(
 ) -> list[UploadResult]:
     """Upload each planned file through ``client`` (base URL and token already set)."""
     sender = _Sender(client, retries=retries, backoff_s=backoff_s, sleep=sleep, progress=progress)
-    return [_upload_one(sender, item) for item in planned]
+    results: list[UploadResult] = []
+    stop = ""
+    for item in planned:
+        if stop and not item.ignored:
+            results.append(UploadResult(item.path, item.kind or "?", "not attempted",
+                                        message=stop))  # fmt: skip
+            continue
+        result = _upload_one(sender, item)
+        results.append(result)
+        if result.status == "failed" and result.message.startswith(("HTTP 401", "HTTP 403")):
+            # A token problem fails every file alike: stop instead of repeating it.
+            stop = f"stopped after {result.path.name}: {result.message}"
+    return results
 
 
 def summary_table(results: list[UploadResult]) -> str:
@@ -398,9 +446,8 @@ def summary_table(results: list[UploadResult]) -> str:
         (str(r.path), r.kind, r.status, "" if r.id is None else str(r.id), r.message)
         for r in results
     ]
-    counts = {
-        s: sum(r.status == s for r in results) for s in ("new", "duplicate", "skipped", "failed")
-    }
+    statuses = ("new", "duplicate", "skipped", "ignored", "failed", "not attempted")
+    counts = {s: sum(r.status == s for r in results) for s in statuses}
     tail = ", ".join(f"{n} {s}" for s, n in counts.items())
     return format_table(rows) + f"\n{len(results)} files: {tail}"
 
@@ -443,4 +490,4 @@ def run_upload(
         if own_client:
             client.close()
     print(summary_table(results), file=out)
-    return 1 if any(r.status == "failed" for r in results) else 0
+    return 1 if any(r.status in ("failed", "not attempted") for r in results) else 0

@@ -259,3 +259,156 @@ def test_apps_are_isolated(tmp_path: Path) -> None:
     one.client.post("/v1/arenas", json={"name": "extra", "kind": "other"})
     assert one.client.get("/v1/arenas").json()["count"] == 2
     assert two.client.get("/v1/arenas").json()["count"] == 1
+
+
+# -- one unit of work per upload, metadata conflicts and corrections ------------------------------
+def test_record_and_first_job_are_one_transaction(
+    tmp_path: Path, rng: np.random.Generator, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A failure after the row is flushed but before its job is written leaves neither (and
+    the 500 carries the security headers and the request id)."""
+    import storage.repo.jobs as jobs
+
+    lab = Lab(tmp_path, job_runner=False)
+
+    def broken(**kwargs):
+        raise RuntimeError("database went away")
+
+    monkeypatch.setattr(jobs, "enqueue_job", broken)
+    response = lab.post_trial(wide_csv(rng))
+    assert response.status_code == 500
+    assert "request id" in response.json()["detail"]
+    assert response.headers["x-request-id"] in response.json()["detail"]
+    assert response.headers["x-content-type-options"] == "nosniff"
+    assert lab.count("trial") == 0 and lab.count("job") == 0
+    assert lab.stored_files() == []
+
+
+def test_duplicate_of_a_record_without_job_queues_one(
+    tmp_path: Path, rng: np.random.Generator
+) -> None:
+    from service.check import check_store
+
+    lab = Lab(tmp_path, job_runner=False)
+    content = wide_csv(rng)
+    store = lab.app.state.store
+    path = tmp_path / "walk.csv"
+    path.write_bytes(content)
+    staged = store.put_file(path)
+    meta = {"arena_id": lab.arena_id, "subject_id": lab.subject_id, "units": "mm"}
+    with lab.app.state.sessionmaker() as session:  # as an older server left it: no job
+        row, created = repo.ingest_trial(
+            session=session, store=store, staged=staged, filename="walk.csv", meta=meta
+        )
+    assert created and lab.count("job") == 0
+    report = check_store(sessionmaker=lab.app.state.sessionmaker, store=store)
+    assert report.count("no_job") == 1 and not report.damaged
+    again = lab.post_trial(content)
+    assert again.status_code == 200 and again.json()["id"] == row.id
+    assert again.json()["job_id"] is not None and lab.count("job") == 1
+    assert check_store(sessionmaker=lab.app.state.sessionmaker, store=store).count("no_job") == 0
+
+
+def test_check_repair_queues_jobs_for_jobless_records(
+    tmp_path: Path, rng: np.random.Generator
+) -> None:
+    from service.check import check_store
+
+    lab = Lab(tmp_path, job_runner=False)
+    path = tmp_path / "walk.csv"
+    path.write_bytes(wide_csv(rng))
+    store = lab.app.state.store
+    with lab.app.state.sessionmaker() as session:
+        repo.ingest_trial(session=session, store=store, staged=store.put_file(path),
+                          filename="walk.csv", meta={"arena_id": lab.arena_id,
+                          "subject_id": lab.subject_id, "units": "mm"})  # fmt: skip
+    report = check_store(sessionmaker=lab.app.state.sessionmaker, store=store, repair=True)
+    assert report.count("no_job", repaired=True) == 1
+    assert lab.count("job") == 1
+    assert check_store(sessionmaker=lab.app.state.sessionmaker, store=store).clean
+
+
+def test_reupload_with_different_meta_is_409_naming_the_fields(
+    tmp_path: Path, rng: np.random.Generator
+) -> None:
+    lab = Lab(tmp_path, job_runner=False)
+    content = wide_csv(rng)
+    first = lab.post_trial(content, meta=lab.trial_meta(condition="dry"))
+    assert first.status_code == 201
+    same = lab.post_trial(content, meta=lab.trial_meta(condition="dry"))
+    assert same.status_code == 200 and same.json()["id"] == first.json()["id"]
+    # The same file and target with units "m" instead of "mm": a conflict, not a silent 200.
+    meta = json.dumps({"arena_id": lab.arena_id, "subject_id": lab.subject_id, "units": "m",
+                       "condition": "wet"})  # fmt: skip
+    clash = lab.post_trial(content, meta=meta)
+    assert clash.status_code == 409
+    detail = clash.json()["detail"]
+    assert "condition: stored 'dry', sent 'wet'" in detail
+    assert "units: stored 'mm', sent 'm'" in detail
+    assert f"PATCH /v1/trials/{first.json()['id']}" in detail
+    assert lab.count("trial") == 1 and lab.count("job") == 1
+
+
+def test_metadata_correction_rereads_and_requeues(tmp_path: Path, rng: np.random.Generator) -> None:
+    lab = Lab(tmp_path, job_runner=False)
+    content = wide_csv(rng, rate_hz=300.0)
+    first = lab.post_trial(content).json()
+    tid = first["id"]
+    before = lab.client.get(f"/v1/trials/{tid}").json()
+    fixed = lab.client.patch(f"/v1/trials/{tid}", json={"units": "cm", "up_axis": "y"})
+    assert fixed.status_code == 200, fixed.text
+    body = fixed.json()
+    # The upload's job has not started (no runner here): it is the one that will score the
+    # corrected record; a running job would not count and a new one would be queued.
+    assert body["changed"] == ["units", "up_axis"] and body["job_id"] == first["job_id"]
+    after = lab.client.get(f"/v1/trials/{tid}").json()
+    assert after["units"] == "cm" and before["units"] == "mm"
+    job = lab.client.get(f"/v1/jobs/{body['job_id']}").json()
+    assert job["state"] == "queued"
+    with lab.app.state.sessionmaker() as session:
+        row = repo.get_trial(session=session, trial_id=tid)
+        assert row.meta["upload"]["up_axis"] == "y"
+        assert row.meta["corrections"][0]["changed"]["units"] == ["mm", "cm"]
+    # The corrected upload now matches: the re-upload is a plain duplicate again.
+    meta = lab.trial_meta(units="cm", up_axis="y")
+    meta = json.dumps({**json.loads(meta), "units": "cm"})
+    assert lab.post_trial(content, meta=meta).status_code == 200
+    # A correction the reader refuses changes nothing.
+    bad = lab.client.patch(f"/v1/trials/{tid}", json={"frame_rate_hz": 200000})
+    assert bad.status_code == 422
+    none = lab.client.patch(f"/v1/trials/{tid}", json={"units": "cm"})
+    assert none.status_code == 400 and "nothing to correct" in none.json()["detail"]
+    assert lab.client.patch("/v1/trials/999", json={"units": "m"}).status_code == 404
+
+
+def test_scan_metadata_correction(tmp_path: Path, rng: np.random.Generator) -> None:
+    lab = Lab(tmp_path, job_runner=False)
+    grid = rng.normal(size=(10, 12))
+    import io
+
+    buf = io.BytesIO()
+    np.save(buf, grid, allow_pickle=False)
+    url = f"/v1/arenas/{lab.arena_id}/scans"
+    up = lab.client.post(url, files={"file": ("g.npy", buf.getvalue())},
+                         data={"meta": json.dumps({"units": "mm", "dx": 0.5})})  # fmt: skip
+    assert up.status_code == 201
+    sid = up.json()["id"]
+    fixed = lab.client.patch(f"/v1/scans/{sid}", json={"dx": 0.25, "dy": 0.5})
+    assert fixed.status_code == 200, fixed.text
+    scan = lab.client.get(f"/v1/scans/{sid}").json()
+    assert scan["grid_dx_m"] == pytest.approx(0.25e-3) and scan["grid_dy_m"] == pytest.approx(5e-4)
+    too_far = lab.client.patch(f"/v1/scans/{sid}", json={"dx": 1e9})
+    assert too_far.status_code == 422 and "outside the accepted" in too_far.json()["detail"]
+
+
+def test_analyse_token_follows_the_job_it_started(tmp_path: Path, rng: np.random.Generator) -> None:
+    lab = Lab(tmp_path, job_runner=False)
+    tid = lab.post_trial(wide_csv(rng)).json()["id"]
+    with lab.app.state.sessionmaker() as session:
+        _, secret = repo.create_token(session=session, scopes=["analyse"])
+    analyst = TestClient(lab.app, headers={"Authorization": f"Bearer {secret}"})
+    started = analyst.post("/v1/jobs/rescore", json={"trial_ids": [tid]})
+    assert started.status_code == 202, started.text
+    job_id = started.json()["job_ids"][0]
+    assert analyst.get(f"/v1/jobs/{job_id}").status_code == 200
+    assert analyst.get("/v1/trials").status_code == 403  # analyse alone still reads no data

@@ -73,7 +73,11 @@ def test_serve_first_start_writes_admin_token(
     monkeypatch.setattr(uvicorn, "run", lambda app, **kw: calls.append(kw))
     data = tmp_path / "fresh"
     assert cli.main(["serve", "--data", str(data), "--port", "8123"]) == 0
-    assert calls == [{"host": "127.0.0.1", "port": 8123, "log_level": "info"}]
+    assert [{k: kw[k] for k in ("host", "port", "log_level")} for kw in calls] == [
+        {"host": "127.0.0.1", "port": 8123, "log_level": "info"}
+    ]
+    # One access log (ours, without query strings); forwarded headers only from our setting.
+    assert calls[0]["access_log"] is False and calls[0]["proxy_headers"] is False
     token_file = data / cli.ADMIN_TOKEN_FILE
     assert stat.S_IMODE(token_file.stat().st_mode) == 0o600
     secret = token_file.read_text().strip()

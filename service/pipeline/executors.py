@@ -67,8 +67,23 @@ class LocalPool:
         return [p.pid for p in procs.values() if p.pid is not None]
 
     def close(self) -> None:
+        """Shut the pool down and end its workers, busy ones included.
+
+        ``shutdown(wait=False)`` alone leaves a worker that is mid-task running (re-parented to
+        init once the server exits, still holding its memory); the runner has already handed
+        that job back to the queue, so the worker is terminated (SIGTERM, then SIGKILL).
+        """
         if self._pool is not None:
+            procs = list((getattr(self._pool, "_processes", None) or {}).values())
             self._pool.shutdown(wait=False, cancel_futures=True)
+            for proc in procs:
+                if proc.is_alive():
+                    proc.terminate()
+            for proc in procs:
+                proc.join(timeout=5)
+                if proc.is_alive():
+                    proc.kill()
+                    proc.join(timeout=5)
             self._pool = None
 
 

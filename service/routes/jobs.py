@@ -6,7 +6,7 @@ from typing import Literal
 
 from fastapi import APIRouter, status
 
-from service.deps import AnalyseToken, ReadToken, SessionDep
+from service.deps import AnalyseToken, ReadOrAnalyseToken, SessionDep
 from service.pipeline import SCORE_JOB_KIND
 from service.routes.arenas import Limit, Offset
 from service.schemas import (
@@ -27,7 +27,7 @@ JobState = Literal["queued", "running", "done", "failed"]
 @router.get("")
 def list_jobs(
     session: SessionDep,
-    token: ReadToken,
+    token: ReadOrAnalyseToken,
     state: JobState | None = None,
     target_kind: Literal["scan", "trial"] | None = None,
     target_id: int | None = None,
@@ -61,6 +61,7 @@ def rescore(body: RescoreRequest, session: SessionDep, token: AnalyseToken) -> R
 
 
 @router.get("/{job_id}")
-def get_job(job_id: int, session: SessionDep, token: ReadToken) -> JobDetail:
-    """A job's state, progress, message and error."""
+def get_job(job_id: int, session: SessionDep, token: ReadOrAnalyseToken) -> JobDetail:
+    """A job's state, progress, message and error (``read`` or ``analyse``: whoever may start
+    scoring may follow it)."""
     return JobDetail.model_validate(repo.get_job(session=session, job_id=job_id))

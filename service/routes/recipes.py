@@ -43,6 +43,4 @@ def get_recipe(
     name: str, session: SessionDep, token: ReadToken, version: int | None = None
 ) -> RecipePublic:
     """Recipe ``name`` at ``version`` (the latest by default)."""
-    return RecipePublic.model_validate(
-        repo.get_recipe(session=session, name=name, version=version)
-    )
+    return RecipePublic.model_validate(repo.get_recipe(session=session, name=name, version=version))

@@ -8,10 +8,17 @@ from fastapi import APIRouter, Depends, Request, Response, status
 from fastapi.responses import FileResponse
 
 from service.deps import ReadToken, SessionDep, StoreDep, UploadToken
-from service.routes._ingest import handle_upload
+from service.routes._ingest import correct_upload_meta, handle_upload
 from service.routes._multipart import multipart_request_body
 from service.routes.arenas import Limit, Offset, StudyFilter
-from service.schemas import ScanPublic, ScansPublic, ScanUploadMeta, UploadPublic
+from service.schemas import (
+    MetaCorrected,
+    ScanMetaCorrection,
+    ScanPublic,
+    ScansPublic,
+    ScanUploadMeta,
+    UploadPublic,
+)
 from service.security import safe_download_name
 from storage import repo
 
@@ -105,3 +112,16 @@ def download_scan(scan: ScanDep, store: StoreDep) -> FileResponse:
         filename=safe_download_name(scan.filename, f"scan-{scan.id}.{scan.format}"),
         media_type="application/octet-stream",
     )
+
+
+@router.patch("/scans/{scan_id}", responses={422: {"description": "The reader refused the file "
+              "with the corrected metadata; nothing changed."}})  # fmt: skip
+def correct_scan(
+    scan_id: int, body: ScanMetaCorrection, request: Request, token: UploadToken
+) -> MetaCorrected:
+    """Correct a scan's upload metadata (units, dx, dy, captured_at, ground_only).
+
+    The raw file is read again with the corrected values, and the record, a note of the
+    change and a new scoring job are committed together.
+    """
+    return correct_upload_meta(request, target_kind="scan", target_id=scan_id, body=body)

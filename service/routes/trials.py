@@ -9,11 +9,18 @@ from fastapi import APIRouter, Depends, Request, Response, status
 from fastapi.responses import FileResponse
 
 from service.deps import ReadToken, SessionDep, StoreDep, UploadToken
-from service.routes._ingest import handle_upload
+from service.routes._ingest import correct_upload_meta, handle_upload
 from service.routes._multipart import multipart_request_body
 from service.routes.arenas import Limit, Offset, StudyFilter
 from service.routes.scans import UPLOAD_RESPONSES
-from service.schemas import TrialPublic, TrialsPublic, TrialUploadMeta, UploadPublic
+from service.schemas import (
+    MetaCorrected,
+    TrialMetaCorrection,
+    TrialPublic,
+    TrialsPublic,
+    TrialUploadMeta,
+    UploadPublic,
+)
 from service.security import safe_download_name
 from storage import repo
 
@@ -87,3 +94,17 @@ def download_trial(trial: TrialDep, store: StoreDep) -> FileResponse:
         filename=safe_download_name(trial.filename, f"trial-{trial.id}.{trial.format}"),
         media_type="application/octet-stream",
     )
+
+
+@router.patch("/{trial_id}", responses={422: {"description": "The reader refused the file "
+              "with the corrected metadata; nothing changed."}})  # fmt: skip
+def correct_trial(
+    trial_id: int, body: TrialMetaCorrection, request: Request, token: UploadToken
+) -> MetaCorrected:
+    """Correct a trial's upload metadata (frame rate, units, condition, treadmill speed,
+    recorded_at, marker names, up axis).
+
+    The raw file is read again with the corrected values, and the record, a note of the
+    change and a new scoring job are committed together.
+    """
+    return correct_upload_meta(request, target_kind="trial", target_id=trial_id, body=body)

@@ -14,13 +14,27 @@ from types import ModuleType
 from typing import Any
 
 from storage.errors import ReaderError
-from storage.readers import heightmap, pointcloud, trial
-from storage.readers._common import UNIT_SCALE, ScanData, TrialData, display_name, unit_to_m
+from storage.readers import heightmap, lidar, pointcloud, trial
+from storage.readers._common import (
+    DEFAULT_LIMITS,
+    FRAME_RATE_RANGE_HZ,
+    SPACING_RANGE_M,
+    UNIT_SCALE,
+    ReaderLimits,
+    ScanData,
+    TrialData,
+    display_name,
+    unit_to_m,
+)
 
 __all__ = [
+    "DEFAULT_LIMITS",
+    "FRAME_RATE_RANGE_HZ",
     "READERS",
+    "SPACING_RANGE_M",
     "UNIT_SCALE",
     "ReaderError",
+    "ReaderLimits",
     "ScanData",
     "TrialData",
     "detect_format",
@@ -33,6 +47,7 @@ READERS: dict[str, dict[str, ModuleType]] = {
     "scan": {
         **{fmt: pointcloud for fmt in pointcloud.FORMATS},
         **{fmt: heightmap for fmt in heightmap.FORMATS},
+        **{fmt: lidar for fmt in lidar.FORMATS},
     },
     "trial": {fmt: trial for fmt in trial.FORMATS},
 }
@@ -78,14 +93,27 @@ def read_scan(
     units: str | None = None,
     dx: float | None = None,
     dy: float | None = None,
+    ground_only: bool | None = None,
+    limits: ReaderLimits | None = None,
     **meta: Any,
 ) -> ScanData:
-    """Read a terrain scan (point cloud or heightmap) into metres."""
+    """Read a terrain scan (point cloud, lidar or heightmap) into metres.
+
+    ``limits`` caps what the file may make us allocate (default ``DEFAULT_LIMITS``);
+    ``ground_only`` applies to LAS/LAZ (default: keep class 2 when the file has it).
+    """
     fmt = _resolve("scan", path, fmt, filename)
     module = READERS["scan"][fmt]
+    lim = limits or DEFAULT_LIMITS
     if module is heightmap:
-        return heightmap.read(path, fmt=fmt, units=units, dx=dx, dy=dy, filename=filename)
-    return pointcloud.read(path, fmt=fmt, units=units, filename=filename)
+        return heightmap.read(
+            path, fmt=fmt, units=units, dx=dx, dy=dy, filename=filename, limits=lim
+        )
+    if module is lidar:
+        return lidar.read(
+            path, fmt=fmt, units=units, ground_only=ground_only, filename=filename, limits=lim
+        )
+    return pointcloud.read(path, fmt=fmt, units=units, filename=filename, limits=lim)
 
 
 def read_trial(
@@ -96,9 +124,10 @@ def read_trial(
     units: str | None = None,
     frame_rate_hz: float | None = None,
     marker_names: list[str] | None = None,
+    limits: ReaderLimits | None = None,
     **meta: Any,
 ) -> TrialData:
-    """Read a trial recording into metres, NaN in gaps."""
+    """Read a trial recording into metres, NaN in gaps (``limits`` as for ``read_scan``)."""
     fmt = _resolve("trial", path, fmt, filename)
     return trial.read(
         path,
@@ -107,4 +136,5 @@ def read_trial(
         frame_rate_hz=frame_rate_hz,
         marker_names=marker_names,
         filename=filename,
+        limits=limits or DEFAULT_LIMITS,
     )

@@ -14,12 +14,18 @@ import numpy as np
 from storage.errors import ReaderError
 
 __all__ = [
+    "FRAME_RATE_RANGE_HZ",
     "NPY_MAGIC",
+    "SPACING_RANGE_M",
     "UNIT_SCALE",
+    "ReaderLimits",
     "ScanData",
     "TrialData",
+    "check_cap",
     "check_npy_header",
+    "check_rate",
     "check_size_claim",
+    "check_spacing",
     "display_name",
     "load_npy",
     "positive_float",
@@ -35,7 +41,70 @@ UNIT_SCALE: dict[str, float] = {
     "um": 1e-6,
     "\u00b5m": 1e-6,  # MICRO SIGN
     "\u03bcm": 1e-6,  # GREEK SMALL LETTER MU
+    "ft": 0.3048,  # international foot (exact by definition, 1959)
+    "us_ft": 1200.0 / 3937.0,  # US survey foot (exact by definition); common in US lidar
 }
+UNIT_NAMES = "m, cm, mm, um, ft (international foot) or us_ft (US survey foot)"
+_UNIT_ALIASES = {"foot": "ft", "feet": "ft", "us-ft": "us_ft", "ftus": "us_ft",
+                 "us_survey_foot": "us_ft", "us survey foot": "us_ft"}  # fmt: skip
+
+# Bounds on what a reader accepts, stated once (README "Inputs"). A frame rate outside
+# 1 Hz - 100 kHz or a cell size outside 0.1 um - 1 km is a typing slip, not a recording.
+FRAME_RATE_RANGE_HZ = (1.0, 100_000.0)
+SPACING_RANGE_M = (1e-7, 1e3)
+
+
+@dataclass(frozen=True)
+class ReaderLimits:
+    """Caps on what one file may ask the server to allocate, checked from headers first.
+
+    Defaults keep one decoded upload well under 1 GiB of float64 arrays: 20 M points
+    (480 MB), 32 Mi grid cells (256 MiB, plus its mask), 2 M frames and 20 M marker samples
+    (frames x markers; 480 MB). Settings ``max_points``, ``max_grid_cells``, ``max_frames``
+    and ``max_marker_samples`` change them.
+    """
+
+    max_points: int = 20_000_000
+    max_grid_cells: int = 32 * 1024 * 1024
+    max_frames: int = 2_000_000
+    max_marker_samples: int = 20_000_000
+
+
+DEFAULT_LIMITS = ReaderLimits()
+
+
+def check_cap(count: int, cap: int, *, what: str, setting: str, file: str,
+              where: str | None = None) -> None:  # fmt: skip
+    """Refuse ``count`` items of ``what`` past ``cap``, before anything is allocated."""
+    if count > cap:
+        raise ReaderError(
+            f"{what}: {count:,} exceeds this server's cap of {cap:,} "
+            f"(setting {setting}); split or decimate the file",
+            file=file,
+            where=where,
+        )
+
+
+def check_rate(rate: float, *, file: str, where: str | None = None) -> float:
+    """A frame rate inside ``FRAME_RATE_RANGE_HZ`` or ReaderError stating the bounds."""
+    lo, hi = FRAME_RATE_RANGE_HZ
+    if not (math.isfinite(rate) and lo <= rate <= hi):
+        raise ReaderError(
+            f"frame rate {rate:g} Hz is outside the accepted {lo:g}-{hi:g} Hz",
+            file=file,
+            where=where,
+        )
+    return float(rate)
+
+
+def check_spacing(value_m: float, *, name: str, file: str) -> float:
+    """A grid spacing in metres inside ``SPACING_RANGE_M`` or ReaderError stating the bounds."""
+    lo, hi = SPACING_RANGE_M
+    if not (math.isfinite(value_m) and lo <= value_m <= hi):
+        raise ReaderError(
+            f"{name} {value_m:g} m is outside the accepted {lo:g}-{hi:g} m", file=file
+        )
+    return float(value_m)
 
 
 @dataclass(frozen=True)
@@ -75,13 +144,14 @@ def unit_to_m(unit: object, *, file: str | None = None, where: str | None = None
     """Metres per ``unit``; ReaderError naming the unit if it is not a length we accept."""
     if unit is None or (isinstance(unit, str) and not unit.strip()):
         raise ReaderError(
-            "no units given: pass units (one of m, cm, mm, um)", file=file, where=where
+            f"no units given: pass units (one of {UNIT_NAMES})", file=file, where=where
         )
     key = str(unit).strip().strip("\x00").strip()
+    key = _UNIT_ALIASES.get(key.lower(), key)
     scale = UNIT_SCALE.get(key) or UNIT_SCALE.get(key.lower())
     if scale is None:
         raise ReaderError(
-            f"unknown unit {unit!r}: expected one of m, cm, mm, um", file=file, where=where
+            f"unknown unit {str(unit)[:40]!r}: expected one of {UNIT_NAMES}", file=file, where=where
         )
     return scale
 
@@ -89,6 +159,7 @@ def unit_to_m(unit: object, *, file: str | None = None, where: str | None = None
 def canonical_unit(unit: str) -> str:
     """``µm`` and ``μm`` are stored as ``um``."""
     key = unit.strip().strip("\x00").strip().lower()
+    key = _UNIT_ALIASES.get(key, key)
     return "um" if key in ("\u00b5m", "\u03bcm") else key
 
 
@@ -133,18 +204,55 @@ def check_size_claim(
         )
 
 
-def check_points(points: np.ndarray, *, file: str) -> np.ndarray:
-    """Keep finite rows; reject fewer than 3 or all-identical points."""
+def check_points(
+    points: np.ndarray, *, file: str, first_line: int | None = None
+) -> tuple[np.ndarray, int]:
+    """Points as read, minus rows holding NaN (dropped and counted); refuse the rest.
+
+    Returns ``(points, n_dropped_nan)``. A NaN row is a "no return" placeholder that some
+    writers use (organised PCD clouds); an infinite coordinate is a broken file and is refused,
+    naming the point (and its line when ``first_line``, the line of point 0, is known). Fewer
+    than 3 points, or points that do not span an area (all identical or all on one line) are
+    refused: no ground can be made of them.
+    """
+    inf_rows = np.flatnonzero(np.isinf(points).any(axis=1))
+    if inf_rows.size:
+        i = int(inf_rows[0])
+        where = f"line {first_line + i}" if first_line is not None else f"point {i}"
+        raise ReaderError(
+            f"infinite coordinate in point {i} ({inf_rows.size} such points)",
+            file=file,
+            where=where,
+        )
     finite = np.isfinite(points).all(axis=1)
     pts = points[finite]
+    dropped = int(len(points) - len(pts))
     if len(pts) < 3:
         raise ReaderError(
             f"fewer than 3 valid points ({len(pts)} finite of {len(points)})", file=file
         )
-    if np.all(pts == pts[0]):
-        raise ReaderError(f"all {len(pts)} points are identical: {pts[0].tolist()}", file=file)
+    p0 = pts[0]
+    away = np.flatnonzero((pts != p0).any(axis=1))
+    if away.size == 0:
+        raise ReaderError(f"all {len(pts)} points are identical: {p0.tolist()}", file=file)
+    d1 = pts[away[0]] - p0
+    cross = np.cross(pts - p0, d1)
+    scale = float(np.abs(pts - p0).max())
+    if not (np.abs(cross).max() > 1e-12 * scale * scale):
+        raise ReaderError(f"all {len(pts)} points lie on one line: they span no area", file=file)
     out: np.ndarray = pts
-    return out
+    return out, dropped
+
+
+def check_relief(z: np.ndarray, *, file: str) -> None:
+    """Refuse a height grid (or point heights) that is exactly constant: nothing to score."""
+    finite = z[np.isfinite(z)]
+    if finite.size and float(finite.max()) == float(finite.min()):
+        raise ReaderError(
+            f"all {finite.size} heights are the same ({float(finite[0]):g}): a perfectly flat "
+            "surface has no relief to score",
+            file=file,
+        )
 
 
 NPY_MAGIC = b"\x93NUMPY"  # NumPy .npy format (NEP 1, "A simple file format for NumPy arrays")

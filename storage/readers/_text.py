@@ -27,10 +27,14 @@ def decode_text(raw: bytes, *, file: str) -> str:
         raise ReaderError("not UTF-8 text", file=file, where=f"line {line}") from None
 
 
-def parse_float(cell: str, *, file: str, line: int, column: int | str) -> float:
-    """One cell as float; empty cells are gaps (NaN)."""
+def parse_float(
+    cell: str, *, file: str, line: int, column: int | str, strict: bool = False
+) -> float:
+    """One cell as float; empty cells are gaps (NaN), or an error when ``strict``."""
     text = cell.strip()
     if not text:
+        if strict:
+            raise ReaderError("empty value", file=file, where=f"line {line}, column {column}")
         return math.nan
     try:
         return float(text)
@@ -56,11 +60,12 @@ def parse_table(
     delimiter: str | None,
     n_cols: int | None = None,
     min_cols: int = 1,
+    strict: bool = False,
 ) -> np.ndarray:
     """Parse ``(line_number, text)`` rows into a float64 array of shape (rows, cols).
 
     A fast numpy pass first; if it fails, a slow pass finds the first bad cell or ragged
-    row and says where.
+    row and says where. ``strict``: an empty cell is an error, not a gap.
     """
     if not lines:
         raise ReaderError("no data rows", file=file)
@@ -78,7 +83,9 @@ def parse_table(
             return arr
     except (ValueError, UserWarning):
         pass
-    return _slow_parse(lines, file=file, delimiter=delimiter, n_cols=n_cols, min_cols=min_cols)
+    return _slow_parse(
+        lines, file=file, delimiter=delimiter, n_cols=n_cols, min_cols=min_cols, strict=strict
+    )
 
 
 def _slow_parse(
@@ -88,6 +95,7 @@ def _slow_parse(
     delimiter: str | None,
     n_cols: int | None,
     min_cols: int,
+    strict: bool = False,
 ) -> np.ndarray:
     expected = n_cols
     rows: list[list[float]] = []
@@ -108,6 +116,9 @@ def _slow_parse(
                 where=f"line {line_no}",
             )
         rows.append(
-            [parse_float(c, file=file, line=line_no, column=j + 1) for j, c in enumerate(cells)]
+            [
+                parse_float(c, file=file, line=line_no, column=j + 1, strict=strict)
+                for j, c in enumerate(cells)
+            ]
         )
     return np.asarray(rows, dtype=np.float64)

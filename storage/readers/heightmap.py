@@ -7,6 +7,7 @@ NaN cells are holes and become ``valid == False``.
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 from typing import Any
 
@@ -14,12 +15,17 @@ import numpy as np
 
 from storage.errors import ReaderError
 from storage.readers._common import (
+    DEFAULT_LIMITS,
     NPY_MAGIC,
+    ReaderLimits,
     ScanData,
     canonical_unit,
+    check_cap,
     check_nonempty,
     check_npy_header,
+    check_relief,
     check_size_claim,
+    check_spacing,
     display_name,
     load_npy,
     positive_float,
@@ -52,9 +58,16 @@ def read(
     units: str | None = None,
     dx: float | None = None,
     dy: float | None = None,
+    limits: ReaderLimits = DEFAULT_LIMITS,
     **meta: Any,
 ) -> ScanData:
-    """Read a heightmap; z, dx and dy are in ``units`` and returned in metres."""
+    """Read a heightmap; z, dx and dy are in ``units`` and returned in metres.
+
+    The grid's size is read from the header and checked against ``limits.max_grid_cells``
+    before any sample is decoded (a compressed TIFF cannot make the server inflate more than
+    that). dx and dy must lie within ``SPACING_RANGE_M`` once converted to metres; a grid
+    smaller than 2 x 2 or exactly flat is refused.
+    """
     file = display_name(path, meta.get("filename"))
     fmt = fmt.lower()
     if fmt not in FORMATS:
@@ -63,20 +76,27 @@ def read(
     scale = unit_to_m(units, file=file)
     if dx is None:
         raise ReaderError("heightmap has no grid spacing: pass dx (and dy) in meta", file=file)
-    dx_m = positive_float(dx, name="dx", file=file) * scale
-    dy_m = positive_float(dy, name="dy", file=file) * scale if dy is not None else dx_m
+    dx_m = check_spacing(positive_float(dx, name="dx", file=file) * scale, name="dx", file=file)
+    dy_m = (
+        check_spacing(positive_float(dy, name="dy", file=file) * scale, name="dy", file=file)
+        if dy is not None
+        else dx_m
+    )
     if fmt == "npy":
-        z = _read_npy(path, size=size, file=file)
+        z = _read_npy(path, size=size, file=file, limits=limits)
     elif fmt == "csv":
-        z = _read_csv(path, file=file)
+        z = _read_csv(path, file=file, limits=limits)
     else:
-        z = _read_tiff(path, size=size, file=file)
+        z = _read_tiff(path, size=size, file=file, limits=limits)
+    if min(z.shape) < 2:
+        raise ReaderError(f"a heightmap needs at least 2 x 2 cells, got {z.shape}", file=file)
     z = z.astype(np.float64) * scale
     valid = np.isfinite(z)
     z[~valid] = np.nan
     n_valid = int(valid.sum())
     if n_valid < 3:
         raise ReaderError(f"fewer than 3 valid cells ({n_valid} of {z.size})", file=file)
+    check_relief(z, file=file)
     return ScanData(
         kind="heightmap",
         fmt="tiff" if fmt == "tif" else fmt,
@@ -89,14 +109,20 @@ def read(
     )
 
 
-def _read_npy(path: str | Path, *, size: int, file: str) -> np.ndarray:
+def _read_npy(path: str | Path, *, size: int, file: str, limits: ReaderLimits) -> np.ndarray:
     _dtype, shape = check_npy_header(path, size=size, file=file)
     if len(shape) != 2 or min(shape) < 1:
         raise ReaderError(f"heightmap must be a 2-D array (ny, nx), got shape {shape}", file=file)
+    _cap_cells(shape, limits, file=file)
     return load_npy(path, file=file)
 
 
-def _read_csv(path: str | Path, *, file: str) -> np.ndarray:
+def _cap_cells(shape: tuple[int, ...], limits: ReaderLimits, *, file: str) -> None:
+    check_cap(math.prod(shape), limits.max_grid_cells, what=f"grid of {shape} cells",
+              setting="max_grid_cells", file=file)  # fmt: skip
+
+
+def _read_csv(path: str | Path, *, file: str, limits: ReaderLimits) -> np.ndarray:
     with open(path, "rb") as fh:
         text = decode_text(fh.read(), file=file)
     rows = [
@@ -107,10 +133,12 @@ def _read_csv(path: str | Path, *, file: str) -> np.ndarray:
     if not rows:
         raise ReaderError("no data rows", file=file)
     delimiter = "," if "," in rows[0][1] else ("\t" if "\t" in rows[0][1] else None)
+    first = len(rows[0][1].split(delimiter) if delimiter else rows[0][1].split())
+    _cap_cells((len(rows), first), limits, file=file)
     return parse_table(rows, file=file, delimiter=delimiter)
 
 
-def _read_tiff(path: str | Path, *, size: int, file: str) -> np.ndarray:
+def _read_tiff(path: str | Path, *, size: int, file: str, limits: ReaderLimits) -> np.ndarray:
     import tifffile
 
     if read_head(path, 4) not in TIFF_MAGICS:
@@ -126,10 +154,23 @@ def _read_tiff(path: str | Path, *, size: int, file: str) -> np.ndarray:
                 raise ReaderError(
                     f"TIFF image must be a single-band 2-D grid, got shape {shape}", file=file
                 )
+            # Shape and sample type come from the tags alone: the decoded size is known
+            # (and capped) before a byte is inflated, so a small deflate bomb costs nothing.
+            _cap_cells(shape, limits, file=file)
+            itemsize = np.dtype(page.dtype).itemsize if page.dtype is not None else 0
+            if itemsize == 0 or itemsize > 8:
+                raise ReaderError(f"TIFF samples must be numeric, got {page.dtype}", file=file)
             offsets, counts = page.dataoffsets, page.databytecounts
             end = max((o + n for o, n in zip(offsets, counts, strict=False)), default=0)
             check_size_claim(end, size, file=file, what="image data up to byte offset")
-            data = page.asarray()
+            if page.compression == 1:  # uncompressed: the strips must hold the whole image
+                check_size_claim(
+                    math.prod(shape) * itemsize,
+                    sum(counts),
+                    file=file,
+                    what=f"an uncompressed {shape} image",
+                )
+            data = page.asarray(maxworkers=1)
     except ReaderError:
         raise
     except Exception as exc:  # tifffile raises many types on corrupt input

@@ -16,11 +16,15 @@ import numpy as np
 from storage.errors import ReaderError
 from storage.readers._c3d import check_c3d
 from storage.readers._common import (
+    DEFAULT_LIMITS,
     NPY_MAGIC,
+    ReaderLimits,
     TrialData,
     canonical_unit,
+    check_cap,
     check_nonempty,
     check_npy_header,
+    check_rate,
     display_name,
     load_npy,
     positive_float,
@@ -52,9 +56,15 @@ def read(
     units: str | None = None,
     frame_rate_hz: float | None = None,
     marker_names: list[str] | None = None,
+    limits: ReaderLimits = DEFAULT_LIMITS,
     **meta: Any,
 ) -> TrialData:
-    """Read a trial; positions come back in metres."""
+    """Read a trial; positions come back in metres.
+
+    Frame and sample counts are checked against ``limits`` from the header (C3D, NPY) or the
+    row count (text) before the marker array is built; the frame rate, from the file, the
+    time column or ``frame_rate_hz``, must lie within ``FRAME_RATE_RANGE_HZ``.
+    """
     filename = meta.get("filename")
     file = display_name(path, filename)
     fmt = fmt.lower()
@@ -63,7 +73,7 @@ def read(
     size = check_nonempty(path, file=file)
     if fmt == "c3d":
         markers, names, rate, unit, extra = _read_c3d(
-            path, size=size, file=file, units=units, frame_rate_hz=frame_rate_hz
+            path, size=size, file=file, units=units, frame_rate_hz=frame_rate_hz, limits=limits
         )
         time_s = np.arange(markers.shape[0]) / rate
     elif fmt == "npy":
@@ -75,11 +85,12 @@ def read(
             units=units,
             frame_rate_hz=frame_rate_hz,
             marker_names=marker_names,
+            limits=limits,
         )
         time_s = np.arange(markers.shape[0]) / rate
     else:
         markers, names, rate, time_s, extra = _read_table(
-            path, fmt=fmt, file=file, frame_rate_hz=frame_rate_hz
+            path, fmt=fmt, file=file, frame_rate_hz=frame_rate_hz, limits=limits
         )
         unit = units
     scale = unit_to_m(unit, file=file)
@@ -109,21 +120,45 @@ def _finish(markers: np.ndarray, names: list[str], *, file: str) -> np.ndarray:
     if markers.shape[0] < 3:
         raise ReaderError(f"fewer than 3 frames ({markers.shape[0]})", file=file)
     markers = np.array(markers, dtype=np.float64)
+    # NaN is a gap (the stated convention); an infinite coordinate is a broken file.
+    inf = np.argwhere(np.isinf(markers))
+    if inf.size:
+        frame, marker, _axis = (int(v) for v in inf[0])
+        raise ReaderError(
+            f"infinite coordinate for marker {names[marker]!r} ({len(inf)} such values)",
+            file=file,
+            where=f"frame {frame}",
+        )
     # A sample is valid only when all three coordinates are.
     markers[~np.isfinite(markers).all(axis=2)] = np.nan
     present = np.isfinite(markers[:, :, 0]).any(axis=0)
     empty = [names[i] for i in np.flatnonzero(~present)]
     if empty:
         raise ReaderError(f"marker {empty[0]!r} has no valid sample (all NaN)", file=file)
+    with np.errstate(invalid="ignore"):
+        still = np.nanmax(markers, axis=0) == np.nanmin(markers, axis=0)
+    if bool(still.all()):
+        raise ReaderError(
+            f"no marker moves in {markers.shape[0]} frames: every coordinate is constant",
+            file=file,
+        )
     return markers
+
+
+def _cap_frames(n_frames: int, n_markers: int, limits: ReaderLimits, *, file: str) -> None:
+    check_cap(n_frames, limits.max_frames, what="frame count", setting="max_frames", file=file)
+    check_cap(n_frames * n_markers, limits.max_marker_samples,
+              what=f"{n_frames} frames x {n_markers} markers", setting="max_marker_samples",
+              file=file)  # fmt: skip
 
 
 def _rate(file_rate: float | None, given: float | None, *, file: str) -> float:
     if file_rate is not None and np.isfinite(file_rate) and file_rate > 0:
-        return float(file_rate)
+        return check_rate(float(file_rate), file=file, where="the file's frame rate")
     if given is None:
         raise ReaderError("frame rate missing: pass frame_rate_hz", file=file)
-    return positive_float(given, name="frame_rate_hz", file=file)
+    rate = positive_float(given, name="frame_rate_hz", file=file)
+    return check_rate(rate, file=file, where="frame_rate_hz")
 
 
 # --- C3D --------------------------------------------------------------------------------
@@ -134,8 +169,10 @@ def _read_c3d(
     file: str,
     units: str | None,
     frame_rate_hz: float | None,
+    limits: ReaderLimits,
 ) -> tuple[np.ndarray, list[str], float, str | None, dict[str, Any]]:
     header = check_c3d(path, size=size, file=file)
+    _cap_frames(header.last_frame - header.first_frame + 1, header.n_points, limits, file=file)
     import ezc3d
 
     try:
@@ -191,10 +228,12 @@ def _read_npy(
     units: str | None,
     frame_rate_hz: float | None,
     marker_names: list[str] | None,
+    limits: ReaderLimits,
 ) -> tuple[np.ndarray, list[str], float, str | None, dict[str, Any]]:
     _, shape = check_npy_header(path, size=size, file=file)
     if len(shape) != 3 or shape[2] != 3:
         raise ReaderError(f"expected an array (frames, markers, 3), got shape {shape}", file=file)
+    _cap_frames(shape[0], shape[1], limits, file=file)
     side = _sidecar(path, filename=filename, file=file)
     names = marker_names if marker_names is not None else side.get("marker_names")
     if not isinstance(names, list) or not all(isinstance(n, str) for n in names):
@@ -230,7 +269,12 @@ def _sidecar(path: str | Path, *, filename: str | None, file: str) -> dict[str, 
 
 # --- CSV / TSV --------------------------------------------------------------------------
 def _read_table(
-    path: str | Path, *, fmt: str, file: str, frame_rate_hz: float | None
+    path: str | Path,
+    *,
+    fmt: str,
+    file: str,
+    frame_rate_hz: float | None,
+    limits: ReaderLimits,
 ) -> tuple[np.ndarray, list[str], float, np.ndarray, dict[str, Any]]:
     with open(path, "rb") as fh:
         text = decode_text(fh.read(), file=file)
@@ -247,6 +291,8 @@ def _read_table(
     lower = [c.lower() for c in columns]
     if len(rows) < 2:
         raise ReaderError("header but no data rows", file=file)
+    # Rows bound the frames (wide) or the samples (long) before any array is built.
+    _cap_frames(len(rows) - 1, max(1, (len(columns) - 1) // 3), limits, file=file)
     if lower[:1] and lower[0] in ("time", "frame") and lower[1:2] == ["marker"]:
         return _read_long(rows, columns=lower, delimiter=delimiter, file=file,
                           frame_rate_hz=frame_rate_hz)  # fmt: skip
@@ -355,9 +401,12 @@ def _clock(
         )
     if kind == "time":
         derived = 1.0 / float(np.median(steps)) if steps.size else None
-        rate = _rate(None, frame_rate_hz, file=file) if frame_rate_hz is not None else derived
-        if rate is None:
+        if frame_rate_hz is not None:
+            rate = _rate(None, frame_rate_hz, file=file)
+        elif derived is None:
             raise ReaderError("frame rate missing: pass frame_rate_hz", file=file)
+        else:
+            rate = check_rate(derived, file=file, where="time column (median step)")
         return rate, clock - clock[0]
     rate = _rate(None, frame_rate_hz, file=file)
     return rate, (clock - clock[0]) / rate

@@ -1,7 +1,9 @@
 """Repository functions: the only code that adds, changes or commits rows.
 
 Every function is keyword-only, takes ``session`` (and ``store`` where files are involved)
-and commits before it returns. Lists return ``(rows, count)``.
+and commits before it returns, except where a unit of work needs several together: an upload
+flushes its record and its first job and commits them at once (``ingest_*``,
+``correct_meta``), and ``enqueue_job(commit=False)`` only flushes. Lists return ``(rows, count)``.
 """
 
 from storage.repo.catalog import (
@@ -55,8 +57,10 @@ from storage.repo.tokens import (
     revoke_token,
 )
 from storage.repo.uploads import (
+    MetaConflict,
     attach_artifact,
     attach_heightmap,
+    correct_meta,
     find_by_sha256,
     get_scan,
     get_trial,
@@ -66,15 +70,18 @@ from storage.repo.uploads import (
     list_trials,
     load_scan_data,
     load_trial_data,
+    meta_differences,
 )
 
 __all__ = [
     "TOKEN_PREFIX",
+    "MetaConflict",
     "add_study_members",
     "attach_artifact",
     "attach_heightmap",
     "authenticate",
     "claim_job",
+    "correct_meta",
     "create_arena",
     "create_marker_set",
     "create_recipe",
@@ -112,6 +119,7 @@ __all__ = [
     "list_trials",
     "load_scan_data",
     "load_trial_data",
+    "meta_differences",
     "normalise_arena_kind",
     "recipe_hash",
     "revoke_token",

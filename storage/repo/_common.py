@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from typing import Any, TypeVar
 
 from sqlalchemy import Select, func, select
@@ -38,14 +39,43 @@ def get_or_404(session: Session, model: type[T], ident: int, kind: str) -> T:
     return row
 
 
+_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+
+
 def need_text(value: object, *, name: str, max_len: int = 200) -> str:
-    """A non-empty stripped string, or BadInput naming the field."""
+    """A non-empty stripped string without control characters, or BadInput naming the field."""
     if not isinstance(value, str) or not value.strip():
         raise BadInput(f"{name} must be a non-empty string, got {value!r}")
     text = value.strip()
+    bad = _CONTROL.search(text)
+    if bad:
+        raise BadInput(
+            f"{name} contains a control character (U+{ord(bad.group()):04X}) at position "
+            f"{bad.start()}"
+        )
     if len(text) > max_len:
         raise BadInput(f"{name} is longer than {max_len} characters")
     return text
+
+
+_CONTROL_FREE = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
+
+
+def free_text(value: object, *, name: str, max_len: int = 10_000) -> str:
+    """Optional free text (notes): tabs and newlines allowed, NUL and other controls not."""
+    if value is None:
+        return ""
+    if not isinstance(value, str):
+        raise BadInput(f"{name} must be a string, got {value!r}")
+    bad = _CONTROL_FREE.search(value)
+    if bad:
+        raise BadInput(
+            f"{name} contains a control character (U+{ord(bad.group()):04X}) at position "
+            f"{bad.start()}"
+        )
+    if len(value) > max_len:
+        raise BadInput(f"{name} is longer than {max_len} characters")
+    return value
 
 
 def optional_positive(value: object, *, name: str) -> float | None:

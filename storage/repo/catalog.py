@@ -10,7 +10,7 @@ from sqlalchemy.orm import Session
 
 from storage.errors import BadInput, Conflict
 from storage.models import ARENA_KINDS, Arena, MarkerSet, Subject
-from storage.repo._common import get_or_404, need_text, optional_positive, paginate
+from storage.repo._common import free_text, get_or_404, need_text, optional_positive, paginate
 from storage.repo.studies import arena_ids_in_study, get_study, subject_ids_in_study
 
 __all__ = [
@@ -68,7 +68,7 @@ def create_arena(
         kind=normalise_arena_kind(kind),
         scale_band_lo_m=lo,
         scale_band_hi_m=hi,
-        notes=notes or "",
+        notes=free_text(notes, name="notes"),
     )
     _commit_unique(session, arena, f"arena {arena.name!r}")
     return arena
@@ -171,7 +171,7 @@ def create_subject(
         raise BadInput("give marker_roles or marker_set_id, not both")
     subject = Subject(
         label=label,
-        species=(species or "").strip(),
+        species=free_text(species, name="species", max_len=200).strip(),
         mass_kg=optional_positive(mass_kg, name="mass_kg"),
         body_length_m=optional_positive(body_length_m, name="body_length_m"),
     )

@@ -35,8 +35,13 @@ def enqueue_job(
     target_id: int,
     recipe_hash: str | None = None,
     max_attempts: int = 3,
+    commit: bool = True,
 ) -> Job:
-    """Queue a job; an open (queued/running) job with the same key is returned instead."""
+    """Queue a job; an open (queued/running) job with the same key is returned instead.
+
+    ``commit=False`` only flushes, so a caller's unit of work (an upload: its record and its
+    first job) commits both together.
+    """
     if target_kind not in TARGET_KINDS:
         raise BadInput(f"target_kind must be one of {TARGET_KINDS}, got {target_kind!r}")
     if not isinstance(max_attempts, int) or max_attempts < 1:
@@ -48,9 +53,7 @@ def enqueue_job(
             Job.kind == kind,
             Job.target_kind == target_kind,
             Job.target_id == target_id,
-            Job.recipe_hash.is_(None)
-            if recipe_hash is None
-            else Job.recipe_hash == recipe_hash,
+            Job.recipe_hash.is_(None) if recipe_hash is None else Job.recipe_hash == recipe_hash,
             Job.state.in_(("queued", "running")),
         )
         .order_by(Job.id)
@@ -70,8 +73,11 @@ def enqueue_job(
         attempts=0,
     )
     session.add(job)
-    session.commit()
-    session.refresh(job)
+    if commit:
+        session.commit()
+        session.refresh(job)
+    else:
+        session.flush()
     return job
 
 
