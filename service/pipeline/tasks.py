@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import os
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
 from typing import Any
@@ -56,12 +57,17 @@ def warm_up() -> None:
     seconds that way), so each worker keeps BLAS to a single thread.
     """
     global _warm
+    # A BLAS loaded later (scipy ships its own OpenBLAS, loaded on first use of
+    # scipy.linalg) reads these at load time; threadpoolctl reaches those already loaded.
+    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ[var] = "1"
+    import scipy.linalg  # noqa: F401
     from threadpoolctl import threadpool_limits
 
-    threadpool_limits(limits=1, user_api="blas")
     import measures  # noqa: F401
     import storage.readers  # noqa: F401
 
+    threadpool_limits(limits=1, user_api="blas")
     _warm = True
 
 
