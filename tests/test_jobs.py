@@ -387,6 +387,33 @@ def check_trial_outputs(lab: Store, trial_id: int) -> None:
     assert windows["path_origin_m"].shape == (windows["path_time_s"].size, 3)
 
 
+def test_run_until_idle_reports_progress_and_has_no_deadline_by_default(
+    lab: Store, pool: Any
+) -> None:
+    # A loaded machine is slow, not broken: no fixed deadline unless one is asked for; the
+    # callback sees the job counts (what a progress bar draws) end with everything done.
+    scans = [lab.add_heightmap(seed=80 + i, shape_m=(0.016, 0.016)) for i in range(2)]
+    for s in scans:
+        lab.enqueue("scan", s)
+
+    def flow(ctx):
+        yield Compute(sleep_then, (ctx.target_id, 0.2))
+
+    seen: list[dict[str, int]] = []
+    runner = lab.runner(pool, flows={"scan": flow})
+    assert inspect.signature(runner.run_until_idle).parameters["timeout"].default is None
+    runner.run_until_idle(on_progress=seen.append)
+    assert seen and seen[-1] == {"queued": 0, "running": 0, "done": 2, "failed": 0}
+    assert any(c["running"] for c in seen)
+    lab.enqueue("scan", lab.add_heightmap(seed=90, shape_m=(0.016, 0.016)))
+
+    def slow_flow(ctx):
+        yield Compute(sleep_then, (0, 5.0))
+
+    with pytest.raises(TimeoutError):
+        lab.runner(pool, flows={"scan": slow_flow}).run_until_idle(0.5)
+
+
 def test_blas_is_pinned_to_one_thread_in_local_workers(pool: Any) -> None:
     assert pool.submit(blas_threads).result(timeout=120) == 1
 
@@ -446,3 +473,25 @@ def test_stop_hands_running_jobs_back_without_spending_an_attempt(lab: Store) ->
     runner.stop()
     job = lab.job(job_id)
     assert (job.state, job.attempts) == ("queued", 0)
+
+
+def test_notes_go_to_the_score_they_name_and_no_nan_is_left_without_one() -> None:
+    from measures import Score
+    from service.pipeline.flows import with_notes
+
+    nan = float("nan")
+    rows = with_notes(
+        [Score("hurst_psd", nan, "1"), Score("sq_m", 0.01, "m"), Score("sdr", nan, "1"),
+         Score("str", 0.4, "1")],
+        ["hurst psd: no self-affine band found", "str: the ACF did not decay; upper bound",
+         "information scores: holes filled with the mean height"],
+        context=["only 40% of frames were valid after preprocessing"],
+    )  # fmt: skip
+    notes = {r.name: r.note for r in rows}
+    assert notes["hurst_psd"] == "hurst psd: no self-affine band found"
+    assert notes["str"] == "str: the ACF did not decay; upper bound"
+    assert notes["sq_m"] == ""
+    # No note names sdr: it gets the summary's other notes and the run's context.
+    assert notes["sdr"].startswith("no value: information scores") and "40%" in notes["sdr"]
+    bare = with_notes([Score("rqa_det", nan, "1")])
+    assert bare[0].note.startswith("no value: ")
