@@ -163,3 +163,29 @@ def test_lidar_tile_is_scored_without_a_memory_error(real_lab: RealLab, name: st
     assert out.job.state == "done", out.job.error
     every_missing_value_has_a_note(out)
     assert 0.0 <= out.value("heightmap_hole_fraction") < 1.0
+
+
+@pytest.mark.parametrize("name", ["file_with_both_wkt_and_geotiff_vlrs.las", "append-bug.laz"])
+def test_lidar_tile_on_the_default_grid_is_refused_before_allocation(name: str) -> None:
+    # Source: laspy's source distribution, tests/data (fetched by .ci/run), read with laspy
+    # itself. On the default 1 mm grid a tile tens to hundreds of metres wide needs
+    # billions of cells; the job must refuse with the cells, the bytes and a cell size that
+    # fits, and that cell size must pass the same check.
+    import laspy
+
+    from measures.errors import InvalidParameterError
+    from service.pipeline import DEFAULT_MAX_GRID_CELLS
+    from service.pipeline.recipes import DEFAULT_CELL_M
+    from service.pipeline.tasks import _points_extent, grid_cap_check
+
+    las = laspy.read(_las_file(name))
+    points = np.column_stack([np.asarray(las.x), np.asarray(las.y), np.asarray(las.z)])
+    ex, ey = _points_extent(points, None)
+    assert ex > 10 and ey > 10  # metres: the file's scale and offset applied by laspy
+    with pytest.raises(InvalidParameterError) as err:
+        grid_cap_check(ex, ey, DEFAULT_CELL_M, DEFAULT_MAX_GRID_CELLS)
+    text = str(err.value)
+    assert "GAITSCAPE_MAX_GRID_CELLS" in text and "GiB per float64 array" in text
+    fits = float(text.split("must be at least ")[1].split(" m ")[0])
+    grid_cap_check(ex, ey, fits, DEFAULT_MAX_GRID_CELLS)  # the suggested cell passes
+    assert (ex / fits) * (ey / fits) <= DEFAULT_MAX_GRID_CELLS
