@@ -515,9 +515,19 @@ class ScoreRowPublic(_Out):
     ci_low: float | None = None
     ci_high: float | None = None
     surrogate_z: float | None = None
+    note: str = Field(
+        default="",
+        description="Why the value is missing, which automatic choice was made, which band "
+        "was fitted. A missing value (null) always has one.",
+    )
     code_version: str
     input_sha256: str
     computed_at: datetime | None = None
+
+    @field_validator("note", mode="before")
+    @classmethod
+    def _no_null_note(cls, value: Any) -> Any:
+        return "" if value is None else value
 
 
 ScoresPublic = Page[ScoreRowPublic]

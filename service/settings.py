@@ -67,6 +67,14 @@ class Settings(BaseSettings):
         gt=0,
         description="Seconds the idle job runner waits between looks at the job queue.",
     )
+    max_grid_cells: int = Field(
+        default=4096 * 4096,
+        ge=1024,
+        description="Largest heightmap, in cells, a scan job may build (default 4096 x 4096, "
+        "128 MiB per float64 array; the terrain summary holds several such arrays). A scan "
+        "whose grid would be larger is refused before anything is allocated, with the cell "
+        "size that would fit; set heightmap.cell_m in a recipe or raise this cap.",
+    )
     cors_origins: Annotated[list[str], NoDecode] = Field(
         default_factory=list,
         description="Browser origins allowed to call the API cross-site, comma-separated "

@@ -7,6 +7,8 @@ The service maps each type to one HTTP status in a single handler:
 
 from __future__ import annotations
 
+from typing import Any
+
 __all__ = [
     "ArtifactCorrupt",
     "BadInput",
@@ -20,11 +22,27 @@ __all__ = [
 
 
 class StorageError(Exception):
-    """Base of every error storage/ raises on purpose."""
+    """Base of every error storage/ raises on purpose.
+
+    Every class here survives pickling with its message and attributes: readers run in
+    worker processes and their errors travel back to the job runner (the default
+    ``BaseException.__reduce__`` would call ``__init__`` with the formatted message alone).
+    """
 
     def __init__(self, message: str) -> None:
         self.message = message
         super().__init__(message)
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        # Rebuild without __init__, then restore args (the message) and every attribute.
+        return (_rebuild, (type(self), self.args, dict(self.__dict__)))
+
+
+def _rebuild(cls: type[StorageError], args: tuple[Any, ...], state: dict[str, Any]) -> Any:
+    exc = cls.__new__(cls, *args)
+    Exception.__init__(exc, *args)
+    exc.__dict__.update(state)
+    return exc
 
 
 class NotFound(StorageError):

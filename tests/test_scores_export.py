@@ -11,8 +11,11 @@ from test_jobs import Store
 
 from measures import Score
 from service.app import create_app
+from service.pipeline.flows import NotedScore
 from service.settings import get_settings
 from storage import repo
+
+HURST_NOTE = "hurst psd: no self-affine band found; too few valid cells to fit"
 
 
 @pytest.fixture(scope="module")
@@ -29,7 +32,8 @@ def study(tmp_path_factory):
     with lab.sessionmaker() as s:
         repo.save_scores(
             session=s, target_kind="scan", target_id=scan_id, recipe_hash=default.hash,
-            scores=[Score("sq_m", 0.002, "m"), Score("sdr", 0.15, "1")],
+            scores=[Score("sq_m", 0.002, "m"), Score("sdr", 0.15, "1"),
+                    NotedScore("hurst_psd", float("nan"), "1", note=HURST_NOTE)],
             code_version="test", input_sha256="a" * 64,
         )  # fmt: skip
     client = TestClient(app, headers={"Authorization": f"Bearer {secret}"})
@@ -47,7 +51,7 @@ def test_query_filters_and_context(study) -> None:
         "m",
         default.hash,
     )
-    assert client.get("/v1/scores", params={"recipe": "default"}).json()["count"] == 2
+    assert client.get("/v1/scores", params={"recipe": "default"}).json()["count"] == 3
     assert client.get("/v1/scores", params={"target_kind": "trial"}).json()["count"] == 0
     assert client.get("/v1/scores", params={"recipe": "missing"}).status_code == 404
 
@@ -67,14 +71,19 @@ def test_tidy_csv_json_parquet_read_back(study) -> None:
         "value",
         "unit",
     }
-    assert sorted(frame["measure"]) == ["sdr", "sq_m"] and set(frame["recipe"]) == {"default v1"}
-    assert frame.set_index("measure")["value"].to_dict() == {"sq_m": 0.002, "sdr": 0.15}
+    assert sorted(frame["measure"]) == ["hurst_psd", "sdr", "sq_m"]
+    assert set(frame["recipe"]) == {"default v1"}
+    values = frame.set_index("measure")["value"]
+    assert values[["sq_m", "sdr"]].to_dict() == {"sq_m": 0.002, "sdr": 0.15}
+    assert pd.isna(values["hurst_psd"])
+    assert frame.set_index("measure")["note"]["hurst_psd"] == HURST_NOTE
     pq = client.get("/v1/export/scores", params={"format": "parquet"})
     assert pq.headers["content-type"] == "application/vnd.apache.parquet"
-    back = pd.read_parquet(io.BytesIO(pq.content))
-    assert back.set_index("measure")["value"].to_dict() == {"sq_m": 0.002, "sdr": 0.15}
+    back = pd.read_parquet(io.BytesIO(pq.content)).set_index("measure")
+    assert back["value"][["sq_m", "sdr"]].to_dict() == {"sq_m": 0.002, "sdr": 0.15}
+    assert back["note"]["hurst_psd"] == HURST_NOTE
     js = pd.read_json(io.StringIO(client.get("/v1/export/scores", params={"format": "json"}).text))
-    assert len(js) == 2
+    assert len(js) == 3
 
 
 def test_wide_has_one_row_per_target(study) -> None:
@@ -88,6 +97,18 @@ def test_wide_has_one_row_per_target(study) -> None:
         )
         assert len(frame) == 1 and int(frame["target_id"].iloc[0]) == scan_id
         assert float(frame["sq_m"].iloc[0]) == 0.002 and float(frame["sdr"].iloc[0]) == 0.15
+        assert pd.isna(frame["hurst_psd"].iloc[0])
+        assert frame["hurst_psd_note"].iloc[0] == HURST_NOTE
+        assert "sq_m_note" not in frame.columns
+
+
+def test_missing_value_comes_with_its_note_in_the_query(study) -> None:
+    client, scan_id, _ = study
+    body = client.get("/v1/scores", params={"scan_id": scan_id, "measure": "hurst_psd"}).json()
+    row = body["data"][0]
+    assert row["value"] is None and row["note"] == HURST_NOTE
+    other = client.get("/v1/scores", params={"scan_id": scan_id, "measure": "sq_m"}).json()
+    assert other["data"][0]["note"] == ""
 
 
 def test_absurd_id_in_a_streamed_export_is_a_422_not_a_broken_stream(tmp_path):

@@ -17,9 +17,11 @@ from service.pipeline.recipes import (
     ensure_default_recipe,
     resolve_recipe,
 )
-from service.pipeline.runner import SCORE_JOB_KIND, JobRunner
+from service.pipeline.runner import SCORE_JOB_KIND, JobRunner, is_infrastructure_error
+from service.pipeline.tasks import DEFAULT_MAX_GRID_CELLS
 
 __all__ = [
+    "DEFAULT_MAX_GRID_CELLS",
     "DEFAULT_RECIPE",
     "FLOWS",
     "SCORE_JOB_KIND",
@@ -31,6 +33,7 @@ __all__ = [
     "complete_parameters",
     "default_parameters",
     "ensure_default_recipe",
+    "is_infrastructure_error",
     "make_executor",
     "resolve_recipe",
     "scan_flow",
@@ -50,6 +53,7 @@ def start_job_runner(settings: Any, resources: Any) -> JobRunner | None:
         executor=lambda: make_executor(settings),
         lease_s=settings.job_lease_s,
         poll_s=settings.job_poll_s,
+        max_grid_cells=settings.max_grid_cells,
     )
     runner.start()
     return runner

@@ -3,7 +3,8 @@
 ``LocalPool`` wraps a ``ProcessPoolExecutor`` started with the "spawn" context: forking a
 process that holds threads (the server, the runner) and open3d/numba state is unsafe.
 ``DaskPool`` submits to a ``distributed.Client``. Both return futures with ``done()``,
-``result()`` and ``add_done_callback``.
+``result()`` and ``add_done_callback``. Every worker of either kind keeps BLAS to one thread
+(``tasks.warm_up``): the executor already runs one task per core.
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ from concurrent.futures import ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Protocol
 
-from service.pipeline.tasks import warm_up
+from service.pipeline.tasks import run_pinned, warm_up
 
 __all__ = ["DaskPool", "Executor", "LocalPool", "make_executor"]
 
@@ -37,8 +38,11 @@ class LocalPool:
             raise ValueError(f"workers must be >= 1, got {workers}")
         self.workers = workers
         self._pool: ProcessPoolExecutor | None = None
+        #: How many pools were started: futures of one generation broke together.
+        self.generation = 0
 
     def _new_pool(self) -> ProcessPoolExecutor:
+        self.generation += 1
         return ProcessPoolExecutor(
             max_workers=self.workers,
             mp_context=multiprocessing.get_context("spawn"),
@@ -51,8 +55,8 @@ class LocalPool:
         try:
             return self._pool.submit(fn, *args, **kwargs)
         except BrokenProcessPool:
-            # A worker died (killed, out of memory, os._exit): its jobs fail and are retried;
-            # new work goes to a fresh pool.
+            # A worker died (killed, out of memory, os._exit): the runner decides whom to
+            # charge (service.pipeline.runner); new work goes to a fresh pool.
             log.warning("process pool broken; starting a new one")
             self._pool.shutdown(wait=False, cancel_futures=True)
             self._pool = self._new_pool()
@@ -101,7 +105,8 @@ class DaskPool:
 
     def submit(self, fn: Callable[..., Any], /, *args: Any, **kwargs: Any) -> Any:
         # pure=False: a retry of the same inputs must run again, not reuse a cached key.
-        return self.client.submit(fn, *args, pure=False, **kwargs)
+        # run_pinned: Dask workers have no initializer; BLAS is pinned on first use.
+        return self.client.submit(run_pinned, fn, *args, pure=False, **kwargs)
 
     def capacity(self) -> int:
         now = time.monotonic()

@@ -1,4 +1,8 @@
-"""Scores: query them, and export them tidy (one row per score) or wide (one row per target)."""
+"""Scores: query them, and export them tidy (one row per score) or wide (one row per target).
+
+Each score carries its ``note`` (why a value is missing, automatic choices): a column of the
+tidy exports, ``<measure>_note`` columns in the wide ones.
+"""
 
 from __future__ import annotations
 
@@ -140,9 +144,18 @@ def _frame(rows: Iterator[dict[str, Any]], shape: str) -> Any:
     # A target under one recipe hash is one row; its context columns are constant there.
     ident = ["target_kind", "target_id", "recipe_hash"]
     values = frame.pivot_table(index=ident, columns="measure", values="value", aggfunc="first")
+    # A measure missing everywhere keeps its column (its notes say why).
+    values = values.reindex(columns=sorted(frame["measure"].unique()))
     values.columns.name = None
     context = frame[list(WIDE_KEYS)].drop_duplicates(subset=ident)
-    return context.merge(values.reset_index(), on=ident, how="left")
+    wide = context.merge(values.reset_index(), on=ident, how="left")
+    # Notes beside their values: "<measure>_note" for every measure that has one somewhere.
+    noted = frame[frame["note"].fillna("").astype(str) != ""]
+    if noted.empty:
+        return wide
+    notes = noted.pivot_table(index=ident, columns="measure", values="note", aggfunc="first")
+    notes.columns = [f"{m}_note" for m in notes.columns]
+    return wide.merge(notes.reset_index(), on=ident, how="left")
 
 
 @router.get(

@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from datetime import timedelta
 
-from sqlalchemy import and_, or_, select, update
+from sqlalchemy import and_, func, or_, select, update
 from sqlalchemy.orm import Session
 
 from storage.errors import BadInput, Conflict, NotFound
@@ -19,6 +19,7 @@ __all__ = [
     "fail_job",
     "finish_job",
     "get_job",
+    "job_counts",
     "latest_job",
     "list_jobs",
     "release_job",
@@ -94,6 +95,16 @@ def latest_job(*, session: Session, target_kind: str, target_id: int) -> Job | N
         .order_by(Job.id.desc())
         .limit(1)
     )
+
+
+def job_counts(*, session: Session, kind: str | None = None) -> dict[str, int]:
+    """How many jobs are in each state (every state present, zero when none)."""
+    stmt = select(Job.state, func.count()).group_by(Job.state)
+    if kind is not None:
+        stmt = stmt.where(Job.kind == kind)
+    counts = dict.fromkeys(JOB_STATES, 0)
+    counts.update({state: int(n) for state, n in session.execute(stmt)})
+    return counts
 
 
 def list_jobs(
@@ -198,12 +209,16 @@ def finish_job(*, session: Session, job_id: int, message: str = "done") -> Job:
     return job
 
 
-def fail_job(*, session: Session, job_id: int, error: str) -> Job:
-    """Record a failure; the job goes back to the queue while attempts remain."""
+def fail_job(*, session: Session, job_id: int, error: str, retry: bool = True) -> Job:
+    """Record a failure; the job goes back to the queue while attempts remain.
+
+    ``retry=False`` (a deterministic failure: bad input, parameters, too little data) ends
+    the job at once: running it again would give the same error.
+    """
     job = get_job(session=session, job_id=job_id)
     job.error = str(error)
     job.lease_until = None
-    if job.attempts < job.max_attempts:
+    if retry and job.attempts < job.max_attempts:
         job.state, job.message = "queued", f"retrying after attempt {job.attempts}"
     else:
         job.state, job.message, job.finished_at = "failed", "failed", utcnow()

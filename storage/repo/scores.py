@@ -112,9 +112,12 @@ def save_scores(
     code_version: str,
     input_sha256: str,
 ) -> list[Score]:
-    """Insert or replace scores (items with name, value, unit, ci_low, ci_high, surrogate_z).
+    """Insert or replace scores (items with name, value, unit, ci_low, ci_high, surrogate_z,
+    note).
 
-    Non-finite values are stored as NULL (JSON has no NaN).
+    Non-finite values are stored as NULL (JSON has no NaN). ``note`` (why a value is
+    missing, which automatic choice was made) is read with ``getattr``: score types without
+    it store "". The scoring flows give every missing value its reason.
     """
     if target_kind not in TARGET_KINDS:
         raise BadInput(f"target_kind must be one of {TARGET_KINDS}, got {target_kind!r}")
@@ -145,6 +148,7 @@ def save_scores(
         row.ci_low = _num(getattr(item, "ci_low", None))
         row.ci_high = _num(getattr(item, "ci_high", None))
         row.surrogate_z = _num(getattr(item, "surrogate_z", None))
+        row.note = str(getattr(item, "note", "") or "")
         row.code_version, row.input_sha256, row.computed_at = code_version, input_sha256, now
         session.add(row)
         existing[item.name] = row
@@ -179,7 +183,7 @@ def list_scores(
 #: Columns of a score row with its context, in export order.
 SCORE_ROW_COLUMNS = (
     "target_kind", "target_id", "arena_id", "arena", "subject_id", "subject", "condition",
-    "recipe_hash", "measure", "value", "unit", "ci_low", "ci_high", "surrogate_z",
+    "recipe_hash", "measure", "value", "unit", "ci_low", "ci_high", "surrogate_z", "note",
     "code_version", "input_sha256", "computed_at", "score_id",
 )  # fmt: skip
 
@@ -213,6 +217,7 @@ def _score_rows_stmt(
             Score.ci_low,
             Score.ci_high,
             Score.surrogate_z,
+            Score.note,
             Score.code_version,
             Score.input_sha256,
             Score.computed_at,
