@@ -87,7 +87,7 @@ def test_speed_check_matches_scipy_on_arena_means(rng):
         n_resamples=math.factorial(n_arenas),
         vectorized=False,
     ).pvalue
-    assert abs(row.p_value - scipy_p) <= 1 / math.factorial(n_arenas) + 1e-12
+    assert abs(row.p_value - scipy_p) <= 1.5 / math.factorial(n_arenas)
     assert row.confounded and row.rho < 0
 
 
