@@ -161,9 +161,27 @@ def test_known_effect_json_contract_and_statsmodels(study, rng):
     ref = sm.MixedLM(
         table["rqa_det"], sm.add_constant(table["sq_m"]), groups=table["subject_id"]
     ).fit(reml=True)
-    # Same REML surface, different optimisers: 1e-4 relative (as in test_correspondence).
-    assert_allclose(row["slope"], ref.fe_params["sq_m"], rtol=1e-4)
-    assert_allclose(row["ci_high"] - row["ci_low"], 2 * 1.959964 * ref.bse_fe["sq_m"], rtol=1e-3)
+    # The trial-level reference fit. Same REML surface, different optimisers: 1e-4
+    # relative (as in test_correspondence).
+    assert_allclose(row["trial_slope"], ref.fe_params["sq_m"], rtol=1e-4)
+    assert_allclose(
+        row["trial_ci_high"] - row["trial_ci_low"], 2 * 1.959964 * ref.bse_fe["sq_m"], rtol=1e-3
+    )
+    # The main interval is arena-level: statsmodels OLS on the 8 arena means (balanced
+    # crossed design: subject-adjusted means equal plain arena means), t with 6 df.
+    means = table.groupby("arena_id")[["sq_m", "rqa_det"]].mean()
+    ols = sm.OLS(means["rqa_det"], sm.add_constant(means["sq_m"])).fit()
+    assert_allclose(row["slope"], ols.params["sq_m"], rtol=1e-9)
+    assert_allclose([row["ci_low"], row["ci_high"]], ols.conf_int().loc["sq_m"], rtol=1e-9)
+    assert row["slope_df"] == 6 and row["ci_method"] == "arena"
+    # Figure data: one point per arena with its name, and the line through them.
+    points = row["arena_points"]
+    assert len(points) == 8 and {p["arena_name"] for p in points} == {f"tray {k}" for k in range(8)}
+    assert_allclose([p["movement"] for p in points], means["rqa_det"], rtol=1e-9)
+    assert all(p["movement_ci_low"] < p["movement"] < p["movement_ci_high"] for p in points)
+    assert_allclose(row["fit_line"]["slope"], row["slope"], rtol=1e-9)
+    assert len(row["fit_line"]["x"]) == len(row["fit_line"]["band_low"]) == 25
+    assert body["scan_policy"]["rule"] == "latest"
     assert body["plane"]["bounds"]["terrain"]["n_patterns"] == 24  # (2 x 2)! default patch
     assert body["multivariate"]["n_arenas"] == 8
 
@@ -176,7 +194,11 @@ def test_csv_equals_json(study, rng):
     assert res.headers["content-type"].startswith("text/csv")
     csv = pd.read_csv(io.StringIO(res.text))
     assert list(csv.columns[: len(CONTRACT_FIELDS)]) == list(CONTRACT_FIELDS)
-    pd.testing.assert_frame_equal(csv[rows.columns], rows.astype(csv[rows.columns].dtypes))
+    # Scalar fields are columns; list fields (groups) are ";"-joined; figure data stays JSON.
+    cols = [c for c in rows.columns if c in csv.columns and not c.endswith("_group")]
+    assert len(cols) >= len(CONTRACT_FIELDS) + 5
+    pd.testing.assert_frame_equal(csv[cols], rows[cols].astype(csv[cols].dtypes))
+    assert list(csv["terrain_group"]) == [";".join(g) for g in rows["terrain_group"]]
 
 
 def test_latest_and_mean_scans(study):
@@ -227,13 +249,22 @@ def test_design_warnings(study, rng):
             study.trial(arena, s[0] if k < 2 else s[1], {"rqa_det": rng.normal(), "same": 2.0})
     # "all": every scored measure, not only the headline ones (flat/same are not headline).
     res = study.get(n_permutations=99, n_boot=99, terrain_measure="all", movement_measure="all")
-    text = " ".join(res.json()["warnings"])
+    body = res.json()
+    text = " ".join(body["warnings"])
     assert "Only 3 arenas" in text
     assert "Only 2 subjects" in text
-    assert "'flat' is the same in every arena" in text
-    assert "'same' has zero variance" in text
+    # Constant measures get no row, only the reason (issue: "slope -0.0 [-0, -0]").
+    missing = {(m["terrain_measure"], m["movement_measure"]): m for m in body["not_estimable"]}
+    assert "constant" in missing[("flat", None)]["reason"]
+    assert "constant" in missing[(None, "same")]["reason"]
+    in_rows = {r["terrain_measure"] for r in body["rows"]}
+    in_rows |= {r["movement_measure"] for r in body["rows"]}
+    assert not {"flat", "same"} & in_rows
     assert "no structure for 'flat'" in text  # surrogate z = 0.5 in every scan
     assert "meaningless" in text  # canonical correlation with n_arenas <= variables
+    detail = next(d for d in body["warning_details"] if "Only 3 arenas" in d["message"])
+    assert detail["scope"] == "study" and detail["n_arenas"] == 3
+    assert set(detail["measures"]) == {"sq_m", "sdr", "rqa_det"}
 
 
 def test_confounded_subject_and_arena(study, rng):

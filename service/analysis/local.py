@@ -14,19 +14,11 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from measures.errors import InsufficientDataError, InvalidParameterError
-from service.analysis.grid import (
-    Selection,
-    _all_rows,
-    _scan_time,
-    _scores_by_target,
-    _select_trials,
-    _value,
-    clean,
-)
+from service.analysis.tables import Selection, choose_scans, clean
 from storage import repo
 from storage.errors import BadInput
 
-__all__ = ["LOCAL_DEFAULTS", "local_report", "trial_windows"]
+__all__ = ["LOCAL_DEFAULTS", "local_report", "trial_scores", "trial_windows"]
 
 # -- local correspondence ---------------------------------------------------------------------
 #: Defaults of the local analysis (query parameters override them).
@@ -89,10 +81,20 @@ def _to_scan_frame(points: np.ndarray, registration: Any) -> np.ndarray:
     return points @ inv[:3, :3].T + inv[:3, 3]
 
 
-def _embedding(signal: np.ndarray, fs: float, scores: dict[str, Any], p: dict[str, Any]):
+def trial_scores(*, session: Session, recipe_hash: str, trial_id: int) -> dict[str, float]:
+    """The stored scores of one trial under a recipe (measure -> value, NaN for missing)."""
+    rows = repo.load_study_rows(session=session, recipe_hash=recipe_hash, trial_ids=[trial_id])
+    return {
+        measure: math.nan if value is None else float(value)
+        for kind, _, measure, value, _ in rows.scores
+        if kind == "trial"
+    }
+
+
+def _embedding(signal: np.ndarray, fs: float, scores: dict[str, float], p: dict[str, Any]):
     from measures.dynamics.embedding import embedding_dimension, first_ami_minimum
 
-    delay_s, dim = (_value(scores.get(k)) for k in ("embedding_delay_s", "embedding_dimension"))
+    delay_s, dim = (scores.get(k, math.nan) for k in ("embedding_delay_s", "embedding_dimension"))
     delay = round(delay_s * fs) if math.isfinite(delay_s) else None
     if p.get("embedding_delay") is not None:
         delay = int(p["embedding_delay"])
@@ -105,15 +107,14 @@ def _embedding(signal: np.ndarray, fs: float, scores: dict[str, Any], p: dict[st
     return max(1, int(delay)), max(1, int(dim))
 
 
-def _local_scan(session: Session, trial: Any) -> Any:
-    scans = [
-        s
-        for s in _all_rows(repo.list_scans, session=session, arena_id=trial.arena_id)
-        if s.heightmap_sha256 and s.grid_dx_m
-    ]
+def _local_scan(session: Session, recipe_hash: str, trial: Any) -> Any:
+    # The scan policy of the grid ("latest": heightmap uploads first, then the latest),
+    # among scans that have a heightmap grid to map the path onto.
+    rows = repo.load_study_rows(session=session, recipe_hash=recipe_hash, trial_ids=[trial.id])
+    scans = [s for s in rows.scans if s["heightmap_sha256"] and s["grid_dx_m"]]
     if not scans:
         raise BadInput(f"arena {trial.arena_id} has no heightmap to map trial {trial.id} onto")
-    return max(scans, key=_scan_time)
+    return repo.get_scan(session=session, scan_id=choose_scans(scans, "latest")[0]["id"])
 
 
 def trial_windows(
@@ -157,8 +158,8 @@ def trial_windows(
     )
     axis = {"x": 0, "y": 1, "z": 2}[p["signal_axis"]]
     signal = body.markers[a:b, foot, axis]
-    trial_scores = _scores_by_target(session, recipe.hash, "trial", {trial.id}).get(trial.id, {})
-    delay, dim = _embedding(signal, fs, trial_scores, p)
+    scores = trial_scores(session=session, recipe_hash=recipe.hash, trial_id=trial.id)
+    delay, dim = _embedding(signal, fs, scores, p)
     wm = window_movement_measures(
         signal,
         frame_rate_hz=fs,
@@ -170,7 +171,7 @@ def trial_windows(
         symbol_order=p["symbol_order"],
         seed=p["seed"],
     )
-    scan = _local_scan(session, trial)
+    scan = _local_scan(session, recipe.hash, trial)
     z, spacing, origin = _heightmap(store, scan)
     if margin_m is None:
         margin_m = subject.body_length_m / 4 if subject.body_length_m else _FALLBACK_MARGIN_M
@@ -221,7 +222,26 @@ def local_report(
 
     prof = repo.get_recipe(session=session, name=recipe, version=version)
     warnings: list[str] = []
-    ids = list(trial_ids) or [t.id for t in _select_trials(session, selection)]
+    if trial_ids:
+        ids = list(trial_ids)
+    else:
+        study_id = (
+            None
+            if selection.study is None
+            else repo.get_study_by_name(session=session, name=selection.study).id
+        )
+        ids = [
+            t["id"]
+            for t in repo.load_study_rows(
+                session=session,
+                recipe_hash=prof.hash,
+                study_id=study_id,
+                arena_ids=selection.arena_ids,
+                subject_ids=selection.subject_ids,
+                conditions=selection.conditions,
+                trial_ids=selection.trial_ids,
+            ).trials
+        ]
     per_trial = []
     for tid in ids:
         try:

@@ -37,11 +37,13 @@ from storage.repo.scores import (
     save_scores,
 )
 from storage.repo.studies import (
+    StudyRows,
     add_study_members,
     create_study,
     get_study,
     get_study_by_name,
     list_studies,
+    load_study_rows,
     study_members,
     study_trial_ids,
 )
@@ -70,6 +72,7 @@ from storage.repo.uploads import (
 
 __all__ = [
     "TOKEN_PREFIX",
+    "StudyRows",
     "add_study_members",
     "attach_artifact",
     "attach_heightmap",
@@ -111,6 +114,7 @@ __all__ = [
     "list_tokens",
     "list_trials",
     "load_scan_data",
+    "load_study_rows",
     "load_trial_data",
     "normalise_arena_kind",
     "recipe_hash",

@@ -48,9 +48,7 @@ def enqueue_job(
             Job.kind == kind,
             Job.target_kind == target_kind,
             Job.target_id == target_id,
-            Job.recipe_hash.is_(None)
-            if recipe_hash is None
-            else Job.recipe_hash == recipe_hash,
+            Job.recipe_hash.is_(None) if recipe_hash is None else Job.recipe_hash == recipe_hash,
             Job.state.in_(("queued", "running")),
         )
         .order_by(Job.id)

@@ -72,9 +72,7 @@ def get_recipe(*, session: Session, name: str, version: int | None = None) -> Re
     if version is None:
         row = _latest(session, name)
     else:
-        row = session.scalar(
-            select(Recipe).where(Recipe.name == name, Recipe.version == version)
-        )
+        row = session.scalar(select(Recipe).where(Recipe.name == name, Recipe.version == version))
     if row is None:
         raise NotFound("recipe", name if version is None else f"{name} v{version}")
     return row
