@@ -310,3 +310,53 @@ def test_canonical_correlation_matches_statsmodels(rng):
     r = np.corrcoef(x[:, 0], y[:, 0])[0, 1]
     assert_allclose(first_canonical_correlation(x[:, 0], y[:, 0]).correlation, abs(r))
     assert first_canonical_correlation(x[:4], y[:4]).degenerate
+
+
+def test_expected_movement_leaves_the_arena_out(study, rng):
+    # Reference: statsmodels OLS get_prediction (obs interval) on the other 7 arena means.
+    arenas, _, roughness = _populate(study, rng)
+    res = study.client.get(
+        f"/v1/arenas/{arenas[3]}/expected-movement",
+        params={"recipe": "default", "terrain_measure": "sq_m"},
+    )
+    assert res.status_code == 200, res.text
+    body = res.json()
+    assert body["left_out"] and body["n_arenas"] == 7 and body["terrain_measure"] == "sq_m"
+    row = next(r for r in body["rows"] if r["movement_measure"] == "rqa_det")
+    with study.sm() as s:
+        table = load_study(
+            session=s, recipe_hash=study.recipe.hash, selection=Selection()
+        ).analysis_table()
+    rest = table[table["arena_id"] != arenas[3]]
+    means = rest.groupby("arena_id")[["sq_m", "rqa_det"]].mean()
+    ols = sm.OLS(means["rqa_det"], sm.add_constant(means["sq_m"])).fit()
+    frame = ols.get_prediction(np.array([[1.0, roughness[3]]])).summary_frame(alpha=0.05)
+    assert_allclose(row["predicted"], frame["mean"].iloc[0], rtol=1e-9)
+    assert_allclose(row["pi_low"], frame["obs_ci_lower"].iloc[0], rtol=1e-9)
+    assert_allclose(row["pi_high"], frame["obs_ci_upper"].iloc[0], rtol=1e-9)
+    assert row["n_arenas"] == 7
+    assert set(body["rows"][0]) >= {"movement_measure", "predicted", "pi_low", "pi_high"}
+    csv = study.client.get(
+        f"/v1/arenas/{arenas[3]}/expected-movement",
+        params={"recipe": "default", "terrain_measure": "sq_m", "format": "csv"},
+    )
+    frame_csv = pd.read_csv(io.StringIO(csv.text))
+    assert list(frame_csv.columns[:5]) == ["movement_measure", "predicted", "pi_low", "pi_high",
+                                           "n_arenas"]  # fmt: skip
+    assert_allclose(frame_csv.set_index("movement_measure").loc["rqa_det", "predicted"],
+                    row["predicted"], rtol=1e-12)  # fmt: skip
+
+
+def test_expected_movement_new_arena_and_too_few(study, rng):
+    _populate(study, rng, n_arenas=4, n_subjects=3, trials=1)
+    new = study.arena("fresh tray")
+    study.scan(new, {"sq_m": 0.7, "sdr": 0.5})
+    body = study.client.get(
+        f"/v1/arenas/{new}/expected-movement", params={"recipe": "default"}
+    ).json()
+    assert not body["left_out"] and body["n_arenas"] == 4
+    assert all(r["predicted"] is None and "needed" in r["note"] for r in body["rows"])
+    assert any("Too few arenas" in w for w in body["warnings"])
+    bare = study.arena("unscanned")
+    res = study.client.get(f"/v1/arenas/{bare}/expected-movement", params={"recipe": "default"})
+    assert res.status_code == 400 and "no scored scan" in res.json()["detail"]

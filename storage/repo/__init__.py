@@ -39,6 +39,7 @@ from storage.repo.scores import (
 from storage.repo.studies import (
     StudyRows,
     add_study_members,
+    arena_scan_scores,
     create_study,
     get_study,
     get_study_by_name,
@@ -74,6 +75,7 @@ __all__ = [
     "TOKEN_PREFIX",
     "StudyRows",
     "add_study_members",
+    "arena_scan_scores",
     "attach_artifact",
     "attach_heightmap",
     "authenticate",

@@ -41,6 +41,7 @@ __all__ = [
     "StudyRows",
     "add_study_members",
     "arena_ids_in_study",
+    "arena_scan_scores",
     "create_study",
     "get_study",
     "get_study_by_name",
@@ -266,3 +267,33 @@ def load_study_rows(
     )
     scores = [tuple(r) for r in session.execute(score_stmt)]
     return StudyRows(trials, scans, scores)  # type: ignore[arg-type]
+
+
+def arena_scan_scores(
+    *, session: Session, recipe_hash: str, arena_id: int
+) -> tuple[list[dict[str, Any]], list[tuple[int, str, float | None]]]:
+    """The arena's scans and their scores under the recipe, in two statements.
+
+    Returns ``(scans, scores)``: scans as in :class:`StudyRows`, scores as
+    ``(scan_id, measure, value)``. For an arena that may have no trials.
+    """
+    scan_stmt = (
+        select(
+            Scan.id,
+            Scan.arena_id,
+            Scan.kind,
+            Scan.captured_at,
+            Scan.created_at,
+            Scan.heightmap_sha256,
+            Scan.grid_dx_m,
+        )
+        .where(Scan.arena_id == arena_id)
+        .order_by(Scan.id)
+    )
+    scans = [dict(r._mapping) for r in session.execute(scan_stmt)]
+    score_stmt = select(Score.target_id, Score.measure, Score.value).where(
+        Score.recipe_hash == recipe_hash,
+        Score.target_kind == "scan",
+        Score.target_id.in_(scan_stmt.with_only_columns(Scan.id).order_by(None)),
+    )
+    return scans, [tuple(r) for r in session.execute(score_stmt)]  # type: ignore[misc]
