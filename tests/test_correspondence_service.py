@@ -360,3 +360,81 @@ def test_expected_movement_new_arena_and_too_few(study, rng):
     bare = study.arena("unscanned")
     res = study.client.get(f"/v1/arenas/{bare}/expected-movement", params={"recipe": "default"})
     assert res.status_code == 400 and "no scored scan" in res.json()["detail"]
+
+
+def _statements(study: Study, fn) -> int:
+    from sqlalchemy import event
+
+    engine = study.sm.kw["bind"]
+    seen: list[str] = []
+
+    def count(conn, cursor, statement, *args):
+        seen.append(statement)
+
+    event.listen(engine, "before_cursor_execute", count)
+    try:
+        fn()
+    finally:
+        event.remove(engine, "before_cursor_execute", count)
+    return len(seen)
+
+
+def test_study_tables_read_in_constant_statements(tmp_path, rng):
+    # No per-row lookups (N+1): the statement count does not grow with the study.
+    counts = []
+    for name, size in (("small", (3, 2, 1)), ("large", (6, 3, 2))):
+        lab = Study(tmp_path / name)
+        _populate(lab, rng, n_arenas=size[0], n_subjects=size[1], trials=size[2])
+
+        def load(lab=lab):
+            with lab.sm() as s:
+                load_study(session=s, recipe_hash=lab.recipe.hash, selection=Selection())
+
+        counts.append(_statements(lab, load))
+    assert counts[0] == counts[1] <= 4, counts
+
+
+def test_scan_policy_prefers_heightmaps_and_is_reported(study):
+    a = study.arena("two kinds")
+    now = datetime(2026, 1, 1, tzinfo=UTC)
+    hm = study.scan(a, {"sq_m": 1.0}, captured_at=now)
+    with study.sm() as s:  # a later point cloud of the same tray
+        cloud = Scan(
+            arena_id=a, sha256=_sha("cloud"), format="ply", kind="points", units="m",
+            size_bytes=1, captured_at=now + timedelta(days=1),
+        )  # fmt: skip
+        s.add(cloud)
+        s.commit()
+        repo.save_scores(
+            session=s, target_kind="scan", target_id=cloud.id, recipe_hash=study.recipe.hash,
+            scores=[Score("sq_m", 9.0, "m")], code_version="t", input_sha256="x",
+        )  # fmt: skip
+    study.trial(a, study.subject("M0"), {"rqa_det": 0.5})
+    with study.sm() as s:
+        tables = load_study(session=s, recipe_hash=study.recipe.hash, selection=Selection())
+    assert tables.arenas.loc[a, "sq_m"] == 1.0  # the heightmap, though the cloud is later
+    (entry,) = tables.scan_policy["arenas"]
+    assert entry == {"arena_id": a, "scan_ids": [hm], "kinds": ["heightmap"]}
+    assert "heightmap" in tables.scan_policy["description"]
+
+
+def test_warning_names_a_measure_defined_on_fewer_arenas(study, rng):
+    # hurst_psd defined on 3 of 8 arenas: its own warning with its own count; the
+    # study-level "Only N arenas" warning does not appear (the grid has 8).
+    roughness = np.linspace(0.1, 1.5, 8)
+    subjects = [study.subject(f"M{k}") for k in range(4)]
+    for k, sq in enumerate(roughness):
+        a = study.arena(f"tray {k}")
+        scores = {"sq_m": sq, "sdr": rng.uniform()}
+        if k < 3:
+            scores["hurst_psd"] = rng.uniform(0.3, 0.9)
+        study.scan(a, scores)
+        for s in subjects:
+            study.trial(a, s, {"rqa_det": 1.0 + 0.8 * sq + rng.normal(0, 0.3)})
+    body = study.get(n_permutations=99, n_boot=99).json()
+    assert not any("Only 3 arenas" in w for w in body["warnings"])
+    detail = next(d for d in body["warning_details"] if "'hurst_psd'" in d["message"])
+    assert detail["measures"] == ["hurst_psd"] and detail["n_arenas"] == 3
+    assert "3 of 8 arenas" in detail["message"] and "0.333" in detail["message"]
+    row = next(r for r in body["rows"] if r["terrain_measure"] == "hurst_psd")
+    assert row["n_arenas"] == 3 and row["slope_df"] == 1

@@ -289,6 +289,10 @@ def fit_grid(
                     "n_arenas": int(np.isfinite(col).sum()),
                 }
             )
+    # Headline measures first, so a group is represented by the measure people know.
+    for side in live:
+        first = [m for m in HEADLINE_MEASURES[side] if m in live[side]]
+        live[side] = first + [m for m in live[side] if m not in first]
     groups = {
         "terrain": redundancy_groups(
             study.arenas[live["terrain"]].to_numpy(dtype=float), live["terrain"]
