@@ -7,7 +7,9 @@ Prints, in one run:
 - our REML random-intercept fit against statsmodels' ``MixedLM`` on the same
   pair (median per fit, and the ratio);
 - the vectorised permutation test against a straightforward per-permutation
-  loop (measured on a subset of permutations, ratio per permutation).
+  loop (measured on a subset of permutations, ratio per permutation);
+- the arena-level slope grid (the main interval) against statsmodels OLS fitted pair
+  by pair on the same arena means.
 
 Usage: ``python bench/bench_correspondence.py [--quick]``. Medians of repeats;
 shared machines are noisy, so read the ratios rather than the seconds.
@@ -23,7 +25,13 @@ import warnings
 import numpy as np
 import statsmodels.api as sm
 
-from measures import arena_permutation_test, correspondence_grid, fit_random_intercept
+from measures import (
+    arena_movement_means,
+    arena_permutation_test,
+    arena_slope,
+    correspondence_grid,
+    fit_random_intercept,
+)
 
 
 def _study(n_arenas: int, n_trials: int, n_t: int, n_m: int, seed: int = 0):
@@ -127,6 +135,21 @@ def main() -> None:
     print(
         f"permutation test, one pair: vectorised {vec / n_perm * 1e6:.2f} us/permutation, "
         f"loop {loop_s * 1e6:.2f} us/permutation, ratio {loop_s / (vec / n_perm):.1f}x"
+    )
+
+    means = arena_movement_means(movement, arena, subject, n_arenas=n_arenas).mean
+    grid_fit = _median_time(lambda: arena_slope(terrain, means), repeats)
+
+    def ols_loop() -> None:
+        for i in range(n_pairs):
+            exog = sm.add_constant(terrain[:, i])
+            for j in range(n_pairs):
+                sm.OLS(means[:, j], exog).fit().conf_int()
+
+    ols_s = _median_time(ols_loop, repeats)
+    print(
+        f"arena-level slopes, {n_pairs}x{n_pairs} pairs: ours {grid_fit * 1e3:.2f} ms, "
+        f"statsmodels OLS per pair {ols_s * 1e3:.1f} ms, ratio {ols_s / grid_fit:.0f}x"
     )
 
 

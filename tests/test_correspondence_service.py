@@ -161,9 +161,27 @@ def test_known_effect_json_contract_and_statsmodels(study, rng):
     ref = sm.MixedLM(
         table["rqa_det"], sm.add_constant(table["sq_m"]), groups=table["subject_id"]
     ).fit(reml=True)
-    # Same REML surface, different optimisers: 1e-4 relative (as in test_correspondence).
-    assert_allclose(row["slope"], ref.fe_params["sq_m"], rtol=1e-4)
-    assert_allclose(row["ci_high"] - row["ci_low"], 2 * 1.959964 * ref.bse_fe["sq_m"], rtol=1e-3)
+    # The trial-level reference fit. Same REML surface, different optimisers: 1e-4
+    # relative (as in test_correspondence).
+    assert_allclose(row["trial_slope"], ref.fe_params["sq_m"], rtol=1e-4)
+    assert_allclose(
+        row["trial_ci_high"] - row["trial_ci_low"], 2 * 1.959964 * ref.bse_fe["sq_m"], rtol=1e-3
+    )
+    # The main interval is arena-level: statsmodels OLS on the 8 arena means (balanced
+    # crossed design: subject-adjusted means equal plain arena means), t with 6 df.
+    means = table.groupby("arena_id")[["sq_m", "rqa_det"]].mean()
+    ols = sm.OLS(means["rqa_det"], sm.add_constant(means["sq_m"])).fit()
+    assert_allclose(row["slope"], ols.params["sq_m"], rtol=1e-9)
+    assert_allclose([row["ci_low"], row["ci_high"]], ols.conf_int().loc["sq_m"], rtol=1e-9)
+    assert row["slope_df"] == 6 and row["ci_method"] == "arena"
+    # Figure data: one point per arena with its name, and the line through them.
+    points = row["arena_points"]
+    assert len(points) == 8 and {p["arena_name"] for p in points} == {f"tray {k}" for k in range(8)}
+    assert_allclose([p["movement"] for p in points], means["rqa_det"], rtol=1e-9)
+    assert all(p["movement_ci_low"] < p["movement"] < p["movement_ci_high"] for p in points)
+    assert_allclose(row["fit_line"]["slope"], row["slope"], rtol=1e-9)
+    assert len(row["fit_line"]["x"]) == len(row["fit_line"]["band_low"]) == 25
+    assert body["scan_policy"]["rule"] == "latest"
     assert body["plane"]["bounds"]["terrain"]["n_patterns"] == 24  # (2 x 2)! default patch
     assert body["multivariate"]["n_arenas"] == 8
 
@@ -176,7 +194,11 @@ def test_csv_equals_json(study, rng):
     assert res.headers["content-type"].startswith("text/csv")
     csv = pd.read_csv(io.StringIO(res.text))
     assert list(csv.columns[: len(CONTRACT_FIELDS)]) == list(CONTRACT_FIELDS)
-    pd.testing.assert_frame_equal(csv[rows.columns], rows.astype(csv[rows.columns].dtypes))
+    # Scalar fields are columns; list fields (groups) are ";"-joined; figure data stays JSON.
+    cols = [c for c in rows.columns if c in csv.columns and not c.endswith("_group")]
+    assert len(cols) >= len(CONTRACT_FIELDS) + 5
+    pd.testing.assert_frame_equal(csv[cols], rows[cols].astype(csv[cols].dtypes))
+    assert list(csv["terrain_group"]) == [";".join(g) for g in rows["terrain_group"]]
 
 
 def test_latest_and_mean_scans(study):
@@ -227,13 +249,22 @@ def test_design_warnings(study, rng):
             study.trial(arena, s[0] if k < 2 else s[1], {"rqa_det": rng.normal(), "same": 2.0})
     # "all": every scored measure, not only the headline ones (flat/same are not headline).
     res = study.get(n_permutations=99, n_boot=99, terrain_measure="all", movement_measure="all")
-    text = " ".join(res.json()["warnings"])
+    body = res.json()
+    text = " ".join(body["warnings"])
     assert "Only 3 arenas" in text
     assert "Only 2 subjects" in text
-    assert "'flat' is the same in every arena" in text
-    assert "'same' has zero variance" in text
+    # Constant measures get no row, only the reason (issue: "slope -0.0 [-0, -0]").
+    missing = {(m["terrain_measure"], m["movement_measure"]): m for m in body["not_estimable"]}
+    assert "constant" in missing[("flat", None)]["reason"]
+    assert "constant" in missing[(None, "same")]["reason"]
+    in_rows = {r["terrain_measure"] for r in body["rows"]}
+    in_rows |= {r["movement_measure"] for r in body["rows"]}
+    assert not {"flat", "same"} & in_rows
     assert "no structure for 'flat'" in text  # surrogate z = 0.5 in every scan
     assert "meaningless" in text  # canonical correlation with n_arenas <= variables
+    detail = next(d for d in body["warning_details"] if "Only 3 arenas" in d["message"])
+    assert detail["scope"] == "study" and detail["n_arenas"] == 3
+    assert set(detail["measures"]) == {"sq_m", "sdr", "rqa_det"}
 
 
 def test_confounded_subject_and_arena(study, rng):
@@ -279,3 +310,131 @@ def test_canonical_correlation_matches_statsmodels(rng):
     r = np.corrcoef(x[:, 0], y[:, 0])[0, 1]
     assert_allclose(first_canonical_correlation(x[:, 0], y[:, 0]).correlation, abs(r))
     assert first_canonical_correlation(x[:4], y[:4]).degenerate
+
+
+def test_expected_movement_leaves_the_arena_out(study, rng):
+    # Reference: statsmodels OLS get_prediction (obs interval) on the other 7 arena means.
+    arenas, _, roughness = _populate(study, rng)
+    res = study.client.get(
+        f"/v1/arenas/{arenas[3]}/expected-movement",
+        params={"recipe": "default", "terrain_measure": "sq_m"},
+    )
+    assert res.status_code == 200, res.text
+    body = res.json()
+    assert body["left_out"] and body["n_arenas"] == 7 and body["terrain_measure"] == "sq_m"
+    row = next(r for r in body["rows"] if r["movement_measure"] == "rqa_det")
+    with study.sm() as s:
+        table = load_study(
+            session=s, recipe_hash=study.recipe.hash, selection=Selection()
+        ).analysis_table()
+    rest = table[table["arena_id"] != arenas[3]]
+    means = rest.groupby("arena_id")[["sq_m", "rqa_det"]].mean()
+    ols = sm.OLS(means["rqa_det"], sm.add_constant(means["sq_m"])).fit()
+    frame = ols.get_prediction(np.array([[1.0, roughness[3]]])).summary_frame(alpha=0.05)
+    assert_allclose(row["predicted"], frame["mean"].iloc[0], rtol=1e-9)
+    assert_allclose(row["pi_low"], frame["obs_ci_lower"].iloc[0], rtol=1e-9)
+    assert_allclose(row["pi_high"], frame["obs_ci_upper"].iloc[0], rtol=1e-9)
+    assert row["n_arenas"] == 7
+    assert set(body["rows"][0]) >= {"movement_measure", "predicted", "pi_low", "pi_high"}
+    csv = study.client.get(
+        f"/v1/arenas/{arenas[3]}/expected-movement",
+        params={"recipe": "default", "terrain_measure": "sq_m", "format": "csv"},
+    )
+    frame_csv = pd.read_csv(io.StringIO(csv.text))
+    assert list(frame_csv.columns[:5]) == ["movement_measure", "predicted", "pi_low", "pi_high",
+                                           "n_arenas"]  # fmt: skip
+    assert_allclose(frame_csv.set_index("movement_measure").loc["rqa_det", "predicted"],
+                    row["predicted"], rtol=1e-12)  # fmt: skip
+
+
+def test_expected_movement_new_arena_and_too_few(study, rng):
+    _populate(study, rng, n_arenas=4, n_subjects=3, trials=1)
+    new = study.arena("fresh tray")
+    study.scan(new, {"sq_m": 0.7, "sdr": 0.5})
+    body = study.client.get(
+        f"/v1/arenas/{new}/expected-movement", params={"recipe": "default"}
+    ).json()
+    assert not body["left_out"] and body["n_arenas"] == 4
+    assert all(r["predicted"] is None and "needed" in r["note"] for r in body["rows"])
+    assert any("Too few arenas" in w for w in body["warnings"])
+    bare = study.arena("unscanned")
+    res = study.client.get(f"/v1/arenas/{bare}/expected-movement", params={"recipe": "default"})
+    assert res.status_code == 400 and "no scored scan" in res.json()["detail"]
+
+
+def _statements(study: Study, fn) -> int:
+    from sqlalchemy import event
+
+    engine = study.sm.kw["bind"]
+    seen: list[str] = []
+
+    def count(conn, cursor, statement, *args):
+        seen.append(statement)
+
+    event.listen(engine, "before_cursor_execute", count)
+    try:
+        fn()
+    finally:
+        event.remove(engine, "before_cursor_execute", count)
+    return len(seen)
+
+
+def test_study_tables_read_in_constant_statements(tmp_path, rng):
+    # No per-row lookups (N+1): the statement count does not grow with the study.
+    counts = []
+    for name, size in (("small", (3, 2, 1)), ("large", (6, 3, 2))):
+        lab = Study(tmp_path / name)
+        _populate(lab, rng, n_arenas=size[0], n_subjects=size[1], trials=size[2])
+
+        def load(lab=lab):
+            with lab.sm() as s:
+                load_study(session=s, recipe_hash=lab.recipe.hash, selection=Selection())
+
+        counts.append(_statements(lab, load))
+    assert counts[0] == counts[1] <= 4, counts
+
+
+def test_scan_policy_prefers_heightmaps_and_is_reported(study):
+    a = study.arena("two kinds")
+    now = datetime(2026, 1, 1, tzinfo=UTC)
+    hm = study.scan(a, {"sq_m": 1.0}, captured_at=now)
+    with study.sm() as s:  # a later point cloud of the same tray
+        cloud = Scan(
+            arena_id=a, sha256=_sha("cloud"), format="ply", kind="points", units="m",
+            size_bytes=1, captured_at=now + timedelta(days=1),
+        )  # fmt: skip
+        s.add(cloud)
+        s.commit()
+        repo.save_scores(
+            session=s, target_kind="scan", target_id=cloud.id, recipe_hash=study.recipe.hash,
+            scores=[Score("sq_m", 9.0, "m")], code_version="t", input_sha256="x",
+        )  # fmt: skip
+    study.trial(a, study.subject("M0"), {"rqa_det": 0.5})
+    with study.sm() as s:
+        tables = load_study(session=s, recipe_hash=study.recipe.hash, selection=Selection())
+    assert tables.arenas.loc[a, "sq_m"] == 1.0  # the heightmap, though the cloud is later
+    (entry,) = tables.scan_policy["arenas"]
+    assert entry == {"arena_id": a, "scan_ids": [hm], "kinds": ["heightmap"]}
+    assert "heightmap" in tables.scan_policy["description"]
+
+
+def test_warning_names_a_measure_defined_on_fewer_arenas(study, rng):
+    # hurst_psd defined on 3 of 8 arenas: its own warning with its own count; the
+    # study-level "Only N arenas" warning does not appear (the grid has 8).
+    roughness = np.linspace(0.1, 1.5, 8)
+    subjects = [study.subject(f"M{k}") for k in range(4)]
+    for k, sq in enumerate(roughness):
+        a = study.arena(f"tray {k}")
+        scores = {"sq_m": sq, "sdr": rng.uniform()}
+        if k < 3:
+            scores["hurst_psd"] = rng.uniform(0.3, 0.9)
+        study.scan(a, scores)
+        for s in subjects:
+            study.trial(a, s, {"rqa_det": 1.0 + 0.8 * sq + rng.normal(0, 0.3)})
+    body = study.get(n_permutations=99, n_boot=99).json()
+    assert not any("Only 3 arenas" in w for w in body["warnings"])
+    detail = next(d for d in body["warning_details"] if "'hurst_psd'" in d["message"])
+    assert detail["measures"] == ["hurst_psd"] and detail["n_arenas"] == 3
+    assert "3 of 8 arenas" in detail["message"] and "0.333" in detail["message"]
+    row = next(r for r in body["rows"] if r["terrain_measure"] == "hurst_psd")
+    assert row["n_arenas"] == 3 and row["slope_df"] == 1

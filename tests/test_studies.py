@@ -126,7 +126,10 @@ def test_speed_confound_over_http_and_statsmodels_on_export(lab, rng):
     speed = {r["terrain_measure"]: r for r in adjusted["confounds"]["speed"]}["sq_m"]
     assert speed["confounded"] and speed["spearman_rho"] < 0 and speed["adjusted"]
     assert any("slower" in w for w in plain["warnings"])
-    assert any("same thing twice" in w for w in plain["warnings"])  # sq_m and sa_m
+    # sq_m and sa_m are one finding: folded into one row, listed in its group.
+    assert any("one finding" in w and "'sa_m'" in w for w in plain["warnings"])
+    assert row_plain["terrain_group"][0] == "sq_m" and "sa_m" in row_plain["terrain_group"]
+    assert "sa_m" not in {r["terrain_measure"] for r in plain["rows"]}
     design = adjusted["design"]
     assert np.array(design["trial_counts"]).tolist() == [[2] * 4] * 8
     assert_allclose(design["power"]["detectable_abs_spearman_rho"], detectable_rank_correlation(8))
@@ -141,8 +144,16 @@ def test_speed_confound_over_http_and_statsmodels_on_export(lab, rng):
     fit = smf.mixedlm("rqa_det ~ sq_m + speed_m_s", table, groups=table["subject_id"]).fit(
         reml=True
     )
-    # Two REML optimisers on one surface: 1e-4 relative (as in test_correspondence).
-    assert_allclose(row_adj["slope"], fit.params["sq_m"], rtol=1e-4, atol=1e-6)
+    # The trial-level reference fit. Two REML optimisers on one surface: 1e-4 relative
+    # (as in test_correspondence).
+    assert_allclose(row_adj["trial_slope"], fit.params["sq_m"], rtol=1e-4, atol=1e-6)
+    # The main, arena-level slope: OLS of subject-centred arena means of rqa_det on sq_m
+    # and subject-centred arena means of speed (statsmodels formula).
+    for col in ("rqa_det", "speed_m_s"):
+        table[f"{col}_c"] = table[col] - table.groupby("subject_id")[col].transform("mean")
+    means = table.groupby("arena_id")[["sq_m", "rqa_det_c", "speed_m_s_c"]].mean()
+    ols = smf.ols("rqa_det_c ~ sq_m + speed_m_s_c", means).fit()
+    assert_allclose(row_adj["slope"], ols.params["sq_m"], rtol=1e-9, atol=1e-12)
     counts = pd.crosstab(table["arena_id"], table["subject_id"]).to_numpy()
     assert (np.array(design["trial_counts"]) == counts).all()
 

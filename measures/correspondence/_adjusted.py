@@ -1,23 +1,19 @@
-"""Covariate-adjusted arena permutation test (private; used by ``correspondence``).
+"""Covariate adjustment at the arena level (private; used by ``inference`` and ``arena``).
 
-Scheme (documented in ``arena_permutation_test``): the nuisance design
-``N = [1, subject indicators, covariates]`` is fixed; the terrain value of each
-arena is permuted across arenas (the arena is the unit of exchange, and terrain
-is the only arena-level quantity); every permuted terrain column is
-re-residualised on ``N`` and correlated with the residualised movement. This is
-the partial correlation of the full model ``y = P x b + N g + e``, i.e. the
-scheme listed as Draper & Stoneman (1966) in Winkler et al. (2014),
-NeuroImage 92:381, Table 2.
+What is used (documented in :func:`measures.arena_permutation_test`): movement and
+covariates are centred within subject and averaged per arena
+(:func:`arena_level_values`); the arena-level Freedman-Lane (1983) test fits the reduced
+model ``arena movement ~ 1 + arena covariates``, permutes its residuals across arenas and
+adds them back to its fitted values (:func:`freedman_lane_statistics`).
 
-Vectorisation: with ``A`` the trial-by-arena indicator matrix and ``R = I - Q Q'``
-the residual-forming matrix of ``N``, a permuted terrain column is ``A t_pi``,
-so for every permutation
+Vectorisation: with ``Q`` an orthonormal basis of ``[1, arena covariates]``
+(:func:`nuisance_basis`, rank-revealing) the statistic of every permutation is a partial
+correlation computed from ``Q`` and the permuted residuals, ``O(A (T + p) M)`` each.
 
-- numerator   ``t_pi' (A' R y)``  -- arena sums of the residualised movement;
-- denominator ``t_pi' (A' R A) t_pi`` -- one ``n_arenas x n_arenas`` matrix.
-
-Both are computed once; each permutation costs ``O(n_arenas^2)`` per terrain
-measure, independent of the number of trials.
+The trial-level alternative (permuting terrain and re-residualising on subject indicators
+and covariates, listed as Draper & Stoneman 1966 in Winkler et al. 2014, NeuroImage 92:381,
+Table 2) was tried and rejected: liberal without arena noise, very conservative with it
+(``tests/correspondence/test_covariates.py`` checks the arena-level test's uniform null).
 """
 
 from __future__ import annotations

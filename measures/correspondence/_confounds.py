@@ -26,6 +26,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
 from measures._validation import InvalidParameterError, as_float_array
+from measures.correspondence.arena import spearman_test
 
 #: |r| above which two terrain measures are reported as the same thing twice
 #: (common practice for "near duplicates"; not a published threshold).
@@ -115,8 +116,11 @@ def terrain_speed_check(
 ) -> tuple[SpeedCheck, ...]:
     """Spearman correlation of arena mean speed with each terrain measure.
 
-    The arena mean is the plain mean of the arena's finite trial values; the
-    p-value is scipy's (t approximation). ``confounded`` when ``p < alpha``.
+    The arena mean is the plain mean of the arena's finite trial values. The
+    p-value is exact (all ``n!`` pairings of the ranks) below 10 arenas and
+    scipy's t approximation from 10 on (:func:`measures.spearman_test`); an
+    asymptotic p-value from 3 arenas would claim p = 0 where the exact one is
+    1/3. ``confounded`` when ``p < alpha``.
 
     Parameters
     ----------
@@ -134,6 +138,7 @@ def terrain_speed_check(
     References
     ----------
     Spearman, C. (1904). Am. J. Psychol. 15, 72-101.
+    Good, P. (2005). Permutation, Parametric and Bootstrap Tests of Hypotheses (exact).
     """
     fn = "terrain_speed_check"
     t = as_float_array("terrain", terrain, fn, ndim=(1, 2), allow_nan=True)
@@ -146,11 +151,8 @@ def terrain_speed_check(
     out = []
     for name, col in zip(terrain_names, t.T, strict=True):
         ok = np.isfinite(col) & np.isfinite(v_bar)
-        if ok.sum() >= 3 and np.ptp(col[ok]) > 0 and np.ptp(v_bar[ok]) > 0:
-            res = stats.spearmanr(col[ok], v_bar[ok])
-            rho, p = float(res.statistic), float(res.pvalue)
-        else:
-            rho = p = math.nan
+        res = spearman_test(col[ok], v_bar[ok])
+        rho, p = res.rho, res.p_value
         out.append(SpeedCheck(name, covariate_name, rho, p, int(ok.sum()), bool(p < alpha)))
     return tuple(out)
 

@@ -41,6 +41,7 @@ from __future__ import annotations
 import itertools
 import math
 import warnings
+import warnings as warnings_module
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -71,6 +72,11 @@ from measures.correspondence._confounds import (
     detectable_rank_correlation,
     subject_arena_balance,
     terrain_speed_check,
+)
+from measures.correspondence.arena import (
+    arena_movement_means,
+    arena_slope,
+    spearman_test,
 )
 
 __all__ = [
@@ -545,6 +551,16 @@ def hierarchical_bootstrap_spearman(
     return SpearmanBootstrap(rho, lo, hi, n_boot, level)
 
 
+def _subject_mean_arena_means(
+    m: NDArray[np.float64], arena: NDArray[np.intp], subject: NDArray[np.intp], n_arenas: int
+) -> NDArray[np.float64]:
+    # Mean of subject means per arena: the values the bootstrap Spearman ranks.
+    _, sub = np.unique(subject, return_inverse=True)
+    means, present = _cell_means(m, arena, sub, n_arenas)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.einsum("asm,as->am", means, present) / present.sum(axis=1)[:, None]
+
+
 def benjamini_hochberg(p_values: ArrayLike) -> NDArray[np.float64]:
     """Benjamini-Hochberg q-values (NaN entries are left NaN and not counted).
 
@@ -562,7 +578,16 @@ def benjamini_hochberg(p_values: ArrayLike) -> NDArray[np.float64]:
 
 @dataclass(frozen=True)
 class CorrespondenceRow:
-    """One terrain x movement pair (the contract row of the HTTP API)."""
+    """One terrain x movement pair (the contract row of the HTTP API).
+
+    ``slope``, ``ci_low``, ``ci_high``: the arena-level slope and its t interval
+    (:func:`measures.arena_slope`, ``slope_df`` degrees of freedom). ``trial_slope``,
+    ``trial_ci_low``, ``trial_ci_high``, ``mixed_p_value``: the trial-level mixed model
+    with a subject intercept only, which treats trials of one arena as independent
+    replicates of terrain (too narrow when arenas differ by more than terrain); kept for
+    reference, never the main interval. ``spearman_p_value``: exact permutation p-value
+    below 10 arenas (:func:`measures.spearman_test`).
+    """
 
     terrain_measure: str
     movement_measure: str
@@ -578,6 +603,12 @@ class CorrespondenceRow:
     n_arenas: int
     n_subjects: int
     n_trials: int
+    slope_se: float = math.nan
+    slope_df: int = 0
+    spearman_p_value: float = math.nan
+    trial_slope: float = math.nan
+    trial_ci_low: float = math.nan
+    trial_ci_high: float = math.nan
 
 
 @dataclass(frozen=True)
@@ -646,13 +677,17 @@ def correspondence_grid(
 ) -> CorrespondenceGrid:
     """Fit every terrain x movement pair and correct across the grid.
 
-    Per pair: the random-intercept mixed model ``movement ~ terrain + (1 | subject)``
-    (slope, Wald CI, p), the arena-level permutation p-value (``p_value``, the
-    one the q-values are computed from, because the arena is the unit of
-    replication), the Spearman correlation of arena means with a hierarchical
-    bootstrap CI, and Benjamini-Hochberg q-values across the whole grid.
+    Per pair: the arena-level slope (subject-adjusted arena means on terrain, one point
+    per arena) with its t interval (``slope``, ``ci_low``, ``ci_high``; the arena is the
+    unit of replication), the arena-level permutation p-value (``p_value``, the one the
+    q-values are computed from), the Spearman correlation of arena means with a
+    hierarchical bootstrap CI and an exact p-value below 10 arenas, Benjamini-Hochberg
+    q-values across the whole grid, and for reference the trial-level random-intercept
+    mixed model ``movement ~ terrain + (1 | subject)`` (``trial_slope``,
+    ``trial_ci_low``, ``trial_ci_high``, ``mixed_p_value``).
 
-    With ``covariates`` the mixed model is ``movement ~ terrain + covariates +
+    With ``covariates`` the arena-level slope is the partial slope given the arena means
+    of the covariates, the mixed model is ``movement ~ terrain + covariates +
     (1 | subject)``, the permutation test is the arena-level Freedman-Lane test
     of :func:`arena_permutation_test`, and the Spearman correlation uses the
     covariate-adjusted movement ``movement - covariates @ g``, ``g`` from the
@@ -706,6 +741,14 @@ def correspondence_grid(
         rho = rho_lo = rho_hi = np.full((t.shape[1], m.shape[1]), np.nan)
     q = benjamini_hochberg(perm.p_value)
     n_subjects = int(np.unique(subject).size)
+    n_arenas = t.shape[0]
+    z_bar = None if z is None else arena_level_values(z, arena, subject, n_arenas)
+    a_means = arena_movement_means(m, arena, subject, n_arenas=n_arenas).mean
+    with warnings_module.catch_warnings():
+        warnings_module.simplefilter("ignore", RuntimeWarning)
+        # Constant sides give NaN rows here; the caller lists them as not estimable.
+        slope_fit = arena_slope(t, a_means, arena_covariates=z_bar)
+    rank_means = _subject_mean_arena_means(m_boot, arena, subject, n_arenas)
     rows = []
     for i, t_name in enumerate(terrain_names):
         x = t[arena, i]
@@ -715,22 +758,29 @@ def correspondence_grid(
                 mixed = (fit.slope, fit.ci_low, fit.ci_high, fit.p_value)
             except (InvalidParameterError, np.linalg.LinAlgError):
                 mixed = (float("nan"),) * 4
+            sp = spearman_test(t[:, i], rank_means[:, j])
             rows.append(
                 CorrespondenceRow(
                     terrain_measure=t_name,
                     movement_measure=m_name,
-                    slope=mixed[0],
-                    ci_low=mixed[1],
-                    ci_high=mixed[2],
+                    slope=float(slope_fit.slope[i, j]),
+                    ci_low=float(slope_fit.ci_low[i, j]),
+                    ci_high=float(slope_fit.ci_high[i, j]),
                     p_value=float(perm.p_value[i, j]),
                     q_value=float(q[i, j]),
                     spearman_rho=float(rho[i, j]),
                     spearman_ci_low=float(rho_lo[i, j]),
                     spearman_ci_high=float(rho_hi[i, j]),
                     mixed_p_value=mixed[3],
-                    n_arenas=int(t.shape[0]),
+                    n_arenas=int(n_arenas),
                     n_subjects=n_subjects,
                     n_trials=int(m.shape[0]),
+                    slope_se=float(slope_fit.se[i, j]),
+                    slope_df=int(slope_fit.df),
+                    spearman_p_value=sp.p_value,
+                    trial_slope=mixed[0],
+                    trial_ci_low=mixed[1],
+                    trial_ci_high=mixed[2],
                 )
             )
     return CorrespondenceGrid(

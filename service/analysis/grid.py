@@ -1,27 +1,27 @@
-"""Correspondence assembly: score rows from the database in, the report out.
+"""The correspondence grid: study tables in, the correspondence report (a JSON-ready dict) out.
 
-For a recipe and a selection (arenas, subjects, conditions, trials, measures) this module
-builds two tables from stored score rows -- one row per arena with its terrain scores, one row
-per trial with its movement scores -- and hands them to :func:`measures.correspondence_grid`.
+The study tables come from :mod:`service.analysis.tables` (one storage call, the scan policy);
+this module decides which pairs are estimable, folds redundant measures, fits the grid with
+:func:`measures.correspondence_grid`, attaches warnings to the measures they concern and
+adds what a main-result figure needs.
 
-Decisions (also in the report's ``notes``):
+Decisions (also in the report):
 
-- An arena's terrain value comes from its *scored* scans (scans with at least one score under
-  the recipe): ``scans="latest"`` takes the scan captured last (``captured_at``, then upload
-  time, then id), ``"mean"`` the mean over all scored scans of each measure (NaN ignored).
-- Each terrain x movement pair uses the arenas and trials where both values are finite. Pairs
-  sharing the same rows are fitted in one call, so the usual complete table is one grid call;
-  q-values are recomputed across the whole grid afterwards.
-- Without a measure list, every scored measure is used except the diagnostics in
-  :data:`DIAGNOSTIC_MEASURES` (fit bands, R^2, point counts), which are settings, not
-  properties of ground or gait.
-- Covariates are trial-level: any trial score (``speed_m_s``, ``stride_frequency_hz``,
-  ``valid_fraction``, ...) or a value derived from the records (:data:`DERIVED_COVARIATES`:
-  trial duration, subject body length and mass, treadmill speed). A named covariate is not
-  also a movement measure; trials without a finite value of every covariate are left out.
-- A study (``Selection.study``) limits arenas, subjects and trials to its members: a trial
-  is in when it is a member itself, or when its arena and its subject both are (see
-  :func:`storage.repo.study_trial_ids`).
+- **Arena-level inference.** ``slope``, ``ci_low``, ``ci_high`` are the arena-level slope
+  and its t interval (:func:`measures.arena_slope`): one point per arena, the arena being the
+  unit of replication. The trial-level mixed model is reported as ``trial_slope``,
+  ``trial_ci_low``, ``trial_ci_high``, ``mixed_p_value``, labelled, never the main band.
+- **Only estimable rows.** A measure with fewer than 3 arenas with values, or whose arena
+  values span less than :data:`measures.MIN_RELATIVE_SPREAD` of their size, gets no row; it
+  is listed in ``not_estimable`` with the reason.
+- **Redundant measures folded.** Measures whose arena values correlate with
+  ``|r| >= measures.REDUNDANT_ABS_R`` form a group (:func:`measures.redundancy_groups`);
+  the grid fits and corrects (BH) only each group's representative, and the row lists the
+  group (``terrain_group``, ``movement_group``).
+- **Warnings name their measures.** Study-level warnings use the arenas the grid rests on;
+  a measure defined in fewer arenas gets its own warning with its own count.
+- Each pair uses the arenas and trials where both values are finite; pairs sharing the same
+  rows are fitted in one call; q-values are computed across the whole grid afterwards.
 
 Everything here is blocking; the routes call it through ``run_in_threadpool``.
 """
@@ -31,10 +31,9 @@ from __future__ import annotations
 import csv
 import io
 import math
+import re
 from collections import defaultdict
-from collections.abc import Iterable, Sequence
-from dataclasses import dataclass, field
-from datetime import UTC, datetime
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -42,15 +41,31 @@ import pandas as pd
 from sqlalchemy.orm import Session
 
 from measures import (
+    MIN_RELATIVE_SPREAD,
+    REDUNDANT_ABS_R,
+    arena_movement_means,
     complexity_entropy_bounds,
     confound_checks,
     correspondence_grid,
     design_summary,
+    fit_band,
+    not_estimable_reason,
+    redundancy_groups,
 )
-from measures.correspondence.inference import benjamini_hochberg
+from measures.correspondence.inference import MIN_ARENAS, MIN_SUBJECTS, benjamini_hochberg
 from measures.correspondence.multivariate import first_canonical_correlation
 from measures.errors import InsufficientDataError, InvalidParameterError
 from measures.information.mutual_info import ksg_mutual_information
+from service.analysis.tables import (
+    COVARIATE_SCORES,
+    DERIVED_COVARIATES,
+    DIAGNOSTIC_MEASURES,
+    HEADLINE_MEASURES,
+    Selection,
+    StudyTables,
+    clean,
+    load_study,
+)
 from storage import repo
 from storage.errors import BadInput
 
@@ -59,10 +74,13 @@ __all__ = [
     "COVARIATE_SCORES",
     "DERIVED_COVARIATES",
     "DIAGNOSTIC_MEASURES",
+    "EXTRA_FIELDS",
     "HEADLINE_MEASURES",
     "Selection",
     "StudyTables",
+    "clean",
     "correspondence_report",
+    "fit_grid",
     "load_study",
     "rows_csv",
 ]
@@ -81,69 +99,21 @@ CONTRACT_FIELDS = (
     "n_subjects",
     "n_trials",
 )
-EXTRA_FIELDS = ("spearman_ci_low", "spearman_ci_high", "mixed_p_value")
-
-#: Scores that describe how a measure was computed rather than the ground or the gait.
-DIAGNOSTIC_MEASURES = frozenset(
-    {
-        "psd_band_lo_m",
-        "psd_band_hi_m",
-        "psd_slope",  # the Hurst exponents carry it, where they are defined
-        "rqa_points",
-        "embedding_delay_s",
-        "embedding_dimension",
-        "lay_direction_deg",
-        # quality control of the inputs and fits, not properties of ground or gait
-        "heightmap_filled_fraction",
-        "heightmap_points_used",
-        "heightmap_outliers",
-        "heightmap_plane_inlier_fraction",
-        "hurst_psd_r2",
-        "hurst_variogram_r2",
-        "hurst_madogram_r2",
-        "hurst_boxcount_r2",
-        "cutoff_hz",
-        "noise_floor_m",
-        "causal_states_n",
-        "step_classes_n",
-        "step_class_within_rms_m",
-        "valid_fraction",
-    }
+#: Further scalar row fields (CSV columns after the contract ones).
+EXTRA_FIELDS = (
+    "slope_se",
+    "slope_df",
+    "spearman_ci_low",
+    "spearman_ci_high",
+    "spearman_p_value",
+    "trial_slope",
+    "trial_ci_low",
+    "trial_ci_high",
+    "mixed_p_value",
 )
-#: What a correspondence covers when the request names no measures: the
-#: headline scores, chosen so both sides include the shared estimators
-#: (permutation entropy and Jensen-Shannon complexity, entropy rate/density)
-#: next to the classical ones. Ask for ``all`` to get every non-diagnostic score.
-#: Few arenas cannot support hundreds of pairs: the BH correction would then
-#: absorb any effect.
-HEADLINE_MEASURES = {
-    "terrain": (
-        "sq_m",
-        "sdr",
-        "hurst_psd",
-        "slope_entropy_bits",
-        "permutation_entropy_2d",
-        "js_complexity_2d",
-        "entropy_density_2d_bits",
-    ),
-    "movement": (
-        "rqa_det",
-        "rqa_lam",
-        "entropy_rate_bits",
-        "permutation_entropy",
-        "js_complexity",
-        "statistical_complexity_bits",
-        "sample_entropy",
-        "duty_factor",
-        "stride_frequency_hz",
-    ),
-}
-SCAN_RULES = ("latest", "mean")
-#: Trial scores of the movement summary that serve as covariates; always carried in the
-#: analysis table (also when not analysed as movement measures).
-COVARIATE_SCORES = ("speed_m_s", "stride_frequency_hz", "valid_fraction")
-#: Covariates computed from the stored records rather than scored.
-DERIVED_COVARIATES = ("trial_duration_s", "body_length_m", "mass_kg", "treadmill_speed_m_s")
+#: Fewest arenas for a row (an arena-level slope needs a residual degree of freedom).
+MIN_ROW_ARENAS = 3
+
 #: The covariate the speed-vs-terrain confound check uses.
 SPEED_SCORE = "speed_m_s"
 #: Surrogate z-scores inside +-2 mean the value is within the spread of structureless
@@ -153,277 +123,62 @@ PLANE_MEASURES = {
     "scan": ("permutation_entropy_2d", "js_complexity_2d"),
     "trial": ("permutation_entropy", "js_complexity"),
 }
-_PAGE = 1000
-
-
-@dataclass(frozen=True)
-class Selection:
-    """Which part of the store a correspondence covers (empty tuple: everything)."""
-
-    arena_ids: tuple[int, ...] = ()
-    subject_ids: tuple[int, ...] = ()
-    conditions: tuple[str, ...] = ()
-    trial_ids: tuple[int, ...] = ()
-    terrain_measures: tuple[str, ...] = ()
-    movement_measures: tuple[str, ...] = ()
-    scans: str = "latest"
-    covariates: tuple[str, ...] = ()
-    study: str | None = None
-
-    def __post_init__(self) -> None:
-        if self.scans not in SCAN_RULES:
-            raise BadInput(f"scans must be one of {SCAN_RULES}, got {self.scans!r}")
-
-
-@dataclass
-class StudyTables:
-    """The assembled analysis tables of one recipe and selection.
-
-    ``arenas``: one row per arena with terrain (index arena_id; columns arena_name, n_scans,
-    then terrain measures). ``trials``: one row per trial (columns trial_id, arena_id,
-    subject_id, condition, then movement measures, then the covariate columns: the
-    :data:`DERIVED_COVARIATES`, the :data:`COVARIATE_SCORES` present, and the requested
-    covariates). ``surrogate_z``: measure -> z of each target that carries one.
-    """
-
-    arenas: pd.DataFrame
-    trials: pd.DataFrame
-    terrain_measures: list[str]
-    movement_measures: list[str]
-    surrogate_z: dict[tuple[str, str], list[float]] = field(default_factory=dict)
-    warnings: list[str] = field(default_factory=list)
-    covariates: list[str] = field(default_factory=list)
-    study: str | None = None
-    labels: dict[str, dict[int, str]] = field(default_factory=dict)
-
-    def analysis_table(self) -> pd.DataFrame:
-        """One row per trial with its arena's terrain values (terrain columns prefixed
-        ``terrain:`` only where a name is also a movement measure)."""
-        terrain = self.arenas[self.terrain_measures].rename(
-            columns={c: f"terrain:{c}" for c in self.terrain_measures if c in self.trials}
-        )
-        return self.trials.join(terrain, on="arena_id")
-
-    def export_table(self) -> pd.DataFrame:
-        """The analysis table for other tools: study, arena and subject names first."""
-        table = self.analysis_table()
-        front = pd.DataFrame(
-            {
-                "study": self.study or "",
-                "arena": self.arenas["arena_name"].reindex(table["arena_id"]).to_numpy(),
-                "subject": table["subject_id"].map(self.labels.get("subject", {})).to_numpy(),
-            },
-            index=table.index,
-        )
-        return pd.concat([front, table], axis=1)
-
-
-def _all_rows(fn: Any, **filters: Any) -> list[Any]:
-    rows, offset = [], 0
-    while True:
-        page, count = fn(offset=offset, limit=_PAGE, **filters)
-        rows.extend(page)
-        offset += len(page)
-        if not page or offset >= count:
-            return rows
-
-
-def _scores_by_target(
-    session: Session, recipe_hash: str, kind: str, ids: set[int]
-) -> dict[int, dict[str, Any]]:
-    out: dict[int, dict[str, Any]] = defaultdict(dict)
-    for row in _all_rows(
-        repo.list_scores, session=session, target_kind=kind, recipe_hash=recipe_hash
-    ):
-        if row.target_id in ids:
-            out[row.target_id][row.measure] = row
-    return out
-
-
-def _scan_time(scan: Any) -> tuple[datetime, datetime, int]:
-    floor = datetime.min.replace(tzinfo=UTC)
-    return (scan.captured_at or floor, scan.created_at or floor, scan.id)
-
-
-def _value(row: Any) -> float:
-    return math.nan if row is None or row.value is None else float(row.value)
-
-
-def _pick_measures(available: Iterable[str], wanted: Sequence[str], kind: str) -> list[str]:
-    names = sorted(set(available))
-    everything = [n for n in names if n not in DIAGNOSTIC_MEASURES]
-    if tuple(wanted) == ("all",):
-        return everything
-    if not wanted:
-        headline = [n for n in HEADLINE_MEASURES[kind] if n in names]
-        return headline or everything
-    missing = [w for w in wanted if w not in names]
-    if missing:
-        raise BadInput(f"no {kind} scores named {missing} under this recipe; scored: {names}")
-    return list(dict.fromkeys(wanted))
-
-
-def _select_trials(session: Session, sel: Selection) -> list[Any]:
-    trials = _all_rows(repo.list_trials, session=session)
-    if sel.study is not None:
-        study = repo.get_study_by_name(session=session, name=sel.study)
-        members = repo.study_trial_ids(session=session, study_id=study.id)
-        trials = [t for t in trials if t.id in members]
-    keep = []
-    for t in trials:
-        if sel.arena_ids and t.arena_id not in sel.arena_ids:
-            continue
-        if sel.subject_ids and t.subject_id not in sel.subject_ids:
-            continue
-        if sel.conditions and (t.condition or "") not in sel.conditions:
-            continue
-        if sel.trial_ids and t.id not in sel.trial_ids:
-            continue
-        keep.append(t)
-    return keep
-
-
-def _arena_terrain(
-    session: Session, recipe_hash: str, arena_ids: set[int], rule: str
-) -> tuple[dict[int, dict[str, float]], dict[int, list[Any]], dict[int, dict[str, Any]]]:
-    scans = [s for s in _all_rows(repo.list_scans, session=session) if s.arena_id in arena_ids]
-    scores = _scores_by_target(session, recipe_hash, "scan", {s.id for s in scans})
-    by_arena: dict[int, list[Any]] = defaultdict(list)
-    for scan in sorted(scans, key=_scan_time):
-        if scores.get(scan.id):
-            by_arena[scan.arena_id].append(scan)
-    terrain: dict[int, dict[str, float]] = {}
-    for arena_id, scored in by_arena.items():
-        used = scored[-1:] if rule == "latest" else scored
-        names = {m for s in used for m in scores[s.id]}
-        values = {}
-        for name in names:
-            vals = [_value(scores[s.id].get(name)) for s in used]
-            finite = [v for v in vals if math.isfinite(v)]
-            values[name] = float(np.mean(finite)) if finite else math.nan
-        terrain[arena_id] = values
-        by_arena[arena_id] = used
-    return terrain, by_arena, scores
-
-
-def load_study(*, session: Session, recipe_hash: str, selection: Selection) -> StudyTables:
-    """Assemble the arena and trial tables for ``recipe_hash`` and ``selection``."""
-    trials = _select_trials(session, selection)
-    warnings: list[str] = []
-    terrain, used_scans, scan_scores = _arena_terrain(
-        session, recipe_hash, {t.arena_id for t in trials}, selection.scans
-    )
-    without = sorted({t.arena_id for t in trials} - set(terrain))
-    if without:
-        warnings.append(
-            f"Arenas {without} have no scored scan under this recipe; their trials are left out."
-        )
-    trials = [t for t in trials if t.arena_id in terrain]
-    trial_scores = _scores_by_target(session, recipe_hash, "trial", {t.id for t in trials})
-    unscored = [t.id for t in trials if not trial_scores.get(t.id)]
-    if unscored:
-        warnings.append(f"{len(unscored)} trials have no scores under this recipe (left out).")
-    trials = [t for t in trials if trial_scores.get(t.id)]
-    t_names = _pick_measures(
-        {m for v in terrain.values() for m in v}, selection.terrain_measures, "terrain"
-    )
-    scored_trial = {m for v in trial_scores.values() for m in v}
-    covariates = list(dict.fromkeys(selection.covariates))
-    unknown = [c for c in covariates if c not in scored_trial and c not in DERIVED_COVARIATES]
-    if unknown:
-        raise BadInput(
-            f"no covariate named {unknown}: use a trial score ({sorted(scored_trial)}) or one "
-            f"of {list(DERIVED_COVARIATES)}"
-        )
-    m_names = _pick_measures(
-        scored_trial - set(covariates) if not selection.movement_measures else scored_trial,
-        selection.movement_measures,
-        "movement",
-    )
-    both = [m for m in m_names if m in covariates]
-    if both:
-        warnings.append(f"{both} named as covariates are not analysed as movement measures.")
-        m_names = [m for m in m_names if m not in covariates]
-    arena_ids = sorted({t.arena_id for t in trials})
-    arenas = pd.DataFrame(
-        [
-            {
-                "arena_id": a,
-                "arena_name": repo.get_arena(session=session, arena_id=a).name,
-                "n_scans": len(used_scans[a]),
-                **{n: terrain[a].get(n, math.nan) for n in t_names},
-            }
-            for a in arena_ids
-        ],
-        columns=["arena_id", "arena_name", "n_scans", *t_names],
-    ).set_index("arena_id")
-    table = pd.DataFrame(
-        [
-            {
-                "trial_id": t.id,
-                "arena_id": t.arena_id,
-                "subject_id": t.subject_id,
-                "condition": t.condition or "",
-                **{n: _value(trial_scores[t.id].get(n)) for n in m_names},
-            }
-            for t in trials
-        ],
-        columns=["trial_id", "arena_id", "subject_id", "condition", *m_names],
-    )
-    extra = [c for c in (*COVARIATE_SCORES, *covariates) if c in scored_trial and c not in table]
-    for name in dict.fromkeys(extra):
-        table[name] = [_value(trial_scores[t.id].get(name)) for t in trials]
-    subjects = {
-        sid: repo.get_subject(session=session, subject_id=sid)
-        for sid in {t.subject_id for t in trials}
-    }
-    derived = {
-        "trial_duration_s": [
-            t.n_frames / t.frame_rate_hz if t.n_frames and t.frame_rate_hz else math.nan
-            for t in trials
-        ],
-        "body_length_m": [_or_nan(subjects[t.subject_id].body_length_m) for t in trials],
-        "mass_kg": [_or_nan(subjects[t.subject_id].mass_kg) for t in trials],
-        "treadmill_speed_m_s": [_or_nan(t.treadmill_speed_m_s) for t in trials],
-    }
-    for name, values in derived.items():
-        table[name] = np.asarray(values, dtype=float)
-    labels = {"subject": {sid: subj.label for sid, subj in subjects.items()}}
-    surrogate: dict[tuple[str, str], list[float]] = defaultdict(list)
-    for kind, source in (
-        ("scan", [scan_scores[s.id] for a in arena_ids for s in used_scans[a]]),
-        ("trial", [trial_scores[t.id] for t in trials]),
-    ):
-        for scored in source:
-            for name, row in scored.items():
-                if row.surrogate_z is not None:
-                    surrogate[(kind, name)].append(float(row.surrogate_z))
-    return StudyTables(
-        arenas,
-        table,
-        t_names,
-        m_names,
-        dict(surrogate),
-        warnings,
-        covariates=covariates,
-        study=selection.study,
-        labels=labels,
-    )
-
-
-def _or_nan(value: Any) -> float:
-    return math.nan if value is None else float(value)
 
 
 def _codes(values: pd.Series) -> np.ndarray:
     return np.unique(values.to_numpy(), return_inverse=True)[1].astype(np.intp)
 
 
-def _nan_row(t_name: str, m_name: str, n: tuple[int, int, int]) -> dict[str, Any]:
-    row: dict[str, Any] = dict.fromkeys((*CONTRACT_FIELDS, *EXTRA_FIELDS), math.nan)
-    row.update(terrain_measure=t_name, movement_measure=m_name)
-    row.update(n_arenas=n[0], n_subjects=n[1], n_trials=n[2])
-    return row
+def _warning(
+    message: str, scope: str, measures: Sequence[str] = (), n_arenas: int | None = None
+) -> dict[str, Any]:
+    """A warning with what it concerns: scope "study", "measure" or "pair"."""
+    return {"message": message, "scope": scope, "measures": list(measures), "n_arenas": n_arenas}
+
+
+def _smallest_p(n_arenas: int) -> str:
+    return f"{2 / math.factorial(n_arenas):.3g}" if n_arenas <= 12 else "tiny"
+
+
+def _figure(
+    study: StudyTables,
+    arenas: np.ndarray,
+    trials: pd.DataFrame,
+    t_cols: list[str],
+    m_cols: list[str],
+) -> dict[tuple[str, str], dict[str, Any]]:
+    """Per pair: subject-adjusted arena means with intervals, and the arena-level line."""
+    codes = np.searchsorted(arenas, trials["arena_id"].to_numpy())
+    means = arena_movement_means(
+        trials[m_cols].to_numpy(dtype=float), codes, trials["subject_id"].to_numpy(),
+        n_arenas=len(arenas),
+    )  # fmt: skip
+    names = study.arenas.loc[arenas, "arena_name"].tolist()
+    out = {}
+    for t in t_cols:
+        x = study.arenas.loc[arenas, t].to_numpy(dtype=float)
+        for j, m in enumerate(m_cols):
+            points = [
+                {
+                    "arena_id": int(a),
+                    "arena_name": str(names[k]),
+                    "terrain": float(x[k]),
+                    "movement": float(means.mean[k, j]),
+                    "movement_ci_low": float(means.ci_low[k, j]),
+                    "movement_ci_high": float(means.ci_high[k, j]),
+                    "n_trials": int(means.n_trials[k]),
+                    "n_subjects": int(means.n_subjects[k]),
+                }
+                for k, a in enumerate(arenas)
+            ]
+            line = fit_band(x, means.mean[:, j]) if len(arenas) >= MIN_ROW_ARENAS else None
+            if line is not None and study.covariates:
+                line["note"] = (
+                    "marginal line through the arena means; the row's slope is adjusted "
+                    f"for {study.covariates}"
+                )
+            out[(t, m)] = {"arena_points": points, "fit_line": line}
+    return out
 
 
 def _fit_block(
@@ -433,37 +188,50 @@ def _fit_block(
     arena_ok: np.ndarray,
     trial_ok: np.ndarray,
     params: dict[str, Any],
-) -> tuple[list[dict[str, Any]], list[str], int, bool]:
+) -> tuple[list[dict[str, Any]], list[dict[str, Any]], int, bool]:
+    """Rows of one block of pairs sharing arenas and trials, or why they are not estimable."""
     arenas = study.arenas.index.to_numpy()[arena_ok]
     trials = study.trials[trial_ok & study.trials["arena_id"].isin(arenas).to_numpy()]
     arenas = np.array(sorted(set(trials["arena_id"])))
     counts = (len(arenas), int(trials["subject_id"].nunique()), len(trials))
+    need = MIN_ROW_ARENAS + len(study.covariates)
+    reason = None
+    if counts[0] < need:
+        reason = f"only {counts[0]} arena(s) have values of both measures; {need} are needed"
     if study.covariates:
         params = {
             **params,
             "covariates": trials[study.covariates].to_numpy(dtype=float),
             "covariate_names": study.covariates,
         }
-    try:
-        grid = correspondence_grid(
-            study.arenas.loc[arenas, t_cols].to_numpy(dtype=float),
-            trials[m_cols].to_numpy(dtype=float),
-            np.searchsorted(arenas, trials["arena_id"].to_numpy()),
-            _codes(trials["subject_id"]),
-            terrain_names=t_cols,
-            movement_names=m_cols,
-            **params,
-        )
-    except (InvalidParameterError, InsufficientDataError) as exc:
-        shown = ", ".join(t_cols) if len(t_cols) < 4 else f"{len(t_cols)} terrain measures"
-        note = (
-            f"Not estimated: pairs with {shown} have values in only {counts[0]} arena(s) and "
-            f"{counts[2]} trial(s) (a measure can be undefined on some ground, e.g. no "
-            f"self-affine band); these rows are left empty. Detail: {exc}"
-        )
-        return [_nan_row(t, m, counts) for t in t_cols for m in m_cols], [note], 0, False
-    rows = [{f: getattr(r, f) for f in (*CONTRACT_FIELDS, *EXTRA_FIELDS)} for r in grid.rows]
-    return rows, list(grid.warnings), grid.n_permutations, grid.exact_permutations
+    if reason is None:
+        try:
+            grid = correspondence_grid(
+                study.arenas.loc[arenas, t_cols].to_numpy(dtype=float),
+                trials[m_cols].to_numpy(dtype=float),
+                np.searchsorted(arenas, trials["arena_id"].to_numpy()),
+                _codes(trials["subject_id"]),
+                terrain_names=t_cols,
+                movement_names=m_cols,
+                **params,
+            )
+        except (InvalidParameterError, InsufficientDataError) as exc:
+            reason = f"not estimable with these arenas and trials: {exc}"
+    if reason is not None:
+        missing = [
+            {"terrain_measure": t, "movement_measure": m, "reason": reason, "n_arenas": counts[0]}
+            for t in t_cols
+            for m in m_cols
+        ]
+        return [], missing, 0, True
+    figure = _figure(study, arenas, trials, t_cols, m_cols)
+    rows = []
+    for r in grid.rows:
+        row = {f: getattr(r, f) for f in (*CONTRACT_FIELDS, *EXTRA_FIELDS)}
+        row["ci_method"] = "arena"
+        row.update(figure[(r.terrain_measure, r.movement_measure)])
+        rows.append(row)
+    return rows, [], grid.n_permutations, grid.exact_permutations
 
 
 def _group_columns(frame: pd.DataFrame, names: list[str]) -> dict[bytes, list[str]]:
@@ -473,35 +241,175 @@ def _group_columns(frame: pd.DataFrame, names: list[str]) -> dict[bytes, list[st
     return groups
 
 
+def _group_dicts(groups: Sequence[Any]) -> list[dict[str, Any]]:
+    return [
+        {
+            "representative": g.representative,
+            "members": list(g.members),
+            "min_abs_r": g.min_abs_r,
+            "n_arenas": g.n_arenas,
+        }
+        for g in groups
+        if len(g.members) > 1
+    ]
+
+
 def fit_grid(
     study: StudyTables, *, n_permutations: int = 9999, n_boot: int = 1999, seed: int = 0
-) -> tuple[list[dict[str, Any]], list[str], int, bool]:
-    """Every pair's row (contract fields plus extras), the grid's warnings, permutations used."""
+) -> dict[str, Any]:
+    """Fit the estimable, folded grid.
+
+    Returns
+    -------
+    dict
+        ``rows`` (contract fields, extras, figure data), ``not_estimable``, ``groups``
+        (``{"terrain": [...], "movement": [...]}``), ``warning_details``,
+        ``n_permutations``, ``exact_permutations``.
+    """
     params: dict[str, Any] = {"n_permutations": n_permutations, "n_boot": n_boot, "seed": seed}
+    need = MIN_ROW_ARENAS + len(study.covariates)
+    movement_means = _arena_movement_means(study).reindex(study.arenas.index)
+    not_estimable: list[dict[str, Any]] = []
+    live: dict[str, list[str]] = {"terrain": [], "movement": []}
+    for side, frame, names in (
+        ("terrain", study.arenas, study.terrain_measures),
+        ("movement", movement_means, study.movement_measures),
+    ):
+        for name in names:
+            col = frame[name].to_numpy(dtype=float)
+            reason = not_estimable_reason(col, min_arenas=need)
+            if reason is None:
+                live[side].append(name)
+                continue
+            not_estimable.append(
+                {
+                    "terrain_measure": name if side == "terrain" else None,
+                    "movement_measure": name if side == "movement" else None,
+                    "reason": f"{side} measure {name!r}: {reason}",
+                    "n_arenas": int(np.isfinite(col).sum()),
+                }
+            )
+    # Headline measures first, so a group is represented by the measure people know.
+    for side in live:
+        first = [m for m in HEADLINE_MEASURES[side] if m in live[side]]
+        live[side] = first + [m for m in live[side] if m not in first]
+    groups = {
+        "terrain": redundancy_groups(
+            study.arenas[live["terrain"]].to_numpy(dtype=float), live["terrain"]
+        ),
+        "movement": redundancy_groups(
+            movement_means[live["movement"]].to_numpy(dtype=float), live["movement"]
+        ),
+    }
+    members = {side: {g.representative: list(g.members) for g in gs} for side, gs in groups.items()}
+    reps = {side: [g.representative for g in gs] for side, gs in groups.items()}
     rows: list[dict[str, Any]] = []
-    warnings: list[str] = []
     n_perm, exact = 0, True
-    for a_key, t_cols in _group_columns(study.arenas, study.terrain_measures).items():
+    for a_key, t_cols in _group_columns(study.arenas, reps["terrain"]).items():
         arena_ok = np.frombuffer(a_key, dtype=bool)
-        for m_key, m_cols in _group_columns(study.trials, study.movement_measures).items():
+        for m_key, m_cols in _group_columns(study.trials, reps["movement"]).items():
             trial_ok = np.frombuffer(m_key, dtype=bool)
-            block, notes, used, was_exact = _fit_block(
+            block, missing, used, was_exact = _fit_block(
                 study, t_cols, m_cols, arena_ok, trial_ok, params
             )
             rows += block
-            warnings += [w for w in notes if w not in warnings]
-            n_perm, exact = max(n_perm, used), exact and was_exact
+            not_estimable += missing
+            if block:
+                n_perm, exact = max(n_perm, used), exact and was_exact
     order = {
         (t, m): k
-        for k, (t, m) in enumerate(
-            (t, m) for t in study.terrain_measures for m in study.movement_measures
-        )
+        for k, (t, m) in enumerate((t, m) for t in reps["terrain"] for m in reps["movement"])
     }
     rows.sort(key=lambda r: order[(r["terrain_measure"], r["movement_measure"])])
     q = benjamini_hochberg([r["p_value"] for r in rows])
     for r, qv in zip(rows, q, strict=True):
         r["q_value"] = float(qv)
-    return rows, warnings, n_perm, exact
+        r["terrain_group"] = members["terrain"][r["terrain_measure"]]
+        r["movement_group"] = members["movement"][r["movement_measure"]]
+    details = _grid_warnings(study, rows, groups)
+    return {
+        "rows": rows,
+        "not_estimable": not_estimable,
+        "groups": {side: _group_dicts(gs) for side, gs in groups.items()},
+        "warning_details": details,
+        "n_permutations": n_perm,
+        "exact_permutations": exact,
+    }
+
+
+def _grid_warnings(
+    study: StudyTables, rows: list[dict[str, Any]], groups: dict[str, Sequence[Any]]
+) -> list[dict[str, Any]]:
+    """Study-level warnings from the arenas the grid rests on; per-measure ones named."""
+    out: list[dict[str, Any]] = []
+    if not rows:
+        return out
+    n_study = max(r["n_arenas"] for r in rows)
+    in_grid = sorted({r["terrain_measure"] for r in rows} | {r["movement_measure"] for r in rows})
+    if n_study < MIN_ARENAS:
+        out.append(
+            _warning(
+                f"Only {n_study} arenas carry the grid's measures: the arena is the unit of "
+                f"replication for terrain, and fewer than {MIN_ARENAS} give fragile slopes and "
+                f"coarse permutation p-values (smallest possible two-sided p = "
+                f"{_smallest_p(n_study)}).",
+                "study",
+                in_grid,
+                n_study,
+            )
+        )
+    n_subjects = int(study.trials["subject_id"].nunique())
+    if n_subjects < MIN_SUBJECTS:
+        out.append(
+            _warning(
+                f"Only {n_subjects} subjects: subject effects are poorly estimated and results "
+                "may not generalise beyond these animals.",
+                "study",
+                in_grid,
+                n_study,
+            )
+        )
+    per_subject = study.trials.groupby("subject_id")["arena_id"].nunique()
+    if per_subject.max() <= 1:
+        out.append(
+            _warning(
+                "Every subject walked a single arena: subject and arena are confounded, so a "
+                "terrain effect cannot be told apart from differences between animals.",
+                "study",
+                in_grid,
+                n_study,
+            )
+        )
+    for side, key in (("Terrain", "terrain_measure"), ("Movement", "movement_measure")):
+        counts: dict[str, int] = {}
+        for r in rows:
+            counts[r[key]] = max(counts.get(r[key], 0), r["n_arenas"])
+        for name, n in counts.items():
+            if n < n_study:
+                out.append(
+                    _warning(
+                        f"{side} measure {name!r} has values in {n} of {n_study} arenas: its "
+                        f"rows rest on {n} arenas (smallest possible permutation p = "
+                        f"{_smallest_p(n)}).",
+                        "measure",
+                        [name],
+                        n,
+                    )
+                )
+    for side, gs in groups.items():
+        for g in gs:
+            if len(g.members) > 1:
+                out.append(
+                    _warning(
+                        f"{side.capitalize()} measures {list(g.members)} are one finding across "
+                        f"{g.n_arenas} arenas (|r| >= {REDUNDANT_ABS_R:g}, smallest "
+                        f"{g.min_abs_r:.3f}): shown and corrected once, as {g.representative!r}.",
+                        "measure",
+                        list(g.members),
+                        g.n_arenas,
+                    )
+                )
+    return out
 
 
 def surrogate_warnings(study: StudyTables, names: set[str]) -> list[str]:
@@ -526,28 +434,67 @@ def _arena_movement_means(study: StudyTables) -> pd.DataFrame:
     return by_subject.groupby(level="arena_id").mean()
 
 
-def multivariate_summary(study: StudyTables, *, seed: int = 0) -> tuple[dict[str, Any], list[str]]:
-    """First canonical correlation and KSG mutual information of arena-level vectors."""
-    terrain = study.arenas[study.terrain_measures]
-    movement = _arena_movement_means(study).reindex(terrain.index)
-    both = pd.concat([terrain, movement.add_prefix("movement:")], axis=1).dropna()
+def multivariate_summary(
+    study: StudyTables,
+    *,
+    terrain: Sequence[str] | None = None,
+    movement: Sequence[str] | None = None,
+    seed: int = 0,
+) -> tuple[dict[str, Any], list[dict[str, Any]]]:
+    """First canonical correlation and KSG mutual information of arena-level vectors.
+
+    Uses the given measures (default: all of the study's) that have values in every arena
+    the others have: a measure defined on fewer arenas would shrink the whole summary to
+    its arenas; it is left out and named in a warning.
+    """
+    t_names = list(study.terrain_measures if terrain is None else terrain)
+    m_names = list(study.movement_measures if movement is None else movement)
+    means = _arena_movement_means(study).reindex(study.arenas.index)
+    frame = pd.concat([study.arenas[t_names], means[m_names].add_prefix("movement:")], axis=1)
+    counts = frame.notna().sum()
+    full = int(counts.max()) if len(counts) else 0
+    short = [str(c).removeprefix("movement:") for c in frame if counts[c] < full]
+    both = frame.loc[:, counts == full].dropna()
     both = both.loc[:, both.std(ddof=0) > 0]
     t_cols = [c for c in both if not str(c).startswith("movement:")]
     m_cols = [c for c in both if str(c).startswith("movement:")]
     n, k = len(both), len(t_cols) + len(m_cols)
-    out: dict[str, Any] = {"method": "cca", "n_arenas": n, "n_variables": k}
+    used = t_cols + [c.removeprefix("movement:") for c in m_cols]
+    out: dict[str, Any] = {"method": "cca", "n_arenas": n, "n_variables": k, "measures": used}
+    notes: list[dict[str, Any]] = []
+    if short:
+        notes.append(
+            _warning(
+                f"Multivariate summary leaves out {short}: they have values in fewer than the "
+                f"{full} arenas the other measures have.",
+                "measure",
+                short,
+                full,
+            )
+        )
     if n < 3 or not t_cols or not m_cols:
-        return out | {"first_canonical_correlation": None}, [
-            "Multivariate summary skipped: fewer than 3 arenas with every measure, or a block "
-            "without variance."
-        ]
+        notes.append(
+            _warning(
+                f"Multivariate summary skipped: {n} arenas with every measure of {used}, or a "
+                "side without variance.",
+                "study",
+                used,
+                n,
+            )
+        )
+        return out | {"first_canonical_correlation": None}, notes
     x, y = both[t_cols].to_numpy(float), both[m_cols].to_numpy(float)
     cca = first_canonical_correlation(x, y, seed=seed)
-    warnings = []
     if cca.degenerate:
-        warnings.append(
-            f"Canonical correlation is meaningless here: {n} arenas for {k} variables "
-            "(n_arenas <= number of variables always gives 1); select fewer measures."
+        notes.append(
+            _warning(
+                f"Canonical correlation is meaningless here: {n} arenas for {k} variables "
+                f"({used}; n_arenas <= number of variables always gives 1); select fewer "
+                "measures.",
+                "study",
+                used,
+                n,
+            )
         )
     out |= {
         "first_canonical_correlation": cca.correlation,
@@ -563,7 +510,7 @@ def multivariate_summary(study: StudyTables, *, seed: int = 0) -> tuple[dict[str
         z = (both - both.mean()) / both.std(ddof=0)
         mi = ksg_mutual_information(z[t_cols].to_numpy(), z[m_cols].to_numpy(), k=kk, seed=seed)
         out |= {"mutual_information_bits": mi.value, "mutual_information_k": kk}
-    return out, warnings
+    return out, notes
 
 
 def _orders(parameters: dict[str, Any]) -> tuple[int, int]:
@@ -647,19 +594,6 @@ def _plane_values(study: StudyTables, session: Session, recipe_hash: str, sel: S
         )
 
 
-def clean(value: Any) -> Any:
-    """NaN and numpy scalars to JSON-ready values (None for NaN/inf)."""
-    if isinstance(value, dict):
-        return {k: clean(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [clean(v) for v in value]
-    if isinstance(value, (np.integer,)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        return float(value) if math.isfinite(value) else None
-    return value
-
-
 def correspondence_report(
     *,
     session: Session,
@@ -678,27 +612,43 @@ def correspondence_report(
     covariate_info = _keep_complete_covariates(study)
     if study.trials.empty:
         raise BadInput(f"no trial has a finite value of every covariate {study.covariates}")
-    rows, grid_warnings, n_perm, exact = fit_grid(
-        study, n_permutations=n_permutations, n_boot=n_boot, seed=seed
-    )
-    multi, multi_warnings = multivariate_summary(study, seed=seed)
+    grid = fit_grid(study, n_permutations=n_permutations, n_boot=n_boot, seed=seed)
+    rows = grid["rows"]
+    reps_t = list(dict.fromkeys(r["terrain_measure"] for r in rows))
+    reps_m = list(dict.fromkeys(r["movement_measure"] for r in rows))
+    multi, multi_notes = multivariate_summary(study, terrain=reps_t, movement=reps_m, seed=seed)
     names = set(study.terrain_measures) | set(study.movement_measures)
-    warnings = study.warnings + grid_warnings
-    warnings += surrogate_warnings(study, names | {m for v in PLANE_MEASURES.values() for m in v})
-    warnings += multi_warnings
-    confounds, design, confound_warnings = confounds_and_design(study)
-    warnings += confound_warnings
+    plane = {m for v in PLANE_MEASURES.values() for m in v}
+    confounds, design, confound_notes = confounds_and_design(study)
+    # The groups say what "same thing twice" said, and act on it.
+    confound_notes = [n for n in confound_notes if "same thing twice" not in n]
+    details = [_warning(w, "study") for w in study.warnings]
+    details += grid["warning_details"]
+    details += [
+        _warning(w, "measure", _named(w, names | plane))
+        for w in surrogate_warnings(study, names | plane)
+    ]
+    details += multi_notes
+    details += [_warning(w, "study", _named(w, names)) for w in confound_notes]
+    seen: set[str] = set()
+    details = [d for d in details if not (d["message"] in seen or seen.add(d["message"]))]
     _plane_values(study, session, prof.hash, selection)
     report = {
         "recipe": {"name": prof.name, "version": prof.version, "hash": prof.hash},
         "scans": selection.scans,
+        "scan_policy": study.scan_policy,
         "rows": rows,
-        "warnings": list(dict.fromkeys(warnings)),
+        "warnings": [d["message"] for d in details],
+        "warning_details": details,
+        "not_estimable": grid["not_estimable"],
+        "groups": grid["groups"],
+        "group_threshold_r": REDUNDANT_ABS_R,
+        "min_relative_spread": MIN_RELATIVE_SPREAD,
         "n_arenas": len(study.arenas),
         "n_subjects": int(study.trials["subject_id"].nunique()),
         "n_trials": len(study.trials),
-        "n_permutations": n_perm,
-        "exact_permutations": exact,
+        "n_permutations": grid["n_permutations"],
+        "exact_permutations": grid["exact_permutations"],
         "terrain_measures": study.terrain_measures,
         "movement_measures": study.movement_measures,
         "arenas": [
@@ -716,8 +666,26 @@ def correspondence_report(
         "covariates": covariate_info,
         "confounds": confounds,
         "design": design,
+        "methods": {
+            "slope": (
+                "arena-level: OLS of subject-adjusted arena mean movement on arena terrain, "
+                "t interval with n_arenas - 2 (- covariates) degrees of freedom"
+            ),
+            "p_value": "arena-level permutation test (exact enumeration when n_arenas! is small)",
+            "spearman_p_value": "exact permutation below 10 arenas, t approximation from 10",
+            "trial_slope": (
+                "trial-level mixed model, subject intercept only (reference; too narrow when "
+                "arenas differ by more than terrain)"
+            ),
+        },
     }
     return clean(report)
+
+
+def _named(message: str, names: set[str]) -> list[str]:
+    """Measures a message names in quotes."""
+    quoted = set(re.findall(r"'([^']+)'", message))
+    return sorted(quoted & names)
 
 
 def _keep_complete_covariates(study: StudyTables) -> dict[str, Any]:
@@ -817,9 +785,12 @@ def confounds_and_design(study: StudyTables) -> tuple[dict[str, Any], dict[str, 
 def rows_csv(rows: Sequence[dict[str, Any]]) -> str:
     """The report rows as CSV (contract columns first; empty cell for a missing value)."""
     buf = io.StringIO()
-    fields = [*CONTRACT_FIELDS, *EXTRA_FIELDS]
+    fields = [*CONTRACT_FIELDS, *EXTRA_FIELDS, "terrain_group", "movement_group"]
     writer = csv.DictWriter(buf, fieldnames=fields, extrasaction="ignore", lineterminator="\n")
     writer.writeheader()
     for row in rows:
-        writer.writerow({k: "" if row.get(k) is None else row[k] for k in fields})
+        out = {k: "" if row.get(k) is None else row[k] for k in fields}
+        for k in ("terrain_group", "movement_group"):
+            out[k] = ";".join(row.get(k) or [])
+        writer.writerow(out)
     return buf.getvalue()

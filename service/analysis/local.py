@@ -14,19 +14,11 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from measures.errors import InsufficientDataError, InvalidParameterError
-from service.analysis.grid import (
-    Selection,
-    _all_rows,
-    _scan_time,
-    _scores_by_target,
-    _select_trials,
-    _value,
-    clean,
-)
+from service.analysis.tables import Selection, choose_scans, clean
 from storage import repo
-from storage.errors import BadInput
+from storage.errors import BadInput, StorageError
 
-__all__ = ["LOCAL_DEFAULTS", "local_report", "trial_windows"]
+__all__ = ["LOCAL_DEFAULTS", "local_report", "trial_scores", "trial_windows"]
 
 # -- local correspondence ---------------------------------------------------------------------
 #: Defaults of the local analysis (query parameters override them).
@@ -89,10 +81,20 @@ def _to_scan_frame(points: np.ndarray, registration: Any) -> np.ndarray:
     return points @ inv[:3, :3].T + inv[:3, 3]
 
 
-def _embedding(signal: np.ndarray, fs: float, scores: dict[str, Any], p: dict[str, Any]):
+def trial_scores(*, session: Session, recipe_hash: str, trial_id: int) -> dict[str, float]:
+    """The stored scores of one trial under a recipe (measure -> value, NaN for missing)."""
+    rows = repo.load_study_rows(session=session, recipe_hash=recipe_hash, trial_ids=[trial_id])
+    return {
+        measure: math.nan if value is None else float(value)
+        for kind, _, measure, value, _ in rows.scores
+        if kind == "trial"
+    }
+
+
+def _embedding(signal: np.ndarray, fs: float, scores: dict[str, float], p: dict[str, Any]):
     from measures.dynamics.embedding import embedding_dimension, first_ami_minimum
 
-    delay_s, dim = (_value(scores.get(k)) for k in ("embedding_delay_s", "embedding_dimension"))
+    delay_s, dim = (scores.get(k, math.nan) for k in ("embedding_delay_s", "embedding_dimension"))
     delay = round(delay_s * fs) if math.isfinite(delay_s) else None
     if p.get("embedding_delay") is not None:
         delay = int(p["embedding_delay"])
@@ -105,43 +107,65 @@ def _embedding(signal: np.ndarray, fs: float, scores: dict[str, Any], p: dict[st
     return max(1, int(delay)), max(1, int(dim))
 
 
-def _local_scan(session: Session, trial: Any) -> Any:
-    scans = [
-        s
-        for s in _all_rows(repo.list_scans, session=session, arena_id=trial.arena_id)
-        if s.heightmap_sha256 and s.grid_dx_m
-    ]
+def _local_scan(session: Session, recipe_hash: str, trial: Any) -> Any:
+    # The scan policy of the grid ("latest": heightmap uploads first, then the latest),
+    # among scans that have a heightmap grid to map the path onto.
+    rows = repo.load_study_rows(session=session, recipe_hash=recipe_hash, trial_ids=[trial.id])
+    scans = [s for s in rows.scans if s["heightmap_sha256"] and s["grid_dx_m"]]
     if not scans:
         raise BadInput(f"arena {trial.arena_id} has no heightmap to map trial {trial.id} onto")
-    return max(scans, key=_scan_time)
+    return repo.get_scan(session=session, scan_id=choose_scans(scans, "latest")[0]["id"])
 
 
-def trial_windows(
-    *,
-    session: Session,
-    store: Any,
-    trial_id: int,
-    recipe: Any,
-    window_s: float,
-    margin_m: float | None,
+def _stored_windows(
+    session: Session, store: Any, trial_id: int, recipe_hash: str, window_s: float
+) -> dict[str, Any] | None:
+    """Per-window movement measures the scoring job stored, or None (absent, other length)."""
+    load = getattr(repo, "load_derived", None)  # added by the pipeline branch
+    if load is None:
+        return None
+    try:
+        arrays = load(
+            session=session,
+            store=store,
+            target_kind="trial",
+            target_id=trial_id,
+            recipe_hash=recipe_hash,
+            kind="movement_windows",
+        )
+    except StorageError:
+        return None
+    if arrays is None or "window_s" not in arrays:
+        return None
+    if abs(float(np.asarray(arrays["window_s"]).ravel()[0]) - window_s) > 1e-9:
+        return None
+    return {
+        "source": "stored",
+        "window_start_s": np.asarray(arrays["window_start_s"], dtype=float),
+        "window_stop_s": np.asarray(arrays["window_stop_s"], dtype=float),
+        "delay": int(np.asarray(arrays["delay_samples"]).ravel()[0]),
+        "dimension": int(np.asarray(arrays["dimension"]).ravel()[0]),
+        "movement": {
+            k.removeprefix("m_"): np.asarray(v, dtype=float)
+            for k, v in arrays.items()
+            if k.startswith("m_")
+        },
+        "path_m": np.asarray(arrays["path_origin_m"], dtype=float),
+        "path_time_s": np.asarray(arrays["path_time_s"], dtype=float),
+    }
+
+
+def _computed_windows(
+    session: Session, store: Any, trial: Any, subject: Any, recipe: Any, window_s: float
 ) -> dict[str, Any]:
-    """Window movement measures and the terrain patch under the animal for one trial."""
-    from measures.correspondence.local import window_movement_measures, window_terrain_patches
+    """Per-window movement measures computed from the preprocessed markers (fallback for
+    stores scored before the scoring job kept them)."""
+    from measures.correspondence.local import window_movement_measures
     from measures.movement.bodyframe import body_frame
     from measures.movement.kinematics import valid_segments
     from measures.movement.summary import MOVEMENT_DEFAULTS
-    from measures.terrain.summary import TERRAIN_DEFAULTS
 
-    trial = repo.get_trial(session=session, trial_id=trial_id)
-    arena = repo.get_arena(session=session, arena_id=trial.arena_id)
-    if trial.treadmill_speed_m_s is not None or arena.kind == "treadmill":
-        raise BadInput(f"trial {trial.id} is on a treadmill; local correspondence needs overground")
-    subject = repo.get_subject(session=session, subject_id=trial.subject_id)
-    if subject.marker_set is None:
-        raise BadInput(f"subject {subject.id} has no marker roles")
-    params = recipe.parameters or {}
-    p = _section(params, "movement", MOVEMENT_DEFAULTS)
-    order = tuple(_section(params, "terrain", TERRAIN_DEFAULTS)["ordinal_order"])
+    p = _section(recipe.parameters or {}, "movement", MOVEMENT_DEFAULTS)
     roles, names = subject.marker_set.roles, list(trial.marker_names)
     ant = [names.index(n) for n in np.atleast_1d(roles["anterior"])]
     post = [names.index(n) for n in np.atleast_1d(roles["posterior"])]
@@ -157,8 +181,8 @@ def trial_windows(
     )
     axis = {"x": 0, "y": 1, "z": 2}[p["signal_axis"]]
     signal = body.markers[a:b, foot, axis]
-    trial_scores = _scores_by_target(session, recipe.hash, "trial", {trial.id}).get(trial.id, {})
-    delay, dim = _embedding(signal, fs, trial_scores, p)
+    scores = trial_scores(session=session, recipe_hash=recipe.hash, trial_id=trial.id)
+    delay, dim = _embedding(signal, fs, scores, p)
     wm = window_movement_measures(
         signal,
         frame_rate_hz=fs,
@@ -170,16 +194,60 @@ def trial_windows(
         symbol_order=p["symbol_order"],
         seed=p["seed"],
     )
-    scan = _local_scan(session, trial)
+    return {
+        "source": "computed",
+        "window_start_s": wm.window_start_s,
+        "window_stop_s": wm.window_stop_s,
+        "delay": delay,
+        "dimension": dim,
+        "movement": wm.values,
+        "path_m": body.origin,
+        "path_time_s": np.arange(markers.shape[0]) / fs,
+    }
+
+
+def trial_windows(
+    *,
+    session: Session,
+    store: Any,
+    trial_id: int,
+    recipe: Any,
+    window_s: float,
+    margin_m: float | None,
+) -> dict[str, Any]:
+    """Prepare one trial for local correspondence: window movement measures and the
+    terrain patch under the animal in each window (the one function every caller uses).
+
+    Movement windows are read from what the scoring job stored (derived kind
+    ``movement_windows``) when present with the requested window length; otherwise they
+    are computed here (:func:`_computed_windows`, same rules as before). ``movement_source``
+    in the result says which.
+    """
+    from measures.correspondence.local import window_terrain_patches
+    from measures.terrain.summary import TERRAIN_DEFAULTS
+
+    trial = repo.get_trial(session=session, trial_id=trial_id)
+    arena = repo.get_arena(session=session, arena_id=trial.arena_id)
+    if trial.treadmill_speed_m_s is not None or arena.kind == "treadmill":
+        raise BadInput(f"trial {trial.id} is on a treadmill; local correspondence needs overground")
+    subject = repo.get_subject(session=session, subject_id=trial.subject_id)
+    if subject.marker_set is None:
+        raise BadInput(f"subject {subject.id} has no marker roles")
+    params = recipe.parameters or {}
+    order = tuple(_section(params, "terrain", TERRAIN_DEFAULTS)["ordinal_order"])
+    windows = _stored_windows(session, store, trial.id, recipe.hash, window_s)
+    if windows is None:
+        windows = _computed_windows(session, store, trial, subject, recipe, window_s)
+    scan = _local_scan(session, recipe.hash, trial)
     z, spacing, origin = _heightmap(store, scan)
     if margin_m is None:
         margin_m = subject.body_length_m / 4 if subject.body_length_m else _FALLBACK_MARGIN_M
-    path = _to_scan_frame(body.origin, scan.registration)[:, :2]
+    path = _to_scan_frame(windows["path_m"], scan.registration)[:, :2]
     patches = window_terrain_patches(
         path,
-        time_s=np.arange(markers.shape[0]) / fs,
-        window_start_s=wm.window_start_s,
-        window_stop_s=wm.window_stop_s,
+        time_s=windows["path_time_s"],
+        window_start_s=windows["window_start_s"],
+        window_stop_s=windows["window_stop_s"],
         z=z,
         grid_spacing_m=spacing,
         origin_xy_m=origin,
@@ -191,13 +259,14 @@ def trial_windows(
         "arena_id": trial.arena_id,
         "subject_id": trial.subject_id,
         "scan_id": scan.id,
-        "embedding_delay_samples": delay,
-        "embedding_dimension": dim,
+        "embedding_delay_samples": windows["delay"],
+        "embedding_dimension": windows["dimension"],
+        "movement_source": windows["source"],
         "margin_m": margin_m,
-        "window_start_s": wm.window_start_s,
-        "window_stop_s": wm.window_stop_s,
+        "window_start_s": windows["window_start_s"],
+        "window_stop_s": windows["window_stop_s"],
         "terrain": dict(zip(patches.names, patches.values.T, strict=True)),
-        "movement": wm.values,
+        "movement": windows["movement"],
         "centre_xy_m": patches.centre_xy_m,
         "coverage": patches.coverage,
     }
@@ -221,7 +290,26 @@ def local_report(
 
     prof = repo.get_recipe(session=session, name=recipe, version=version)
     warnings: list[str] = []
-    ids = list(trial_ids) or [t.id for t in _select_trials(session, selection)]
+    if trial_ids:
+        ids = list(trial_ids)
+    else:
+        study_id = (
+            None
+            if selection.study is None
+            else repo.get_study_by_name(session=session, name=selection.study).id
+        )
+        ids = [
+            t["id"]
+            for t in repo.load_study_rows(
+                session=session,
+                recipe_hash=prof.hash,
+                study_id=study_id,
+                arena_ids=selection.arena_ids,
+                subject_ids=selection.subject_ids,
+                conditions=selection.conditions,
+                trial_ids=selection.trial_ids,
+            ).trials
+        ]
     per_trial = []
     for tid in ids:
         try:
@@ -309,6 +397,7 @@ def local_report(
             "scan_id",
             "embedding_delay_samples",
             "embedding_dimension",
+            "movement_source",
             "margin_m",
         )
         trials_out.append({k: w[k] for k in keys} | {"windows": windows})

@@ -12,13 +12,70 @@ from starlette.concurrency import run_in_threadpool
 from service.analysis.grid import Selection, correspondence_report, rows_csv
 from service.analysis.local import local_report
 from service.deps import ReadToken
-from service.schemas import CorrespondencePublic, LocalCorrespondencePublic
+from service.schemas import (
+    CorrespondencePublic,
+    CorrespondenceRowPublic,
+    LocalCorrespondencePublic,
+)
 
 router = APIRouter(tags=["correspondence"])
 
 
+class CorrespondenceArenaRowPublic(CorrespondenceRowPublic):
+    """One estimable terrain x movement pair; the interval is the arena-level one."""
+
+    slope: float | None = Field(
+        description="Arena-level slope: subject-adjusted arena mean movement on terrain (OLS)."
+    )
+    ci_low: float | None = Field(description="Arena-level 95 % t interval, lower end.")
+    ci_high: float | None = Field(description="Arena-level 95 % t interval, upper end.")
+    slope_se: float | None = None
+    slope_df: int | None = Field(None, description="n_arenas - 2 - number of covariates.")
+    spearman_p_value: float | None = Field(
+        None, description="Exact permutation p below 10 arenas, t approximation from 10."
+    )
+    ci_method: str = "arena"
+    trial_slope: float | None = Field(
+        None, description="Trial-level mixed model (subject intercept only); reference only."
+    )
+    trial_ci_low: float | None = None
+    trial_ci_high: float | None = None
+    terrain_group: list[str] = Field(
+        default_factory=list, description="Representative first, then measures folded into it."
+    )
+    movement_group: list[str] = Field(default_factory=list)
+    arena_points: list[dict[str, Any]] = Field(
+        default_factory=list,
+        description="Per arena: arena_id, arena_name, terrain, movement (subject-adjusted "
+        "mean), movement_ci_low, movement_ci_high, n_trials, n_subjects.",
+    )
+    fit_line: dict[str, Any] | None = Field(
+        None, description="Arena-level line: intercept, slope, x, y, band_low, band_high."
+    )
+
+
 class CorrespondenceAdjustedPublic(CorrespondencePublic):
     """The correspondence report with its study, covariates, confound checks and design."""
+
+    rows: list[CorrespondenceArenaRowPublic]  # type: ignore[assignment]
+    scan_policy: dict[str, Any] = Field(
+        default_factory=dict, description="Which scans give each arena's terrain, and why."
+    )
+    warning_details: list[dict[str, Any]] = Field(
+        default_factory=list,
+        description="Each warning with its scope (study, measure, pair), measures, n_arenas.",
+    )
+    not_estimable: list[dict[str, Any]] = Field(
+        default_factory=list,
+        description="Measures or pairs without a row: terrain_measure, movement_measure, "
+        "reason, n_arenas.",
+    )
+    groups: dict[str, list[dict[str, Any]]] = Field(
+        default_factory=dict, description="Redundant measures folded into one representative."
+    )
+    group_threshold_r: float | None = None
+    min_relative_spread: float | None = None
+    methods: dict[str, str] = Field(default_factory=dict)
 
     study: str | None = Field(None, description="Study the selection was limited to.")
     covariates: dict[str, Any] = Field(

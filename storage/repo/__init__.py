@@ -41,11 +41,14 @@ from storage.repo.scores import (
     save_scores,
 )
 from storage.repo.studies import (
+    StudyRows,
     add_study_members,
+    arena_scan_scores,
     create_study,
     get_study,
     get_study_by_name,
     list_studies,
+    load_study_rows,
     study_members,
     study_trial_ids,
 )
@@ -78,7 +81,9 @@ from storage.repo.uploads import (
 __all__ = [
     "TOKEN_PREFIX",
     "MetaConflict",
+    "StudyRows",
     "add_study_members",
+    "arena_scan_scores",
     "attach_artifact",
     "attach_heightmap",
     "authenticate",
@@ -123,6 +128,7 @@ __all__ = [
     "list_trials",
     "load_derived",
     "load_scan_data",
+    "load_study_rows",
     "load_trial_data",
     "meta_differences",
     "normalise_arena_kind",

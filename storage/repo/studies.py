@@ -16,15 +16,18 @@ filter and count in the database.
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from typing import Any
 
-from sqlalchemy import Select, Table, insert, or_, select
+from sqlalchemy import Select, Table, and_, insert, or_, select
 from sqlalchemy.orm import Session
 
 from storage.errors import Conflict, NotFound
 from storage.models import (
     Arena,
     Scan,
+    Score,
     Study,
     Subject,
     Trial,
@@ -35,12 +38,15 @@ from storage.models import (
 from storage.repo._common import get_or_404, need_text, paginate
 
 __all__ = [
+    "StudyRows",
     "add_study_members",
     "arena_ids_in_study",
+    "arena_scan_scores",
     "create_study",
     "get_study",
     "get_study_by_name",
     "list_studies",
+    "load_study_rows",
     "scan_ids_in_study",
     "study_members",
     "study_trial_ids",
@@ -166,3 +172,128 @@ def study_trial_ids(*, session: Session, study_id: int) -> set[int]:
     """Trials in the study: members themselves, or whose arena and subject both are."""
     get_study(session=session, study_id=study_id)
     return set(session.scalars(trial_ids_in_study(study_id)))
+
+
+@dataclass(frozen=True)
+class StudyRows:
+    """Everything a correspondence needs, read in three statements (no per-row lookups).
+
+    ``trials``: one mapping per selected trial with its arena name and kind and its
+    subject's label, body length and mass. ``scans``: every scan of those arenas (id,
+    arena_id, kind, captured_at, created_at, heightmap_sha256, grid_dx_m). ``scores``:
+    ``(target_kind, target_id, measure, value, surrogate_z)`` of those trials and scans
+    under the recipe.
+    """
+
+    trials: list[dict[str, Any]]
+    scans: list[dict[str, Any]]
+    scores: list[tuple[str, int, str, float | None, float | None]]
+
+
+def load_study_rows(
+    *,
+    session: Session,
+    recipe_hash: str,
+    study_id: int | None = None,
+    arena_ids: Sequence[int] = (),
+    subject_ids: Sequence[int] = (),
+    conditions: Sequence[str] = (),
+    trial_ids: Sequence[int] = (),
+) -> StudyRows:
+    """Trials (joined with arena and subject), their arenas' scans and all their scores.
+
+    Every filter is applied in SQL; the number of statements does not depend on the
+    number of trials, scans or scores (three SELECTs). Filters combine with AND; an empty
+    filter does not restrict; ``study_id`` applies the membership rule of this module.
+    """
+    trial_stmt = (
+        select(
+            Trial.id,
+            Trial.arena_id,
+            Trial.subject_id,
+            Trial.condition,
+            Trial.n_frames,
+            Trial.frame_rate_hz,
+            Trial.treadmill_speed_m_s,
+            Arena.name.label("arena_name"),
+            Arena.kind.label("arena_kind"),
+            Subject.label.label("subject_label"),
+            Subject.body_length_m,
+            Subject.mass_kg,
+        )
+        .join(Arena, Arena.id == Trial.arena_id)
+        .join(Subject, Subject.id == Trial.subject_id)
+        .order_by(Trial.id)
+    )
+    if study_id is not None:
+        get_study(session=session, study_id=study_id)
+        trial_stmt = trial_stmt.where(Trial.id.in_(trial_ids_in_study(study_id)))
+    if arena_ids:
+        trial_stmt = trial_stmt.where(Trial.arena_id.in_(list(arena_ids)))
+    if subject_ids:
+        trial_stmt = trial_stmt.where(Trial.subject_id.in_(list(subject_ids)))
+    if conditions:
+        trial_stmt = trial_stmt.where(Trial.condition.in_(list(conditions)))
+    if trial_ids:
+        trial_stmt = trial_stmt.where(Trial.id.in_(list(trial_ids)))
+    trials = [dict(r._mapping) for r in session.execute(trial_stmt)]
+    selected = trial_stmt.with_only_columns(Trial.id).order_by(None)
+    arenas_of = trial_stmt.with_only_columns(Trial.arena_id).order_by(None)
+    scan_stmt = (
+        select(
+            Scan.id,
+            Scan.arena_id,
+            Scan.kind,
+            Scan.captured_at,
+            Scan.created_at,
+            Scan.heightmap_sha256,
+            Scan.grid_dx_m,
+        )
+        .where(Scan.arena_id.in_(arenas_of))
+        .order_by(Scan.id)
+    )
+    scans = [dict(r._mapping) for r in session.execute(scan_stmt)]
+    score_stmt = select(
+        Score.target_kind, Score.target_id, Score.measure, Score.value, Score.surrogate_z
+    ).where(
+        Score.recipe_hash == recipe_hash,
+        or_(
+            and_(Score.target_kind == "trial", Score.target_id.in_(selected)),
+            and_(
+                Score.target_kind == "scan",
+                Score.target_id.in_(scan_stmt.with_only_columns(Scan.id).order_by(None)),
+            ),
+        ),
+    )
+    scores = [tuple(r) for r in session.execute(score_stmt)]
+    return StudyRows(trials, scans, scores)  # type: ignore[arg-type]
+
+
+def arena_scan_scores(
+    *, session: Session, recipe_hash: str, arena_id: int
+) -> tuple[list[dict[str, Any]], list[tuple[int, str, float | None]]]:
+    """The arena's scans and their scores under the recipe, in two statements.
+
+    Returns ``(scans, scores)``: scans as in :class:`StudyRows`, scores as
+    ``(scan_id, measure, value)``. For an arena that may have no trials.
+    """
+    scan_stmt = (
+        select(
+            Scan.id,
+            Scan.arena_id,
+            Scan.kind,
+            Scan.captured_at,
+            Scan.created_at,
+            Scan.heightmap_sha256,
+            Scan.grid_dx_m,
+        )
+        .where(Scan.arena_id == arena_id)
+        .order_by(Scan.id)
+    )
+    scans = [dict(r._mapping) for r in session.execute(scan_stmt)]
+    score_stmt = select(Score.target_id, Score.measure, Score.value).where(
+        Score.recipe_hash == recipe_hash,
+        Score.target_kind == "scan",
+        Score.target_id.in_(scan_stmt.with_only_columns(Scan.id).order_by(None)),
+    )
+    return scans, [tuple(r) for r in session.execute(score_stmt)]  # type: ignore[misc]

@@ -9,6 +9,7 @@ the normal-theory relation).
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import numpy as np
@@ -57,18 +58,47 @@ def test_same_thing_twice_is_reported(rng):
 
 
 def test_speed_check_matches_scipy_on_arena_means(rng):
-    n_arenas = 9
+    n_arenas = 7
     terrain = rng.uniform(size=n_arenas)
     arena = rng.integers(0, n_arenas, 60)
     arena[:n_arenas] = np.arange(n_arenas)
-    speed = 0.4 - 0.2 * terrain[arena] + 0.05 * rng.normal(size=60)
+    speed = 0.4 - 0.2 * terrain[arena] + 0.02 * rng.normal(size=60)
     speed[5] = np.nan  # gaps are ignored in the arena mean
     (row,) = terrain_speed_check(terrain, speed, arena, terrain_names=["sq_m"])
     means = pd.Series(speed).groupby(arena).mean().sort_index()
     ref = stats.spearmanr(terrain, means.to_numpy())
     assert_allclose(row.rho, ref.statistic)
-    assert_allclose(row.p_value, ref.pvalue)
+    # 7 arenas: the p-value is the exact permutation one (all 7! pairings; Good 2005).
+    # Oracle: brute-force enumeration in integer arithmetic (ranks doubled and centred),
+    # so ties between permutations are exact; scipy's permutation_test agrees up to
+    # one tied permutation that floating point puts on the other side.
+    rx = (2 * stats.rankdata(terrain) - (n_arenas + 1)).astype(int)
+    ry = (2 * stats.rankdata(means.to_numpy()) - (n_arenas + 1)).astype(int)
+    observed = abs(int(rx @ ry))
+    hits = sum(
+        abs(int(rx @ ry[list(p)])) >= observed for p in itertools.permutations(range(n_arenas))
+    )
+    assert_allclose(row.p_value, hits / math.factorial(n_arenas), rtol=1e-12)
+    scipy_p = stats.permutation_test(
+        (terrain, means.to_numpy()),
+        lambda a, b: abs(stats.spearmanr(a, b).statistic),
+        permutation_type="pairings",
+        alternative="greater",
+        n_resamples=math.factorial(n_arenas),
+        vectorized=False,
+    ).pvalue
+    assert abs(row.p_value - scipy_p) <= 1.5 / math.factorial(n_arenas)
     assert row.confounded and row.rho < 0
+
+
+def test_speed_check_three_arenas_is_exact():
+    # Three arenas in perfect inverse order: asymptotically "p = 0", exactly 2/3! = 1/3.
+    (row,) = terrain_speed_check(
+        [0.1, 0.5, 0.9], [0.3, 0.3, 0.2, 0.2, 0.1, 0.1], [0, 0, 1, 1, 2, 2], terrain_names=["t"]
+    )
+    assert row.rho == pytest.approx(-1.0)
+    assert row.p_value == pytest.approx(1 / 3)
+    assert not row.confounded
 
 
 def test_balance_flags_and_counts():

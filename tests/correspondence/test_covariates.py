@@ -174,12 +174,23 @@ def test_adjusted_mixed_slope_matches_statsmodels_formula():
     df = pd.DataFrame({"y": move, "t": rough[arena], "v": speed, "g": subject})
     ref = smf.mixedlm("y ~ t + v", df, groups=df["g"]).fit(reml=True)
     row = grid.rows[0]
-    # Optimiser precision of two different REML searches (statsmodels' own tolerance).
-    assert_allclose(row.slope, ref.params["t"], rtol=1e-4)
-    assert_allclose(row.ci_low, ref.conf_int().loc["t", 0], rtol=1e-3)
+    # The trial-level (reference) fit. Optimiser precision of two different REML
+    # searches (statsmodels' own tolerance).
+    assert_allclose(row.trial_slope, ref.params["t"], rtol=1e-4)
+    assert_allclose(row.trial_ci_low, ref.conf_int().loc["t", 0], rtol=1e-3)
     assert grid.covariate_names == ("speed_m_s",)
     direct = fit_random_intercept(move, rough[arena], subject, covariates=speed)
-    assert_allclose(row.slope, direct.slope)
+    assert_allclose(row.trial_slope, direct.slope)
+    # The main (arena-level) slope: statsmodels OLS of subject-centred arena means of
+    # movement on terrain and the subject-centred arena means of speed.
+    df["yc"] = df["y"] - df.groupby("g")["y"].transform("mean")
+    df["vc"] = df["v"] - df.groupby("g")["v"].transform("mean")
+    df["a"] = arena
+    means = df.groupby("a")[["yc", "vc", "t"]].mean()
+    ols = smf.ols("yc ~ t + vc", means).fit()
+    assert_allclose(row.slope, ols.params["t"], rtol=1e-9)
+    assert_allclose(row.ci_low, ols.conf_int().loc["t", 0], rtol=1e-9)
+    assert row.slope_df == ols.df_resid
 
 
 def test_grid_adjusted_spearman_loses_the_confound():

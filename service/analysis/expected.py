@@ -1,0 +1,236 @@
+"""Expected movement on one arena's ground, from the study's arena-level fit.
+
+For a recipe (and optionally a study), each movement measure is predicted at the arena's
+terrain value from the other arenas' points (terrain value, subject-adjusted arena mean
+movement); the arena itself is left out when it belongs to the study, so its own trials
+never inform its prediction. The math is :func:`measures.predict_arena_movement`.
+
+Terrain measure: the one named, else the representative of the largest group of
+redundant terrain measures (:func:`measures.redundancy_groups`; ties: headline order).
+The choice does not look at movement, so the prediction interval keeps its level (choosing
+the terrain measure that best fits movement would make it too narrow).
+
+Blocking; the route calls it through ``run_in_threadpool``.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+from sqlalchemy.orm import Session
+
+from measures import (
+    MIN_PREDICTION_ARENAS,
+    arena_movement_means,
+    not_estimable_reason,
+    predict_arena_movement,
+    redundancy_groups,
+)
+from service.analysis.tables import (
+    HEADLINE_MEASURES,
+    SCAN_POLICY,
+    Selection,
+    choose_scans,
+    clean,
+    load_study,
+)
+from storage import repo
+from storage.errors import BadInput
+
+__all__ = ["EXPECTED_FIELDS", "expected_csv", "expected_movement"]
+
+#: Row fields (the first five are the contract), in CSV column order.
+EXPECTED_FIELDS = (
+    "movement_measure",
+    "predicted",
+    "pi_low",
+    "pi_high",
+    "n_arenas",
+    "terrain_measure",
+    "baseline_predicted",
+    "baseline_pi_low",
+    "baseline_pi_high",
+    "note",
+)
+
+
+def _arena_terrain(
+    session: Session, recipe_hash: str, arena_id: int, rule: str
+) -> tuple[dict[str, float], list[int]]:
+    """The arena's terrain values under the scan policy, and the scans used."""
+    # The arena may have scans but no trials, so the study tables may not hold it.
+    scans, scores = repo.arena_scan_scores(
+        session=session, recipe_hash=recipe_hash, arena_id=arena_id
+    )
+    values: dict[int, dict[str, float]] = {}
+    for scan_id, measure, value in scores:
+        values.setdefault(scan_id, {})[measure] = math.nan if value is None else float(value)
+    candidates = [s for s in scans if s["id"] in values]
+    if not candidates:
+        return {}, []
+    used = choose_scans(candidates, rule)
+    names = {m for s in used for m in values[s["id"]]}
+    out = {}
+    for name in names:
+        finite = [v for s in used if math.isfinite(v := values[s["id"]].get(name, math.nan))]
+        out[name] = float(np.mean(finite)) if finite else math.nan
+    return out, [int(s["id"]) for s in used]
+
+
+def _default_terrain_measure(study_arenas: Any, names: Sequence[str]) -> str | None:
+    if not names:
+        return None
+    groups = redundancy_groups(study_arenas[list(names)].to_numpy(dtype=float), list(names))
+    return max(groups, key=lambda g: len(g.members)).representative  # first wins ties
+
+
+def expected_movement(
+    *,
+    session: Session,
+    recipe: str,
+    arena_id: int,
+    version: int | None = None,
+    terrain_measure: str | None = None,
+    movement_measures: Sequence[str] = (),
+    study: str | None = None,
+    scans: str = "latest",
+    level: float = 0.95,
+) -> dict[str, Any]:
+    """The movement the arena's ground predicts, as a JSON-ready dict (NaN as None)."""
+    prof = repo.get_recipe(session=session, name=recipe, version=version)
+    arena = repo.get_arena(session=session, arena_id=arena_id)
+    own, own_scans = _arena_terrain(session, prof.hash, arena_id, scans)
+    if not own:
+        raise BadInput(f"arena {arena_id} has no scored scan under recipe {prof.name!r}")
+    tables = load_study(
+        session=session,
+        recipe_hash=prof.hash,
+        selection=Selection(
+            terrain_measures=("all",), movement_measures=tuple(movement_measures),
+            scans=scans, study=study,
+        ),
+    )  # fmt: skip
+    left_out = arena_id in set(tables.arenas.index)
+    arenas = tables.arenas.drop(index=arena_id, errors="ignore")
+    trials = tables.trials[tables.trials["arena_id"] != arena_id]
+    warnings: list[str] = []
+    if left_out:
+        warnings.append(
+            f"Arena {arena.name!r} belongs to the study: it is left out of the fit that "
+            "predicts it."
+        )
+    order = [m for m in HEADLINE_MEASURES["terrain"] if m in arenas]
+    order += [m for m in tables.terrain_measures if m not in order]
+    usable = [
+        m
+        for m in order
+        if math.isfinite(own.get(m, math.nan)) and not_estimable_reason(arenas[m]) is None
+    ]
+    if terrain_measure is None:
+        terrain_measure = _default_terrain_measure(arenas, usable)
+        how = "representative of the largest group of redundant terrain measures"
+    elif terrain_measure not in usable:
+        raise BadInput(
+            f"terrain measure {terrain_measure!r} is not usable for a prediction here (it "
+            f"must be scored on this arena and vary across the study's arenas); usable: {usable}"
+        )
+    else:
+        how = "named in the request"
+    rows: list[dict[str, Any]] = []
+    n_study = len(arenas)
+    if terrain_measure is None:
+        warnings.append(
+            f"No prediction: no terrain measure is scored on this arena and varies across the "
+            f"{n_study} other arenas of the study."
+        )
+    else:
+        ids = arenas.index.to_numpy()
+        x = arenas[terrain_measure].to_numpy(dtype=float)
+        means = np.full((len(ids), len(tables.movement_measures)), np.nan)
+        for j, name in enumerate(tables.movement_measures):
+            ok = np.isfinite(trials[name].to_numpy(dtype=float))
+            sub = trials[ok]
+            if sub.empty:
+                continue
+            present = np.unique(sub["arena_id"].to_numpy())
+            codes = np.searchsorted(present, sub["arena_id"].to_numpy())
+            m = arena_movement_means(
+                sub[name].to_numpy(dtype=float), codes, sub["subject_id"].to_numpy(),
+                n_arenas=present.size,
+            )  # fmt: skip
+            means[np.searchsorted(ids, present), j] = m.mean[:, 0]
+        x0 = own[terrain_measure]
+        pred = predict_arena_movement(x, means, x0, level=level)
+        for j, name in enumerate(tables.movement_measures):
+            rows.append(
+                {
+                    "movement_measure": name,
+                    "predicted": pred.predicted[j],
+                    "pi_low": pred.pi_low[j],
+                    "pi_high": pred.pi_high[j],
+                    "n_arenas": int(pred.n_arenas[j]),
+                    "terrain_measure": terrain_measure,
+                    "baseline_predicted": pred.baseline[j],
+                    "baseline_pi_low": pred.baseline_low[j],
+                    "baseline_pi_high": pred.baseline_high[j],
+                    "note": pred.note[j],
+                }
+            )
+        few = sorted(
+            {int(n) for n, note in zip(pred.n_arenas, pred.note, strict=True) if "needed" in note}
+        )
+        if few:
+            warnings.append(
+                f"Too few arenas to predict: {few} arena(s) with values where at least "
+                f"{MIN_PREDICTION_ARENAS} are needed; those rows carry no prediction."
+            )
+        if any("extrapolation" in note for note in pred.note):
+            warnings.append(
+                f"This arena's {terrain_measure!r} ({x0:.4g}) lies outside the range of the "
+                "study's arenas: the prediction is an extrapolation."
+            )
+    return clean(
+        {
+            "arena_id": arena.id,
+            "arena_name": arena.name,
+            "recipe": {"name": prof.name, "version": prof.version, "hash": prof.hash},
+            "study": study,
+            "terrain_measure": terrain_measure,
+            "terrain_measure_choice": how,
+            "terrain_value": None if terrain_measure is None else own[terrain_measure],
+            "left_out": left_out,
+            "n_arenas": n_study,
+            "level": level,
+            "rows": rows,
+            "warnings": warnings,
+            "scan_policy": {
+                "rule": scans,
+                "description": SCAN_POLICY[scans],
+                "scan_ids": own_scans,
+            },
+            "method": (
+                "OLS of subject-adjusted arena mean movement on arena terrain over the study's "
+                "other arenas; prediction interval for a new arena's mean, t with n - 2 df "
+                "(Draper & Smith 1998, sec. 3.1). baseline_*: the same arenas' mean, ignoring "
+                "terrain. Predicts the arena mean for a subject typical of the study, not a "
+                "single trial."
+            ),
+        }
+    )
+
+
+def expected_csv(rows: Sequence[dict[str, Any]]) -> str:
+    """The expected-movement rows as CSV (empty cell for a missing value)."""
+    buf = io.StringIO()
+    writer = csv.DictWriter(
+        buf, fieldnames=list(EXPECTED_FIELDS), extrasaction="ignore", lineterminator="\n"
+    )
+    writer.writeheader()
+    for row in rows:
+        writer.writerow({k: "" if row.get(k) is None else row[k] for k in EXPECTED_FIELDS})
+    return buf.getvalue()
