@@ -148,8 +148,7 @@ async def correspondence_view_route(
     permutations, bootstrap, seed, scan policy) and turned into display values by
     ``service.report.view.correspondence_view``, the function the report uses.
     """
-    from service.analysis.grid import Selection, correspondence_report
-    from service.report import convention as cv
+    from service.report.cache import shared_correspondence
     from service.report.study import load_study
     from service.report.view import correspondence_view
 
@@ -160,18 +159,12 @@ async def correspondence_view_route(
 
     def work() -> dict[str, Any]:
         with request.app.state.sessionmaker() as session:
-            corr = correspondence_report(
+            corr = shared_correspondence(
                 session=session,
                 recipe=recipe,
-                selection=Selection(
-                    study=study,
-                    scans=cv.SCAN_POLICY,
-                    terrain_measures=split(terrain_measure),
-                    movement_measures=split(movement_measure),
-                ),
-                n_permutations=cv.N_PERMUTATIONS,
-                n_boot=cv.N_BOOT,
-                seed=cv.SEED,
+                study=study,
+                terrain_measures=split(terrain_measure),
+                movement_measures=split(movement_measure),
             )
             data = load_study(session=session, recipe=recipe, study=study)
             view = correspondence_view(data, corr)

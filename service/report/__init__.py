@@ -45,13 +45,13 @@ def render_report(
     summary names it. NotFound for an unknown study.
     """
     if correspondence is None:
-        from service.analysis.grid import Selection, correspondence_report
+        from service.report.cache import shared_correspondence
 
-        correspondence = correspondence_report(
+        correspondence = shared_correspondence(
             session=session,
             recipe=recipe,
             version=version,
-            selection=Selection(study=study, scans=cv.SCAN_POLICY),
+            study=study,
             n_permutations=n_permutations,
             n_boot=n_boot,
             seed=seed,
