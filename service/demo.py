@@ -184,9 +184,10 @@ def summary_text(corr: dict[str, Any], *, top: int = 10, report_path: Path | Non
 
     lines = [INVENTED, ""]
     prof = corr.get("recipe") or {}
+    label = cv.recipe_label(prof.get("name"), prof.get("version"))
     lines.append(
         f"Study: {corr.get('n_arenas')} arenas, {corr.get('n_subjects')} subjects, "
-        f"{corr.get('n_trials')} trials; recipe {prof.get('name')} v{prof.get('version')} "
+        f"{corr.get('n_trials')} trials; recipe {label} "
         f"({str(prof.get('hash', ''))[:12]}); {len(corr.get('rows') or [])} measure pairs, "
         f"{corr.get('n_permutations')} arena permutations"
         + (" (exact)" if corr.get("exact_permutations") else "")

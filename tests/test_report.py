@@ -177,7 +177,7 @@ def test_report_has_every_section(report_html: str) -> None:
     ):
         assert f'<section id="{section}">' in report_html, section
     assert "Invented data" in report_html
-    assert "default v1" in report_html  # recipe name and version
+    assert "default@1" in report_html  # recipe name and version, one label format
 
 
 def test_report_is_self_contained(report_html: str) -> None:

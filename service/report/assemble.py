@@ -114,7 +114,7 @@ def _summary_section(study: StudyData, correspondence: Mapping[str, Any]) -> str
         ("subjects", n_s),
         ("trials (scored / uploaded)", f"{n_t} / {len(study.trials)}"),
         ("scans", len(study.scans)),
-        ("recipe", f"{study.recipe_name} v{study.recipe_version}"),
+        ("recipe", cv.recipe_label(study.recipe_name, study.recipe_version)),
         ("recipe hash", study.recipe_hash),
         ("code version", "; ".join(study.code_versions) or f"gaitscape {__version__}"),
         ("report generated", datetime.now(UTC).isoformat(timespec="seconds")),

@@ -27,6 +27,7 @@ __all__ = [
     "display_unit",
     "fmt_number",
     "measure_order",
+    "recipe_label",
     "si_scale",
     "slope_unit",
 ]
@@ -174,3 +175,8 @@ def fmt_number(value: Any, digits: int = 3) -> str:
         mantissa, exp = text.split("e")
         return f"{mantissa} x 10^{int(exp)}"
     return text
+
+
+def recipe_label(name: str, version: int | None) -> str:
+    """The one way a recipe is named in views and exports: ``default@1``."""
+    return name if version is None else f"{name}@{version}"
