@@ -238,6 +238,7 @@ def test_main_result_figure_and_one_truth_with_the_report(live) -> None:
     r = page.request.get(
         base + "/v1/correspondence/report",
         headers={"Authorization": f"Bearer {live['secret']}"},
+        timeout=600_000,
     )
     assert r.ok
     report = r.text()
