@@ -208,6 +208,9 @@ def _upload(args: argparse.Namespace) -> int:
     if not args.token:
         print("gaitscape upload: give --token or set GAITSCAPE_TOKEN", file=sys.stderr)
         return 2
+    if not args.server:
+        print("gaitscape upload: give --server or set GAITSCAPE_SERVER", file=sys.stderr)
+        return 2
     return run_upload(
         [Path(p) for p in args.paths],
         server=args.server,
@@ -228,7 +231,11 @@ def register_upload(sub: Any) -> None:
         "kind of each file and its metadata are decided.",
     )
     p.add_argument("paths", nargs="+", metavar="PATH", help="files or folders")
-    p.add_argument("--server", required=True, help="server URL, e.g. http://lab-server:8000")
+    p.add_argument(
+        "--server",
+        default=os.environ.get("GAITSCAPE_SERVER"),
+        help="server URL, e.g. http://lab-server:8000 (default: env GAITSCAPE_SERVER)",
+    )
     p.add_argument(
         "--token",
         default=os.environ.get("GAITSCAPE_TOKEN"),

@@ -259,12 +259,12 @@ def test_setup_forms_create_records(live) -> None:
     _sign_in(page, base, live["secret"])  # read only: the forms say which scope they need
     page.goto(base + "/ui/setup")
     expect(page.locator("#scopes")).to_have_text("This token may: read.")
-    expect(page.locator("#arena-form fieldset")).to_be_disabled()
+    expect(page.locator("#arena-name")).to_be_disabled()
     assert "Needs a token with the 'upload' scope." in page.inner_text("#arena-form")
 
     _sign_in(page, base, live["admin"])
     page.goto(base + "/ui/setup")
-    expect(page.locator("#arena-form fieldset")).to_be_enabled()
+    expect(page.locator("#arena-name")).to_be_enabled()
     page.fill("#arena-name", "form tray")
     page.fill("#arena-band-lo", "4")
     page.fill("#arena-band-hi", "60")
