@@ -171,14 +171,36 @@ async function trialsPage() {
   await load();
 }
 
-function scoreTable(scores) {
+// A value in SI base units with an SI prefix (um, mm), as the report prints it.
+function siValue(v, unit) {
+  const plain = !unit || unit === "1" ? "dimensionless" : unit;
+  if (typeof v !== "number" || !isFinite(v) || !["m", "s", "m/s"].includes(unit) || v === 0) return [fmt(v), plain];
+  const a = Math.abs(v);
+  for (const [f, p] of [[1, ""], [1e3, "m"], [1e6, "u"], [1e9, "n"]]) {
+    if (a * f >= 1 || f === 1e9) return [fmt(v * f), p + unit];
+  }
+  return [fmt(v), plain];
+}
+
+let recipeLabels = null;
+async function recipeLabel(hash) {
+  if (recipeLabels === null) {
+    recipeLabels = {};
+    for (const r of await all("/v1/recipes")) if (!(r.hash in recipeLabels)) recipeLabels[r.hash] = r.name + "@" + r.version;
+  }
+  return recipeLabels[hash] || (hash || "").slice(0, 10);
+}
+
+async function scoreTable(scores) {
+  const labels = await Promise.all(scores.map(s => recipeLabel(s.recipe_hash)));
+  const rows = scores.map((s, i) => Object.assign({}, s, { label: labels[i], shown: siValue(s.value, s.unit) }));
   return table([
     { label: "measure", get: s => s.measure },
-    { label: "value", get: s => s.value, num: true },
-    { label: "unit", get: s => s.unit },
+    { label: "value", get: s => s.shown[0], num: true },
+    { label: "unit", get: s => s.shown[1] },
     { label: "surrogate z", get: s => s.surrogate_z, num: true },
-    { label: "recipe", get: s => s.recipe || (s.recipe_hash || "").slice(0, 10) },
-  ], scores, scores.length + " scores");
+    { label: "recipe", get: s => s.label },
+  ], rows, rows.length + " scores");
 }
 
 function kv(obj, keys) {
@@ -206,7 +228,7 @@ async function trialPage(id) {
       el("label", {}, "frame", slider), clock), plot,
     el("p", { id: "replay-note" }), el("h2", { text: "Scores" }), el("div", { id: "scores" }));
   const scores = await all("/v1/scores?trial_id=" + id + "&target_kind=trial");
-  document.getElementById("scores").replaceChildren(scoreTable(scores));
+  document.getElementById("scores").replaceChildren(await scoreTable(scores));
   const rep = await api("/v1/dashboard/trials/" + id + "/replay");
   document.getElementById("replay-note").textContent = rep.note + " Markers: " + rep.source + ", every " + rep.frame_step +
     " frame(s). Heights drawn " + exag.value + "x; marker names on hover.";
@@ -242,7 +264,7 @@ async function trialPage(id) {
   const scene = () => ({ aspectmode: "manual", aspectratio: aspect(),
     xaxis: { title: { text: "x (mm)" }, range: box.x }, yaxis: { title: { text: "y (mm)" }, range: box.y },
     zaxis: { title: { text: "z (mm, " + exag.value + "x)" }, range: box.z },
-    camera: { eye: { x: 0.2, y: -1.1, z: 0.7 }, center: { x: 0, y: 0, z: 0 } } });
+    camera: { eye: { x: 0.05, y: -0.62, z: 0.32 }, center: { x: 0, y: 0, z: -0.05 } } });
   await Plotly.newPlot(plot, traces, { margin: { l: 0, r: 0, t: 10, b: 0 }, scene: scene(), legend: { x: 0, y: 1 } },
     { responsive: true, displaylogo: false });
   exag.addEventListener("change", () => {
@@ -281,7 +303,7 @@ async function scanPage(id) {
   show(kv(scan, ["id", "arena_id", "filename", "format", "kind", "units", "n_points", "grid_nx", "grid_ny", "grid_dx_m", "captured_at"]),
     el("h2", { text: "Heightmap" }), plot, el("h2", { text: "Scores" }), el("div", { id: "scores" }));
   const scores = await all("/v1/scores?scan_id=" + id + "&target_kind=scan");
-  document.getElementById("scores").replaceChildren(scoreTable(scores));
+  document.getElementById("scores").replaceChildren(await scoreTable(scores));
   try {
     const hm = await api("/v1/dashboard/scans/" + id + "/heightmap");
     await Plotly.newPlot(plot, [{ type: "surface", x: hm.x_m, y: hm.y_m, z: hm.z_m, colorscale: "Cividis",
