@@ -476,9 +476,12 @@ const post = (path, body) => api(path, { method: "POST", headers: { "Content-Typ
 const num = id => { const v = document.getElementById(id).value.trim(); return v === "" ? null : Number(v); };
 const val = id => document.getElementById(id).value.trim();
 
+// The set-up forms offer every record in the store, whichever study the header has chosen.
+const everything = path => all(path);
+
 async function setupPage() {
   const [me, arenas, subjects, trials, recipes] = await Promise.all([api("/v1/dashboard/whoami"),
-    all("/v1/arenas"), all("/v1/subjects"), all("/v1/trials"), all("/v1/recipes")]);
+    everything("/v1/arenas"), everything("/v1/subjects"), everything("/v1/trials"), all("/v1/recipes")]);
   const recipeNames = [...new Set(recipes.map(r => r.name))];
   const arenaForm = formBox("arena-form", "Create arena", "upload", me, [
     field("name", el("input", { id: "arena-name", required: true })),
