@@ -22,7 +22,10 @@ class TraySpec:
     """One invented arena tray.
 
     Lengths are in metres. ``hurst`` and ``rms_m`` describe the self-affine
-    background; the feature fields add discrete structure.
+    background; the feature fields add discrete structure. ``sq_m`` (when set)
+    rescales the finished tray to that RMS height, so amplitude is chosen apart
+    from structure: two trays with the same ``sq_m`` differ only in how their
+    height is arranged (regular ripples or irregular scree).
     """
 
     key: str
@@ -38,9 +41,12 @@ class TraySpec:
     stone_height_m: tuple[float, float] = (0.001, 0.003)
     crack_cells: int = 0
     crack_depth_m: float = 0.0
+    sq_m: float | None = None
 
 
-# Seven trays of rising roughness; names and numbers are invented for the demo.
+# Seven invented trays on two axes: amplitude (Sq: low, about 0.4 mm, or tall, about 1.6 mm)
+# and structure (regular ripples or irregular scree, i.e. high or low Hurst exponent and low
+# or high entropy), plus a belt and a boulder field. Names and numbers are invented.
 TRAYS: tuple[TraySpec, ...] = (
     TraySpec(
         "treadmill-belt",
@@ -51,54 +57,61 @@ TRAYS: tuple[TraySpec, ...] = (
         0.00005,
     ),
     TraySpec(
-        "tray-a-pressed",
-        "Tray A: pressed flat",
+        "tray-a-low-ripples",
+        "Tray A: low regular ripples",
         "runway",
-        "Invented demo arena: compacted fine sand, rolled flat.",
-        0.8,
-        0.0002,
+        "Invented demo arena: shallow wind-like ripples, regular.",
+        0.9,
+        0.00003,
+        ripple_amplitude_m=0.0006,
+        ripple_wavelength_m=0.03,
+        sq_m=0.0004,
     ),
     TraySpec(
-        "tray-b-ripples",
-        "Tray B: rippled sand",
+        "tray-b-low-scree",
+        "Tray B: low irregular scree",
         "runway",
-        "Invented demo arena: sand with wind-like ripples across the runway.",
-        0.7,
+        "Invented demo arena: fine flat-lying grit, irregular, as high as Tray A.",
+        0.15,
+        0.0003,
+        stones=1400,
+        stone_radius_m=(0.0015, 0.003),
+        stone_height_m=(0.0005, 0.0012),
+        sq_m=0.0004,
+    ),
+    TraySpec(
+        "tray-c-tall-ripples",
+        "Tray C: tall regular ripples",
+        "runway",
+        "Invented demo arena: tall regular ripples across the runway.",
+        0.9,
+        0.00005,
+        ripple_amplitude_m=0.0023,
+        ripple_wavelength_m=0.03,
+        sq_m=0.0016,
+    ),
+    TraySpec(
+        "tray-d-cracked-crust",
+        "Tray D: cracked crust",
+        "runway",
+        "Invented demo arena: dried crust broken into polygons (medium, mixed).",
+        0.8,
         0.0004,
-        ripple_amplitude_m=0.0015,
-        ripple_wavelength_m=0.025,
-    ),
-    TraySpec(
-        "tray-c-crust",
-        "Tray C: cracked crust",
-        "runway",
-        "Invented demo arena: dried crust broken into polygons.",
-        0.8,
-        0.0006,
         crack_cells=40,
         crack_depth_m=0.003,
-    ),
-    TraySpec(
-        "tray-d-fine-scree",
-        "Tray D: fine scree",
-        "runway",
-        "Invented demo arena: gravel of 4-8 mm stones.",
-        0.5,
-        0.0010,
-        stones=900,
-        stone_radius_m=(0.002, 0.004),
-        stone_height_m=(0.001, 0.003),
+        sq_m=0.0009,
     ),
     TraySpec(
         "tray-e-coarse-scree",
-        "Tray E: coarse scree",
+        "Tray E: coarse irregular scree",
         "runway",
-        "Invented demo arena: gravel of 10-20 mm stones.",
-        0.5,
-        0.0020,
-        stones=220,
-        stone_radius_m=(0.005, 0.010),
-        stone_height_m=(0.003, 0.007),
+        "Invented demo arena: coarse gravel, irregular, as high as Tray C.",
+        0.15,
+        0.0010,
+        stones=700,
+        stone_radius_m=(0.003, 0.006),
+        stone_height_m=(0.002, 0.004),
+        sq_m=0.0016,
     ),
     TraySpec(
         "tray-f-boulders",
@@ -181,4 +194,7 @@ def make_tray(
         _stones(z, dx_m, spec, rng)
     if spec.crack_cells:
         _cracks(z, dx_m, spec, rng)
-    return z - z.mean()
+    z = z - z.mean()
+    if spec.sq_m is not None:
+        z *= spec.sq_m / float(z.std())  # amplitude set apart from structure
+    return z

@@ -1,13 +1,15 @@
 """The demo study: arenas, subjects and files, generated with a fixed seed.
 
 An invented study of a small quadruped ("demo vole", not a real species
-record) walking seven arena trays from a belt treadmill to a boulder field.
+record) walking seven arena trays from a belt treadmill to a boulder field, with
+amplitude and structure set apart (low and tall ripples, low and tall scree).
 Every number here is invented for the demo; none comes from an experiment.
 """
 
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
@@ -112,8 +114,16 @@ def _write_scans(
     return files
 
 
-def build_scenario(out_dir: str | Path, *, quick: bool = False, seed: int = 2026) -> Scenario:
+def build_scenario(
+    out_dir: str | Path,
+    *,
+    quick: bool = False,
+    seed: int = 2026,
+    on_file: Callable[[int, int], None] | None = None,
+) -> Scenario:
     """Generate the demo study under ``out_dir`` and return its manifest.
+
+    ``on_file(done, total)`` is called after each file is written (for a progress bar).
 
     ``quick`` keeps 3 subjects, one pass each per arena and 600,000-point scans
     (for a demo of about a minute); the full study has 4 subjects, two passes
@@ -139,6 +149,13 @@ def build_scenario(out_dir: str | Path, *, quick: bool = False, seed: int = 2026
             }
         )
     trial_no = 0
+    total = sum(1 + (a in (1, 4)) for a in range(len(TRAYS)))
+    total += len(TRAYS) * len(subjects) * n_trials
+
+    def written() -> None:
+        if on_file is not None:
+            on_file(len(scenario.files), total)
+
     for a, spec in enumerate(TRAYS):
         scenario.arenas.append(
             {
@@ -154,6 +171,7 @@ def build_scenario(out_dir: str | Path, *, quick: bool = False, seed: int = 2026
         scenario.files += _write_scans(
             root / "scans", spec, z, n_points, seed + 100 * a + 1, with_heightmap=a in (1, 4)
         )
+        written()
         belt = 0.25 if spec.kind == "treadmill" else None
         for s in subjects:
             for t in range(n_trials):
@@ -188,5 +206,6 @@ def build_scenario(out_dir: str | Path, *, quick: bool = False, seed: int = 2026
                     write_csv_wide(path, rec.markers, rec.marker_names, rec.frame_rate_hz)
                 write_sidecar(path, meta)
                 scenario.files.append(DemoFile(str(path), "trial", spec.key, s.label, meta))
+                written()
     (root / "scenario.json").write_text(scenario.to_json())
     return scenario

@@ -4,8 +4,9 @@ Four limb oscillators are coupled towards the phase offsets of a gait mode
 (lateral-sequence walk or trot, after the footfall patterns in Hildebrand's
 gait diagrams); each limb is in stance while its phase is below the duty
 factor. Touch-down points are placed ahead of the hip and perturbed by the
-ground under the foot: rougher ground gives noisier timing and placement,
-lower speed and higher foot clearance. Markers carry 0.2 mm noise (common
+ground under the foot: taller ground gives higher foot clearance and lower
+speed, and, apart from its height, ground that is irregular at the foot's
+scale gives noisier timing and placement. Markers carry 0.2 mm noise (common
 practice for small-animal marker capture), occasional short dropouts, and
 optionally one long gap.
 """
@@ -60,6 +61,13 @@ def _local_roughness(z: NDArray, dx_m: float, x: float, y: float, r_m: float = 0
     return float(patch.std()) if patch.size else 0.0
 
 
+def _fine_structure(z: NDArray, dx_m: float) -> NDArray:
+    """Height left after a 4 mm Gaussian smoothing: the foot-scale irregular part."""
+    from scipy.ndimage import gaussian_filter
+
+    return z - gaussian_filter(z, sigma=max(0.004 / dx_m, 1.0), mode="nearest")
+
+
 def _height(z: NDArray, dx_m: float, x: float, y: float) -> float:
     i = min(max(round(y / dx_m), 0), z.shape[0] - 1)
     j = min(max(round(x / dx_m), 0), z.shape[1] - 1)
@@ -84,9 +92,13 @@ def walk_over(
     along the runway) or after ``duration_s``, whichever comes first.
     """
     rng = np.random.default_rng(seed)
+    rng_ground = np.random.default_rng([seed, 1])
     n = round(duration_s * frame_rate_hz)
     dt = 1.0 / frame_rate_hz
     ground_rough = float(np.std(np.diff(z, axis=1))) / dx_m  # RMS slope along travel
+    fine = _fine_structure(z, dx_m)
+    tray_irregularity = float(fine.std() / (z.std() + 1e-9))
+    stumble = 0.15 * min(max(tray_irregularity - 0.35, 0.0) / 0.2, 1.0)
     # Rough ground slows the animal (the demo's built-in confound, see issue on covariates).
     speed = subject.preferred_speed_m_s / (1.0 + 1.5 * ground_rough) * rng.uniform(0.9, 1.1)
     on_belt = treadmill_speed_m_s is not None
@@ -113,10 +125,17 @@ def walk_over(
             n = k
             break
         rough = _local_roughness(z, dx_m, x, y)
-        # Each limb's frequency wanders (Ornstein-Uhlenbeck, 0.1 s memory) with a
-        # spread that grows with the local roughness (an invented law for the demo).
+        # Each limb's frequency wanders (Ornstein-Uhlenbeck, 0.1 s memory) with a spread
+        # that grows with the local amplitude and, apart from it, with how irregular the
+        # ground is at the foot's scale (invented laws for the demo: tall regular ripples
+        # raise the feet but keep the rhythm; low scree leaves the feet low but breaks it).
         spread = 0.03 + 60.0 * rough
         wander += -wander * dt / 0.1 + spread * np.sqrt(2 * dt / 0.1) * rng.normal(size=4)
+        # Irregular trays (scree, crust: over a third of their height spread at the foot's
+        # scale; not ripples, nor boulders whose height is mostly at larger scales) add a
+        # wander of their own, from a separate stream so everything else stays as it was.
+        if stumble:
+            wander += stumble * np.sqrt(2 * dt / 0.1) * rng_ground.normal(size=4)
         coupling = 0.8 * stride_hz * np.sin(2 * np.pi * ((target - target[2]) - (phase - phase[2])))
         rate = stride_hz * (1.0 + wander) + coupling
         phase = phase + dt * np.maximum(rate, 0.2 * stride_hz)  # phases never run backwards
@@ -136,7 +155,8 @@ def walk_over(
             now_stance = psi < duty
             if now_stance and not stance[f]:  # touch-down ahead of the hip
                 reach = 0.5 * speed * duty / stride_hz
-                spot = hip + reach * direction + rng.normal(0, 0.002 + 2.0 * rough, 2)
+                scatter = 0.002 + 2.0 * rough
+                spot = hip + reach * direction + rng.normal(0, scatter, 2)
                 foot[f] = [spot[0], spot[1], _height(z, dx_m, *spot)]
             elif not now_stance and stance[f]:
                 lift[f] = foot[f]

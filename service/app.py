@@ -16,9 +16,11 @@ from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
 
 from service import __version__
+from service.api_docs import install_docs
 from service.dashboard import page_router as dashboard_pages
 from service.deps import FailedAuthLimiter
 from service.errors import install_error_handlers
+from service.openapi_text import OPENAPI_TAGS, describe_parameters
 from service.pipeline import ensure_default_recipe, start_job_runner
 from service.routes import ROUTERS
 from service.schemas import Health
@@ -85,6 +87,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         version=__version__,
         description=DESCRIPTION,
         lifespan=lifespan,
+        # Served by install_docs from local files (no CDN): service/api_docs.py.
+        docs_url=None,
+        redoc_url=None,
+        openapi_tags=OPENAPI_TAGS,
     )
     app.state.settings = settings
     app.state.engine = resources.engine
@@ -112,4 +118,6 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     for router in ROUTERS:
         app.include_router(router, prefix=API_PREFIX)
     app.include_router(dashboard_pages)  # HTML shells under /ui (service/dashboard)
+    install_docs(app)  # /docs and /redoc from local assets (service/api_docs.py)
+    describe_parameters(app)
     return app

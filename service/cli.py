@@ -69,11 +69,20 @@ def _serve(args: argparse.Namespace) -> int:
     first_start = _is_empty_dir(settings.data_dir)
     app = create_app(settings)
     secret = ensure_admin_token(settings, first_start=first_start)
+    token_file = settings.data_dir / ADMIN_TOKEN_FILE
     if secret is not None:
-        print(
-            f"Created an admin token (shown once; also in {settings.data_dir / ADMIN_TOKEN_FILE}):"
-        )
+        print(f"Created an admin token (shown once; also in {token_file}):")
         print(secret, flush=True)
+    elif token_file.is_file():
+        print(f"Admin token: in {token_file} (readable by this user only)", flush=True)
+    else:
+        print(
+            f"No admin token file in {settings.data_dir}; make one with "
+            f"`gaitscape token create --data {settings.data_dir} --scope admin`",
+            flush=True,
+        )
+    where = f"http://{settings.host}:{settings.port}"
+    print(f"Dashboard: {where}/ui  API docs: {where}/docs", flush=True)
     # access_log=False: the JSON access log (service/security.py) is the only one, and it
     # never records query strings. proxy_headers=False: forwarded addresses are believed only
     # from GAITSCAPE_TRUSTED_PROXIES (service/deps.py), never from whoever connects locally.
@@ -218,6 +227,9 @@ def _upload(args: argparse.Namespace) -> int:
     if not args.token:
         print("gaitscape upload: give --token or set GAITSCAPE_TOKEN", file=sys.stderr)
         return 2
+    if not args.server:
+        print("gaitscape upload: give --server or set GAITSCAPE_SERVER", file=sys.stderr)
+        return 2
     return run_upload(
         [Path(p) for p in args.paths],
         server=args.server,
@@ -238,7 +250,11 @@ def register_upload(sub: Any) -> None:
         "kind of each file and its metadata are decided.",
     )
     p.add_argument("paths", nargs="+", metavar="PATH", help="files or folders")
-    p.add_argument("--server", required=True, help="server URL, e.g. http://lab-server:8000")
+    p.add_argument(
+        "--server",
+        default=os.environ.get("GAITSCAPE_SERVER"),
+        help="server URL, e.g. http://lab-server:8000 (default: env GAITSCAPE_SERVER)",
+    )
     p.add_argument(
         "--token",
         default=os.environ.get("GAITSCAPE_TOKEN"),
@@ -263,7 +279,9 @@ def register_upload(sub: Any) -> None:
 def _demo(args: argparse.Namespace) -> int:
     from service.demo import run_demo
 
-    result = run_demo(Path(args.out), quick=args.quick, progress=not args.no_progress)
+    result = run_demo(
+        Path(args.out), quick=args.quick, progress=not args.no_progress, timeout_s=args.timeout
+    )
     return 1 if result.failed_uploads or result.failed_jobs else 0
 
 
@@ -276,8 +294,13 @@ def register_demo(sub: Any) -> None:
         "DIR/report.html. DIR is left as a normal store for `gaitscape serve --data DIR`.",
     )
     p.add_argument("--out", default="demo-out", help="output directory (default ./demo-out)")
-    p.add_argument("--quick", action="store_true", help="smaller study (under a minute)")
-    p.add_argument("--no-progress", action="store_true", help="no progress bars")
+    p.add_argument("--quick", action="store_true", help="smaller study (about a minute)")
+    p.add_argument("--no-progress", action="store_true", help="no progress bars or lines")
+    p.add_argument(
+        "--timeout",
+        type=float,
+        help="give up if scoring takes longer than this many seconds (default: no deadline)",
+    )
     p.set_defaults(func=_demo)
 
 
@@ -289,11 +312,19 @@ def _hardening_commands() -> list[Callable[[Any], None]]:
     return [register_check, register_backup, register_restore]
 
 
+def _http_commands() -> list[Callable[[Any], None]]:
+    # Set-up over HTTP (arena, subject, study, recipe, rescore, report): service/cli_http.py.
+    from service.cli_http import HTTP_COMMANDS
+
+    return list(HTTP_COMMANDS)
+
+
 COMMANDS: list[Callable[[Any], None]] = [
     register_serve,
     register_token,
     register_upload,
     register_demo,
+    *_http_commands(),
     *_hardening_commands(),
 ]
 
@@ -321,8 +352,23 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def quiet_third_party() -> None:
+    """No third-party warnings on a normal run.
+
+    numba tries its TBB threading layer first and warns when the TBB library is missing or
+    old; OpenMP (shipped with numba's wheels) goes first instead, and a leftover TBB notice
+    is filtered. Our own warnings are untouched.
+    """
+    import warnings
+
+    os.environ.setdefault("NUMBA_THREADING_LAYER_PRIORITY", "omp tbb workqueue")
+    warnings.filterwarnings("ignore", message=r".*TBB.*", module=r"numba(\..*)?")
+    warnings.filterwarnings("ignore", message=r".*(TBB|tbb).*")
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Console entry point ``gaitscape``."""
+    quiet_third_party()
     args = build_parser().parse_args(argv)
     return int(args.func(args) or 0)
 

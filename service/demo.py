@@ -25,6 +25,8 @@ from typing import Any, TextIO
 
 import httpx
 
+from service.report import convention as cv
+
 __all__ = ["DemoResult", "run_demo", "summary_text"]
 
 INVENTED = (
@@ -120,42 +122,51 @@ def _point_sidecars_at_ids(scenario: Any, arenas: dict[str, int], subjects: dict
 
 
 def _wait_for_jobs(
-    client: httpx.Client, *, timeout_s: float, progress: bool
+    client: httpx.Client, *, timeout_s: float | None, progress: bool
 ) -> list[dict[str, Any]]:
-    from tqdm import tqdm
+    """Scoring progress with an ETA until every job is done or failed (no deadline by default)."""
+    from service.cli_http import ServerError, wait_for_jobs
 
-    deadline = time.monotonic() + timeout_s
-    bar = None
     try:
-        while True:
-            jobs = _check(client.get("/v1/jobs?limit=1000"), "jobs")["data"]
-            if bar is None:
-                bar = tqdm(
-                    total=len(jobs),
-                    desc="scoring",
-                    unit="job",
-                    disable=not progress,
-                    file=sys.stderr,
-                    bar_format="{l_bar}{bar}| {n:.1f}/{total} jobs [{elapsed}]",
-                )
-            done = sum(
-                1.0 if j["state"] in ("done", "failed") else float(j["progress"] or 0) for j in jobs
-            )
-            bar.total = len(jobs)
-            bar.n = done
-            running = [j for j in jobs if j["state"] == "running"]
-            bar.set_postfix_str(
-                running[0]["message"][:40] if running and running[0]["message"] else ""
-            )
-            bar.refresh()
-            if all(j["state"] in ("done", "failed") for j in jobs):
-                return jobs
-            if time.monotonic() > deadline:
-                raise TimeoutError(f"scoring did not finish within {timeout_s:.0f} s")
-            time.sleep(0.5)
+        return wait_for_jobs(client, progress=progress, timeout_s=timeout_s)
+    except ServerError as exc:
+        raise TimeoutError(str(exc)) from exc
+
+
+@contextmanager
+def _ticking(desc: str, progress: bool) -> Iterator[None]:
+    """An elapsed-time line for a step of unknown length (the report)."""
+    from service.progress import Progress
+
+    bar = Progress(desc, total=None, enabled=progress)
+    stop = threading.Event()
+
+    def run() -> None:
+        while not stop.wait(min(bar.interval_s, 1.0)):
+            bar.tick()
+
+    thread = threading.Thread(target=run, name="gaitscape-demo-ticker", daemon=True)
+    thread.start()
+    try:
+        yield
     finally:
-        if bar is not None:
-            bar.close()
+        stop.set()
+        thread.join()
+        bar.close()
+
+
+def _upload_all(client: httpx.Client, planned: list[Any], progress: bool) -> list[Any]:
+    """Every file through the acquisition client's upload path, under one overall bar."""
+    from service.progress import Progress
+    from service.uploader import upload_files
+
+    sizes = [Path(p.path).stat().st_size for p in planned]
+    results = []
+    with Progress("upload", total=sum(sizes) / 1e6, unit="MB", enabled=progress) as bar:
+        for item, size in zip(planned, sizes, strict=True):
+            results += upload_files([item], client=client, progress=False)
+            bar.advance(size / 1e6)
+    return results
 
 
 def _fmt(v: Any, digits: int = 3) -> str:
@@ -173,9 +184,10 @@ def summary_text(corr: dict[str, Any], *, top: int = 10, report_path: Path | Non
 
     lines = [INVENTED, ""]
     prof = corr.get("recipe") or {}
+    label = cv.recipe_label(prof.get("name"), prof.get("version"))
     lines.append(
         f"Study: {corr.get('n_arenas')} arenas, {corr.get('n_subjects')} subjects, "
-        f"{corr.get('n_trials')} trials; recipe {prof.get('name')} v{prof.get('version')} "
+        f"{corr.get('n_trials')} trials; recipe {label} "
         f"({str(prof.get('hash', ''))[:12]}); {len(corr.get('rows') or [])} measure pairs, "
         f"{corr.get('n_permutations')} arena permutations"
         + (" (exact)" if corr.get("exact_permutations") else "")
@@ -227,8 +239,8 @@ def run_demo(
     progress: bool = True,
     out: TextIO | None = None,
     timeout_s: float | None = None,
-    n_permutations: int = 9999,
-    n_boot: int = 1999,
+    n_permutations: int = cv.N_PERMUTATIONS,
+    n_boot: int = cv.N_BOOT,
 ) -> DemoResult:
     """Build, upload, score and report the demo study in ``out_dir`` (see module docs)."""
     import demo_arena
@@ -236,7 +248,7 @@ def run_demo(
     from service.cli import ADMIN_TOKEN_FILE, _is_empty_dir, ensure_admin_token
     from service.report import render_report
     from service.settings import get_settings
-    from service.uploader import plan_uploads, summary_table, upload_files
+    from service.uploader import plan_uploads, summary_table
 
     out = out if out is not None else sys.stdout
     root = Path(out_dir).resolve()
@@ -250,7 +262,12 @@ def run_demo(
         file=out,
         flush=True,
     )
-    scenario = demo_arena.build_scenario(root / "scenario", quick=quick)
+    from service.progress import Progress
+
+    with Progress("generate", total=None, unit="files", enabled=progress) as gen:
+        scenario = demo_arena.build_scenario(
+            root / "scenario", quick=quick, on_file=lambda done, total: gen.update(done, total)
+        )
     timings["generate"] = time.monotonic() - t0
     app = create_app(settings)
     resources = app.state  # the app's own engine, sessionmaker and store
@@ -273,7 +290,7 @@ def run_demo(
             _point_sidecars_at_ids(scenario, arenas, subjects)
             planned = plan_uploads([Path(scenario.root) / "scans", Path(scenario.root) / "trials"])
             print(f"Uploading {len(planned)} files to {base_url} ...", file=out, flush=True)
-            uploads = upload_files(planned, client=client, progress=progress)
+            uploads = _upload_all(client, planned, progress)
             result.failed_uploads = [
                 f"{u.path.name}: {u.message}" for u in uploads if u.status == "failed"
             ]
@@ -281,8 +298,7 @@ def run_demo(
                 print(summary_table(uploads), file=out)
             timings["upload"] = time.monotonic() - t
             t = time.monotonic()
-            limit = timeout_s if timeout_s is not None else (300.0 if quick else 1800.0)
-            jobs = _wait_for_jobs(client, timeout_s=limit, progress=progress)
+            jobs = _wait_for_jobs(client, timeout_s=timeout_s, progress=progress)
             result.failed_jobs = [
                 f"{j['target_kind']} {j['target_id']}: {j.get('error')}"
                 for j in jobs
@@ -290,28 +306,34 @@ def run_demo(
             ]
             timings["score"] = time.monotonic() - t
             t = time.monotonic()
-            result.correspondence = _check(
-                client.get(
-                    "/v1/correspondence",
-                    params={
-                        "recipe": "default",
-                        "format": "json",
-                        "n_permutations": n_permutations,
-                        "n_boot": n_boot,
-                    },
-                ),
-                "correspondence",
-            )
+            print("Correspondence and report ...", file=out, flush=True)
+            with _ticking("correspondence", progress):
+                result.correspondence = _check(
+                    client.get(
+                        "/v1/correspondence",
+                        params={
+                            "recipe": "default",
+                            "format": "json",
+                            "n_permutations": n_permutations,
+                            "n_boot": n_boot,
+                            "seed": cv.SEED,
+                            "scans": cv.SCAN_POLICY,
+                        },
+                    ),
+                    "correspondence",
+                )
             timings["correspondence"] = time.monotonic() - t
         t = time.monotonic()
-        with app.state.sessionmaker() as session:
+        with _ticking("report", progress), app.state.sessionmaker() as session:
             html = render_report(
                 session=session,
                 store=app.state.store,
                 recipe="default",
                 correspondence=result.correspondence,
             )
-        result.report_path.write_text(html, encoding="utf-8")
+        part = result.report_path.with_name(result.report_path.name + ".part")
+        part.write_text(html, encoding="utf-8")
+        part.replace(result.report_path)
         timings["report"] = time.monotonic() - t
     finally:
         _revoke(resources, token_id)

@@ -6,6 +6,7 @@ Screenshots go to test-artifacts/ (gitignored).
 
 from __future__ import annotations
 
+import html
 import os
 import re
 import shutil
@@ -58,6 +59,7 @@ def live(tmp_path_factory: pytest.TempPathFactory):
     app = create_app(store["settings"])
     with app.state.sessionmaker() as session:
         _, secret = repo.create_token(session=session, scopes=["read"])
+        _, admin = repo.create_token(session=session, scopes=["admin"])
         # Three of the arenas with both subjects: 3 arenas, 3 x 2 trials in the study.
         study = repo.create_study(session=session, name=STUDY)
         subjects, _ = repo.list_subjects(session=session)
@@ -75,7 +77,14 @@ def live(tmp_path_factory: pytest.TempPathFactory):
         problems: list[str] = []
         page.on("console", lambda m: problems.append(m.text) if m.type == "error" else None)
         page.on("pageerror", lambda e: problems.append(str(e)))
-        yield {"base": base, "page": page, "secret": secret, "problems": problems, "store": store}
+        yield {
+            "base": base,
+            "page": page,
+            "secret": secret,
+            "admin": admin,
+            "problems": problems,
+            "store": store,
+        }
         context.close()
         browser.close()
 
@@ -192,3 +201,123 @@ def test_signed_out_page_asks_for_the_token(live) -> None:
     page.goto(live["base"] + "/ui/jobs")
     page.wait_for_selector("#login-form")
     assert page.locator("#token").is_visible()
+
+
+def _sign_in(page, base: str, secret: str) -> None:
+    page.goto(base + "/ui/login")
+    page.evaluate("sessionStorage.clear()")
+    page.fill("#token", secret)
+    page.click("button[type=submit]")
+    page.wait_for_url("**/ui/arenas")
+
+
+def test_main_result_figure_and_one_truth_with_the_report(live) -> None:
+    """The figure a person sees: arena names, axis titles with SI-prefixed units, the legend;
+    and the strongest-pairs table and settings read exactly as in the report."""
+    from playwright.sync_api import expect
+
+    page, base = live["page"], live["base"]
+    _sign_in(page, base, live["secret"])
+    page.goto(base + "/ui/correspondence")
+    page.wait_for_selector("#main-result.js-plotly-plot", timeout=120_000)
+    expect(page.locator("#pair")).to_have_value("sq_m x stride_frequency_hz")
+    svg = page.inner_text("#main-result")
+    for name in (f"tray-{a}" for a in range(N_ARENAS)):
+        assert name in svg  # every arena named beside its point
+    assert "sq_m (mm)" in svg and "stride_frequency_hz (Hz)" in svg
+    assert "arena-level fit" in svg and "subjects (mean per arena)" in svg
+    assert "1 Hz per mm" in page.inner_text("#main-caption")
+    assert "purple = positive" in page.inner_text("#grid-legend")
+    _shot(page, "main-result")
+
+    dash_rows = [
+        [c.strip() for c in row.split("\t")]
+        for row in page.inner_text("#corr-out table tbody").strip().split("\n")
+    ]
+    settings = page.inner_text("#corr-settings").removeprefix("Statistics: ")
+    r = page.request.get(
+        base + "/v1/correspondence/report",
+        headers={"Authorization": f"Bearer {live['secret']}"},
+        timeout=600_000,
+    )
+    assert r.ok
+    report = r.text()
+    table = report.split("<table id='strongest'>")[1].split("</table>")[0]
+    report_rows = [
+        [html.unescape(c) for c in re.findall(r"<td[^>]*>(.*?)</td>", row)]
+        for row in table.split("<tr>")[2:]
+    ]
+    assert dash_rows == report_rows  # every number shown in both
+    assert settings in html.unescape(report)
+    assert live["problems"] == [], live["problems"]
+
+
+def test_setup_forms_create_records(live) -> None:
+    from playwright.sync_api import expect
+
+    page, base, store = live["page"], live["base"], live["store"]
+    _sign_in(page, base, live["secret"])  # read only: the forms say which scope they need
+    page.goto(base + "/ui/setup")
+    expect(page.locator("#scopes")).to_have_text("This token may: read.")
+    expect(page.locator("#arena-name")).to_be_disabled()
+    assert "Needs a token with the 'upload' scope." in page.inner_text("#arena-form")
+
+    _sign_in(page, base, live["admin"])
+    page.goto(base + "/ui/setup")
+    expect(page.locator("#arena-name")).to_be_enabled()
+    page.fill("#arena-name", "form tray")
+    page.fill("#arena-band-lo", "4")
+    page.fill("#arena-band-hi", "60")
+    page.click("#arena-form button[type=submit]")
+    expect(page.locator("#arena-form-msg")).to_have_text(re.compile(r"^Created arena 'form tray'"))
+
+    page.select_option("#subject-from-trial", str(store["trials"][0]))
+    expect(page.locator("#marker-names option")).to_have_count(8)  # the demo rig's markers
+    expect(page.locator("#role-LF")).to_have_value("foot_LF")
+    page.fill("#subject-label", "vole-form")
+    page.fill("#role-anterior", "snout")
+    page.fill("#role-posterior", "tailbase")
+    page.click("#subject-form button[type=submit]")
+    expect(page.locator("#subject-form-msg")).to_have_text(
+        re.compile(r"^Created subject 'vole-form'")
+    )
+    page.fill("#study-name", "form study")
+    page.click("#study-form button[type=submit]")
+    expect(page.locator("#study-form-msg")).to_have_text(re.compile(r"^Created study 'form study'"))
+    page.fill("#recipe-name", "coarse")
+    page.fill("#recipe-params", '{"movement": {"ordinal_order": 3}}')
+    page.click("#recipe-form button[type=submit]")
+    expect(page.locator("#recipe-form-msg")).to_have_text(re.compile(r"coarse@1"))
+    _shot(page, "setup")
+    page.goto(base + "/ui/arenas")
+    expect(page.locator("#content table")).to_contain_text("4 to 60")  # band shown in mm
+    assert live["problems"] == [], live["problems"]
+
+
+def test_replay_controls(live) -> None:
+    from playwright.sync_api import expect
+
+    page, base, store = live["page"], live["base"], live["store"]
+    _sign_in(page, base, live["secret"])
+    page.goto(f"{base}/ui/trials/{store['trials'][0]}")
+    expect(page.locator("main h1")).to_have_text(re.compile(r"^Trial \d+: vole-a on tray-0$"))
+    page.wait_for_selector("#replay canvas", state="attached", timeout=30_000)
+    assert [o.strip() for o in page.locator("#speed option").all_inner_texts()] == [
+        "0.25x",
+        "0.5x",
+        "1x (real time)",
+    ]
+    expect(page.locator("#speed")).to_have_value("1")
+    page.select_option("#exaggeration", "10")
+    expect(page.locator("#replay-note")).to_contain_text("Heights drawn 10x")
+    # Marker names are not printed in the scene (they overlap); they show on hover.
+    assert "foot_LF" not in page.inner_text("#replay")
+    page.click("#play")
+    page.wait_for_timeout(1000)
+    page.click("#play")
+    t = float(page.inner_text("#clock").removeprefix("t = ").removesuffix(" s"))
+    # Real time: about 1 s of recording after about 1 s of wall clock (loose: a loaded
+    # machine draws fewer frames but the clock still follows the wall clock).
+    assert 0.5 <= t <= 2.0, t
+    _shot(page, "replay")
+    assert live["problems"] == [], live["problems"]

@@ -24,6 +24,7 @@ PAGES = [
     "/ui/scans/1",
     "/ui/jobs",
     "/ui/correspondence",
+    "/ui/setup",
 ]
 
 
@@ -117,6 +118,8 @@ def test_app_js_sends_the_study_on_lists_correspondence_report_and_downloads() -
     lists = r'"/v1/(?:arenas|subjects|scans|trials)["?]'
     assert len(re.findall(r"all\(scoped\(" + lists, js)) >= 5
     assert re.findall(r"all\((?!scoped\()" + lists, js) == []
+    # The set-up forms list the whole store on purpose, through everything() only.
+    assert len(re.findall(r"everything\(" + lists, js)) == 3
     # Correspondence, report and download URLs are built from q(), which carries the study.
     q_def = re.search(r"const q = \(\) => (.+);", js).group(1)
     assert "studyParam()" in q_def
@@ -137,3 +140,20 @@ def test_lists_the_dashboard_calls_accept_a_study(client_and_token) -> None:
     for path, n in (("/v1/arenas", 1), ("/v1/scans", 1), ("/v1/trials", 0), ("/v1/subjects", 0)):
         body = client.get(path, params={"study": "first tray"}, headers=auth).json()
         assert body["count"] == n, path
+
+
+def test_whoami_reports_the_token_scopes(client_and_token) -> None:
+    client, auth, _ = client_and_token
+    assert client.get("/v1/dashboard/whoami").status_code == 401
+    assert client.get("/v1/dashboard/whoami", headers=auth).json()["scopes"] == ["read"]
+    with client.app.state.sessionmaker() as session:
+        _, admin = repo.create_token(session=session, scopes=["admin"])
+    scopes = client.get("/v1/dashboard/whoami", headers={"Authorization": f"Bearer {admin}"})
+    assert set(scopes.json()["scopes"]) == {"read", "upload", "analyse", "admin"}
+
+
+def test_setup_routes_check_the_scope_again(client_and_token) -> None:
+    """A read token that bypasses the disabled form still cannot create (403)."""
+    client, auth, _ = client_and_token
+    r = client.post("/v1/arenas", json={"name": "sneaky", "kind": "runway"}, headers=auth)
+    assert r.status_code == 403

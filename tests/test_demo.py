@@ -38,6 +38,8 @@ def demo_dir(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, str]:
         timeout=1200,
     )
     assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-3000:]
+    # No third-party warnings on a normal run (numba's TBB notice, for one).
+    assert "Warning" not in proc.stderr, proc.stderr[-3000:]
     return out, proc.stdout
 
 
@@ -109,3 +111,55 @@ def test_demo_report_has_the_sections(demo_dir) -> None:
     ):
         assert f'<section id="{section}">' in html
     assert "Invented data" in html and "tray-f-boulders" in html
+
+
+def _admin_client(out: Path) -> TestClient:
+    from service.app import create_app
+    from service.settings import get_settings
+
+    app = create_app(get_settings(data_dir=out, job_runner=False))
+    return TestClient(app, headers={"Authorization": f"Bearer {admin(out)}"})
+
+
+@pytest.mark.slow
+def test_demo_terrain_has_two_groups_that_are_not_collinear(demo_dir) -> None:
+    """Issue 14 item 8: amplitude (Sq) and structure (ordinal-pattern entropy of the surface)
+    vary apart across the seven trays: Pearson |r| below 0.8 (collinear would be ~1)."""
+    import numpy as np
+
+    out, _ = demo_dir
+    from service.app import open_resources
+    from service.report import load_study
+    from service.settings import get_settings
+
+    res = open_resources(get_settings(data_dir=out))
+    try:
+        with res.sessionmaker() as session:
+            study = load_study(session=session)
+    finally:
+        res.engine.dispose()
+    values = list(study.terrain.values())
+    sq = np.array([v["sq_m"] for v in values])
+    pe = np.array([v["permutation_entropy_2d"] for v in values])
+    assert len(values) == 7
+    assert abs(np.corrcoef(sq, pe)[0, 1]) < 0.8
+
+
+@pytest.mark.slow
+def test_demo_report_and_dashboard_show_the_same_numbers(demo_dir) -> None:
+    """One truth: the dashboard's view of the demo study and the demo's report.html show the
+    same strongest pairs, slopes with units, p, q and rho, and the same settings."""
+    import html as html_lib
+    import re
+
+    out, _ = demo_dir
+    report = (out / "report.html").read_text()
+    view = _admin_client(out).get("/v1/dashboard/correspondence").json()
+    table = report.split("<table id='strongest'>")[1].split("</table>")[0]
+    rows = [
+        [html_lib.unescape(c) for c in re.findall(r"<td[^>]*>(.*?)</td>", row)]
+        for row in table.split("<tr>")[2:]
+    ]
+    assert rows == [list(r.values()) for r in view["strongest"]]
+    assert html_lib.escape(view["settings"]["text"]) in report
+    assert view["grid"]["legend"] in html_lib.unescape(report)

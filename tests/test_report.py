@@ -177,7 +177,7 @@ def test_report_has_every_section(report_html: str) -> None:
     ):
         assert f'<section id="{section}">' in report_html, section
     assert "Invented data" in report_html
-    assert "default v1" in report_html  # recipe name and version
+    assert "default@1" in report_html  # recipe name and version, one label format
 
 
 def test_report_is_self_contained(report_html: str) -> None:
@@ -200,12 +200,51 @@ def test_report_counts_and_warnings(report_html: str) -> None:
 
 
 def test_strongest_pair_is_the_planted_one(report_html: str) -> None:
-    # stride_frequency_hz = 2 + 1000 Sq + subject offset: the mixed-model slope is 1000 Hz/m
-    # exactly (the offsets are the subject intercepts), so the table shows 1e+03.
+    # stride_frequency_hz = 2 + 1000 Sq + subject offset: the arena means lie exactly on a
+    # line of slope 1000 Hz/m (analytic), i.e. 1 Hz per mm with Sq of 0.2-3.2 mm shown in mm.
     table = report_html.split("<h3>Strongest pairs</h3>")[1]
     first = table.split("<tr>")[2]
     assert "sq_m" in first and "stride_frequency_hz" in first
-    assert ">1e+03<" in first
+    assert ">1 Hz per mm [1, 1]<" in first
+
+
+def test_units_carry_si_prefixes(report_html: str) -> None:
+    # Sq of these trays runs 0.2-3.2 mm (rms_m = 0.2 mm x (a + 1)^2): the table says mm.
+    assert "<th>Sq (mm)</th>" in report_html
+    assert "e-0" not in report_html.split('<section id="summary">')[1].split("</section>")[0]
+    assert "purple = positive" in report_html  # the palette's sign is stated
+
+
+def test_view_of_the_main_result(small_store: dict) -> None:
+    """Arena means of the planted pair lie on the fit; intervals hold the mean; labels named."""
+    from service.analysis.grid import Selection, correspondence_report
+    from service.report import correspondence_view, load_study
+
+    res = open_resources(small_store["settings"])
+    try:
+        with res.sessionmaker() as session:
+            corr = correspondence_report(
+                session=session,
+                recipe="default",
+                selection=Selection(),
+                n_permutations=99,
+                n_boot=99,
+            )
+            view = correspondence_view(load_study(session=session), corr)
+    finally:
+        res.engine.dispose()
+    pair = view["pairs"]["sq_m x stride_frequency_hz"]
+    assert pair["x_label"] == "sq_m (mm)" and pair["y_label"] == "stride_frequency_hz (Hz)"
+    names = [a["name"] for a in pair["arenas"]]
+    assert names == [f"tray-{a}" for a in range(N_ARENAS)]  # ordered by Sq, named
+    (x0, y0), (x1, y1) = pair["fit_line"]
+    for a in pair["arenas"]:
+        # y = 2.025 + 1 Hz/mm * Sq (mm) for the mean of subjects 0 and 1 (analytic)
+        assert a["y"] == pytest.approx(2.025 + a["x"], abs=1e-9)
+        assert a["y_low"] <= a["y"] <= a["y_high"]
+    assert (y1 - y0) / (x1 - x0) == pytest.approx(1.0)
+    assert len(pair["subjects"]) == len(SUBJECTS)
+    assert view["grid"]["terrain"][0] == "sq_m"  # the fixed order: Sq first
 
 
 def test_report_route_needs_a_token_and_serves_html(small_store: dict) -> None:

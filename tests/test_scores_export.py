@@ -72,7 +72,7 @@ def test_tidy_csv_json_parquet_read_back(study) -> None:
         "unit",
     }
     assert sorted(frame["measure"]) == ["hurst_psd", "sdr", "sq_m"]
-    assert set(frame["recipe"]) == {"default v1"}
+    assert set(frame["recipe"]) == {"default@1"}
     values = frame.set_index("measure")["value"]
     assert values[["sq_m", "sdr"]].to_dict() == {"sq_m": 0.002, "sdr": 0.15}
     assert pd.isna(values["hurst_psd"])
@@ -128,4 +128,4 @@ def test_absurd_id_in_a_streamed_export_is_a_422_not_a_broken_stream(tmp_path):
         res = client.get("/v1/export/scores", params={"arena_id": 2**63, "format": "csv"})
         assert res.status_code == 422
         ok = client.get("/v1/export/scores", params={"arena_id": 2**63 - 1, "format": "csv"})
-        assert ok.status_code == 200
+        assert ok.status_code == 404  # in range but unknown: a clean 404 (issue 18), no cut stream

@@ -12,7 +12,7 @@ import numpy as np
 from fastapi import APIRouter, Query, Request
 from starlette.concurrency import run_in_threadpool
 
-from service.deps import ReadToken
+from service.deps import AnyToken, ReadToken, token_scopes
 from storage import repo
 from storage.errors import NotFound
 
@@ -123,3 +123,71 @@ async def trial_replay(
             return replay_payload(session, request.app.state.store, trial_id, max_frames, max_px)
 
     return await run_in_threadpool(work)
+
+
+TextList = Annotated[
+    list[str],
+    Query(description="Measures to pair (repeat or comma-separate); empty: the headline set."),
+]
+
+
+@router.get("/correspondence")
+async def correspondence_view_route(
+    request: Request,
+    token: ReadToken,
+    recipe: Annotated[str, Query(description="Recipe name whose scores are used.")] = "default",
+    study: Annotated[
+        str | None, Query(description="Limit to this study (404 when unknown).")
+    ] = None,
+    terrain_measure: TextList = [],  # noqa: B006 (never mutated)
+    movement_measure: TextList = [],  # noqa: B006
+) -> dict[str, Any]:
+    """What the dashboard's correspondence page shows: the same numbers as the report.
+
+    The correspondence is computed with the report's settings (``service.report.convention``:
+    permutations, bootstrap, seed, scan policy) and turned into display values by
+    ``service.report.view.correspondence_view``, the function the report uses.
+    """
+    from service.report.cache import shared_correspondence
+    from service.report.study import load_study
+    from service.report.view import correspondence_view
+
+    study = study.strip() if study and study.strip() else None
+
+    def split(values: list[str]) -> tuple[str, ...]:
+        return tuple(v.strip() for item in values for v in item.split(",") if v.strip())
+
+    def work() -> dict[str, Any]:
+        with request.app.state.sessionmaker() as session:
+            corr = shared_correspondence(
+                session=session,
+                recipe=recipe,
+                study=study,
+                terrain_measures=split(terrain_measure),
+                movement_measures=split(movement_measure),
+            )
+            data = load_study(session=session, recipe=recipe, study=study)
+            view = correspondence_view(data, corr)
+            view["warnings"] = list(corr.get("warnings") or [])
+            view["terrain_measures"] = corr.get("terrain_measures") or []
+            view["movement_measures"] = corr.get("movement_measures") or []
+            roughness = {a: v.get("sq_m", float("nan")) for a, v in data.terrain.items()}
+            from service.report.figures import arena_colours
+
+            colours = arena_colours([a.id for a in data.arenas], roughness)
+            view["colours"] = {str(a): _hex(c) for a, c in colours.items()}
+            return view
+
+    return await run_in_threadpool(work)
+
+
+def _hex(rgba: Any) -> str:
+    r, g, b = (round(255 * float(v)) for v in tuple(rgba)[:3])
+    return f"#{r:02x}{g:02x}{b:02x}"
+
+
+@router.get("/whoami")
+def whoami(token: AnyToken) -> dict[str, Any]:
+    """The calling token's label and scopes (admin expanded), so pages offer only the forms
+    the token may use; the routes behind the forms check the scope again."""
+    return {"label": token.label or "", "scopes": sorted(token_scopes(token))}

@@ -38,6 +38,7 @@ NAV = (
     ("trials", "/ui/trials", "Trials"),
     ("jobs", "/ui/jobs", "Jobs"),
     ("correspondence", "/ui/correspondence", "Correspondence"),
+    ("setup", "/ui/setup", "Set up"),
 )
 TITLES = {
     "login": "Sign in",
@@ -47,6 +48,7 @@ TITLES = {
     "scan": "Scan",
     "jobs": "Jobs",
     "correspondence": "Correspondence",
+    "setup": "Set up",
 }
 
 
@@ -130,6 +132,11 @@ def jobs_page() -> HTMLResponse:
 @router.get("/correspondence")
 def correspondence_page() -> HTMLResponse:
     return shell("correspondence")
+
+
+@router.get("/setup")
+def setup_page() -> HTMLResponse:
+    return shell("setup")
 
 
 @router.get("/static/{name}")

@@ -9,13 +9,16 @@ from __future__ import annotations
 
 from typing import Any
 
+from service.report import convention as cv
 from service.report.assemble import REPORT_CSP, build_report, design_warnings, strongest_pairs
 from service.report.study import StudyData, load_study
+from service.report.view import correspondence_view
 
 __all__ = [
     "REPORT_CSP",
     "StudyData",
     "build_report",
+    "correspondence_view",
     "design_warnings",
     "load_study",
     "render_report",
@@ -30,9 +33,9 @@ def render_report(
     recipe: str = "default",
     version: int | None = None,
     correspondence: dict[str, Any] | None = None,
-    n_permutations: int = 9999,
-    n_boot: int = 1999,
-    seed: int = 0,
+    n_permutations: int = cv.N_PERMUTATIONS,
+    n_boot: int = cv.N_BOOT,
+    seed: int = cv.SEED,
     study: str | None = None,
 ) -> str:
     """Compute (unless given) the correspondence of ``recipe`` and return the report HTML.
@@ -42,13 +45,13 @@ def render_report(
     summary names it. NotFound for an unknown study.
     """
     if correspondence is None:
-        from service.analysis.grid import Selection, correspondence_report
+        from service.report.cache import shared_correspondence
 
-        correspondence = correspondence_report(
+        correspondence = shared_correspondence(
             session=session,
             recipe=recipe,
             version=version,
-            selection=Selection(study=study),
+            study=study,
             n_permutations=n_permutations,
             n_boot=n_boot,
             seed=seed,

@@ -5,14 +5,17 @@ from __future__ import annotations
 import html
 import math
 from collections.abc import Mapping
+from dataclasses import replace
 from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
 
+from service.report import convention as cv
 from service.report import figures
 from service.report.panels import movement_panels, terrain_panels
 from service.report.study import StudyData, load_study
+from service.report.view import correspondence_view, strongest
 
 __all__ = ["MIN_TRIAL_S", "REPORT_CSP", "build_report", "design_warnings", "strongest_pairs"]
 
@@ -26,46 +29,6 @@ REPORT_CSP = (
     "form-action 'none'; frame-ancestors 'none'"
 )
 TERRAIN_ROUGHNESS_KEY = "sq_m"
-# The heatmap shows these when scored (the CSV and JSON hold the whole grid): the measures a
-# reader can interpret, without QC and fit diagnostics (filled fraction, R^2, cut-off).
-HEATMAP_TERRAIN = (
-    "sq_m",
-    "ssk",
-    "sku",
-    "sdq",
-    "sdr",
-    "sal_m",
-    "str",
-    "hurst_psd",
-    "hurst_variogram",
-    "slope_entropy_bits",
-    "aspect_entropy_bits",
-    "permutation_entropy_2d",
-    "js_complexity_2d",
-    "entropy_density_2d_bits",
-    "excess_entropy_2d_bits",
-)
-HEATMAP_MOVEMENT = (
-    "stride_frequency_hz",
-    "stride_length_m",
-    "duty_factor",
-    "speed_m_s",
-    "hildebrand_fore_hind_phase",
-    "rqa_det",
-    "rqa_lam",
-    "rqa_l_mean_s",
-    "rqa_entr",
-    "permutation_entropy",
-    "js_complexity",
-    "entropy_rate_bits",
-    "lz76_entropy_rate_bits",
-    "statistical_complexity_bits",
-    "sample_entropy",
-    "step_class_entropy_rate_bits",
-)
-QC_PREFIXES = ("heightmap_",)
-QC_SUFFIXES = ("_r2",)
-QC_MEASURES = frozenset({"valid_fraction", "noise_floor_m", "cutoff_hz", "n_strides"})
 
 _CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,sans-serif;margin:0;color:#1a1a1a;
@@ -99,95 +62,9 @@ def _fmt(value: Any, digits: int = 3) -> str:
     return str(value)
 
 
-# -- numbers for the figures ------------------------------------------------------------------
-def _pair_arrays(study: StudyData, terrain: str, movement: str) -> dict[str, np.ndarray]:
-    rows = [t for t in study.movement if t.arena_id in study.terrain]
-    x = np.array([study.terrain[t.arena_id].get(terrain, np.nan) for t in rows], dtype=float)
-    y = np.array([t.values.get(movement, np.nan) for t in rows], dtype=float)
-    arena = np.array([t.arena_id for t in rows], dtype=int)
-    ok = np.isfinite(x) & np.isfinite(y)
-    return {"x": x[ok], "y": y[ok], "arena": arena[ok]}
-
-
-def _standardised(study: StudyData, row: Mapping[str, Any]) -> float:
-    d = _pair_arrays(study, row["terrain_measure"], row["movement_measure"])
-    arenas = sorted(set(d["arena"].tolist()))
-    if len(arenas) < 2 or d["y"].size < 3:
-        return float("nan")
-    sd_x = float(np.std([study.terrain[a][row["terrain_measure"]] for a in arenas], ddof=1))
-    sd_y = float(np.std(d["y"], ddof=1))
-    slope = row.get("slope")
-    if slope is None or not sd_y or not math.isfinite(slope):
-        return float("nan")
-    return float(slope) * sd_x / sd_y
-
-
-def _is_qc(name: str) -> bool:
-    return name in QC_MEASURES or name.startswith(QC_PREFIXES) or name.endswith(QC_SUFFIXES)
-
-
-def informative_rows(study: StudyData, rows: list[Mapping[str, Any]]) -> list[Mapping[str, Any]]:
-    """Rows worth showing: no QC/diagnostic measures, and both measures vary in the data."""
-    varying_t = {
-        m
-        for m in {r["terrain_measure"] for r in rows}
-        if np.ptp([v.get(m, np.nan) for v in study.terrain.values()] or [0]) > 0
-    }
-    varying_m = {
-        m for m in {r["movement_measure"] for r in rows} if np.nanmax(_spread(study, m)) > 0
-    }
-    return [
-        r
-        for r in rows
-        if not _is_qc(r["terrain_measure"])
-        and not _is_qc(r["movement_measure"])
-        and r["terrain_measure"] in varying_t
-        and r["movement_measure"] in varying_m
-    ]
-
-
-def _spread(study: StudyData, measure: str) -> list[float]:
-    vals = np.array([t.values.get(measure, np.nan) for t in study.movement], dtype=float)
-    vals = vals[np.isfinite(vals)]
-    return [float(np.ptp(vals)) if vals.size else 0.0]
-
-
 def strongest_pairs(rows: list[Mapping[str, Any]], k: int = 4) -> list[Mapping[str, Any]]:
-    """The k pairs with the smallest q (then p, then largest |rho|)."""
-
-    def key(r: Mapping[str, Any]) -> tuple[float, float, float]:
-        def num(v: Any, default: float) -> float:
-            return float(v) if v is not None and math.isfinite(float(v)) else default
-
-        rho = num(r.get("spearman_rho"), 0.0)
-        return (num(r.get("q_value"), 2.0), num(r.get("p_value"), 2.0), -abs(rho))
-
-    return sorted(rows, key=key)[:k]
-
-
-def _matrix(study: StudyData, rows: list[Mapping[str, Any]], max_side: int = 16) -> dict[str, Any]:
-    # Keep the measures of the strongest pairs when the grid is too big to read.
-    t_all = set(r["terrain_measure"] for r in rows)
-    m_all = set(r["movement_measure"] for r in rows)
-    terrain = [m for m in HEATMAP_TERRAIN if m in t_all]
-    movement = [m for m in HEATMAP_MOVEMENT if m in m_all]
-    if len(terrain) < 2 or len(movement) < 2:
-        terrain = list(dict.fromkeys(r["terrain_measure"] for r in rows))
-        movement = list(dict.fromkeys(r["movement_measure"] for r in rows))
-    if len(terrain) > max_side or len(movement) > max_side:
-        best = strongest_pairs(rows, k=len(rows))
-        terrain = list(dict.fromkeys(r["terrain_measure"] for r in best))[:max_side]
-        movement = list(dict.fromkeys(r["movement_measure"] for r in best))[:max_side]
-    effect = np.full((len(terrain), len(movement)), np.nan)
-    q = np.full_like(effect, np.nan)
-    index = {(r["terrain_measure"], r["movement_measure"]): r for r in rows}
-    for i, tm in enumerate(terrain):
-        for j, mm in enumerate(movement):
-            r = index.get((tm, mm))
-            if r is not None:
-                effect[i, j] = _standardised(study, r)
-                q[i, j] = r["q_value"] if r.get("q_value") is not None else np.nan
-    return {"terrain": terrain, "movement": movement, "effect": effect, "q": q}
+    """The k pairs with the smallest q (then p, then largest |rho|); one order everywhere."""
+    return strongest(rows, k=k)
 
 
 # -- warnings ---------------------------------------------------------------------------------
@@ -237,7 +114,7 @@ def _summary_section(study: StudyData, correspondence: Mapping[str, Any]) -> str
         ("subjects", n_s),
         ("trials (scored / uploaded)", f"{n_t} / {len(study.trials)}"),
         ("scans", len(study.scans)),
-        ("recipe", f"{study.recipe_name} v{study.recipe_version}"),
+        ("recipe", cv.recipe_label(study.recipe_name, study.recipe_version)),
         ("recipe hash", study.recipe_hash),
         ("code version", "; ".join(study.code_versions) or f"gaitscape {__version__}"),
         ("report generated", datetime.now(UTC).isoformat(timespec="seconds")),
@@ -252,7 +129,8 @@ def _summary_section(study: StudyData, correspondence: Mapping[str, Any]) -> str
 def _arena_table(study: StudyData) -> str:
     """One row per arena: kind, scans, scored trials and its headline terrain values."""
     head = "<tr><th class='l'>arena</th><th class='l'>kind</th><th>scans</th><th>trials</th>"
-    head += "<th>Sq (m)</th><th>H (PSD, dimensionless)</th></tr>"
+    factor, unit = cv.si_scale([v.get("sq_m", np.nan) for v in study.terrain.values()], "m")
+    head += f"<th>Sq ({_e(unit)})</th><th>H (PSD, dimensionless)</th></tr>"
     rows = []
     for a in study.arenas:
         t = study.terrain.get(a.id, {})
@@ -260,8 +138,9 @@ def _arena_table(study: StudyData) -> str:
         n_trials = sum(m.arena_id == a.id for m in study.movement)
         rows.append(
             f"<tr><td class='l'>{_e(a.name)}</td><td class='l'>{_e(a.kind)}</td>"
-            f"<td>{n_scans}</td><td>{n_trials}</td><td>{_fmt(t.get('sq_m'))}</td>"
-            f"<td>{_fmt(t.get('hurst_psd'))}</td></tr>"
+            f"<td>{n_scans}</td><td>{n_trials}</td>"
+            f"<td>{cv.fmt_number(t.get('sq_m', np.nan) * factor)}</td>"
+            f"<td>{cv.fmt_number(t.get('hurst_psd'))}</td></tr>"
         )
     return f"<h3>Arenas</h3><table><thead>{head}</thead><tbody>{''.join(rows)}</tbody></table>"
 
@@ -292,24 +171,20 @@ def _img(uri: str, alt: str, caption: str) -> str:
     )
 
 
-def _table(rows: list[Mapping[str, Any]], units: Mapping[str, str]) -> str:
-    head = ("terrain", "movement", "slope", "95 % CI", "p", "q", "rho", "arenas", "trials")
-    out = ["<table><thead><tr>"]
-    out += [f'<th class="{"l" if i < 2 else ""}">{h}</th>' for i, h in enumerate(head)]
+def _table(view: Mapping[str, Any]) -> str:
+    cols = view["table_columns"]
+    out = ["<table id='strongest'><thead><tr>"]
+    out += [
+        f'<th class="{"l" if i < 2 else ""}">{_e(label)}</th>'
+        for i, label in enumerate(cols.values())
+    ]
     out.append("</tr></thead><tbody>")
-    for r in rows:
-        unit = f"{figures.unit_label(units.get(r['movement_measure']))} per " + figures.unit_label(
-            units.get(r["terrain_measure"])
-        )
-        out.append(
-            f'<tr><td class="l">{_e(r["terrain_measure"])}</td>'
-            f'<td class="l">{_e(r["movement_measure"])}</td>'
-            f'<td title="{_e(unit)}">{_fmt(r.get("slope"))}</td>'
-            f"<td>[{_fmt(r.get('ci_low'))}, {_fmt(r.get('ci_high'))}]</td>"
-            f"<td>{_fmt(r.get('p_value'))}</td><td>{_fmt(r.get('q_value'))}</td>"
-            f"<td>{_fmt(r.get('spearman_rho'), 2)}</td><td>{_e(r.get('n_arenas', ''))}</td>"
-            f"<td>{_e(r.get('n_trials', ''))}</td></tr>"
-        )
+    for r in view["strongest"]:
+        cells = [
+            f'<td class="{"l" if i < 2 else ""}" data-k="{_e(k)}">{_e(r[k])}</td>'
+            for i, k in enumerate(cols)
+        ]
+        out.append("<tr>" + "".join(cells) + "</tr>")
     out.append("</tbody></table>")
     return "".join(out)
 
@@ -360,9 +235,12 @@ def _figure_sections(
     store: Any,
     colours: dict[int, Any],
 ) -> list[str]:
-    rows = informative_rows(study, list(correspondence.get("rows") or []))
     parts = ['<section id="terrain"><h2>Terrain</h2>']
-    tpanels = terrain_panels(study, store)
+    # The legend's H is the table's (the correspondence's scan policy), never another scan's.
+    tpanels = [
+        replace(p, hurst=float(study.terrain.get(p.arena_id, {}).get("hurst_psd", np.nan)))
+        for p in terrain_panels(study, store)
+    ]
     if tpanels:
         thumbs, spectra = figures.terrain_figure(tpanels, colours)
         parts.append(
@@ -398,41 +276,38 @@ def _figure_sections(
     else:
         parts.append("<p>No scored trial yet.</p>")
     parts.append('</section><section id="correspondence"><h2>Correspondence</h2>')
-    if rows:
-        m = _matrix(study, rows)
-        parts.append(
-            _img(
-                figures.heatmap_figure(m["terrain"], m["movement"], m["effect"], m["q"]),
-                "correspondence heatmap",
-                "Mixed-model slope (subject as random intercept) scaled by the SD of the "
-                "terrain measure across arenas over the SD of the movement measure "
-                "across trials; * = q < 0.05 (arena-level permutation test, "
-                "Benjamini-Hochberg across the grid); grey = not estimable.",
-            )
-        )
-        best = strongest_pairs(rows, k=4)
-        pairs = []
-        for r in best:
-            d = _pair_arrays(study, r["terrain_measure"], r["movement_measure"])
-            pairs.append(
-                {
-                    **r,
-                    **d,
-                    "terrain_unit": study.units.get(r["terrain_measure"]),
-                    "movement_unit": study.units.get(r["movement_measure"]),
-                }
-            )
-        pairs = [p for p in pairs if p["x"].size]
-        if pairs:
+    view = correspondence_view(study, correspondence)
+    parts.append(
+        f"<p id='settings'>Statistics: {_e(view['settings']['text'])}; "
+        f"{_e(view['counts']['pairs'])} pairs shown.</p>"
+    )
+    if view["strongest"]:
+        best = [
+            view["pairs"][f"{r['terrain']} x {r['movement']}"]
+            for r in view["strongest"]
+            if f"{r['terrain']} x {r['movement']}" in view["pairs"]
+        ]
+        if best:
             parts.append(
                 _img(
-                    figures.scatter_figure(pairs, colours),
-                    "strongest pairs",
-                    "Strongest pairs: trials (dots), arena means (diamonds), the "
-                    "mixed-model slope through the centroid and its 95 % CI (band).",
+                    figures.main_result_figure(best, colours),
+                    "main result: arena means of the strongest pairs",
+                    "Main result, strongest pairs: each arena's mean (diamond, named) with "
+                    "its 95 % interval over subjects; grey lines: each subject's means "
+                    "across arenas; black line: the arena-level fit "
+                    f"({best[0]['fit_source']}). Colour: arena roughness rank.",
                 )
             )
-        parts.append("<h3>Strongest pairs</h3>" + _table(best, study.units))
+        parts.append("<h3>Strongest pairs</h3>" + _table(view))
+        parts.append(
+            _img(
+                figures.heatmap_figure(view["grid"]),
+                "correspondence heatmap",
+                f"{view['grid']['statistic']}: {view['grid']['legend']} "
+                "(q: arena-level permutation test, Benjamini-Hochberg across the grid); "
+                "grey = not estimable.",
+            )
+        )
         parts.append(
             "<p>Pairs with a QC measure or a measure constant across the study are left "
             "out of the figures; the full grid is in the JSON and CSV "

@@ -36,9 +36,9 @@ __all__ = [
     "arena_colours",
     "complexity_entropy_figure",
     "heatmap_figure",
+    "main_result_figure",
     "movement_figure",
     "png_data_uri",
-    "scatter_figure",
     "terrain_figure",
     "unit_label",
 ]
@@ -212,16 +212,34 @@ def movement_figure(panels: list[MovementPanel]) -> str:
 
 
 # -- correspondence ---------------------------------------------------------------------------
-def heatmap_figure(
-    terrain: list[str], movement: list[str], effect: np.ndarray, q: np.ndarray
-) -> str:
-    """Standardised slopes (rows terrain, columns movement); '*' marks q < 0.05."""
-    fig = _figure(max(5.0, 0.42 * len(movement) + 2.8), max(2.6, 0.36 * len(terrain) + 1.9))
+def _diverging() -> Any:
+    from matplotlib.colors import LinearSegmentedColormap
+
+    from service.report.convention import DIVERGING
+
+    return LinearSegmentedColormap.from_list("gaitscape-diverging", list(DIVERGING)).with_extremes(
+        bad="#dddddd"
+    )
+
+
+def heatmap_figure(grid: dict[str, Any]) -> str:
+    """The grid of ``service.report.view``: rows terrain (top first), columns movement."""
+    terrain, movement = grid["terrain"], grid["movement"]
+    effect = np.array(
+        [[np.nan if v is None else v for v in row] for row in grid["effect"]], dtype=float
+    ).reshape(len(terrain), len(movement))
+    q = np.array(
+        [[np.nan if v is None else v for v in row] for row in grid["q"]], dtype=float
+    ).reshape(len(terrain), len(movement))
+    fig = _figure(max(5.0, 0.42 * len(movement) + 3.2), max(2.6, 0.36 * len(terrain) + 2.3))
     ax = fig.add_subplot()
-    lim = float(np.nanmax(np.abs(effect))) if np.isfinite(effect).any() else 1.0
-    lim = max(min(lim, 3.0), 0.1)
-    cmap = colormaps["PuOr"].with_extremes(bad="#dddddd")
-    im = ax.imshow(np.ma.masked_invalid(effect), cmap=cmap, vmin=-lim, vmax=lim, aspect="auto")
+    im = ax.imshow(
+        np.ma.masked_invalid(effect),
+        cmap=_diverging(),
+        vmin=grid["zmin"],
+        vmax=grid["zmax"],
+        aspect="auto",
+    )
     for i in range(len(terrain)):
         for j in range(len(movement)):
             if np.isfinite(q[i, j]) and q[i, j] < 0.05:
@@ -230,49 +248,57 @@ def heatmap_figure(
     ax.set_yticks(range(len(terrain)), terrain)
     ax.set_xlabel("movement measure")
     ax.set_ylabel("terrain measure")
-    fig.colorbar(im, ax=ax, label="standardised slope (SD movement per SD terrain)")
-    ax.set_title("Correspondence: mixed-model slope x SD(terrain) / SD(movement); * q < 0.05")
+    fig.colorbar(im, ax=ax, label=f"{grid['statistic']} (dimensionless)")
+    ax.set_title(grid["legend"], fontsize=8)
     return png_data_uri(fig)
 
 
-def scatter_figure(pairs: list[dict[str, Any]], colours: dict[int, Any]) -> str:
-    """One panel per pair: trials (small), arena means (large), slope line with CI band."""
+def main_result_figure(pairs: list[dict[str, Any]], colours: dict[int, Any]) -> str:
+    """Per pair: arena means with arena-level intervals and names, subjects as faint lines,
+    the arena-level fit (``service.report.view`` pair views, display units)."""
     n = len(pairs)
     cols = min(2, n)
     rows = math.ceil(n / cols)
-    fig = _figure(4.7 * cols, 3.3 * rows)
+    fig = _figure(5.2 * cols, 3.9 * rows)
     for k, pair in enumerate(pairs):
         ax = fig.add_subplot(rows, cols, k + 1)
-        x, y, arena = pair["x"], pair["y"], pair["arena"]
-        ax.scatter(x, y, s=14, c=[colours.get(a, "grey") for a in arena], alpha=0.7, lw=0)
-        for a in sorted(set(arena)):
-            sel = arena == a
-            ax.scatter(
-                x[sel].mean(),
-                y[sel].mean(),
-                s=70,
-                color=colours.get(a, "grey"),
-                edgecolor="black",
-                lw=0.8,
-                marker="D",
-                zorder=3,
-            )
-        ok = np.isfinite(x) & np.isfinite(y)
-        slope, lo, hi = (_float(pair.get(k)) for k in ("slope", "ci_low", "ci_high"))
-        if ok.sum() >= 2 and np.isfinite(slope):
-            xm, ym = x[ok].mean(), y[ok].mean()
-            xs = np.linspace(x[ok].min(), x[ok].max(), 50)
-            ax.plot(xs, ym + slope * (xs - xm), color="black", lw=1.2)
+        for s in pair["subjects"]:
+            pts = np.asarray(s["points"], dtype=float)
+            ax.plot(pts[:, 0], pts[:, 1], color="0.55", lw=0.8, alpha=0.45, zorder=1)
+        if pair["fit_line"]:
+            line = np.asarray(pair["fit_line"], dtype=float)
+            ax.plot(line[:, 0], line[:, 1], color="black", lw=1.4, zorder=2)
+        for a in pair["arenas"]:
+            c = colours.get(a["arena_id"], "grey")
+            lo, hi = _float(a["y_low"]), _float(a["y_high"])
             if np.isfinite(lo) and np.isfinite(hi):
-                band = np.stack([ym + lo * (xs - xm), ym + hi * (xs - xm)])
-                ax.fill_between(xs, band.min(0), band.max(0), color="black", alpha=0.12, lw=0)
-        ax.set_xlabel(axis_label(pair["terrain_measure"], pair["terrain_unit"]))
-        ax.set_ylabel(axis_label(pair["movement_measure"], pair["movement_unit"]))
-        ax.set_title(
-            f"slope {_num(slope)} [{_num(lo)}, {_num(hi)}], p = {_num(pair['p_value'])}, "
-            f"q = {_num(pair['q_value'])}, rho = {_num(pair['spearman_rho'], 2)}",
-            fontsize=8,
-        )
+                ax.plot([a["x"], a["x"]], [lo, hi], color=c, lw=2.0, zorder=3)
+            ax.scatter(
+                a["x"], a["y"], s=55, color=c, edgecolor="black", lw=0.8, marker="D", zorder=4
+            )
+            ha = "left" if a["label_x"] >= a["x"] else "right"
+            props = {"arrowstyle": "-", "color": "0.4", "lw": 0.6} if a["leader"] else None
+            ax.annotate(
+                a["name"],
+                (a["x"], a["y"]),
+                xytext=(a["label_x"], a["label_y"]),
+                textcoords="data",
+                fontsize=7,
+                ha=ha,
+                va="center",
+                arrowprops=props,
+                zorder=5,
+            )
+        ax.set_xlim(*pair["x_range"])
+        ax.set_ylim(*pair["y_range"])
+        ax.set_xlabel(pair["x_label"])
+        ax.set_ylabel(pair["y_label"])
+        ax.set_title(pair["title"], fontsize=7.5)
+    ax = fig.axes[0]
+    ax.plot([], [], color="0.55", lw=0.8, alpha=0.6, label="subjects (mean per arena)")
+    ax.plot([], [], color="black", lw=1.4, label="arena-level fit")
+    ax.errorbar([], [], yerr=[], fmt="D", color="grey", label="arena mean, 95 % interval")
+    ax.legend(loc="best", frameon=False, fontsize=7)
     return png_data_uri(fig)
 
 

@@ -144,6 +144,33 @@ def _representative_trials(study: StudyData, key: str | None) -> list[int]:
     return picks
 
 
+_DERIVED_KEYS = ("recurrence_image", "ssa_pair", "class_sequence", "signal_time_s")
+
+
+def _stored_arrays(session: Any, store: Any, trial_id: int, recipe_hash: str) -> Any | None:
+    """The plot arrays the scoring job stored (``derived`` table), when the repository offers
+    ``load_derived``; None otherwise. Expected: a mapping with ``_DERIVED_KEYS``."""
+    load = getattr(repo, "load_derived", None)
+    if load is None:
+        return None
+    try:
+        arrays = load(
+            session=session,
+            store=store,
+            target_kind="trial",
+            target_id=trial_id,
+            recipe_hash=recipe_hash,
+        )
+    except Exception as exc:  # not stored for this trial: fall back below
+        log.info("report: no stored plot arrays for trial %s: %s", trial_id, exc)
+        return None
+    if not arrays or any(k not in arrays for k in _DERIVED_KEYS):
+        return None
+    from types import SimpleNamespace
+
+    return SimpleNamespace(**{k: np.asarray(arrays[k]) for k in _DERIVED_KEYS})
+
+
 def movement_panels(
     study: StudyData, *, session: Any, store: Any, rank_by: str | None = "sq_m"
 ) -> list[MovementPanel]:
@@ -153,6 +180,18 @@ def movement_panels(
     params = dict(study.parameters.get("movement") or {})
     out = []
     for trial_id in _representative_trials(study, rank_by):
+        try:
+            trial = repo.get_trial(session=session, trial_id=trial_id)
+            subject = repo.get_subject(session=session, subject_id=trial.subject_id)
+            summary = _stored_arrays(session, store, trial_id, study.recipe_hash)
+        except Exception as exc:  # a plot must never sink the whole report
+            log.warning("report: movement panel for trial %s failed: %s", trial_id, exc)
+            continue
+        if summary is not None:  # views read what jobs stored
+            out.append(_movement_panel(study, trial, subject, summary))
+            continue
+        # FALLBACK until the pipeline stores plot arrays for every trial (derived table):
+        # re-run the movement summary on the stored raw trial for these two plots only.
         try:
             trial = repo.get_trial(session=session, trial_id=trial_id)
             subject = repo.get_subject(session=session, subject_id=trial.subject_id)
@@ -172,17 +211,19 @@ def movement_panels(
         except Exception as exc:  # a plot must never sink the whole report
             log.warning("report: movement panel for trial %s failed: %s", trial_id, exc)
             continue
-        t = summary.signal_time_s
-        out.append(
-            MovementPanel(
-                trial_id=trial_id,
-                arena_name=study.arena_name(trial.arena_id),
-                subject_label=subject.label,
-                recurrence=np.asarray(summary.recurrence_image),
-                duration_s=float(t[-1] - t[0]) if t.size > 1 else 0.0,
-                ssa_pair=np.asarray(summary.ssa_pair),
-                class_sequence=np.asarray(summary.class_sequence),
-                frame_rate_hz=float(data.frame_rate_hz),
-            )
-        )
+        out.append(_movement_panel(study, trial, subject, summary))
     return out
+
+
+def _movement_panel(study: StudyData, trial: Any, subject: Any, summary: Any) -> MovementPanel:
+    t = np.asarray(summary.signal_time_s)
+    return MovementPanel(
+        trial_id=trial.id,
+        arena_name=study.arena_name(trial.arena_id),
+        subject_label=subject.label,
+        recurrence=np.asarray(summary.recurrence_image),
+        duration_s=float(t[-1] - t[0]) if t.size > 1 else 0.0,
+        ssa_pair=np.asarray(summary.ssa_pair),
+        class_sequence=np.asarray(summary.class_sequence),
+        frame_rate_hz=float(trial.frame_rate_hz),
+    )

@@ -10,6 +10,7 @@ from starlette.concurrency import run_in_threadpool
 
 from service.deps import ReadToken
 from service.report import REPORT_CSP, render_report
+from service.report import convention as cv
 
 router = APIRouter(tags=["correspondence"])
 
@@ -25,11 +26,17 @@ REPORT_HEADERS = {
 async def get_report(
     request: Request,
     token: ReadToken,
-    recipe: str = "default",
-    version: int | None = None,
-    n_permutations: Annotated[int, Query(ge=99, le=99_999)] = 9999,
-    n_boot: Annotated[int, Query(ge=99, le=99_999)] = 1999,
-    seed: int = 0,
+    recipe: Annotated[str, Query(description="Recipe name whose scores are used.")] = "default",
+    version: Annotated[
+        int | None, Query(description="Recipe version (default: the latest).")
+    ] = None,
+    n_permutations: Annotated[
+        int, Query(ge=99, le=99_999, description="Arena permutations (the dashboard's too).")
+    ] = cv.N_PERMUTATIONS,
+    n_boot: Annotated[
+        int, Query(ge=99, le=99_999, description="Hierarchical bootstrap replicates.")
+    ] = cv.N_BOOT,
+    seed: Annotated[int, Query(description="Seed of permutations and bootstrap.")] = cv.SEED,
     study: Annotated[
         str | None, Query(description="Limit the report to this study (404 when unknown).")
     ] = None,

@@ -66,6 +66,7 @@ def score_filters(
     study name its id."""
     if recipe is not None:
         recipe_hash = repo.get_recipe(session=session, name=recipe, version=recipe_version).hash
+    _known_ids(session, arena_id, subject_id, trial_id, scan_id)
     return ScoreFilters(
         target_kind=target_kind, arena_id=arena_id, subject_id=subject_id, trial_id=trial_id,
         scan_id=scan_id, condition=condition, recipe_hash=recipe_hash, measure=measure,
@@ -86,6 +87,48 @@ def list_scores(
     return ScoresPublic(data=[ScoreRowPublic.model_validate(r) for r in rows], count=count)
 
 
+# -- (ui, issue 18 item 6) unknown ids are 404; frames typed as pandas expects -------------
+def _known_ids(
+    session: Any,
+    arena_id: int | None,
+    subject_id: int | None,
+    trial_id: int | None,
+    scan_id: int | None,
+) -> None:
+    """An unknown id in a filter is a 404 (NotFound), as an unknown study is, never an empty
+    table that a typo would make look like 'no scores'."""
+    if arena_id is not None:
+        repo.get_arena(session=session, arena_id=arena_id)
+    if subject_id is not None:
+        repo.get_subject(session=session, subject_id=subject_id)
+    if trial_id is not None:
+        repo.get_trial(session=session, trial_id=trial_id)
+    if scan_id is not None:
+        repo.get_scan(session=session, scan_id=scan_id)
+
+
+_INT_COLUMNS = ("target_id", "arena_id", "subject_id")
+_FLOAT_COLUMNS = ("value", "ci_low", "ci_high", "surrogate_z")
+
+
+def _typed(frame: Any) -> Any:
+    """Ids as nullable integers (Int64), values as float64 with NaN, ``computed_at`` as a UTC
+    timestamp: what ``pandas.read_parquet`` then returns without a cast by the user."""
+    import pandas as pd
+
+    frame = frame.copy()
+    for col in _INT_COLUMNS:
+        if col in frame:
+            frame[col] = pd.array(pd.to_numeric(frame[col]), dtype="Int64")
+    for col in _FLOAT_COLUMNS:
+        if col in frame:
+            frame[col] = pd.to_numeric(frame[col], errors="coerce").astype("float64")
+    if "computed_at" in frame:
+        frame["computed_at"] = pd.to_datetime(frame["computed_at"], utc=True)
+    return frame
+
+
+# -- end (ui) ------------------------------------------------------------------------------------
 def _recipe_labels(session: Any) -> dict[str, str]:
     # Equal parameters share a hash; the earliest name and version labels it.
     labels: dict[str, str] = {}
@@ -93,7 +136,7 @@ def _recipe_labels(session: Any) -> dict[str, str]:
     while True:
         rows, count = repo.list_recipes(session=session, offset=offset, limit=1000)
         for p in rows:
-            labels.setdefault(p.hash, f"{p.name} v{p.version}")
+            labels.setdefault(p.hash, f"{p.name}@{p.version}")  # one label format (ui)
         offset += len(rows)
         if not rows or offset >= count:
             return labels
@@ -178,7 +221,7 @@ def export_scores(
                                  headers=headers)  # fmt: skip
     if shape == "tidy" and format == "json":
         return StreamingResponse(_json_array(rows), media_type=MEDIA["json"], headers=headers)
-    frame = _frame(rows, shape)
+    frame = _typed(_frame(rows, shape))
     if format == "parquet":
         buf = io.BytesIO()
         frame.to_parquet(buf, index=False)

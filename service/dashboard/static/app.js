@@ -5,8 +5,8 @@
 
 const TOKEN_KEY = "gaitscape-token";
 const STUDY_KEY = "gaitscape-study";
-const PUOR = [[0, "#2d004b"], [0.125, "#542788"], [0.25, "#8073ac"], [0.375, "#b2abd2"],
-  [0.5, "#f7f7f7"], [0.625, "#fdb863"], [0.75, "#e08214"], [0.875, "#b35806"], [1, "#7f3b08"]];
+// The diverging palette, its sign and every number on the correspondence page come from the
+// server (service/report/convention.py via /v1/dashboard/correspondence), as in the report.
 
 function token() { return sessionStorage.getItem(TOKEN_KEY); }
 // The study chosen in the header ("" = all studies); lists, correspondence and exports send it.
@@ -128,7 +128,7 @@ async function arenasPage() {
     { label: "id", get: a => a.id, num: true },
     { label: "name", get: a => a.name },
     { label: "kind", get: a => a.kind },
-    { label: "scale band (m)", get: a => a.scale_band_m ? a.scale_band_m.map(v => fmt(v)).join(" to ") : "whole scan" },
+    { label: "animal-scale band (mm)", get: a => a.scale_band_m ? a.scale_band_m.map(v => fmt(v * 1000)).join(" to ") : "whole scan" },
     { label: "scans", get: a => el("span", {}, nScans(a.id).map((s, i) => [i ? ", " : "", link("/ui/scans/" + s.id, "#" + s.id + " " + s.format)])) },
     { label: "trials", get: a => link("/ui/trials?arena_id=" + a.id, String(trials.filter(t => t.arena_id === a.id).length)) },
     { label: "notes", get: a => a.notes },
@@ -171,14 +171,36 @@ async function trialsPage() {
   await load();
 }
 
-function scoreTable(scores) {
+// A value in SI base units with an SI prefix (um, mm), as the report prints it.
+function siValue(v, unit) {
+  const plain = !unit || unit === "1" ? "dimensionless" : unit;
+  if (typeof v !== "number" || !isFinite(v) || !["m", "s", "m/s"].includes(unit) || v === 0) return [fmt(v), plain];
+  const a = Math.abs(v);
+  for (const [f, p] of [[1, ""], [1e3, "m"], [1e6, "u"], [1e9, "n"]]) {
+    if (a * f >= 1 || f === 1e9) return [fmt(v * f), p + unit];
+  }
+  return [fmt(v), plain];
+}
+
+let recipeLabels = null;
+async function recipeLabel(hash) {
+  if (recipeLabels === null) {
+    recipeLabels = {};
+    for (const r of await all("/v1/recipes")) if (!(r.hash in recipeLabels)) recipeLabels[r.hash] = r.name + "@" + r.version;
+  }
+  return recipeLabels[hash] || (hash || "").slice(0, 10);
+}
+
+async function scoreTable(scores) {
+  const labels = await Promise.all(scores.map(s => recipeLabel(s.recipe_hash)));
+  const rows = scores.map((s, i) => Object.assign({}, s, { label: labels[i], shown: siValue(s.value, s.unit) }));
   return table([
     { label: "measure", get: s => s.measure },
-    { label: "value", get: s => s.value, num: true },
-    { label: "unit", get: s => s.unit },
+    { label: "value", get: s => s.shown[0], num: true },
+    { label: "unit", get: s => s.shown[1] },
     { label: "surrogate z", get: s => s.surrogate_z, num: true },
-    { label: "recipe", get: s => s.recipe || (s.recipe_hash || "").slice(0, 10) },
-  ], scores, scores.length + " scores");
+    { label: "recipe", get: s => s.label },
+  ], rows, rows.length + " scores");
 }
 
 function kv(obj, keys) {
@@ -187,51 +209,91 @@ function kv(obj, keys) {
 
 async function trialPage(id) {
   const trial = await api("/v1/trials/" + id);
+  const [arena, subject] = await Promise.all([api("/v1/arenas/" + trial.arena_id), api("/v1/subjects/" + trial.subject_id)]);
+  document.querySelector("main h1").textContent = "Trial " + id + ": " + subject.label + " on " + arena.name;
   const plot = el("div", { id: "replay", class: "plot", role: "img", "aria-label": "3D replay of the trial's markers over the arena heightmap" });
   const slider = el("input", { type: "range", id: "frame", min: 0, max: 0, value: 0, "aria-label": "frame" });
   const play = el("button", { type: "button", id: "play", text: "Play" });
+  const speed = el("select", { id: "speed", "aria-label": "playback speed" },
+    [["0.25", "0.25x"], ["0.5", "0.5x"], ["1", "1x (real time)"]].map(([v, t]) => el("option", { value: v, text: t, selected: v === "1" })));
+  const exag = el("select", { id: "exaggeration", "aria-label": "vertical exaggeration" },
+    [1, 2, 5, 10, 20].map(v => el("option", { value: v, text: v + "x", selected: v === 5 })));
   const clock = el("span", { id: "clock", "aria-live": "off" });
-  show(kv(trial, ["id", "arena_id", "subject_id", "filename", "format", "frame_rate_hz", "n_frames", "n_markers", "condition", "recorded_at"]),
-    el("h2", { text: "3D replay" }), el("div", { class: "controls" }, play, el("label", {}, "frame", slider), clock), plot,
+  const facts = { arena: arena.name, subject: subject.label, file: trial.filename, format: trial.format,
+    "frame rate (Hz)": trial.frame_rate_hz, frames: trial.n_frames, markers: trial.n_markers,
+    "duration (s)": trial.frame_rate_hz ? trial.n_frames / trial.frame_rate_hz : null, condition: trial.condition, recorded: trial.recorded_at };
+  show(kv(facts, Object.keys(facts)),
+    el("h2", { text: "3D replay" }),
+    el("div", { class: "controls" }, play, el("label", {}, "speed", speed), el("label", {}, "vertical exaggeration", exag),
+      el("label", {}, "frame", slider), clock), plot,
     el("p", { id: "replay-note" }), el("h2", { text: "Scores" }), el("div", { id: "scores" }));
   const scores = await all("/v1/scores?trial_id=" + id + "&target_kind=trial");
-  document.getElementById("scores").replaceChildren(scoreTable(scores));
+  document.getElementById("scores").replaceChildren(await scoreTable(scores));
   const rep = await api("/v1/dashboard/trials/" + id + "/replay");
-  document.getElementById("replay-note").textContent = rep.note + " Markers: " + rep.source + ", every " + rep.frame_step + " frame(s).";
+  document.getElementById("replay-note").textContent = rep.note + " Markers: " + rep.source + ", every " + rep.frame_step +
+    " frame(s). Heights drawn " + exag.value + "x; marker names on hover.";
+  const MM = 1000;  // draw in millimetres
   const frameXYZ = f => {
     const m = rep.markers_m[f];
-    return { x: [m.map(p => p[0])], y: [m.map(p => p[1])], z: [m.map(p => p[2])] };
+    const g = v => v === null ? null : v * MM;
+    return { x: [m.map(p => g(p[0]))], y: [m.map(p => g(p[1]))], z: [m.map(p => g(p[2]))] };
   };
+  // The box that holds the ground and the whole path: the camera is fitted to it.
+  const xs = [], ys = [], zs = [];
+  for (const f of rep.markers_m) for (const p of f) if (p[0] !== null) { xs.push(p[0] * MM); ys.push(p[1] * MM); zs.push(p[2] * MM); }
   const traces = [];
   if (rep.ground) {
-    traces.push({ type: "surface", x: rep.ground.x_m, y: rep.ground.y_m, z: rep.ground.z_m, colorscale: "Cividis",
-      showscale: true, colorbar: { title: { text: "height (m)" } }, name: "ground", opacity: 0.95 });
+    const gz = rep.ground.z_m.map(r => r.map(v => v === null ? null : v * MM));
+    traces.push({ type: "surface", x: rep.ground.x_m.map(v => v * MM), y: rep.ground.y_m.map(v => v * MM), z: gz, colorscale: "Cividis",
+      showscale: true, colorbar: { title: { text: "height (mm)" } }, name: "ground", opacity: 0.95, hovertemplate: "ground %{z:.2f} mm<extra></extra>" });
+    xs.push(rep.ground.x_m[0] * MM, rep.ground.x_m[rep.ground.x_m.length - 1] * MM);
+    ys.push(rep.ground.y_m[0] * MM, rep.ground.y_m[rep.ground.y_m.length - 1] * MM);
+    for (const r of gz) for (const v of r) if (v !== null) zs.push(v);
   }
+  const lo = v => v.reduce((a, b) => Math.min(a, b), Infinity), hi = v => v.reduce((a, b) => Math.max(a, b), -Infinity);
+  const box = { x: [lo(xs), hi(xs)], y: [lo(ys), hi(ys)], z: [lo(zs), hi(zs)] };
   const f0 = frameXYZ(0);
-  traces.push({ type: "scatter3d", mode: "markers+text", x: f0.x[0], y: f0.y[0], z: f0.z[0], text: rep.marker_names,
-    textposition: "top center", marker: { size: 4, color: "#D55E00" }, name: "markers" });
-  const layout = { margin: { l: 0, r: 0, t: 10, b: 0 }, scene: { aspectmode: "data",
-    xaxis: { title: { text: "x (m)" } }, yaxis: { title: { text: "y (m)" } }, zaxis: { title: { text: "z (m)" } } },
-    legend: { x: 0, y: 1 } };
-  await Plotly.newPlot(plot, traces, layout, { responsive: true, displaylogo: false });
+  // Labels only on hover: names printed beside 8 markers a few millimetres apart overlap.
+  traces.push({ type: "scatter3d", mode: "markers", x: f0.x[0], y: f0.y[0], z: f0.z[0], text: rep.marker_names,
+    hovertemplate: "%{text}<br>x %{x:.1f} mm, y %{y:.1f} mm, z %{z:.1f} mm<extra></extra>",
+    marker: { size: 4, color: "#D55E00" }, name: "markers (name on hover)" });
+  const aspect = () => {
+    const w = box.x[1] - box.x[0] || 1;
+    return { x: 1, y: (box.y[1] - box.y[0]) / w, z: Math.max((box.z[1] - box.z[0]) / w * Number(exag.value), 0.02) };
+  };
+  const scene = () => ({ aspectmode: "manual", aspectratio: aspect(),
+    xaxis: { title: { text: "x (mm)" }, range: box.x }, yaxis: { title: { text: "y (mm)" }, range: box.y },
+    zaxis: { title: { text: "z (mm, " + exag.value + "x)" }, range: box.z },
+    camera: { eye: { x: 0.05, y: -0.62, z: 0.32 }, center: { x: 0, y: 0, z: -0.05 } } });
+  await Plotly.newPlot(plot, traces, { margin: { l: 0, r: 0, t: 10, b: 0 }, scene: scene(), legend: { x: 0, y: 1 } },
+    { responsive: true, displaylogo: false });
+  exag.addEventListener("change", () => {
+    Plotly.relayout(plot, { "scene.aspectratio": aspect(), "scene.zaxis.title.text": "z (mm, " + exag.value + "x)" });
+    document.getElementById("replay-note").textContent = document.getElementById("replay-note").textContent.replace(/Heights drawn [0-9.]+x/, "Heights drawn " + exag.value + "x");
+  });
   const last = rep.markers_m.length - 1;
   slider.max = String(last);
-  let timer = null;
   const draw = f => {
     Plotly.restyle(plot, frameXYZ(f), [traces.length - 1]);
     clock.textContent = "t = " + fmt(rep.time_s[f]) + " s";
   };
   slider.addEventListener("input", () => draw(Number(slider.value)));
-  play.addEventListener("click", () => {
-    if (timer) { clearInterval(timer); timer = null; play.textContent = "Play"; return; }
-    play.textContent = "Pause";
-    const dt = 1000 * rep.frame_step / rep.frame_rate_hz;
-    timer = setInterval(() => {
-      const f = (Number(slider.value) + 1) % (last + 1);
-      slider.value = String(f);
-      draw(f);
-    }, Math.max(dt, 40));
-  });
+  // Real-time playback: the frame shown follows the wall clock times the speed (frames are
+  // skipped when drawing is slower than the recording), never one frame per timer tick.
+  let running = false, t0 = 0, start = 0;
+  const tick = now => {
+    if (!running) return;
+    const t = rep.time_s[start] + (now - t0) / 1000 * Number(speed.value);
+    let f = start;
+    while (f < last && rep.time_s[f + 1] <= t) f++;
+    if (f >= last) f = last;
+    if (String(f) !== slider.value) { slider.value = String(f); draw(f); }
+    if (f >= last) { running = false; play.textContent = "Play"; return; }
+    requestAnimationFrame(tick);
+  };
+  const begin = () => { start = Number(slider.value) >= last ? 0 : Number(slider.value); t0 = performance.now(); running = true; play.textContent = "Pause"; requestAnimationFrame(tick); };
+  play.addEventListener("click", () => { if (running) { running = false; play.textContent = "Play"; } else begin(); });
+  speed.addEventListener("change", () => { if (running) begin(); });
   draw(0);
 }
 
@@ -241,7 +303,7 @@ async function scanPage(id) {
   show(kv(scan, ["id", "arena_id", "filename", "format", "kind", "units", "n_points", "grid_nx", "grid_ny", "grid_dx_m", "captured_at"]),
     el("h2", { text: "Heightmap" }), plot, el("h2", { text: "Scores" }), el("div", { id: "scores" }));
   const scores = await all("/v1/scores?scan_id=" + id + "&target_kind=scan");
-  document.getElementById("scores").replaceChildren(scoreTable(scores));
+  document.getElementById("scores").replaceChildren(await scoreTable(scores));
   try {
     const hm = await api("/v1/dashboard/scans/" + id + "/heightmap");
     await Plotly.newPlot(plot, [{ type: "surface", x: hm.x_m, y: hm.y_m, z: hm.z_m, colorscale: "Cividis",
@@ -311,44 +373,198 @@ async function correspondencePage() {
     return parts.length ? "&" + parts.join("&") : "";
   }
   async function compute(first) {
-    out.replaceChildren(el("p", { text: "Computing (permutation test and bootstrap)..." }));
-    const res = await api("/v1/correspondence?" + q() + selected() + "&n_permutations=999&n_boot=499");
+    out.replaceChildren(el("p", { id: "corr-busy", text: "Computing (arena permutation test and bootstrap, the report's settings)..." }));
+    const v = await api("/v1/dashboard/correspondence?" + q() + selected());
     if (first) {
       const fill = (sel, list) => sel.replaceChildren(...list.map(m => el("option", { value: m, text: m })));
-      fill(tSel, res.terrain_measures || []);
-      fill(mSel, res.movement_measures || []);
+      fill(tSel, v.terrain_measures || []);
+      fill(mSel, v.movement_measures || []);
     }
-    const rows = res.rows || [];
-    const tm = [...new Set(rows.map(r => r.terrain_measure))];
-    const mm = [...new Set(rows.map(r => r.movement_measure))];
-    const z = tm.map(t => mm.map(m => { const r = rows.find(x => x.terrain_measure === t && x.movement_measure === m); return r ? r.spearman_rho : null; }));
-    const txt = tm.map(t => mm.map(m => { const r = rows.find(x => x.terrain_measure === t && x.movement_measure === m); return r && r.q_value !== null && r.q_value < 0.05 ? "*" : ""; }));
-    const heat = el("div", { id: "heatmap", class: "plot", role: "img", "aria-label": "heatmap of Spearman rho of arena means, stars mark q below 0.05" });
-    const best = rows.filter(r => r.q_value !== null).sort((a, b) => a.q_value - b.q_value || a.p_value - b.p_value).slice(0, 25);
-    const warn = (res.warnings || []).length ? el("div", { class: "warnings", role: "alert" }, el("ul", {}, res.warnings.map(w => el("li", { text: w })))) : null;
+    const warn = (v.warnings || []).length ? el("div", { class: "warnings", role: "alert" }, el("ul", {}, v.warnings.map(w => el("li", { text: w })))) : null;
+    const pairKeys = Object.keys(v.pairs || {});
+    const pairSel = el("select", { id: "pair", name: "pair" }, pairKeys.map(k => el("option", { value: k, text: k, selected: k === v.default_pair })));
+    const main = el("div", { id: "main-result", class: "plot", role: "img", "aria-label": "main result: arena means of the selected pair with intervals, subjects and the arena-level fit" });
+    const heat = el("div", { id: "heatmap", class: "plot", role: "img", "aria-label": v.grid.statistic + "; " + v.grid.legend });
+    const cols = v.table_columns;
     out.replaceChildren(
-      el("p", { id: "corr-study", text: "Study: " + (res.study || "all studies") }),
-      el("p", { id: "corr-counts", text: res.n_arenas + " arenas, " + res.n_subjects + " subjects, " + res.n_trials + " trials; " + rows.length + " pairs (quick settings: 999 permutations, 499 bootstrap draws)" }),
-      warn, heat, el("h2", { text: "Strongest pairs" }),
-      table([
-        { label: "terrain", get: r => r.terrain_measure }, { label: "movement", get: r => r.movement_measure },
-        { label: "slope", get: r => r.slope, num: true }, { label: "CI low", get: r => r.ci_low, num: true },
-        { label: "CI high", get: r => r.ci_high, num: true }, { label: "p", get: r => r.p_value, num: true },
-        { label: "q", get: r => r.q_value, num: true }, { label: "rho", get: r => r.spearman_rho, num: true },
-      ], best));
-    await Plotly.newPlot(heat, [{ type: "heatmap", x: mm, y: tm, z, text: txt, texttemplate: "%{text}", colorscale: PUOR,
-      zmin: -1, zmax: 1, colorbar: { title: { text: "Spearman rho (arena means)" } },
+      el("p", { id: "corr-study", text: "Study: " + (v.study || "all studies") }),
+      el("p", { id: "corr-counts", text: v.counts.arenas + " arenas, " + v.counts.subjects + " subjects, " + v.counts.trials + " trials; " + v.counts.pairs + " pairs shown" }),
+      el("p", { id: "corr-settings", text: "Statistics: " + v.settings.text }),
+      warn,
+      el("h2", { text: "Main result" }),
+      el("div", { class: "controls" }, el("label", {}, "pair", pairSel)),
+      main,
+      el("p", { id: "main-caption", class: "caption" }),
+      el("h2", { text: "Strongest pairs" }),
+      table(Object.entries(cols).map(([k, label]) => ({ label, get: r => r[k] })), v.strongest),
+      el("h2", { text: "Grid" }),
+      el("p", { id: "grid-legend", text: v.grid.statistic + ": " + v.grid.legend }),
+      heat);
+    const drawPair = () => mainResult(main, v.pairs[pairSel.value], v.colours || {});
+    pairSel.addEventListener("change", () => drawPair().catch(showError));
+    if (pairKeys.length) await drawPair();
+    const txt = v.grid.q.map(row => row.map(x => x !== null && x < 0.05 ? "*" : ""));
+    await Plotly.newPlot(heat, [{ type: "heatmap", x: v.grid.movement, y: v.grid.terrain, z: v.grid.effect, text: txt,
+      texttemplate: "%{text}", colorscale: v.grid.palette, zmin: v.grid.zmin, zmax: v.grid.zmax,
+      colorbar: { title: { text: v.grid.statistic + " (dimensionless)" } },
       hovertemplate: "%{y} x %{x}<br>rho = %{z:.2f}<extra></extra>" }],
-      { margin: { l: 200, r: 10, t: 10, b: 180 }, height: Math.max(420, 22 * tm.length + 220),
-        xaxis: { title: { text: "movement measure" }, tickangle: -60 }, yaxis: { title: { text: "terrain measure" }, automargin: true } },
+      { margin: { l: 200, r: 10, t: 10, b: 180 }, height: Math.max(420, 22 * v.grid.terrain.length + 220),
+        xaxis: { title: { text: "movement measure" }, tickangle: -60 },
+        // Rows top to bottom in the report's order.
+        yaxis: { title: { text: "terrain measure" }, automargin: true, autorange: "reversed" } },
       { responsive: true, displaylogo: false });
   }
   run.addEventListener("click", () => compute(false).catch(showError));
   if (names.length) await compute(true);
 }
 
+// The main-result figure of one pair view (display units, label positions from the server).
+async function mainResult(node, p, colours) {
+  if (!p) { node.replaceChildren(el("p", { text: "No pair to show." })); return; }
+  const traces = [];
+  p.subjects.forEach((s, i) => traces.push({ type: "scatter", mode: "lines", x: s.points.map(q => q[0]), y: s.points.map(q => q[1]),
+    line: { color: "rgba(120,120,120,0.45)", width: 1 }, name: "subjects (mean per arena)", legendgroup: "subjects",
+    showlegend: i === 0, hovertemplate: s.subject + "<extra></extra>" }));
+  if (p.fit_line.length) traces.push({ type: "scatter", mode: "lines", x: p.fit_line.map(q => q[0]), y: p.fit_line.map(q => q[1]),
+    line: { color: "black", width: 2 }, name: "arena-level fit", hoverinfo: "skip" });
+  const a = p.arenas;
+  traces.push({ type: "scatter", mode: "markers", x: a.map(r => r.x), y: a.map(r => r.y), name: "arena mean, 95 % interval",
+    marker: { symbol: "diamond", size: 10, color: a.map(r => colours[String(r.arena_id)] || "grey"), line: { color: "black", width: 1 } },
+    error_y: { type: "data", symmetric: false, array: a.map(r => r.y_high === null ? 0 : r.y_high - r.y),
+      arrayminus: a.map(r => r.y_low === null ? 0 : r.y - r.y_low), color: "#444", thickness: 1.5 },
+    text: a.map(r => r.name), hovertemplate: "%{text}<br>" + p.x_label + " = %{x:.3g}<br>" + p.y_label + " = %{y:.3g}<extra></extra>" });
+  const annotations = a.map(r => r.leader
+    ? { x: r.x, y: r.y, ax: r.label_x, ay: r.label_y, axref: "x", ayref: "y", text: r.name, showarrow: true, arrowhead: 0,
+        arrowcolor: "#666", arrowwidth: 0.8, font: { size: 11 }, xanchor: r.label_x >= r.x ? "left" : "right" }
+    : { x: r.label_x, y: r.label_y, text: r.name, showarrow: false, font: { size: 11 }, xanchor: r.label_x >= r.x ? "left" : "right" });
+  document.getElementById("main-caption").textContent = p.title + ". Fit: " + p.fit_source + ". Intervals: 95 % over subjects.";
+  await Plotly.newPlot(node, traces, { margin: { l: 70, r: 10, t: 10, b: 55 }, height: 460, annotations,
+    xaxis: { title: { text: p.x_label }, range: p.x_range, zeroline: false },
+    yaxis: { title: { text: p.y_label }, range: p.y_range, zeroline: false },
+    legend: { orientation: "h", y: -0.18 } }, { responsive: true, displaylogo: false });
+}
+
+// -- set-up forms ------------------------------------------------------------------------------
+// Every form posts to the resource route (which checks the token's scope again); a form the
+// token may not use is shown disabled with the scope it needs.
+function field(label, input, help) {
+  return el("label", { class: "field" }, el("span", { text: label }), input, help ? el("small", { text: help }) : null);
+}
+
+function formBox(id, title, scope, me, inputs, submit) {
+  const msg = el("p", { class: "form-msg", id: id + "-msg", role: "status" });
+  const allowed = me.scopes.includes(scope);
+  const form = el("form", { id, class: "setup" }, el("h2", { text: title }),
+    allowed ? null : el("p", { class: "note", text: "Needs a token with the '" + scope + "' scope." }),
+    el("fieldset", { disabled: !allowed }, inputs, el("button", { type: "submit", text: title })), msg);
+  form.addEventListener("submit", async ev => {
+    ev.preventDefault();
+    msg.className = "form-msg";
+    msg.textContent = "Sending...";
+    try {
+      msg.textContent = await submit();
+      msg.className = "form-msg ok";
+    } catch (err) {
+      msg.className = "form-msg error";
+      msg.textContent = String(err.message || err);
+    }
+  });
+  return form;
+}
+
+const post = (path, body) => api(path, { method: "POST", headers: { "Content-Type": "application/json" }, body: JSON.stringify(body) });
+const num = id => { const v = document.getElementById(id).value.trim(); return v === "" ? null : Number(v); };
+const val = id => document.getElementById(id).value.trim();
+
+// The set-up forms offer every record in the store, whichever study the header has chosen.
+const everything = path => all(path);
+
+async function setupPage() {
+  const [me, arenas, subjects, trials, recipes] = await Promise.all([api("/v1/dashboard/whoami"),
+    everything("/v1/arenas"), everything("/v1/subjects"), everything("/v1/trials"), all("/v1/recipes")]);
+  const recipeNames = [...new Set(recipes.map(r => r.name))];
+  const arenaForm = formBox("arena-form", "Create arena", "upload", me, [
+    field("name", el("input", { id: "arena-name", required: true })),
+    field("kind", el("select", { id: "arena-kind" }, ["runway", "open_field", "treadmill", "other"].map(k => el("option", { value: k, text: k.replace("_", " ") })))),
+    field("animal-scale band, shortest wavelength (mm)", el("input", { id: "arena-band-lo", type: "number", step: "any", min: "0", value: "5" }), "about the foot size"),
+    field("animal-scale band, longest wavelength (mm)", el("input", { id: "arena-band-hi", type: "number", step: "any", min: "0", value: "80" }), "about the stride length; leave both empty for the whole scan"),
+    field("notes", el("input", { id: "arena-notes" })),
+  ], async () => {
+    const lo = num("arena-band-lo"), hi = num("arena-band-hi");
+    const body = { name: val("arena-name"), kind: val("arena-kind"), notes: val("arena-notes"),
+      scale_band_m: lo === null || hi === null ? null : [lo / 1000, hi / 1000] };
+    const a = await post("/v1/arenas", body);
+    return "Created arena '" + a.name + "' (id " + a.id + ").";
+  });
+  // Marker roles: pick from the markers of an uploaded trial, or type them.
+  const roleIds = ["anterior", "posterior", "LF", "RF", "LH", "RH"];
+  const markerList = el("datalist", { id: "marker-names" });
+  const trialPick = el("select", { id: "subject-from-trial" }, el("option", { value: "", text: "(type the names)" }),
+    trials.map(t => el("option", { value: t.id, text: "trial " + t.id + ": " + t.filename })));
+  trialPick.addEventListener("change", () => {
+    const t = trials.find(x => String(x.id) === trialPick.value);
+    const names = t ? t.marker_names || [] : [];
+    markerList.replaceChildren(...names.map(n => el("option", { value: n })));
+    for (const r of roleIds) {
+      const inp = document.getElementById("role-" + r);
+      const guess = names.find(n => n.toLowerCase().includes(r.toLowerCase()) && (r.length > 2 || /foot|toe|paw|_/i.test(n)));
+      if (!inp.value && guess) inp.value = guess;
+    }
+  });
+  const subjectForm = formBox("subject-form", "Create subject", "upload", me, [
+    field("label", el("input", { id: "subject-label", required: true })),
+    field("species", el("input", { id: "subject-species" })),
+    field("body length (mm)", el("input", { id: "subject-length", type: "number", step: "any", min: "0" })),
+    field("mass (g)", el("input", { id: "subject-mass", type: "number", step: "any", min: "0" })),
+    field("markers of trial", trialPick, "fills the marker lists below from an uploaded trial"),
+    markerList,
+    roleIds.map(r => field(r === "anterior" ? "anterior marker (head end)" : r === "posterior" ? "posterior marker (tail end)" : "foot " + r,
+      el("input", { id: "role-" + r, list: "marker-names", required: true }))),
+  ], async () => {
+    const len = num("subject-length"), mass = num("subject-mass");
+    const body = { label: val("subject-label"), species: val("subject-species"),
+      marker_roles: { anterior: val("role-anterior"), posterior: val("role-posterior"),
+        feet: Object.fromEntries(["LF", "RF", "LH", "RH"].map(f => [f, val("role-" + f)])) },
+      body_length_m: len === null ? null : len / 1000, mass_kg: mass === null ? null : mass / 1000 };
+    const sj = await post("/v1/subjects", body);
+    return "Created subject '" + sj.label + "' (id " + sj.id + ").";
+  });
+  const multi = (id, rows, text) => el("select", { id, multiple: true, size: Math.min(6, Math.max(2, rows.length)) }, rows.map(r => el("option", { value: r.id, text: text(r) })));
+  const studyForm = formBox("study-form", "Create study", "upload", me, [
+    field("name", el("input", { id: "study-name", required: true })),
+    field("notes", el("input", { id: "study-notes" })),
+    field("arenas", multi("study-arenas", arenas, a => a.name)),
+    field("subjects", multi("study-subjects", subjects, s => s.label), "their trials on these arenas join the study"),
+  ], async () => {
+    const st = await post("/v1/studies", { name: val("study-name"), notes: val("study-notes") });
+    const ids = sel => [...document.getElementById(sel).selectedOptions].map(o => Number(o.value));
+    const m = await post("/v1/studies/" + st.id + "/members", { arena_ids: ids("study-arenas"), subject_ids: ids("study-subjects") });
+    return "Created study '" + m.name + "' (id " + m.id + ", " + m.arena_ids.length + " arenas, " + m.subject_ids.length + " subjects).";
+  });
+  const recipeForm = formBox("recipe-form", "Create recipe", "analyse", me, [
+    field("name", el("input", { id: "recipe-name", required: true })),
+    field("parameter overrides (JSON by section: movement, terrain, heightmap)",
+      el("textarea", { id: "recipe-params", rows: 3, text: "{}" }), "unnamed parameters take today's defaults"),
+  ], async () => {
+    let params;
+    try { params = JSON.parse(val("recipe-params") || "{}"); } catch (e) { throw new Error("parameters are not valid JSON: " + e.message); }
+    const r = await post("/v1/recipes", { name: val("recipe-name"), parameters: params });
+    return (r.created ? "Created recipe " : "Recipe unchanged: ") + r.name + "@" + r.version + ".";
+  });
+  const rescoreForm = formBox("rescore-form", "Start rescore", "analyse", me, [
+    field("recipe", el("select", { id: "rescore-recipe" }, recipeNames.map(n => el("option", { value: n, text: n })))),
+    field("arenas (none selected: every scan and trial)", multi("rescore-arenas", arenas, a => a.name)),
+  ], async () => {
+    const ids = [...document.getElementById("rescore-arenas").selectedOptions].map(o => Number(o.value));
+    const r = await post("/v1/jobs/rescore", ids.length ? { recipe: val("rescore-recipe"), arena_ids: ids } : { recipe: val("rescore-recipe"), all: true });
+    return "Queued " + r.count + " scoring jobs under " + r.recipe.name + "@" + r.recipe.version + " (see Jobs).";
+  });
+  show(el("p", { id: "scopes", text: "This token may: " + me.scopes.join(", ") + "." }),
+    el("div", { class: "setup-grid" }, arenaForm, subjectForm, studyForm, recipeForm, rescoreForm));
+}
+
 // -- boot -------------------------------------------------------------------------------------
-const PAGES = { arenas: arenasPage, trials: trialsPage, trial: trialPage, scan: scanPage, jobs: jobsPage, correspondence: correspondencePage };
+const PAGES = { arenas: arenasPage, trials: trialsPage, trial: trialPage, scan: scanPage, jobs: jobsPage, correspondence: correspondencePage, setup: setupPage };
 
 async function boot() {
   const page = document.body.dataset.page;
