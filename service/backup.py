@@ -21,7 +21,6 @@ SECURITY and operations); ``backup`` refuses them rather than half-doing the job
 from __future__ import annotations
 
 import argparse
-import hashlib
 import json
 import os
 import shutil
@@ -32,6 +31,9 @@ import tempfile
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
+
+from service.console import settings_from_args
+from storage.artifacts import sha256_file
 
 __all__ = [
     "BACKUP_FORMAT",
@@ -45,19 +47,10 @@ __all__ = [
 BACKUP_FORMAT = 1
 MANIFEST = "manifest.json"
 DB_MEMBER = "gaitscape.sqlite"
-_CHUNK = 1 << 20
 
 
 class BackupError(Exception):
     """A backup or restore that cannot go ahead; the message says why."""
-
-
-def _sha256_file(path: Path) -> str:
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(_CHUNK), b""):
-            digest.update(chunk)
-    return digest.hexdigest()
 
 
 def _sqlite_path(settings: Any) -> Path:
@@ -117,7 +110,7 @@ def backup_store(*, settings: Any, out: str | Path, artifacts_only: bool = False
             _snapshot_sqlite(db_path, tmp / DB_MEMBER)
             manifest["database"] = {
                 "file": DB_MEMBER,
-                "sha256": _sha256_file(tmp / DB_MEMBER),
+                "sha256": sha256_file(tmp / DB_MEMBER),
                 "size": (tmp / DB_MEMBER).stat().st_size,
             }
         for sha in store.iter_shas():
@@ -191,11 +184,11 @@ def _check_members(root: Path) -> dict[str, Any]:
     db = manifest.get("database")
     if db:
         path = root / DB_MEMBER
-        if not path.is_file() or _sha256_file(path) != db["sha256"]:
+        if not path.is_file() or sha256_file(path) != db["sha256"]:
             raise BackupError("the database in the backup does not match its manifest")
     for sha in manifest.get("artifacts", {}):
         path = root / _member(sha)
-        if not path.is_file() or _sha256_file(path) != sha:
+        if not path.is_file() or sha256_file(path) != sha:
             raise BackupError(f"artifact {sha} in the backup is missing or damaged")
     return manifest
 
@@ -226,11 +219,10 @@ def restore_store(*, settings: Any, source: str | Path) -> dict[str, Any]:
 
 # -- command line -----------------------------------------------------------------------------
 def _backup(args: argparse.Namespace) -> int:
-    from service.cli import _settings
 
     try:
         manifest = backup_store(
-            settings=_settings(args), out=args.out, artifacts_only=args.artifacts_only
+            settings=settings_from_args(args), out=args.out, artifacts_only=args.artifacts_only
         )
     except BackupError as exc:
         print(f"gaitscape backup: {exc}", file=sys.stderr)
@@ -241,10 +233,9 @@ def _backup(args: argparse.Namespace) -> int:
 
 
 def _restore(args: argparse.Namespace) -> int:
-    from service.cli import _settings
 
     try:
-        manifest = restore_store(settings=_settings(args), source=args.source)
+        manifest = restore_store(settings=settings_from_args(args), source=args.source)
     except BackupError as exc:
         print(f"gaitscape restore: {exc}", file=sys.stderr)
         return 1

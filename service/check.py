@@ -27,6 +27,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from service.console import format_table, settings_from_args
+
 __all__ = ["PROBLEM_KINDS", "CheckReport", "Problem", "check_store", "register_check"]
 
 #: Problem kinds, in report order. The first two are damage that repair cannot undo.
@@ -72,7 +74,6 @@ class CheckReport:
 
     def table(self) -> str:
         """A plain table: one line per problem kind, then the problems themselves."""
-        from service.cli import format_table
 
         rows = [("check", "found", "repaired")]
         for kind in PROBLEM_KINDS:
@@ -257,9 +258,8 @@ def check_store(
 # -- command line -----------------------------------------------------------------------------
 def _check(args: argparse.Namespace) -> int:
     from service.app import open_resources
-    from service.cli import _settings
 
-    resources = open_resources(_settings(args))
+    resources = open_resources(settings_from_args(args))
     try:
         report = check_store(
             sessionmaker=resources.sessionmaker,

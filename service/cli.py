@@ -13,45 +13,18 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
-__all__ = ["COMMANDS", "build_parser", "ensure_admin_token", "main"]
+from service.console import (
+    ADMIN_TOKEN_FILE,
+    ensure_admin_token,
+    format_table,
+    is_empty_dir,
+    settings_from_args,
+)
+from storage.models import TOKEN_SCOPES
 
-ADMIN_TOKEN_FILE = "admin-token"
-SCOPES = ("read", "upload", "analyse", "admin")
+__all__ = ["COMMANDS", "build_parser", "ensure_admin_token", "format_table", "main"]
 
-
-def _settings(args: argparse.Namespace, **extra: Any) -> Any:
-    from service.settings import get_settings
-
-    overrides = {"data_dir": Path(args.data)} if getattr(args, "data", None) else {}
-    return get_settings(**overrides, **extra)
-
-
-def _is_empty_dir(path: Path) -> bool:
-    return not path.exists() or (path.is_dir() and not any(path.iterdir()))
-
-
-def ensure_admin_token(settings: Any, *, first_start: bool) -> str | None:
-    """On a first start (empty data dir), create an admin token and write DATA/admin-token.
-
-    Returns the secret when one was made. The file is created with mode 0600 from the start
-    (``os.open`` with the mode), so the secret is never readable by others, even briefly.
-    """
-    if not first_start:
-        return None
-    from service.app import open_resources
-    from storage import repo
-
-    resources = open_resources(settings)
-    try:
-        with resources.sessionmaker() as session:
-            _, secret = repo.create_token(session=session, scopes=["admin"], label="first start")
-    finally:
-        resources.engine.dispose()
-    path = settings.data_dir / ADMIN_TOKEN_FILE
-    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
-    with os.fdopen(fd, "w") as fh:
-        fh.write(secret + "\n")
-    return secret
+SCOPES = TOKEN_SCOPES
 
 
 # -- serve ----------------------------------------------------------------------------------
@@ -65,8 +38,8 @@ def _serve(args: argparse.Namespace) -> int:
         overrides["host"] = args.host
     if args.port is not None:
         overrides["port"] = args.port
-    settings = _settings(args, **overrides)
-    first_start = _is_empty_dir(settings.data_dir)
+    settings = settings_from_args(args, **overrides)
+    first_start = is_empty_dir(settings.data_dir)
     app = create_app(settings)
     secret = ensure_admin_token(settings, first_start=first_start)
     token_file = settings.data_dir / ADMIN_TOKEN_FILE
@@ -112,7 +85,7 @@ def register_serve(sub: Any) -> None:
 def _with_session(args: argparse.Namespace, work: Callable[[Any], int]) -> int:
     from service.app import open_resources
 
-    resources = open_resources(_settings(args))
+    resources = open_resources(settings_from_args(args))
     try:
         with resources.sessionmaker() as session:
             return work(session)
@@ -327,15 +300,6 @@ COMMANDS: list[Callable[[Any], None]] = [
     *_http_commands(),
     *_hardening_commands(),
 ]
-
-
-def format_table(rows: Sequence[Sequence[str]]) -> str:
-    """Plain aligned columns; the first row is the header."""
-    widths = [max(len(str(r[i])) for r in rows) for i in range(len(rows[0]))]
-    lines = [
-        "  ".join(str(c).ljust(w) for c, w in zip(r, widths, strict=True)).rstrip() for r in rows
-    ]
-    return "\n".join(lines)
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -16,6 +16,8 @@ import time
 from pathlib import Path
 from typing import Any
 
+from service.console import format_table
+
 __all__ = ["HTTP_COMMANDS", "ServerError"]
 
 DEFAULT_SERVER = "http://127.0.0.1:8000"
@@ -76,7 +78,6 @@ def _run(args: argparse.Namespace) -> int:
 
 
 def _table(rows: list[tuple[Any, ...]]) -> None:
-    from service.cli import format_table
 
     print(format_table([tuple(str(c) for c in r) for r in rows]))
 

@@ -25,6 +25,7 @@ from typing import Any, TextIO
 
 import httpx
 
+from service.console import ADMIN_TOKEN_FILE, ensure_admin_token, format_table, is_empty_dir
 from service.report import convention as cv
 
 __all__ = ["DemoResult", "run_demo", "summary_text"]
@@ -179,7 +180,6 @@ def _fmt(v: Any, digits: int = 3) -> str:
 
 def summary_text(corr: dict[str, Any], *, top: int = 10, report_path: Path | None = None) -> str:
     """The readable console summary: study counts, strongest pairs, warnings."""
-    from service.cli import format_table
     from service.report import strongest_pairs
 
     lines = [INVENTED, ""]
@@ -245,7 +245,6 @@ def run_demo(
     """Build, upload, score and report the demo study in ``out_dir`` (see module docs)."""
     import demo_arena
     from service.app import create_app
-    from service.cli import ADMIN_TOKEN_FILE, _is_empty_dir, ensure_admin_token
     from service.report import render_report
     from service.settings import get_settings
     from service.uploader import plan_uploads, summary_table
@@ -254,7 +253,7 @@ def run_demo(
     root = Path(out_dir).resolve()
     timings: dict[str, float] = {}
     t0 = time.monotonic()
-    first_start = _is_empty_dir(root)
+    first_start = is_empty_dir(root)
     settings = get_settings(data_dir=root, job_runner=True, log_level="warning")
     print(INVENTED, file=out)
     print(

@@ -21,6 +21,7 @@ from sqlalchemy.orm import Session
 from service.settings import Settings
 from storage import repo
 from storage.artifacts import ArtifactStore
+from storage.models import TOKEN_SCOPES
 
 __all__ = [
     "SCOPES",
@@ -41,7 +42,7 @@ __all__ = [
     "token_scopes",
 ]
 
-SCOPES = ("read", "upload", "analyse", "admin")
+SCOPES = TOKEN_SCOPES
 
 
 class FailedAuthLimiter:

@@ -10,6 +10,8 @@ from typing import Any, Generic, Literal, TypeVar
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
+from storage.models import JobState, TokenScope
+
 __all__ = [
     "ArenaCreate",
     "ArenaPublic",
@@ -60,7 +62,7 @@ T = TypeVar("T")
 # Mirrors storage.models.ARENA_KINDS (service must not need the ORM to validate a request).
 ARENA_KINDS = ("open_field", "runway", "treadmill", "other")
 
-Scope = Literal["read", "upload", "analyse", "admin"]
+Scope = TokenScope
 # Lengths accepted on the way in (storage.readers.UNIT_SCALE): SI, and the international and
 # US survey foot that lidar and survey data come in.
 Units = Literal["m", "cm", "mm", "um", "\u00b5m", "\u03bcm", "ft", "us_ft"]
@@ -387,7 +389,7 @@ class JobPublic(_Out):
     kind: str | None = None
     target_kind: str | None = None
     target_id: int | None = None
-    state: Literal["queued", "running", "done", "failed"]
+    state: JobState
     progress: float = 0.0
     message: str = ""
     error: str | None = None

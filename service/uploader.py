@@ -47,7 +47,6 @@ failed or was not attempted.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import sys
 import time
@@ -57,6 +56,9 @@ from pathlib import Path
 from typing import Any, BinaryIO, TextIO
 
 import httpx
+
+from service.console import format_table
+from storage.artifacts import sha256_file
 
 __all__ = [
     "FOLDER_META",
@@ -232,12 +234,7 @@ def _server_meta(kind: str, meta: dict[str, Any]) -> tuple[dict[str, Any], str]:
     return out, ""
 
 
-def file_sha256(path: Path) -> str:
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(CHUNK), b""):
-            digest.update(chunk)
-    return digest.hexdigest()
+file_sha256 = sha256_file  # the client hashes exactly as the store names files
 
 
 # -- sending ----------------------------------------------------------------------------------
@@ -439,7 +436,6 @@ def upload_files(
 
 
 def summary_table(results: list[UploadResult]) -> str:
-    from service.cli import format_table
 
     rows = [("file", "kind", "status", "id", "message")]
     rows += [

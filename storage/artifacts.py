@@ -26,10 +26,31 @@ import numpy as np
 
 from storage.errors import ArtifactCorrupt, BadInput, NotFound, StoreFull, TooLarge
 
-__all__ = ["ArtifactStore", "StagedFile", "Stager", "npy_bytes"]
+__all__ = ["ArtifactStore", "StagedFile", "Stager", "npy_bytes", "sha256_file"]
 
 _SHA_RE = re.compile(r"^[0-9a-f]{64}$")
 _CHUNK = 1 << 20
+
+
+def sha256_file(path: str | Path) -> str:
+    """The hex sha256 of a file's bytes, read in 1 MiB chunks (the one file hash we use).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     f = pathlib.Path(d) / "x"
+    ...     _ = f.write_bytes(b"abc")
+    ...     sha256_file(f)[:16]  # FIPS 180-2 example "abc"
+    'ba7816bf8f01cfea'
+    """
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(_CHUNK), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
 _FULL_ERRNOS = {errno.ENOSPC, errno.EDQUOT}
 
 
@@ -267,11 +288,10 @@ class ArtifactStore:
 
     def verify(self, sha256: str) -> bool:
         """Whether the stored bytes still hash to their name."""
-        digest = hashlib.sha256()
-        with self.open(sha256) as fh:
-            for chunk in iter(lambda: fh.read(_CHUNK), b""):
-                digest.update(chunk)
-        return digest.hexdigest() == sha256
+        try:
+            return sha256_file(self.path(sha256)) == sha256
+        except FileNotFoundError:
+            raise NotFound("artifact", sha256) from None
 
     def remove(self, sha256: str) -> bool:
         """Delete an object; True if it existed. Callers check no row refers to it."""

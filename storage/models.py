@@ -9,7 +9,7 @@ Studies group arenas, subjects and trials through membership tables (``study_are
 from __future__ import annotations
 
 from datetime import UTC, datetime
-from typing import Any, ClassVar
+from typing import Any, ClassVar, Literal, get_args
 
 from sqlalchemy import (
     JSON,
@@ -54,8 +54,11 @@ __all__ = [
 ]
 
 ARENA_KINDS = ("open_field", "runway", "treadmill", "other")
-JOB_STATES = ("queued", "running", "done", "failed")
-TOKEN_SCOPES = ("read", "upload", "analyse", "admin")
+# The one definition of job states and token scopes; schemas, routes and the CLI use these.
+JobState = Literal["queued", "running", "done", "failed"]
+TokenScope = Literal["read", "upload", "analyse", "admin"]
+JOB_STATES: tuple[str, ...] = get_args(JobState)
+TOKEN_SCOPES: tuple[str, ...] = get_args(TokenScope)
 TARGET_KINDS = ("scan", "trial")
 
 # Deterministic constraint names, so Alembic (batch mode on SQLite) can find them again.

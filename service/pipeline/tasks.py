@@ -8,7 +8,6 @@ artifact store must be on a file system every worker sees at the same path.
 
 from __future__ import annotations
 
-import hashlib
 import math
 import os
 from collections.abc import Mapping
@@ -31,7 +30,6 @@ __all__ = [
     "warm_up",
 ]
 
-_CHUNK = 1 << 20
 #: Largest heightmap (cells) a job may allocate unless the settings say otherwise:
 #: 4096 x 4096, 128 MiB per float64 array (the terrain summary holds several at once).
 DEFAULT_MAX_GRID_CELLS = 4096 * 4096
@@ -92,13 +90,10 @@ def blas_threads() -> int:
 
 def _verify(path: str, sha256: str) -> None:
     # The store names files by content; a mismatch means the bytes changed on disk.
+    from storage.artifacts import sha256_file
     from storage.errors import ArtifactCorrupt
 
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        while chunk := fh.read(_CHUNK):
-            digest.update(chunk)
-    if digest.hexdigest() != sha256:
+    if sha256_file(path) != sha256:
         raise ArtifactCorrupt(sha256)
 
 

@@ -17,11 +17,10 @@ from service.schemas import (
     RescoreRequest,
 )
 from storage import repo
+from storage.models import JobState
 from storage.repo.jobs import enqueue_jobs, select_targets
 
 router = APIRouter(prefix="/jobs", tags=["jobs"])
-
-JobState = Literal["queued", "running", "done", "failed"]
 
 
 @router.get("")

@@ -23,6 +23,7 @@ from storage.readers._common import (
     ReaderLimits,
     ScanData,
     TrialData,
+    canonical_unit,
     display_name,
     unit_to_m,
 )
@@ -37,6 +38,7 @@ __all__ = [
     "ReaderLimits",
     "ScanData",
     "TrialData",
+    "canonical_unit",
     "detect_format",
     "read_scan",
     "read_trial",

@@ -24,8 +24,7 @@ from sqlalchemy.orm import Session
 from storage.artifacts import ArtifactStore, StagedFile, npy_bytes
 from storage.errors import ArtifactCorrupt, BadInput, Conflict
 from storage.models import TARGET_KINDS, Job, Scan, Trial
-from storage.readers import ReaderLimits, ScanData, TrialData, read_scan, read_trial
-from storage.readers._common import canonical_unit
+from storage.readers import ReaderLimits, ScanData, TrialData, canonical_unit, read_scan, read_trial
 from storage.repo._common import get_or_404, optional_positive, paginate
 from storage.repo.catalog import get_arena, get_subject
 from storage.repo.studies import get_study, scan_ids_in_study, trial_ids_in_study
