@@ -98,7 +98,7 @@ class DaskPool:
         from distributed import Client
 
         self._own = isinstance(address, str)
-        self.client = Client(address, set_as_default=False) if self._own else address
+        self.client: Any = Client(address, set_as_default=False) if self._own else address
         self._refresh_s = refresh_s
         self._threads = 1
         self._checked = -float("inf")

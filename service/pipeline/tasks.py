@@ -221,10 +221,11 @@ def heightmap_task(
     _verify(path, sha256)
     data = read_scan(path, fmt=fmt, filename=filename, **dict(read_meta))
     if data.kind == "points":
-        ex, ey = _points_extent(data.points, params.get("crop"))
+        points = np.asarray(data.points, dtype=np.float64)
+        ex, ey = _points_extent(points, params.get("crop"))
         grid_cap_check(ex, ey, float(params["cell_m"]), max_cells)
-        hm = points_to_heightmap(data.points, **dict(params))
-        qc = (
+        hm = points_to_heightmap(points, **dict(params))
+        qc: tuple[Any, ...] = (
             Score("heightmap_filled_fraction", hm.filled_fraction, "1"),
             Score("heightmap_hole_fraction", hm.filled_fraction, "1"),
             Score("heightmap_points_used", float(hm.n_points_used), "count"),
@@ -233,13 +234,15 @@ def heightmap_task(
         )
         return HeightmapResult(hm.z, hm.valid, hm.dx_m, hm.dy_m, qc, code_version())
     z = np.asarray(data.z, dtype=np.float64)
+    if data.dx_m is None or data.dy_m is None:  # the reader guarantees both for heightmaps
+        raise ValueError(f"heightmap {filename!r} was read without its grid spacing")
+    dx_m, dy_m = float(data.dx_m), float(data.dy_m)
     if max_cells is not None and z.size > max_cells:
-        grid_cap_check((z.shape[1] - 1) * float(data.dx_m), (z.shape[0] - 1) * float(data.dy_m),
-                       float(data.dx_m), max_cells)  # fmt: skip
+        grid_cap_check((z.shape[1] - 1) * dx_m, (z.shape[0] - 1) * dy_m, dx_m, max_cells)
     valid = np.isfinite(z) if data.valid is None else np.asarray(data.valid, dtype=bool)
-    holes = float(1.0 - valid.mean()) if valid.size else float("nan")
+    holes = float(1.0 - valid.mean())
     qc = (Score("heightmap_hole_fraction", holes, "1"),)
-    return HeightmapResult(z, valid, float(data.dx_m), float(data.dy_m), qc, code_version())
+    return HeightmapResult(z, valid, dx_m, dy_m, qc, code_version())
 
 
 def terrain_task(
