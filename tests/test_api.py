@@ -412,3 +412,23 @@ def test_analyse_token_follows_the_job_it_started(tmp_path: Path, rng: np.random
     job_id = started.json()["job_ids"][0]
     assert analyst.get(f"/v1/jobs/{job_id}").status_code == 200
     assert analyst.get("/v1/trials").status_code == 403  # analyse alone still reads no data
+
+
+def test_resume_check_answers_an_upload_token_for_its_target_only(
+    tmp_path: Path, rng: np.random.Generator
+) -> None:
+    lab = Lab(tmp_path, job_runner=False)
+    content = wide_csv(rng)
+    sha = lab.post_trial(content).json()["sha256"]
+    with lab.app.state.sessionmaker() as session:
+        _, secret = repo.create_token(session=session, scopes=["upload"])
+    rig = TestClient(lab.app, headers={"Authorization": f"Bearer {secret}"})
+    target = {"kind": "trial", "arena_id": lab.arena_id, "subject_id": lab.subject_id}
+    assert rig.head(f"/v1/uploads/{sha}", params=target).status_code == 200
+    found = rig.get(f"/v1/uploads/{sha}", params=target).json()["records"]
+    assert [r["arena_id"] for r in found] == [lab.arena_id]
+    elsewhere = {**target, "arena_id": lab.arena_id + 1}
+    assert rig.head(f"/v1/uploads/{sha}", params=elsewhere).status_code == 404
+    blind = rig.get(f"/v1/uploads/{sha}")  # no target: an upload token learns nothing
+    assert blind.status_code == 400 and "must name the target" in blind.json()["detail"]
+    assert lab.client.get(f"/v1/uploads/{sha}").status_code == 200  # read: everything
