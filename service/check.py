@@ -98,6 +98,7 @@ class CheckReport:
 _ARTIFACT_COLUMNS = {
     "scan": ("sha256", "heightmap_sha256", "valid_mask_sha256"),
     "trial": ("sha256", "preprocessed_sha256"),
+    "derived": ("sha256",),  # plot arrays and per-window measures a scoring job stored
 }
 
 
@@ -105,9 +106,9 @@ def _references(session: Any) -> Iterable[tuple[str, int, str, str]]:
     """``(kind, row id, column, sha256)`` for every artifact a row names."""
     from sqlalchemy import select
 
-    from storage.models import Scan, Trial
+    from storage.models import Derived, Scan, Trial
 
-    for kind, model in (("scan", Scan), ("trial", Trial)):
+    for kind, model in (("scan", Scan), ("trial", Trial), ("derived", Derived)):
         columns = _ARTIFACT_COLUMNS[kind]
         stmt = select(model.id, *(getattr(model, c) for c in columns)).order_by(model.id)
         for row_id, *shas in session.execute(stmt):

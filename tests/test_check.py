@@ -37,6 +37,17 @@ def _filled(tmp_path: Path, rng: np.random.Generator) -> tuple[Lab, dict]:
             role="preprocessed",
             array=rng.normal(size=(5, 6, 3)),
         )
+        # plot arrays as a scoring job stores them: named by a `derived` row, never orphans
+        repo.save_derived(
+            session=session,
+            store=lab.app.state.store,
+            target_kind="trial",
+            target_id=trial["id"],
+            recipe_hash="0" * 64,
+            kind="movement_plots",
+            arrays={"path_m": rng.normal(size=(10, 3))},
+        )
+        session.commit()
     return lab, {"trial": trial, "scan": scan}
 
 
@@ -49,7 +60,7 @@ def test_fresh_uploads_are_clean(filled) -> None:
     lab, _ = filled
     report = _check(lab)
     assert report.clean, report.table()
-    assert report.rows_checked == 3 and report.artifacts_checked == 3
+    assert report.rows_checked == 4 and report.artifacts_checked == 4
     assert "store is clean" in report.table()
 
 
