@@ -114,7 +114,7 @@ class Settings(BaseSettings):
         description="Most points a point-cloud or lidar upload may hold (checked from its "
         "header before reading; 20 M points are 480 MB as float64).",
     )
-    max_grid_cells: int = Field(
+    max_upload_grid_cells: int = Field(
         default=32 * 1024 * 1024,
         ge=4,
         description="Most cells a heightmap upload may hold (rows x columns, checked from its "

@@ -212,7 +212,7 @@ def test_tiff_bomb_is_refused_from_its_tags(tmp_path: Path) -> None:
 
     tifffile.TiffPage.asarray = spy
     try:
-        with pytest.raises(ReaderError, match="max_grid_cells"):
+        with pytest.raises(ReaderError, match="max_upload_grid_cells"):
             read_scan(path, units="mm", dx=0.5)
         # A cap above the declared size lets it through to tifffile, which then finds the
         # strips do not hold the image: still refused, and only with a 4 kB strip decoded.

@@ -777,7 +777,12 @@ def test_caps_are_checked_before_reading(tmp_path, terrain):
     grid = tmp_path / "g.npy"
     np.save(grid, np.arange(12.0).reshape(3, 4), allow_pickle=False)
     _raises(
-        "max_grid_cells", read_scan, grid, units="m", dx=1, limits=ReaderLimits(max_grid_cells=11)
+        "max_upload_grid_cells",
+        read_scan,
+        grid,
+        units="m",
+        dx=1,
+        limits=ReaderLimits(max_grid_cells=11),
     )
     trial = tmp_path / "t.npy"
     np.save(trial, np.random.default_rng(0).normal(size=(50, 4, 3)), allow_pickle=False)

@@ -124,7 +124,7 @@ def reader_limits(settings: Any) -> Any:
 
     return ReaderLimits(
         max_points=settings.max_points,
-        max_grid_cells=settings.max_grid_cells,
+        max_grid_cells=settings.max_upload_grid_cells,
         max_frames=settings.max_frames,
         max_marker_samples=settings.max_marker_samples,
     )

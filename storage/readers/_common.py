@@ -60,7 +60,7 @@ class ReaderLimits:
 
     Defaults keep one decoded upload well under 1 GiB of float64 arrays: 20 M points
     (480 MB), 32 Mi grid cells (256 MiB, plus its mask), 2 M frames and 20 M marker samples
-    (frames x markers; 480 MB). Settings ``max_points``, ``max_grid_cells``, ``max_frames``
+    (frames x markers; 480 MB). Settings ``max_points``, ``max_upload_grid_cells``, ``max_frames``
     and ``max_marker_samples`` change them.
     """
 

@@ -119,7 +119,7 @@ def _read_npy(path: str | Path, *, size: int, file: str, limits: ReaderLimits) -
 
 def _cap_cells(shape: tuple[int, ...], limits: ReaderLimits, *, file: str) -> None:
     check_cap(math.prod(shape), limits.max_grid_cells, what=f"grid of {shape} cells",
-              setting="max_grid_cells", file=file)  # fmt: skip
+              setting="max_upload_grid_cells", file=file)  # fmt: skip
 
 
 def _read_csv(path: str | Path, *, file: str, limits: ReaderLimits) -> np.ndarray:
