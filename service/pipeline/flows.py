@@ -225,6 +225,8 @@ def scan_flow(ctx: JobContext) -> Generator[Compute, Any, None]:
         path = str(ctx.store.path(scan.sha256))
     ctx.input_sha256 = scan.sha256
     read_meta = {k: meta.get(k) for k in ("units", "dx", "dy")}
+    if meta.get("ground_only") is not None:  # LAS/LAZ: keep every point when the upload said so
+        read_meta["ground_only"] = bool(meta["ground_only"])
     ctx.progress(0.05, "reading the scan and building its heightmap")
     hm = yield Compute(
         tasks.heightmap_task,
@@ -290,6 +292,9 @@ def trial_flow(ctx: JobContext) -> Generator[Compute, Any, None]:
     if params.get("treadmill_speed_m_s") is None and trial.treadmill_speed_m_s is not None:
         # The belt speed is a fact of the recording, not a recipe choice.
         params["treadmill_speed_m_s"] = trial.treadmill_speed_m_s
+    if params.get("up_axis") is None and meta.get("up_axis"):
+        # Likewise the rig's up axis, declared at upload; the summary checks it against the data.
+        params["up_axis"] = meta["up_axis"]
     read_meta = {k: meta.get(k) for k in ("units", "frame_rate_hz", "marker_names")}
     ctx.progress(0.05, "reading, preprocessing and scoring the trial")
     res = yield Compute(
