@@ -400,8 +400,7 @@ def redundancy_groups(
     tuple of MeasureGroup, in the order of their representatives
     """
     v = np.asarray(values, dtype=np.float64)
-    v = v.reshape(v.shape[0], -1)
-    if len(names) != v.shape[1]:
+    if v.ndim != 2 or len(names) != v.shape[1]:
         raise InvalidParameterError("names", "redundancy_groups", "one name per column", names)
     k = v.shape[1]
     folded = np.zeros(k, dtype=bool)
