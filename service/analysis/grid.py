@@ -171,7 +171,7 @@ def _figure(
                 }
                 for k, a in enumerate(arenas)
             ]
-            line = fit_band(x, means.mean[:, j]) if len(arenas) >= MIN_ROW_ARENAS else None
+            line = fit_band(x, means.mean[:, j])
             if line is not None and study.covariates:
                 line["note"] = (
                     "marginal line through the arena means; the row's slope is adjusted "
