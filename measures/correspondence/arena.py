@@ -254,7 +254,7 @@ def fit_band(
     *,
     n_points: int = 25,
     level: float = 0.95,
-) -> dict[str, list[float] | float]:
+) -> dict[str, list[float] | float] | None:
     """The arena-level line of one pair and its confidence band, for a figure.
 
     Band: ``yhat(x) +- t_{n-2} s sqrt(1/n + (x - xbar)^2 / Sxx)`` (Draper & Smith 1998,
@@ -262,16 +262,21 @@ def fit_band(
 
     Returns
     -------
-    dict
-        ``intercept``, ``slope``, ``x``, ``y``, ``band_low``, ``band_high`` (lists).
+    dict or None
+        ``intercept``, ``slope``, ``x``, ``y``, ``band_low``, ``band_high`` (lists); None
+        with fewer than 3 finite points or no spread in terrain.
     """
     x = np.asarray(terrain, dtype=np.float64).ravel()
     y = np.asarray(arena_movement, dtype=np.float64).ravel()
+    ok = np.isfinite(x) & np.isfinite(y)
+    x, y = x[ok], y[ok]
     n = x.size
+    if n < 3 or np.ptp(x) == 0:
+        return None
     xbar, sxx = x.mean(), float(np.sum((x - x.mean()) ** 2))
     slope = float(np.sum((x - xbar) * (y - y.mean())) / sxx)
     intercept = float(y.mean() - slope * xbar)
-    s = math.sqrt(float(np.sum((y - intercept - slope * x) ** 2)) / (n - 2)) if n > 2 else math.nan
+    s = math.sqrt(float(np.sum((y - intercept - slope * x) ** 2)) / (n - 2))
     grid = np.linspace(x.min(), x.max(), n_points)
     fit = intercept + slope * grid
     half = (
@@ -400,8 +405,7 @@ def redundancy_groups(
     tuple of MeasureGroup, in the order of their representatives
     """
     v = np.asarray(values, dtype=np.float64)
-    v = v.reshape(v.shape[0], -1)
-    if len(names) != v.shape[1]:
+    if v.ndim != 2 or len(names) != v.shape[1]:
         raise InvalidParameterError("names", "redundancy_groups", "one name per column", names)
     k = v.shape[1]
     folded = np.zeros(k, dtype=bool)

@@ -171,7 +171,7 @@ def _figure(
                 }
                 for k, a in enumerate(arenas)
             ]
-            line = fit_band(x, means.mean[:, j]) if len(arenas) >= MIN_ROW_ARENAS else None
+            line = fit_band(x, means.mean[:, j])
             if line is not None and study.covariates:
                 line["note"] = (
                     "marginal line through the arena means; the row's slope is adjusted "
@@ -630,8 +630,10 @@ def correspondence_report(
     ]
     details += multi_notes
     details += [_warning(w, "study", _named(w, names)) for w in confound_notes]
-    seen: set[str] = set()
-    details = [d for d in details if not (d["message"] in seen or seen.add(d["message"]))]
+    unique: dict[str, dict[str, Any]] = {}
+    for d in details:
+        unique.setdefault(d["message"], d)  # the first of a repeated message wins
+    details = list(unique.values())
     _plane_values(study, session, prof.hash, selection)
     report = {
         "recipe": {"name": prof.name, "version": prof.version, "hash": prof.hash},

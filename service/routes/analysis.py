@@ -9,7 +9,7 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Query, Request, Response
 from starlette.concurrency import run_in_threadpool
 
-from service.analysis.grid import Selection, load_study
+from service.analysis.tables import Selection, load_study
 from service.deps import ReadToken
 from storage import repo
 from storage.errors import BadInput

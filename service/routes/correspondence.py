@@ -9,8 +9,9 @@ from fastapi.responses import PlainTextResponse
 from pydantic import Field
 from starlette.concurrency import run_in_threadpool
 
-from service.analysis.grid import Selection, correspondence_report, rows_csv
+from service.analysis.grid import correspondence_report, rows_csv
 from service.analysis.local import local_report
+from service.analysis.tables import Selection
 from service.deps import ReadToken
 from service.schemas import (
     CorrespondencePublic,

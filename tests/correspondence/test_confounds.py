@@ -70,8 +70,8 @@ def test_speed_check_matches_scipy_on_arena_means(rng):
     assert_allclose(row.rho, ref.statistic)
     # 7 arenas: the p-value is the exact permutation one (all 7! pairings; Good 2005).
     # Oracle: brute-force enumeration in integer arithmetic (ranks doubled and centred),
-    # so ties between permutations are exact; scipy's permutation_test agrees up to
-    # one tied permutation that floating point puts on the other side.
+    # so ties between permutations are exact. (scipy's permutation_test on |rho| differed
+    # here by one to two tied permutations from run to run: floating-point ties.)
     rx = (2 * stats.rankdata(terrain) - (n_arenas + 1)).astype(int)
     ry = (2 * stats.rankdata(means.to_numpy()) - (n_arenas + 1)).astype(int)
     observed = abs(int(rx @ ry))
@@ -79,15 +79,6 @@ def test_speed_check_matches_scipy_on_arena_means(rng):
         abs(int(rx @ ry[list(p)])) >= observed for p in itertools.permutations(range(n_arenas))
     )
     assert_allclose(row.p_value, hits / math.factorial(n_arenas), rtol=1e-12)
-    scipy_p = stats.permutation_test(
-        (terrain, means.to_numpy()),
-        lambda a, b: abs(stats.spearmanr(a, b).statistic),
-        permutation_type="pairings",
-        alternative="greater",
-        n_resamples=math.factorial(n_arenas),
-        vectorized=False,
-    ).pvalue
-    assert abs(row.p_value - scipy_p) <= 1.5 / math.factorial(n_arenas)
     assert row.confounded and row.rho < 0
 
 
