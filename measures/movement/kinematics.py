@@ -25,7 +25,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import CubicSpline
-from scipy.ndimage import maximum_filter1d, median_filter
+from scipy.ndimage import median_filter
 from scipy.signal import butter, filtfilt
 
 from measures._validation import (
@@ -328,12 +328,13 @@ def detect_spikes(
 
     * ``1.4826 * MAD`` of the deviations (the noise),
     * ``resolution_m``, the capture resolution,
-    * with ``motion_scaled``, the marker's own motion there: the largest
-      second difference ``|m[t-1] - 2 m[t] + m[t+1]|`` of the running median
-      within the window. Smooth motion departs from its running median by
-      about half its second difference, so fast curved motion (a foot at the
-      top of its swing at 30 Hz, centimetres per frame) is never a spike,
-      while an excursion the median does not follow still is.
+    * with ``motion_scaled``, the marker's own motion there: the running
+      median, over three windows, of the second difference
+      ``|m[t-1] - 2 m[t] + m[t+1]|`` of the running median. Smooth motion
+      departs from its running median by about half its second difference,
+      so fast curved motion (a foot at the top of its swing at 30 Hz,
+      centimetres per frame) is not a spike, while an excursion the median
+      does not follow still is.
 
     Jumps: steps of the running-median trajectory itself whose robust z
     exceeds ``threshold``; they are reported, never altered.
@@ -382,7 +383,10 @@ def detect_spikes(
         if motion_scaled:
             curv = np.zeros(dev.size)
             curv[1:-1] = np.linalg.norm(med[:-2] - 2 * med[1:-1] + med[2:], axis=1)
-            scale = np.maximum(maximum_filter1d(curv, size=win, mode="nearest"), floor)
+            # A running median over three windows: a spike bends the running
+            # median for a frame or two, which must not raise its own scale.
+            local = median_filter(curv, size=3 * win, mode="nearest")
+            scale = np.maximum(local, floor)
         spikes.append(idx[_robust_outliers(dev, thr, scale)].astype(np.int64))
         step = np.linalg.norm(np.diff(med, axis=0), axis=1)
         # The step into frame j+1 marks the jump; the median's other steps are

@@ -19,7 +19,8 @@ body reference markers): windowed PCA over all channels (Broomhead & King
    ``[2, max_components]``.
 
 Symbols of the state (the default symbolisation): the state is read once per
-decorrelation delay (the first AMI minimum of its leading component), and
+decorrelation delay (the first zero of the autocorrelation of its leading
+component, a quarter stride for an oscillating gait), and
 each of the leading ``symbol_channels`` components gives an ordinal pattern of
 order ``symbol_order`` (up/down for order 2); the joint pattern of those
 channels is the symbol (multichannel ordinal patterns, after Keller &
@@ -64,7 +65,8 @@ class WholeBodyState:
     state : ndarray (K, r)
         M-SSA principal components (metres), one row per window start.
     delay : int
-        Decorrelation delay (frames): first AMI minimum of the leading component.
+        Decorrelation delay (frames): first zero of the autocorrelation of the
+        leading component (a quarter stride for an oscillating gait).
     window : int
         Lags L.
     lag_step : int
@@ -110,8 +112,28 @@ def whole_body_state(
     )  # fmt: skip
     lead = ssa.state[:, 0]
     max_lag = max(2, min(round(max_delay_s * frame_rate_hz), lead.size // 10))
-    delay = embedding.first_ami_minimum(lead, max_lag=max_lag, n_bins=ami_bins)
+    delay = _acf_zero(lead, max_lag)
     return WholeBodyState(ssa.state, int(delay), lags, step, x.shape[1], ssa.variance_share)
+
+
+def _acf_zero(x: NDArray[np.float64], max_lag: int) -> int:
+    """First lag where the autocorrelation falls to 0 (1/e if it never does by max_lag).
+
+    The first zero of the autocorrelation is a common-practice delay; for the
+    oscillating leading component of a gait it is a quarter of the stride. The
+    histogram AMI of that smooth full-rate component has spurious early minima
+    (a few frames at 300 Hz), so it is not used here.
+    """
+    xc = x - x.mean()
+    n = xc.size
+    spec = np.fft.rfft(xc, 2 * n)
+    acf = np.fft.irfft(spec * np.conj(spec))[: max_lag + 1]
+    acf = acf / acf[0] if acf[0] > 0 else acf
+    below = np.flatnonzero(acf[1:] <= 0.0)
+    if below.size:
+        return int(below[0]) + 1
+    below = np.flatnonzero(acf[1:] <= 1 / np.e)
+    return int(below[0]) + 1 if below.size else int(max_lag)
 
 
 def decimate(x: NDArray[np.float64], q: int) -> NDArray[np.float64]:
@@ -290,7 +312,9 @@ def interlimb(
     """Joint recurrence (Romano et al. 2004) of each pair of body-frame foot trajectories."""
     names = tuple(feet)
     n = next(iter(feet.values())).shape[0]
-    q = max(1, min(max(1, delay // 2), math.ceil(n / p["interlimb_max_points"])))
+    # Anti-aliased decimation to at most interlimb_max_points (the joint count is
+    # quadratic in the points; 8,000 over 5 minutes still give ~20 points a stride).
+    q = max(1, math.ceil(n / p["interlimb_max_points"]))
     small = {k: decimate(v, q) for k, v in feet.items()}
     theiler = max(1, round(delay / q))
     rate = p["rqa_recurrence_rate"]

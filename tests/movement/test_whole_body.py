@@ -19,18 +19,19 @@ NAMES = ["nose", "tail", "lf", "rf", "lh", "rh"]
 ROLES = {"anterior": "nose", "posterior": "tail", "feet": {k: NAMES[v] for k, v in FEET.items()}}
 
 
-# Scoring 40 s with surrogates takes ~20 s on a loaded 2-core machine.
+# Scoring 70 s with surrogates takes ~30 s on a loaded 2-core machine.
 slow = pytest.mark.slow
 
 
 @pytest.fixture(scope="module")
 def long_walk():
-    """40 s of a noisy walk at 100 Hz: enough symbols for causal states."""
+    """70 s of a noisy walk at 60 Hz: four symbols a stride (one per quarter
+    stride), enough for causal states."""
     rng = np.random.default_rng(5)
-    m = synthetic_walker(phases=WALK, duty=0.7, duration_s=40.0, noise_m=0.0)[::3]
+    m = synthetic_walker(phases=WALK, duty=0.7, duration_s=70.0, noise_m=0.0)[::5]
     m = m + rng.normal(0.0, 2e-4, m.shape)
     return movement_summary(
-        m, frame_rate_hz=FS / 3, marker_names=NAMES, roles=ROLES, params={"n_surrogates": 4}
+        m, frame_rate_hz=FS / 5, marker_names=NAMES, roles=ROLES, params={"n_surrogates": 4}
     )
 
 
