@@ -186,21 +186,31 @@ def symbolic_values(
         "lz76_entropy_rate_bits": _or_nan(entropy.entropy_rate, symbols, method="lz76"),
     }
     model = _or_nan(causal.causal_states, symbols)
-    if isinstance(model, float):
-        return values
-    values["statistical_complexity_bits"] = model.statistical_complexity
-    values["causal_entropy_rate_bits"] = model.entropy_rate
-    values["causal_states_n"] = model.n_states
-    # TODO(info): switch to the length-comparable two_part_code (1D/2D) when it lands;
-    # this call keeps the machine just reconstructed.
-    code = _or_nan(two_part.two_part_code, symbols, machine=model, sample_rate_hz=symbol_rate_hz)
+    if not isinstance(model, float):
+        if model.reliable:
+            values["statistical_complexity_bits"] = model.statistical_complexity
+            values["causal_entropy_rate_bits"] = model.entropy_rate
+            values["causal_states_n"] = model.n_states
+        else:
+            # A machine that explains too little of the sequence is never reported as if
+            # it were right (Shalizi & Klinkner 2004 reconstruct a synchronised machine).
+            values["_causal_note"] = model.note
+    # The two-part code over context models, coded in fixed windows so that trials of
+    # different length compare (Gell-Mann & Lloyd 1996; measures.information.two_part).
+    code = _or_nan(two_part.two_part_code, symbols, sample_rate_hz=symbol_rate_hz)
     if not isinstance(code, float):
-        values["effective_complexity_bits"] = code.model_bits
-        values["effective_complexity_bits_per_symbol"] = code.model_bits_per_symbol
-        values["effective_complexity_bits_per_second"] = float(code.model_bits_per_second)
-        values["total_information_bits"] = code.total_bits
-        values["total_information_bits_per_symbol"] = code.total_bits_per_symbol
-        values["total_information_bits_per_second"] = float(code.total_bits_per_second)
+        values["effective_complexity_bits"] = code.effective_complexity_bits
+        values["effective_complexity_bits_per_symbol"] = code.effective_complexity_bits_per_symbol
+        values["effective_complexity_bits_per_second"] = float(
+            code.effective_complexity_bits_per_second
+        )
+        values["total_information_bits"] = code.total_information_bits
+        values["total_information_bits_per_symbol"] = code.total_information_bits_per_symbol
+        values["total_information_bits_per_second"] = float(
+            code.total_information_bits_per_second
+        )
+        if not code.comparable:
+            values["_two_part_note"] = code.note
     return values
 
 
@@ -268,7 +278,6 @@ def surrogate_z(
     small = decimate(state, q)[: int(p["surrogate_max_points"])]
     d = max(1, round(delay / q))
     rate = frame_rate_hz / q
-    # TODO(info): the multichannel IAAFT call site; info's version may add options.
     base = _numbers(state_scores(small, d, rate, p, threshold_method="exact"))
     rng = np.random.default_rng(p["seed"])
     rows = []

@@ -621,12 +621,20 @@ def _state_stage(state, delay, fs, p, book: _Book, extra: dict[str, float]):
     if q > 1:
         book.notes.append(f"RQA on the state decimated by {q} (rqa_max_points)")
     short = "too few symbols for this estimate (or no causal-state model)"
-    book.fill(_STATE_UNITS, values, short)
+    causal_note = values.pop("_causal_note", None)
+    two_part_note = values.pop("_two_part_note", None)
+    if causal_note:
+        book.notes.append(f"causal states: {causal_note}")
+    book.fill(_STATE_UNITS, values, causal_note or short)
     sz = wb.surrogate_z(state, delay, fs, p)
     for name, unit in wb.COMPLEXITY_UNITS.items():
         v = float(values.get(name, math.nan))
         z = sz.z.get(name, math.nan) if sz.z else None
         note = sz.note if np.isfinite(v) else short
+        if not np.isfinite(v) and causal_note and name.startswith(("statistical", "causal")):
+            note = f"causal-state machine flagged: {causal_note}"
+        if two_part_note and name.startswith(("effective", "total")):
+            note = f"{two_part_note}; {note}"
         if name in ("rqa_det", "rqa_lam") and np.isfinite(v) and v == 0:
             note = "no line reaches the minimum length; " + note
         if name == "rqa_entr" and not np.isfinite(v):
