@@ -368,6 +368,7 @@ def areal_parameters(
     sdq = float(np.sqrt(np.mean(g2)))
     # sqrt(1 + g) - 1 written as g / (sqrt(1 + g) + 1): no cancellation on flat ground.
     sdr = float(np.mean(g2 / (np.sqrt(1.0 + g2) + 1.0)))
+    del gx, gy, g2, gmask  # the ACF's padded transforms need the room on large scans
     _, _, acf = areal_autocorrelation(zl, dx_f, dy_f, valid=mask)
     lengths, decayed = _decay_lengths(acf, dx_f, dy_f, s)
     if decayed.any() and sq > 0:
