@@ -9,9 +9,10 @@
   the all-equal pattern.
 - ``phase_surrogates``: 2-D phase-randomised surrogates (Theiler et al.
   1992): the amplitude spectrum is taken once, each surrogate draws its
-  phases on the rfft half-plane from a counter-based hash (reproducible
-  whatever the thread count) with the Hermitian symmetry of the ``kx = 0``
-  and Nyquist columns imposed, then costs one inverse FFT. float32
+  phases on the rfft half-plane from its own seeded generator (``[seed, k]``,
+  so surrogate k is the same whatever order they are made in) with the
+  Hermitian symmetry of the ``kx = 0`` and Nyquist columns imposed, then
+  costs one inverse FFT. float32
   throughout: a surrogate is a random draw, its rounding (1e-7 relative)
   is far below its sampling spread.
 """
@@ -198,30 +199,28 @@ def ordinal_counts(
     return counts, int(n_ties)
 
 
-@njit(cache=True, parallel=True)
-def _phase_spectrum(amp, seed, ny, nx_even):  # pragma: no cover - compiled
-    """amp * exp(i phi) with phi uniform, Hermitian on the real columns."""
-    nyr, nxr = amp.shape
-    out = np.empty((nyr, nxr), dtype=np.complex64)
-    s = np.uint64(seed) * _GOLDEN
-    two_pi = 2.0 * math.pi
-    last = nxr - 1
-    for iy in prange(nyr):
-        for ix in range(nxr):
-            real_col = ix == 0 or (nx_even and ix == last)
-            sign = 1.0
-            src = iy
-            if real_col:
-                mirror = (ny - iy) % ny
-                if mirror < iy:
-                    src, sign = mirror, -1.0
-            h = _mix(s + np.uint64(src * nxr + ix))
-            phi = two_pi * (np.float64(h >> np.uint64(11)) * (1.0 / 9007199254740992.0))
-            if real_col and (ny - src) % ny == src:
-                phi = math.pi * np.float64(h & np.uint64(1))  # self-mirrored: real, +-amp
-            a = amp[iy, ix]
-            out[iy, ix] = np.complex64(a * math.cos(phi) + 1j * sign * a * math.sin(phi))
-    out[0, 0] = np.complex64(0.0)
+def _phase_spectrum(amp, rng, ny, nx_even):
+    """amp * exp(i phi) with phi uniform, Hermitian on the real columns.
+
+    numpy's float32 generator and SIMD cos/sin: 4x faster here than a fused
+    numba loop with a hash per mode.
+    """
+    phi = rng.random(amp.shape, dtype=np.float32)
+    phi *= np.float32(2.0 * math.pi)
+    out = np.empty(amp.shape, dtype=np.complex64)
+    np.cos(phi, out=out.real)
+    np.sin(phi, out=out.imag)
+    out *= amp
+    # Columns kx = 0 (and Nyquist for even nx) are transforms of real lines:
+    # their -ky mode is the conjugate of +ky, and the self-mirrored modes are real.
+    half = np.arange(1, (ny + 1) // 2)
+    for col in (0, amp.shape[1] - 1) if nx_even else (0,):
+        v = out[:, col]
+        v[ny - half] = np.conj(v[half])
+        selves = [0, ny // 2] if ny % 2 == 0 else [0]
+        for r in selves:
+            v[r] = amp[r, col] * (1.0 if phi[r, col] < math.pi else -1.0)
+    out[0, 0] = 0.0
     return out
 
 
@@ -240,10 +239,11 @@ def phase_surrogates(
     amp = np.abs(spec).astype(np.float32)
     mean = float(np.mean(z32, dtype=np.float64))
     del spec
-    base = (int(seed) & 0xFFFFFFFF) * 1_000_003
+    base = int(seed) & 0xFFFFFFFF
 
     def make(k: int) -> NDArray[np.float32]:
-        f = _phase_spectrum(amp, base + k, shape[0], shape[1] % 2 == 0)
+        rng = np.random.default_rng([base, int(k)])
+        f = _phase_spectrum(amp, rng, shape[0], shape[1] % 2 == 0)
         out = sfft.irfft2(f, s=shape, workers=workers or 1, overwrite_x=True)
         out += np.float32(mean)
         return out

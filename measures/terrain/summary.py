@@ -174,10 +174,24 @@ def gradient_entropy(
     sb = check_positive_float("slope_bin_deg", slope_bin_deg, fn)
     ab = check_positive_float("aspect_bin_deg", aspect_bin_deg, fn)
     floor = check_positive_float("slope_floor_deg", slope_floor_deg, fn, allow_zero=True)
-    gy, gx = np.gradient(fill_holes(np.nan_to_num(arr), mask), dy_f, dx_f)
-    use = np.ones(arr.shape, bool) if mask is None else mask
-    slope = np.degrees(np.arctan(np.hypot(gx, gy)))[use]
-    aspect = (np.degrees(np.arctan2(-gy, -gx)) % 360.0)[use]
+    # No copy of a hole-free grid: np.gradient does not write to its input.
+    src = arr if mask is None and not np.isnan(arr).any() else fill_holes(np.nan_to_num(arr), mask)
+    gy, gx = np.gradient(src, dy_f, dx_f)
+    del src
+    # In place: a 4096^2 scan makes each temporary 128 MiB.
+    slope = np.hypot(gx, gy)
+    np.arctan(slope, out=slope)
+    np.degrees(slope, out=slope)
+    # atan2(-gy, -gx) = atan2(gy, gx) + 180 degrees (mod 360): no negated copies.
+    aspect = np.arctan2(gy, gx, out=gy)
+    del gx
+    np.degrees(aspect, out=aspect)
+    aspect += 180.0
+    aspect %= 360.0
+    if mask is not None:
+        slope, aspect = slope[mask], aspect[mask]
+    else:
+        slope, aspect = slope.ravel(), aspect.ravel()
     slope_edges = np.arange(0.0, 90.0 + sb, sb)
     aspect_edges = np.arange(0.0, 360.0 + ab, ab)
     s_counts, _ = np.histogram(np.minimum(slope, slope_edges[-1]), slope_edges)

@@ -328,3 +328,35 @@ def test_total_information_of_white_noise_is_two_bits_per_site(rng):
         pytest.skip("shared two_part_code without 2-D fields in this build")
     assert 2.0 - 0.02 <= ti.value <= 2.0 + 0.15
     assert np.isfinite(s.score("effective_complexity_2d_bits").value)
+
+
+# --- speed paths: results equal to the exact ones within stated tolerances -----------
+
+
+def test_transect_cap_changes_h_by_sampling_noise_only(monkeypatch):
+    # Stated tolerance 0.01: with 2048 rows the cap keeps every second row (the
+    # median over 1024 transects instead of 2048).
+    from measures.terrain import fractal
+
+    z = self_affine_surface(128, 0.6, seed=8, ny=2048, rms_m=1e-3)
+    capped = hurst_exponent(z, 1e-3, method="madogram").hurst
+    monkeypatch.setattr(fractal, "_MAX_TRANSECTS", 10**9)
+    exact = hurst_exponent(z, 1e-3, method="madogram").hurst
+    assert capped == pytest.approx(exact, abs=0.01)
+
+
+def test_float32_acf_matches_direct_float64_sums(rng):
+    # Definition (ISO 25178-2): ACF(t) = sum z(r) z(r + t) / n_pairs(t) / Sq^2, summed
+    # directly in float64 at a few lags; the float32 transforms agree to 1e-5.
+    from measures import areal_autocorrelation
+
+    z = self_affine_surface(96, 0.7, seed=2, ny=80)
+    _, _, acf = areal_autocorrelation(z, 1.0)
+    zl = z - z.mean()
+    var = np.mean(zl**2)
+    cy, cx = acf.shape[0] // 2, acf.shape[1] // 2
+    for ty, tx in ((0, 0), (0, 5), (7, 0), (3, -4), (-20, 11)):
+        a = zl[max(0, -ty) : zl.shape[0] - max(0, ty), max(0, -tx) : zl.shape[1] - max(0, tx)]
+        b = zl[max(0, ty) :, max(0, tx) :][: a.shape[0], : a.shape[1]]
+        direct = float(np.mean(a * b) / var)
+        assert acf[cy + ty, cx + tx] == pytest.approx(direct, abs=1e-5)
