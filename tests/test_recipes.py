@@ -32,7 +32,7 @@ def test_default_recipe_exists_with_every_default(app) -> None:
     # Stored in full: the JSON form of the measures' own defaults (tuples become lists).
     assert body["parameters"]["movement"] == json.loads(json.dumps(measures.MOVEMENT_DEFAULTS))
     assert body["parameters"]["terrain"] == json.loads(json.dumps(measures.TERRAIN_DEFAULTS))
-    assert body["parameters"]["heightmap"]["cell_m"] == 0.001
+    assert body["parameters"]["heightmap"]["cell_m"] is None  # from the cloud's point spacing
     # Hash: SHA-256 (FIPS 180-4, via hashlib) of the canonical JSON (sorted keys, no spaces).
     canonical = json.dumps(body["parameters"], sort_keys=True, separators=(",", ":"))
     assert body["hash"] == hashlib.sha256(canonical.encode()).hexdigest()
@@ -52,7 +52,7 @@ def test_versions_are_immutable_and_equal_parameters_reuse_the_latest(app) -> No
         "/v1/recipes", json={"name": "fine", "parameters": {"terrain": {"n_surrogates": 39}}}
     )
     assert second.status_code == 201 and second.json()["version"] == 2
-    assert second.json()["parameters"]["heightmap"]["cell_m"] == 0.001  # v2 starts from defaults
+    assert second.json()["parameters"]["heightmap"]["cell_m"] is None  # v2 starts from defaults
     v1 = c.get("/v1/recipes/fine", params={"version": 1}).json()
     assert v1["parameters"]["heightmap"]["cell_m"] == 0.0005 and v1["hash"] == first.json()["hash"]
     assert c.get("/v1/recipes/fine").json()["version"] == 2

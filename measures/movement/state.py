@@ -206,9 +206,7 @@ def symbolic_values(
         )
         values["total_information_bits"] = code.total_information_bits
         values["total_information_bits_per_symbol"] = code.total_information_bits_per_symbol
-        values["total_information_bits_per_second"] = float(
-            code.total_information_bits_per_second
-        )
+        values["total_information_bits_per_second"] = float(code.total_information_bits_per_second)
         if not code.comparable:
             values["_two_part_note"] = code.note
     return values

@@ -42,6 +42,7 @@ __all__ = [
     "COVARIATE_SCORES",
     "DERIVED_COVARIATES",
     "DIAGNOSTIC_MEASURES",
+    "DIAGNOSTIC_SUFFIXES",
     "HEADLINE_MEASURES",
     "SCAN_POLICY",
     "SCAN_RULES",
@@ -49,6 +50,7 @@ __all__ = [
     "StudyTables",
     "choose_scans",
     "clean",
+    "is_diagnostic",
     "load_study",
     "pick_measures",
     "scan_rank",
@@ -79,8 +81,22 @@ DIAGNOSTIC_MEASURES = frozenset(
         "step_classes_n",
         "step_class_within_rms_m",
         "valid_fraction",
+        "heightmap_cell_m",
+        "heightmap_hole_fraction",
+        "hole_fraction",
+        "flagged_frame_fraction",
+        "causal_synchronised_fraction",
     }
 )
+#: Name endings that mark a diagnostic too (fit quality, fitted bands, tie fractions).
+DIAGNOSTIC_SUFFIXES = ("_r2", "_band_lo_m", "_band_hi_m", "_tie_fraction")
+
+
+def is_diagnostic(name: str) -> bool:
+    """Whether a score describes how a measure was computed (never paired)."""
+    return name in DIAGNOSTIC_MEASURES or name.endswith(DIAGNOSTIC_SUFFIXES)
+
+
 #: What a correspondence covers when the request names no measures: the
 #: headline scores, chosen so both sides include the shared estimators
 #: (permutation entropy and Jensen-Shannon complexity, entropy rate/density)
@@ -96,6 +112,8 @@ HEADLINE_MEASURES = {
         "permutation_entropy_2d",
         "js_complexity_2d",
         "entropy_density_2d_bits",
+        "effective_complexity_2d_bits",
+        "total_information_2d_bits_per_site",
     ),
     "movement": (
         "rqa_det",
@@ -104,6 +122,8 @@ HEADLINE_MEASURES = {
         "permutation_entropy",
         "js_complexity",
         "statistical_complexity_bits",
+        "effective_complexity_bits_per_symbol",
+        "total_information_bits_per_symbol",
         "sample_entropy",
         "duty_factor",
         "stride_frequency_hz",
@@ -201,7 +221,7 @@ class StudyTables:
 def pick_measures(available: Iterable[str], wanted: Sequence[str], kind: str) -> list[str]:
     """The measures a request covers: named ones, ``all`` (no diagnostics) or headline."""
     names = sorted(set(available))
-    everything = [n for n in names if n not in DIAGNOSTIC_MEASURES]
+    everything = [n for n in names if not is_diagnostic(n)]
     if tuple(wanted) == ("all",):
         return everything
     if not wanted:

@@ -28,8 +28,10 @@ __all__ = [
 
 DEFAULT_RECIPE = "default"
 SECTIONS = ("movement", "terrain", "heightmap")
-# Grid spacing of rasterised scans: 1 mm, five times the ~0.2 mm resolution of small-animal
-# capture (common practice) so most cells average several points.
+# A fixed grid spacing a recipe may choose for rasterised scans: 1 mm, five times the ~0.2 mm
+# resolution of small-animal capture (common practice). The default recipe leaves
+# ``heightmap.cell_m`` unset: the cell then comes from the cloud's own point spacing
+# (measures.heightmap_cell_m), so a 30 m lidar tile and a 30 cm tray both get a sensible grid.
 DEFAULT_CELL_M = 0.001
 _FUNCTION = "analysis recipe"
 
@@ -48,7 +50,6 @@ def _heightmap_defaults() -> dict[str, Any]:
         for name, p in params.items()
         if p.kind is inspect.Parameter.KEYWORD_ONLY and p.default is not inspect.Parameter.empty
     }
-    out["cell_m"] = DEFAULT_CELL_M
     return out
 
 

@@ -215,7 +215,7 @@ def heightmap_task(
     1 mm grid would ask for hundreds of GiB). ``heightmap_hole_fraction`` is the fraction of
     cells without data (filled by interpolation for a point cloud, NaN in a heightmap file).
     """
-    from measures import Score, points_to_heightmap
+    from measures import Score, heightmap_cell_m, points_to_heightmap
     from storage.readers import read_scan
 
     _verify(path, sha256)
@@ -223,9 +223,12 @@ def heightmap_task(
     if data.kind == "points":
         points = np.asarray(data.points, dtype=np.float64)
         ex, ey = _points_extent(points, params.get("crop"))
-        grid_cap_check(ex, ey, float(params["cell_m"]), max_cells)
-        hm = points_to_heightmap(points, **dict(params))
+        # The cell is chosen once, here, so the cap is checked on the grid that will be built.
+        cell_m, cell_note = heightmap_cell_m(points, cell_m=params.get("cell_m"))
+        grid_cap_check(ex, ey, cell_m, max_cells)
+        hm = points_to_heightmap(points, **{**dict(params), "cell_m": cell_m})
         qc: tuple[Any, ...] = (
+            Score("heightmap_cell_m", cell_m, "m", note=cell_note),
             Score("heightmap_filled_fraction", hm.filled_fraction, "1"),
             Score("heightmap_hole_fraction", hm.filled_fraction, "1"),
             Score("heightmap_points_used", float(hm.n_points_used), "count"),
