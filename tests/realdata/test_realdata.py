@@ -22,18 +22,6 @@ from demo_arena.files import write_csv_wide
 
 pytestmark = pytest.mark.realdata
 
-# Parts of the expectations need work that has not landed on this branch; each xfail names it.
-NEEDS_RATE_ROBUST = pytest.mark.xfail(
-    strict=False,
-    reason="needs preprocessing scaled to the frame rate and a biped heading (movement work, "
-    "issue 12 item 2); at 30 Hz the fixed spike window flags most frames",
-)
-NEEDS_LAS = pytest.mark.xfail(
-    strict=False,
-    reason="needs the LAS/LAZ reader (ingest work, issue 12 item 5) and the cell size from "
-    "the point spacing (terrain work, issue 12 item 3)",
-)
-
 
 # -- terrain ----------------------------------------------------------------------------------
 def _score_heightmap(lab: RealLab, name: str, z: np.ndarray, dx: float, dy: float):
@@ -99,7 +87,6 @@ def test_clip_truth_from_the_root_motion(name: str) -> None:
     assert {"walk": 0.8 < clip.speed_m_s < 1.3, "run": 2.5 < clip.speed_m_s < 4.5}[name]
 
 
-@NEEDS_RATE_ROBUST
 @pytest.mark.parametrize("name", ["walk", "run"])
 def test_clip_at_30_hz_scores_its_stride(real_lab: RealLab, name: str) -> None:
     # Source: DeepMimic humanoid3d_walk / humanoid3d_run (pybullet wheel), native 30 Hz.
@@ -110,7 +97,6 @@ def test_clip_at_30_hz_scores_its_stride(real_lab: RealLab, name: str) -> None:
     assert out.value("stride_frequency_hz") == pytest.approx(clip.stride_frequency_hz, rel=0.03)
 
 
-@NEEDS_RATE_ROBUST
 @pytest.mark.slow
 @pytest.mark.parametrize("rate_hz", [60.0, 120.0, 250.0])
 @pytest.mark.parametrize("name", ["walk", "run"])
@@ -125,7 +111,6 @@ def test_clip_resampled_scores_the_same_stride(
     assert out.value("stride_frequency_hz") == pytest.approx(clip.stride_frequency_hz, rel=0.03)
 
 
-@NEEDS_RATE_ROBUST
 def test_walk_and_run_are_told_apart(real_lab: RealLab) -> None:
     # Source: DeepMimic walk and run clips (pybullet wheel). Walking keeps each foot down
     # more than half the stride, running less (duty factor 0.5 divides them; Alexander
@@ -150,7 +135,6 @@ def _las_file(name: str) -> Path:
     return hits[0]
 
 
-@NEEDS_LAS
 @pytest.mark.parametrize("name", ["file_with_both_wkt_and_geotiff_vlrs.las", "append-bug.laz"])
 def test_lidar_tile_is_scored_without_a_memory_error(real_lab: RealLab, name: str) -> None:
     # Source: laspy's source distribution, tests/data (fetched by .ci/run). The file's own
