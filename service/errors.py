@@ -20,39 +20,21 @@ __all__ = ["error_body", "error_status", "install_error_handlers"]
 log = logging.getLogger("gaitscape.service")
 
 # Most specific first: the first class an error is an instance of decides its status.
-# TooLarge and the reader / format errors are BadInput subclasses, so they precede it.
-_STATUS_BY_NAME: tuple[tuple[str, int], ...] = (
-    ("NotFound", 404),
-    ("Conflict", 409),
-    ("TooLarge", 413),
-    ("UnsupportedFormat", 415),
-    ("ReaderError", 422),
-    ("BadInput", 400),
-    ("StoreFull", 507),
-    ("ArtifactCorrupt", 500),
+# TooLarge and ReaderError are BadInput subclasses, so they precede it.
+_STATUS_BY_CLASS: tuple[tuple[type[storage_errors.StorageError], int], ...] = (
+    (storage_errors.NotFound, 404),
+    (storage_errors.Conflict, 409),
+    (storage_errors.TooLarge, 413),
+    (storage_errors.ReaderError, 422),
+    (storage_errors.BadInput, 400),
+    (storage_errors.StoreFull, 507),
+    (storage_errors.ArtifactCorrupt, 500),
 )
-
-
-def _storage_classes() -> list[tuple[type[BaseException], int]]:
-    pairs = []
-    for name, status in _STATUS_BY_NAME:
-        cls = getattr(storage_errors, name, None)
-        if cls is None and name == "TooLarge":
-            from storage import artifacts
-
-            cls = getattr(artifacts, name, None)
-        if cls is None and name == "ReaderError":
-            from storage import readers
-
-            cls = getattr(readers, name, None)
-        if isinstance(cls, type):
-            pairs.append((cls, status))
-    return pairs
 
 
 def error_status(exc: BaseException) -> int:
     """HTTP status for a storage or measures error (500 for anything unexpected)."""
-    for cls, status in _storage_classes():
+    for cls, status in _STATUS_BY_CLASS:
         if isinstance(exc, cls):
             return status
     if isinstance(exc, InvalidParameterError):

@@ -88,8 +88,9 @@ def _accumulate(xt, i, c0, ncols, metric_code, acc, n_coords):
     # Partial distances of the row segment over coordinates 0 .. n_coords - 1
     # (n_coords >= 1): squared differences summed in index order, or their max.
     # One pass per coordinate keeps the inner loop contiguous (vectorisable).
-    # Every kernel that compares distances with a threshold starts here, so the
-    # streaming, count-only, bracket and dense paths all see the same values.
+    # The row kernels (streaming, count-only, bracket, image) start here; single
+    # pairs go through _pair_distance, which sums in the same order, so every path
+    # compares the same values with the threshold.
     row = xt[0, c0 : c0 + ncols]
     v = xt[0, i]
     if metric_code == 0:
@@ -419,6 +420,25 @@ def _stitch(edges, pre, suf, last, hist, tail):
             hist[carry] += 1
 
 
+@njit(cache=True, inline="always")
+def _pair_distance(xt, i, j, metric_code, m):
+    # One pair's distance (squared for Euclidean) with the same order of operations as
+    # _accumulate's per-column sums, so single pairs and whole rows compare equal values.
+    if metric_code == 0:
+        d = xt[0, j] - xt[0, i]
+        acc = d * d
+        for c in range(1, m):
+            d = xt[c, j] - xt[c, i]
+            acc += d * d
+    else:
+        acc = abs(xt[0, j] - xt[0, i])
+        for c in range(1, m):
+            d = abs(xt[c, j] - xt[c, i])
+            if d > acc:
+                acc = d
+    return acc
+
+
 @njit(cache=True, parallel=True)
 def _top_runs(xt, thr, metric_code, out):
     # theiler = 0: length of the run starting at (j + 1, j) down column j.
@@ -427,18 +447,7 @@ def _top_runs(xt, thr, metric_code, out):
     for j in prange(n - 1):
         i = j + 1
         while i < n:
-            if metric_code == 0:
-                d = xt[0, j] - xt[0, i]
-                acc = d * d
-                for c in range(1, m):
-                    d = xt[c, j] - xt[c, i]
-                    acc += d * d
-            else:
-                acc = abs(xt[0, j] - xt[0, i])
-                for c in range(1, m):
-                    d = abs(xt[c, j] - xt[c, i])
-                    if d > acc:
-                        acc = d
+            acc = _pair_distance(xt, i, j, metric_code, m)
             if not acc <= thr:
                 break
             i += 1
@@ -550,19 +559,7 @@ def pair_distances(xt, rows, cols, metric_code):
     for p in prange(rows.shape[0]):
         i = rows[p]
         j = cols[p]
-        if metric_code == 0:
-            d = xt[0, j] - xt[0, i]
-            acc = d * d
-            for c in range(1, m):
-                d = xt[c, j] - xt[c, i]
-                acc += d * d
-        else:
-            acc = abs(xt[0, j] - xt[0, i])
-            for c in range(1, m):
-                d = abs(xt[c, j] - xt[c, i])
-                if d > acc:
-                    acc = d
-        out[p] = acc
+        out[p] = _pair_distance(xt, i, j, metric_code, m)
     return out
 
 
