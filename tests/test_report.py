@@ -312,3 +312,15 @@ def test_report_limited_to_a_study(small_store: dict) -> None:
         params={"study": "three trays", "n_permutations": 99, "n_boot": 99},
     )
     assert r.status_code == 200 and "<code>three trays</code>" in r.text
+
+
+def test_crowded_labels_are_pushed_apart_with_leaders() -> None:
+    """Three points at one spot: labels end at least 7 % of the height apart (the rule in
+    place_labels), the moved ones with a leader line; a lone point keeps its label."""
+    from service.report.view import place_labels
+
+    spots = place_labels([(0.5, 0.5)] * 3 + [(0.1, 0.9)], (0.0, 1.0), (0.0, 1.0))
+    ys = sorted(y for _, y, _ in spots[:3])
+    assert all(b - a >= 0.07 - 1e-12 for a, b in zip(ys, ys[1:], strict=False))
+    assert sum(leader for *_, leader in spots[:3]) == 2
+    assert spots[3][2] is False and spots[3][1] == pytest.approx(0.9)
