@@ -248,8 +248,10 @@ def heatmap_figure(grid: dict[str, Any]) -> str:
     ax.set_yticks(range(len(terrain)), terrain)
     ax.set_xlabel("movement measure")
     ax.set_ylabel("terrain measure")
-    fig.colorbar(im, ax=ax, label=f"{grid['statistic']} (dimensionless)")
-    ax.set_title(grid["legend"], fontsize=8)
+    import textwrap
+
+    fig.colorbar(im, ax=ax, label=textwrap.fill(f"{grid['statistic']} (dimensionless)", 24))
+    ax.set_title(textwrap.fill(grid["legend"], 60), fontsize=8)
     return png_data_uri(fig)
 
 
