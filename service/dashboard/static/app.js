@@ -182,13 +182,17 @@ function siValue(v, unit) {
   return [fmt(v), plain];
 }
 
+// hash -> "name@version", fetched once (one promise, so parallel callers share it).
 let recipeLabels = null;
-async function recipeLabel(hash) {
+function recipeLabel(hash) {
   if (recipeLabels === null) {
-    recipeLabels = {};
-    for (const r of await all("/v1/recipes")) if (!(r.hash in recipeLabels)) recipeLabels[r.hash] = r.name + "@" + r.version;
+    recipeLabels = all("/v1/recipes").then(rows => {
+      const out = {};
+      for (const r of rows) if (!(r.hash in out)) out[r.hash] = r.name + "@" + r.version;
+      return out;
+    });
   }
-  return recipeLabels[hash] || (hash || "").slice(0, 10);
+  return recipeLabels.then(labels => labels[hash] || (hash || "").slice(0, 10));
 }
 
 async function scoreTable(scores) {
