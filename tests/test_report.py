@@ -12,6 +12,7 @@ the smallest two-sided permutation p is 2/4! = 0.083, so the report must warn (G
 from __future__ import annotations
 
 import base64
+import itertools
 import re
 from pathlib import Path
 from types import SimpleNamespace
@@ -321,6 +322,6 @@ def test_crowded_labels_are_pushed_apart_with_leaders() -> None:
 
     spots = place_labels([(0.5, 0.5)] * 3 + [(0.1, 0.9)], (0.0, 1.0), (0.0, 1.0))
     ys = sorted(y for _, y, _ in spots[:3])
-    assert all(b - a >= 0.07 - 1e-12 for a, b in zip(ys, ys[1:], strict=False))
+    assert all(b - a >= 0.07 - 1e-12 for a, b in itertools.pairwise(ys))
     assert sum(leader for *_, leader in spots[:3]) == 2
     assert spots[3][2] is False and spots[3][1] == pytest.approx(0.9)
