@@ -178,8 +178,18 @@ def _fmt(v: Any, digits: int = 3) -> str:
     return str(v)
 
 
-def summary_text(corr: dict[str, Any], *, top: int = 10, report_path: Path | None = None) -> str:
-    """The readable console summary: study counts, strongest pairs, warnings."""
+def summary_text(
+    corr: dict[str, Any],
+    *,
+    top: int = 10,
+    report_path: Path | None = None,
+    view: dict[str, Any] | None = None,
+) -> str:
+    """The readable console summary: study counts, strongest pairs, warnings.
+
+    With ``view`` (``service.report.view.correspondence_view``) the pairs table is the
+    report's own (arena-level slopes with units), so console and report agree.
+    """
     from service.report import strongest_pairs
 
     lines = [INVENTED, ""]
@@ -194,8 +204,11 @@ def summary_text(corr: dict[str, Any], *, top: int = 10, report_path: Path | Non
     )
     lines.append("")
     lines.append("Strongest pairs (smallest q, Benjamini-Hochberg across the grid):")
-    table = [("terrain", "movement", "slope", "95% CI", "p", "q", "rho")]
-    for r in strongest_pairs(corr.get("rows") or [], k=top):
+    table: list[tuple[str, ...]] = [("terrain", "movement", "slope", "95% CI", "p", "q", "rho")]
+    if view is not None and view.get("strongest"):
+        cols = view["table_columns"]
+        table = [tuple(cols.values())] + [tuple(r[k] for k in cols) for r in view["strongest"]]
+    for r in [] if len(table) > 1 else strongest_pairs(corr.get("rows") or [], k=top):
         table.append(
             (
                 r["terrain_measure"],
@@ -245,7 +258,7 @@ def run_demo(
     """Build, upload, score and report the demo study in ``out_dir`` (see module docs)."""
     import demo_arena
     from service.app import create_app
-    from service.report import render_report
+    from service.report import correspondence_view, load_study, render_report
     from service.settings import get_settings
     from service.uploader import plan_uploads, summary_table
 
@@ -275,6 +288,7 @@ def run_demo(
         print(f"New store: admin token written to {root / ADMIN_TOKEN_FILE}", file=out)
     token_id, secret = _demo_token(resources)
     result = DemoResult(root, root / "report.html", {})
+    view: dict[str, Any] | None = None
     try:
         with (
             _serving(app) as base_url,
@@ -330,6 +344,10 @@ def run_demo(
                 recipe="default",
                 correspondence=result.correspondence,
             )
+            try:  # the console shows the report's table (same numbers, same units)
+                view = correspondence_view(load_study(session=session), result.correspondence)
+            except Exception:  # the summary falls back to the correspondence rows
+                view = None
         part = result.report_path.with_name(result.report_path.name + ".part")
         part.write_text(html, encoding="utf-8")
         part.replace(result.report_path)
@@ -339,7 +357,10 @@ def run_demo(
     timings["total"] = time.monotonic() - t0
     result.timings_s = timings
     print("", file=out)
-    print(summary_text(result.correspondence, report_path=result.report_path), file=out)
+    print(
+        summary_text(result.correspondence, report_path=result.report_path, view=view),
+        file=out,
+    )
     for f in result.failed_uploads + result.failed_jobs:
         print(f"  failed: {f}", file=out)
     steps = ", ".join(f"{k} {v:.1f} s" for k, v in timings.items())

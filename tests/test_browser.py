@@ -310,6 +310,9 @@ def test_replay_controls(live) -> None:
     expect(page.locator("#speed")).to_have_value("1")
     page.select_option("#exaggeration", "10")
     expect(page.locator("#replay-note")).to_contain_text("Heights drawn 10x")
+    expect(page.locator("#scores tbody")).to_contain_text("default@1")
+    # Recipe labels, never hash prefixes (10 hex digits).
+    assert not re.search(r"\b[0-9a-f]{10}\b", page.inner_text("#scores"))
     # Marker names are not printed in the scene (they overlap); they show on hover.
     assert "foot_LF" not in page.inner_text("#replay")
     page.click("#play")

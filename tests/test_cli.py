@@ -104,3 +104,45 @@ def test_subcommands_are_registered_from_functions() -> None:
     # Every contract command is there, and each registered function adds one.
     assert {"serve", "token", "upload", "demo"} <= set(sub.choices)
     assert len(cli.COMMANDS) == len(sub.choices)
+
+
+def test_progress_plain_lines_off_a_terminal_and_a_bar_on_one(monkeypatch) -> None:
+    """Off a terminal: whole lines (no carriage return) with an ETA at the mean rate so far,
+    remaining x elapsed / done = 30 x 10 / 10 = 30 s (arithmetic); on one: a redrawn bar."""
+    import io
+
+    from service import progress as pg
+
+    clock = iter([100.0, 110.0, 110.0, 110.0, 110.0, 110.0, 110.0])
+    monkeypatch.setattr(pg.time, "monotonic", lambda: next(clock))
+    log = io.StringIO()
+    bar = pg.Progress("scoring", total=40, unit="jobs", stream=log, interval_s=0)
+    bar.update(10)
+    bar.close()
+    lines = log.getvalue().splitlines()
+    assert "\r" not in log.getvalue() and len(lines) == 2
+    assert lines[0] == "scoring: 10/40 jobs (25 %), elapsed 10 s, ETA 30 s"
+
+    class Tty(io.StringIO):
+        def isatty(self) -> bool:
+            return True
+
+    monkeypatch.setattr(pg.time, "monotonic", lambda: 0.0)
+    term = Tty()
+    with pg.Progress("upload", total=4, unit="MB", stream=term) as b:
+        b.update(2)
+    assert term.getvalue().startswith("\r[") and "#" * 12 + "." * 12 in term.getvalue()
+
+
+def test_http_commands_are_registered() -> None:
+    parser = cli.build_parser()
+    for argv in (
+        ["arena", "create", "tray", "--band-mm", "5", "80"],
+        ["subject", "create", "M07", "--anterior", "a", "--posterior", "p", "--foot", "LF=x"],
+        ["study", "create", "pilot", "--arena", "tray"],
+        ["recipe", "create", "fine", "--set", "movement.ordinal_order=3"],
+        ["rescore", "--wait"],
+        ["report", "--out", "r.html"],
+    ):
+        args = parser.parse_args(argv)
+        assert args.func is not None and args.server and hasattr(args, "token")

@@ -12,6 +12,7 @@ the smallest two-sided permutation p is 2/4! = 0.083, so the report must warn (G
 from __future__ import annotations
 
 import base64
+import itertools
 import re
 from pathlib import Path
 from types import SimpleNamespace
@@ -312,3 +313,28 @@ def test_report_limited_to_a_study(small_store: dict) -> None:
         params={"study": "three trays", "n_permutations": 99, "n_boot": 99},
     )
     assert r.status_code == 200 and "<code>three trays</code>" in r.text
+
+
+def test_crowded_labels_are_pushed_apart_with_leaders() -> None:
+    """Three points at one spot: labels end at least 7 % of the height apart (the rule in
+    place_labels), the moved ones with a leader line; a lone point keeps its label."""
+    from service.report.view import place_labels
+
+    spots = place_labels([(0.5, 0.5)] * 3 + [(0.1, 0.9)], (0.0, 1.0), (0.0, 1.0))
+    ys = sorted(y for _, y, _ in spots[:3])
+    assert all(b - a >= 0.07 - 1e-12 for a, b in itertools.pairwise(ys))
+    assert sum(leader for *_, leader in spots[:3]) == 2
+    assert spots[3][2] is False and spots[3][1] == pytest.approx(0.9)
+
+
+def test_numbers_are_printed_without_e_notation() -> None:
+    from service.report.convention import fmt_number, si_scale
+
+    assert fmt_number(1550.3) == "1550"  # 3 significant digits, plain
+    assert fmt_number(-98765.4) == "-98800"
+    assert fmt_number(float("nan")) == "n/a" and fmt_number(None) == "n/a"
+    # SI prefixes (BIPM SI Brochure, 9th ed., table 7): 36 um, 1.6 mm, 300 Hz stay readable.
+    assert si_scale([3.6e-5, 4.0e-5], "m") == (1e6, "um")
+    assert si_scale([1.6e-3], "m") == (1e3, "mm")
+    assert si_scale([300.0], "Hz") == (1.0, "Hz")
+    assert si_scale([2.0], "bits") == (1.0, "bits")

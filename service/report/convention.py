@@ -171,6 +171,8 @@ def fmt_number(value: Any, digits: int = 3) -> str:
     if v == 0:
         return "0"
     text = f"{v:.{digits}g}"
+    if "e" in text and 1e3 <= abs(v) < 1e9:  # 1550, not 1.55 x 10^3: rounded, then plain
+        return f"{float(text):.0f}"
     if "e" in text:  # still outside the prefix range: plain scientific, never '3.63e-05'
         mantissa, exp = text.split("e")
         return f"{mantissa} x 10^{int(exp)}"

@@ -248,8 +248,10 @@ def heatmap_figure(grid: dict[str, Any]) -> str:
     ax.set_yticks(range(len(terrain)), terrain)
     ax.set_xlabel("movement measure")
     ax.set_ylabel("terrain measure")
-    fig.colorbar(im, ax=ax, label=f"{grid['statistic']} (dimensionless)")
-    ax.set_title(grid["legend"], fontsize=8)
+    import textwrap
+
+    fig.colorbar(im, ax=ax, label=textwrap.fill(f"{grid['statistic']} (dimensionless)", 24))
+    ax.set_title(textwrap.fill(grid["legend"], 60), fontsize=8)
     return png_data_uri(fig)
 
 
@@ -319,7 +321,11 @@ def complexity_entropy_figure(
         ax.plot([], [], color="0.35", lw=0.9, ls=":", label="C min")
     for arena_id, h, c in trials:
         ax.scatter(h, c, s=16, color=colours.get(arena_id, "grey"), alpha=0.8, lw=0)
-    for arena_id, name, h, c in arenas:
+    from service.report.view import place_labels
+
+    top = max([c for *_, c in arenas] + [c for *_, c in trials] + [0.05]) * 1.15
+    spots = place_labels([(h, c) for _, _, h, c in arenas], (0.0, 1.0), (0.0, top))
+    for (arena_id, name, h, c), (lx, ly, leader) in zip(arenas, spots, strict=True):
         ax.scatter(
             h,
             c,
@@ -330,11 +336,21 @@ def complexity_entropy_figure(
             lw=0.8,
             zorder=3,
         )
-        ax.annotate(name, (h, c), textcoords="offset points", xytext=(5, 4), fontsize=7)
+        # Names pushed apart where squares crowd, with a leader line back to the square.
+        ax.annotate(
+            name,
+            (h, c),
+            xytext=(lx, ly),
+            textcoords="data",
+            fontsize=7,
+            ha="left" if lx >= h else "right",
+            va="center",
+            arrowprops={"arrowstyle": "-", "color": "0.4", "lw": 0.6} if leader else None,
+        )
     ax.scatter([], [], s=16, color="grey", label="trials (foot-height signal)")
     ax.scatter([], [], s=60, marker="s", color="grey", edgecolor="black", label="arenas (surface)")
     ax.set_xlim(0, 1.0)
-    ax.set_ylim(0, None)
+    ax.set_ylim(0, top)
     ax.set_xlabel("normalised permutation entropy H (dimensionless)")
     ax.set_ylabel("Jensen-Shannon complexity C (dimensionless)")
     ax.set_title("Shared complexity-entropy plane (colour: arena roughness rank)")

@@ -170,7 +170,7 @@ def _arena_fit(row: Mapping[str, Any], arenas: list[dict[str, Any]]) -> dict[str
 
 
 # -- labels -------------------------------------------------------------------------------------
-def _place_labels(
+def place_labels(
     points: list[tuple[float, float]], x_range: tuple[float, float], y_range: tuple[float, float]
 ) -> list[tuple[float, float, bool]]:
     """Label anchors beside points, pushed apart vertically where they crowd.
@@ -229,7 +229,7 @@ def _pair_view(study: StudyData, row: Mapping[str, Any]) -> dict[str, Any] | Non
     y_range = _padded(min(ys) * fy, max(ys) * fy)
     # Label positions leave room on the right for names.
     x_range = (x_range[0], x_range[1] + 0.12 * (x_range[1] - x_range[0]))
-    labels = _place_labels([(a["x"] * fx, a["y"] * fy) for a in arenas], x_range, y_range)
+    labels = place_labels([(a["x"] * fx, a["y"] * fy) for a in arenas], x_range, y_range)
     line = []
     if _finite(fit.get("slope")) and _finite(fit.get("intercept")):
         for x in (min(xs), max(xs)):

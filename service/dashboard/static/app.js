@@ -182,13 +182,17 @@ function siValue(v, unit) {
   return [fmt(v), plain];
 }
 
+// hash -> "name@version", fetched once (one promise, so parallel callers share it).
 let recipeLabels = null;
-async function recipeLabel(hash) {
+function recipeLabel(hash) {
   if (recipeLabels === null) {
-    recipeLabels = {};
-    for (const r of await all("/v1/recipes")) if (!(r.hash in recipeLabels)) recipeLabels[r.hash] = r.name + "@" + r.version;
+    recipeLabels = all("/v1/recipes").then(rows => {
+      const out = {};
+      for (const r of rows) if (!(r.hash in out)) out[r.hash] = r.name + "@" + r.version;
+      return out;
+    });
   }
-  return recipeLabels[hash] || (hash || "").slice(0, 10);
+  return recipeLabels.then(labels => labels[hash] || (hash || "").slice(0, 10));
 }
 
 async function scoreTable(scores) {
@@ -299,17 +303,23 @@ async function trialPage(id) {
 
 async function scanPage(id) {
   const scan = await api("/v1/scans/" + id);
+  const arena = await api("/v1/arenas/" + scan.arena_id);
+  document.querySelector("main h1").textContent = "Scan " + id + " of " + arena.name;
   const plot = el("div", { id: "surface", class: "plot", role: "img", "aria-label": "heightmap surface of the scan" });
-  show(kv(scan, ["id", "arena_id", "filename", "format", "kind", "units", "n_points", "grid_nx", "grid_ny", "grid_dx_m", "captured_at"]),
-    el("h2", { text: "Heightmap" }), plot, el("h2", { text: "Scores" }), el("div", { id: "scores" }));
+  const cell = siValue(scan.grid_dx_m, "m");
+  const facts = { arena: arena.name, file: scan.filename, format: scan.format, kind: scan.kind, "file units": scan.units,
+    points: scan.n_points, "grid (cells)": scan.grid_nx && scan.grid_ny ? scan.grid_nx + " x " + scan.grid_ny : null,
+    ["cell (" + cell[1] + ")"]: cell[0], captured: scan.captured_at };
+  show(kv(facts, Object.keys(facts)), el("h2", { text: "Heightmap" }), plot, el("h2", { text: "Scores" }), el("div", { id: "scores" }));
   const scores = await all("/v1/scores?scan_id=" + id + "&target_kind=scan");
   document.getElementById("scores").replaceChildren(await scoreTable(scores));
   try {
     const hm = await api("/v1/dashboard/scans/" + id + "/heightmap");
-    await Plotly.newPlot(plot, [{ type: "surface", x: hm.x_m, y: hm.y_m, z: hm.z_m, colorscale: "Cividis",
-      colorbar: { title: { text: "height (m)" } } }],
-      { margin: { l: 0, r: 0, t: 10, b: 0 }, scene: { aspectmode: "data", xaxis: { title: { text: "x (m)" } },
-        yaxis: { title: { text: "y (m)" } }, zaxis: { title: { text: "z (m)" } } } }, { responsive: true, displaylogo: false });
+    const mm = v => v === null ? null : v * 1000;
+    await Plotly.newPlot(plot, [{ type: "surface", x: hm.x_m.map(mm), y: hm.y_m.map(mm), z: hm.z_m.map(r => r.map(mm)), colorscale: "Cividis",
+      colorbar: { title: { text: "height (mm)" } } }],
+      { margin: { l: 0, r: 0, t: 10, b: 0 }, scene: { aspectmode: "data", xaxis: { title: { text: "x (mm)" } },
+        yaxis: { title: { text: "y (mm)" } }, zaxis: { title: { text: "z (mm)" } } } }, { responsive: true, displaylogo: false });
   } catch (err) {
     plot.replaceChildren(el("p", { text: "No heightmap yet: " + err.message }));
   }
