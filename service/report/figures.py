@@ -267,6 +267,9 @@ def main_result_figure(pairs: list[dict[str, Any]], colours: dict[int, Any]) -> 
         for s in pair["subjects"]:
             pts = np.asarray(s["points"], dtype=float)
             ax.plot(pts[:, 0], pts[:, 1], color="0.55", lw=0.8, alpha=0.45, zorder=1)
+        if pair.get("fit_band"):
+            band = np.asarray(pair["fit_band"], dtype=float)
+            ax.fill_between(band[:, 0], band[:, 1], band[:, 2], color="0.85", lw=0, zorder=0)
         if pair["fit_line"]:
             line = np.asarray(pair["fit_line"], dtype=float)
             ax.plot(line[:, 0], line[:, 1], color="black", lw=1.4, zorder=2)

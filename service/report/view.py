@@ -26,13 +26,11 @@ QC_PREFIXES = ("heightmap_",)
 QC_SUFFIXES = ("_r2",)
 QC_MEASURES = frozenset({"valid_fraction", "noise_floor_m", "cutoff_hz", "n_strides"})
 
-# Arena-level fields of a correspondence row (issue 14, item 1: the arena is the unit of
-# replication). When the correspondence carries them, name them here (row field -> our name)
-# and ``arena_level`` uses them; until then it fits the arena means itself (marked fallback).
-# Switching is this one edit.
-ARENA_FIELDS: dict[str, str] = {}
-# e.g. {"arena_slope": "slope", "arena_ci_low": "ci_low", "arena_ci_high": "ci_high",
-#       "arena_intercept": "intercept"}
+# Arena-level fields of a correspondence row (the arena is the unit of replication):
+# row field -> our name. ``slope``, ``ci_low`` and ``ci_high`` are the arena-level fit of
+# service.analysis.grid; its ``arena_points`` and ``fit_line`` give the figure's points and
+# band, so the report, the dashboard and the JSON show one set of numbers.
+ARENA_FIELDS: dict[str, str] = {"slope": "slope", "ci_low": "ci_low", "ci_high": "ci_high"}
 
 
 def _is_qc(name: str) -> bool:
@@ -105,6 +103,8 @@ def arena_level(study: StudyData, row: Mapping[str, Any]) -> dict[str, Any]:
     freedom (fallback, labelled so in ``fit["source"]``).
     """
     tm, mm = row["terrain_measure"], row["movement_measure"]
+    if row.get("arena_points"):
+        return _from_correspondence(study, row)
     per: dict[int, dict[int, list[float]]] = defaultdict(lambda: defaultdict(list))
     for t in study.movement:
         x = study.terrain.get(t.arena_id, {}).get(tm, np.nan)
@@ -141,6 +141,58 @@ def arena_level(study: StudyData, row: Mapping[str, Any]) -> dict[str, Any]:
     return {"arenas": arenas, "subjects": lines, "fit": _arena_fit(row, arenas)}
 
 
+def _subject_lines(study: StudyData, tm: str, mm: str) -> list[dict[str, Any]]:
+    """Each subject's mean per arena, as a faint line across arenas (two or more arenas)."""
+    per: dict[int, dict[int, list[float]]] = defaultdict(lambda: defaultdict(list))
+    for t in study.movement:
+        x = study.terrain.get(t.arena_id, {}).get(tm, np.nan)
+        y = t.values.get(mm, np.nan)
+        if _finite(x) and _finite(y):
+            per[t.subject_id][t.arena_id].append(float(y))
+    labels = {s.id: s.label for s in study.subjects}
+    lines = []
+    for s, by_arena in sorted(per.items()):
+        pts = sorted((float(study.terrain[a][tm]), float(np.mean(v))) for a, v in by_arena.items())
+        if len(pts) > 1:
+            lines.append({"subject": labels.get(s, f"subject {s}"), "points": pts})
+    return lines
+
+
+def _from_correspondence(study: StudyData, row: Mapping[str, Any]) -> dict[str, Any]:
+    """The figure from the correspondence row itself: its arena points and arena-level fit."""
+    nan = float("nan")
+
+    def num(v: Any) -> float:
+        return float(v) if _finite(v) else nan
+
+    arenas = [
+        {
+            "arena_id": int(p["arena_id"]),
+            "name": str(p.get("arena_name") or study.arena_name(int(p["arena_id"]))),
+            "x": num(p["terrain"]),
+            "y": num(p["movement"]),
+            "y_low": num(p.get("movement_ci_low")),
+            "y_high": num(p.get("movement_ci_high")),
+            "n_subjects": int(p.get("n_subjects") or 0),
+            "n_trials": int(p.get("n_trials") or 0),
+        }
+        for p in sorted(row["arena_points"], key=lambda p: (num(p["terrain"]), p["arena_id"]))
+    ]
+    line = row.get("fit_line") or {}
+    fit = {
+        "slope": num(row.get("slope")),
+        "intercept": num(line.get("intercept")),
+        "ci_low": num(row.get("ci_low")),
+        "ci_high": num(row.get("ci_high")),
+        "source": "correspondence (arena level)",
+        "band_x": [num(v) for v in line.get("x", [])],
+        "band_low": [num(v) for v in line.get("band_low", [])],
+        "band_high": [num(v) for v in line.get("band_high", [])],
+    }
+    tm, mm = row["terrain_measure"], row["movement_measure"]
+    return {"arenas": arenas, "subjects": _subject_lines(study, tm, mm), "fit": fit}
+
+
 def _arena_fit(row: Mapping[str, Any], arenas: list[dict[str, Any]]) -> dict[str, Any]:
     if ARENA_FIELDS and all(f in row for f in ARENA_FIELDS):
         fit = {ours: row[theirs] for theirs, ours in ARENA_FIELDS.items()}
@@ -150,7 +202,7 @@ def _arena_fit(row: Mapping[str, Any], arenas: list[dict[str, Any]]) -> dict[str
             ys = np.array([a["y"] for a in arenas])
             fit["intercept"] = float(ys.mean() - float(fit["slope"] or 0.0) * xs.mean())
         return fit
-    # FALLBACK (until the correspondence carries arena-level fields): OLS on arena means.
+    # FALLBACK (a row without arena-level fields, e.g. from an older store): OLS on arena means.
     xs = np.array([a["x"] for a in arenas], dtype=float)
     ys = np.array([a["y"] for a in arenas], dtype=float)
     nan = float("nan")
@@ -234,6 +286,13 @@ def _pair_view(study: StudyData, row: Mapping[str, Any]) -> dict[str, Any] | Non
     if _finite(fit.get("slope")) and _finite(fit.get("intercept")):
         for x in (min(xs), max(xs)):
             line.append([x * fx, (fit["intercept"] + fit["slope"] * x) * fy])
+    band = [
+        [x * fx, lo * fy, hi * fy]
+        for x, lo, hi in zip(
+            fit.get("band_x", []), fit.get("band_low", []), fit.get("band_high", []), strict=False
+        )
+        if _finite(x) and _finite(lo) and _finite(hi)
+    ]
     slope_text = (
         f"{cv.fmt_number(_mul(fit.get('slope'), k))} {s_unit} "
         f"[{cv.fmt_number(_mul(fit.get('ci_low'), k))}, "
@@ -268,6 +327,7 @@ def _pair_view(study: StudyData, row: Mapping[str, Any]) -> dict[str, Any] | Non
             for s in level["subjects"]
         ],
         "fit_line": line,
+        "fit_band": band,  # [x, low, high]: 95 % confidence band of the arena-level line
         "fit_source": fit["source"],
         "slope_text": slope_text,
         "title": (

@@ -435,6 +435,12 @@ async function mainResult(node, p, colours) {
   p.subjects.forEach((s, i) => traces.push({ type: "scatter", mode: "lines", x: s.points.map(q => q[0]), y: s.points.map(q => q[1]),
     line: { color: "rgba(120,120,120,0.45)", width: 1 }, name: "subjects (mean per arena)", legendgroup: "subjects",
     showlegend: i === 0, hovertemplate: s.subject + "<extra></extra>" }));
+  if (p.fit_band && p.fit_band.length) {
+    traces.push({ type: "scatter", mode: "lines", x: p.fit_band.map(q => q[0]), y: p.fit_band.map(q => q[1]),
+      line: { width: 0 }, showlegend: false, hoverinfo: "skip" });
+    traces.push({ type: "scatter", mode: "lines", x: p.fit_band.map(q => q[0]), y: p.fit_band.map(q => q[2]),
+      line: { width: 0 }, fill: "tonexty", fillcolor: "rgba(0,0,0,0.10)", name: "95 % band of the arena-level fit", hoverinfo: "skip" });
+  }
   if (p.fit_line.length) traces.push({ type: "scatter", mode: "lines", x: p.fit_line.map(q => q[0]), y: p.fit_line.map(q => q[1]),
     line: { color: "black", width: 2 }, name: "arena-level fit", hoverinfo: "skip" });
   const a = p.arenas;
