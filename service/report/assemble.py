@@ -330,6 +330,61 @@ def _figure_sections(
     return parts
 
 
+def _expected_section(
+    session: Any, study: StudyData, correspondence: Mapping[str, Any], n_measures: int = 3
+) -> str:
+    """Expected movement per arena, each predicted from the other arenas of the study."""
+    from service.analysis.expected import expected_movement
+    from storage.errors import StorageError
+
+    movement = []
+    for row in correspondence.get("rows", []):
+        if row["movement_measure"] not in movement:
+            movement.append(row["movement_measure"])
+    movement = movement[:n_measures]
+    head = (
+        '<section id="expected"><h2>Expected movement</h2>'
+        "<p>Each arena's movement predicted from its ground by the arena-level fit of the "
+        "other arenas (the arena itself left out), with a 95 % prediction interval, beside "
+        "the prediction that ignores the ground. Same numbers as "
+        "<code>GET /v1/arenas/{id}/expected-movement</code>.</p>"
+    )
+    if not movement or not study.recipe_name:
+        return head + "<p>No estimable pair, so no prediction.</p></section>"
+    lines = [
+        "<table><thead><tr><th>arena</th><th>terrain measure</th><th>movement measure</th>"
+        "<th>predicted [95 % PI]</th><th>ignoring the ground [95 % PI]</th><th>note</th>"
+        "</tr></thead><tbody>"
+    ]
+    notes: set[str] = set()
+    for arena in study.arenas:
+        try:
+            out = expected_movement(
+                session=session, recipe=study.recipe_name, arena_id=arena.id,
+                movement_measures=movement, study=study.study_name,
+            )  # fmt: skip
+        except (StorageError, ValueError) as err:  # no scored scan, too few arenas
+            notes.add(f"{arena.name}: {err}")
+            continue
+        for r in out["rows"]:
+            pred = f"{_fmt(r['predicted'])} [{_fmt(r['pi_low'])}, {_fmt(r['pi_high'])}]"
+            base = (
+                f"{_fmt(r.get('baseline_predicted'))} [{_fmt(r.get('baseline_pi_low'))}, "
+                f"{_fmt(r.get('baseline_pi_high'))}]"
+            )
+            lines.append(
+                f"<tr><td>{_e(arena.name)}</td><td>{_e(out.get('terrain_measure'))}</td>"
+                f"<td>{_e(r['movement_measure'])}</td><td>{pred}</td><td>{base}</td>"
+                f"<td>{_e(r.get('note') or '')}</td></tr>"
+            )
+        notes.update(str(w) for w in out.get("warnings", []))
+    lines.append("</tbody></table>")
+    if notes:
+        items = "".join(f"<li>{_e(n)}</li>" for n in sorted(notes))
+        lines.append(f'<ul class="notes">{items}</ul>')
+    return head + "".join(lines) + "</section>"
+
+
 def build_report(
     *,
     session: Any,
@@ -363,6 +418,7 @@ def build_report(
         _warnings_section(warnings),
         _summary_section(study, correspondence),
         *_figure_sections(study, correspondence, session, store, colours),
+        _expected_section(session, study, correspondence),
         "</main></body></html>",
     ]
     return "\n".join(parts)

@@ -301,6 +301,26 @@ async function trialPage(id) {
   draw(0);
 }
 
+// The movement an arena's ground predicts (the arena left out of the fit), as the report shows it.
+async function expectedPanel(node, arenaId) {
+  try {
+    const out = await api("/v1/arenas/" + arenaId + "/expected-movement?recipe=default");
+    const cols = [
+      { label: "movement measure", get: r => r.movement_measure },
+      { label: "predicted [95 % PI]", get: r => r.predicted === null ? "n/a" : fmt(r.predicted) + " [" + fmt(r.pi_low) + ", " + fmt(r.pi_high) + "]" },
+      { label: "ignoring the ground [95 % PI]", get: r => r.baseline_predicted === null || r.baseline_predicted === undefined ? "n/a" :
+        fmt(r.baseline_predicted) + " [" + fmt(r.baseline_pi_low) + ", " + fmt(r.baseline_pi_high) + "]" },
+      { label: "arenas", get: r => r.n_arenas, num: true },
+      { label: "note", get: r => r.note || "" },
+    ];
+    const caption = "From " + (out.terrain_measure || "the ground") + " by the arena-level fit of the other arenas" +
+      (out.left_out ? " (this arena left out)" : "");
+    node.replaceChildren(table(cols, out.rows, caption), ...(out.warnings || []).map(w => el("p", { class: "warning", text: w })));
+  } catch (err) {
+    node.replaceChildren(el("p", { text: "No prediction: " + err.message }));
+  }
+}
+
 async function scanPage(id) {
   const scan = await api("/v1/scans/" + id);
   const arena = await api("/v1/arenas/" + scan.arena_id);
@@ -310,7 +330,10 @@ async function scanPage(id) {
   const facts = { arena: arena.name, file: scan.filename, format: scan.format, kind: scan.kind, "file units": scan.units,
     points: scan.n_points, "grid (cells)": scan.grid_nx && scan.grid_ny ? scan.grid_nx + " x " + scan.grid_ny : null,
     ["cell (" + cell[1] + ")"]: cell[0], captured: scan.captured_at };
-  show(kv(facts, Object.keys(facts)), el("h2", { text: "Heightmap" }), plot, el("h2", { text: "Scores" }), el("div", { id: "scores" }));
+  show(kv(facts, Object.keys(facts)), el("h2", { text: "Heightmap" }), plot,
+    el("h2", { text: "Expected movement on this ground" }), el("div", { id: "expected" }),
+    el("h2", { text: "Scores" }), el("div", { id: "scores" }));
+  expectedPanel(document.getElementById("expected"), scan.arena_id);
   const scores = await all("/v1/scores?scan_id=" + id + "&target_kind=scan");
   document.getElementById("scores").replaceChildren(await scoreTable(scores));
   try {
