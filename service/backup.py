@@ -176,7 +176,7 @@ def _unpack(source: Path, into: Path) -> Path:
 
 def _check_members(root: Path) -> dict[str, Any]:
     try:
-        manifest = json.loads((root / MANIFEST).read_text())
+        manifest: dict[str, Any] = json.loads((root / MANIFEST).read_text())
     except (OSError, ValueError) as exc:
         raise BackupError(f"backup has no readable {MANIFEST}: {exc}") from exc
     if manifest.get("format") != BACKUP_FORMAT:

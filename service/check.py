@@ -165,7 +165,9 @@ def _check_orphans(
         report.problems.append(Problem("orphan", f"artifact {sha}", detail, fixed))
 
 
-def _check_staging(store: Any, report: CheckReport, *, repair: bool, now: float, grace_s: float):
+def _check_staging(
+    store: Any, report: CheckReport, *, repair: bool, now: float, grace_s: float
+) -> None:
     import shutil
 
     for path in sorted(store.tmp_dir.iterdir()):

@@ -14,7 +14,7 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from measures.errors import InsufficientDataError, InvalidParameterError
-from service.analysis.tables import Selection, choose_scans, clean
+from service.analysis.tables import Selection, choose_scans, clean_object
 from storage import repo
 from storage.errors import BadInput, StorageError
 
@@ -78,7 +78,8 @@ def _to_scan_frame(points: np.ndarray, registration: Any) -> np.ndarray:
         return points
     mat = np.asarray(registration, dtype=np.float64).reshape(4, 4)
     inv = np.linalg.inv(mat)
-    return points @ inv[:3, :3].T + inv[:3, 3]
+    out: np.ndarray = points @ inv[:3, :3].T + inv[:3, 3]
+    return out
 
 
 def trial_scores(*, session: Session, recipe_hash: str, trial_id: int) -> dict[str, float]:
@@ -91,7 +92,9 @@ def trial_scores(*, session: Session, recipe_hash: str, trial_id: int) -> dict[s
     }
 
 
-def _embedding(signal: np.ndarray, fs: float, scores: dict[str, float], p: dict[str, Any]):
+def _embedding(
+    signal: np.ndarray, fs: float, scores: dict[str, float], p: dict[str, Any]
+) -> tuple[int, int]:
     from measures.dynamics.embedding import embedding_dimension, first_ami_minimum
 
     delay_s, dim = (scores.get(k, math.nan) for k in ("embedding_delay_s", "embedding_dimension"))
@@ -401,7 +404,7 @@ def local_report(
             "margin_m",
         )
         trials_out.append({k: w[k] for k in keys} | {"windows": windows})
-    return clean(
+    return clean_object(
         {
             "recipe": {"name": prof.name, "version": prof.version, "hash": prof.hash},
             "window_s": window_s,

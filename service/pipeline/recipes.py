@@ -34,9 +34,11 @@ DEFAULT_CELL_M = 0.001
 _FUNCTION = "analysis recipe"
 
 
-def _jsonable(value: Any) -> Any:
+def _jsonable(value: Mapping[str, Any]) -> dict[str, Any]:
     # Tuples become lists: the stored form is JSON, and the hash is taken on that form.
-    return json.loads(json.dumps(value, allow_nan=False))
+    # A JSON object round-trips to a dict.
+    out: dict[str, Any] = json.loads(json.dumps(value, allow_nan=False))
+    return out
 
 
 def _heightmap_defaults() -> dict[str, Any]:

@@ -12,7 +12,7 @@ from pydantic import BaseModel, ValidationError
 from starlette.concurrency import run_in_threadpool
 
 from service.routes._multipart import receive_upload
-from service.schemas import UploadPublic
+from service.schemas import MetaCorrected, UploadPublic
 from storage import repo
 
 __all__ = [
@@ -200,10 +200,8 @@ async def handle_upload(
 
 def correct_upload_meta(
     request: Request, *, target_kind: str, target_id: int, body: BaseModel
-) -> Any:
+) -> MetaCorrected:
     """Apply a metadata correction (``storage.repo.correct_meta``) and answer what changed."""
-    from service.schemas import MetaCorrected
-
     state = request.app.state
     changes = body.model_dump(mode="json", exclude_unset=True)
     with state.sessionmaker() as session:
