@@ -5,7 +5,13 @@ from __future__ import annotations
 import json
 import re
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from sqlalchemy.orm import Session
+
+    from service.settings import Settings
+    from storage.readers import ReaderLimits
 
 from fastapi import HTTPException, Request, Response, status
 from pydantic import BaseModel, ValidationError
@@ -112,13 +118,13 @@ def check_format(filename: str, *, kind: str) -> str:
         raise HTTPException(status.HTTP_415_UNSUPPORTED_MEDIA_TYPE, detail=str(exc)) from exc
 
 
-def _job_for(session: Any, *, target_kind: str, target_id: int) -> int | None:
+def _job_for(session: Session, *, target_kind: str, target_id: int) -> int | None:
     # The upload's unit of work queued the job (for a duplicate, when it had none).
     job = repo.latest_job(session=session, target_kind=target_kind, target_id=target_id)
     return None if job is None else int(job.id)
 
 
-def reader_limits(settings: Any) -> Any:
+def reader_limits(settings: Settings) -> ReaderLimits:
     """The reader caps a server's settings give."""
     from storage.readers import ReaderLimits
 

@@ -13,6 +13,7 @@ import re
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, HTTPException, Path, Query, Response, status
+from sqlalchemy.orm import Session
 
 from service.deps import ReadOrUploadToken, SessionDep, token_scopes
 from service.schemas import UploadCheck
@@ -29,7 +30,7 @@ _HEX = re.compile(r"^[0-9a-f]{64}$")
 
 
 def _records(
-    session: Any,
+    session: Session,
     sha256: str,
     *,
     token: Any,
