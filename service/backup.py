@@ -30,7 +30,11 @@ import tarfile
 import tempfile
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from service.settings import Settings
+    from storage.artifacts import ArtifactStore
 
 from service.console import settings_from_args
 from storage.artifacts import sha256_file
@@ -53,7 +57,7 @@ class BackupError(Exception):
     """A backup or restore that cannot go ahead; the message says why."""
 
 
-def _sqlite_path(settings: Any) -> Path:
+def _sqlite_path(settings: Settings) -> Path:
     from sqlalchemy.engine import make_url
 
     url = make_url(settings.resolved_database_url)
@@ -82,7 +86,9 @@ def _snapshot_sqlite(source: Path, dest: Path) -> None:
         src.close()
 
 
-def backup_store(*, settings: Any, out: str | Path, artifacts_only: bool = False) -> dict[str, Any]:
+def backup_store(
+    *, settings: Settings, out: str | Path, artifacts_only: bool = False
+) -> dict[str, Any]:
     """Write a backup of the store named by ``settings`` to ``out``; returns the manifest.
 
     ``out`` ending in ``.tar``/``.tar.gz``/``.tgz`` (or not existing and not ending in a
@@ -129,7 +135,7 @@ def _member(sha: str) -> str:
     return f"artifacts/{sha[:2]}/{sha[2:4]}/{sha}"
 
 
-def _write_tar(tmp: Path, store: Any, manifest: dict[str, Any], out: Path) -> None:
+def _write_tar(tmp: Path, store: ArtifactStore, manifest: dict[str, Any], out: Path) -> None:
     mode = "w:gz" if out.name.endswith((".gz", ".tgz")) else "w"
     out.parent.mkdir(parents=True, exist_ok=True)
     partial = out.with_name(out.name + ".partial")
@@ -146,7 +152,7 @@ def _write_tar(tmp: Path, store: Any, manifest: dict[str, Any], out: Path) -> No
         raise
 
 
-def _write_directory(tmp: Path, store: Any, manifest: dict[str, Any], out: Path) -> None:
+def _write_directory(tmp: Path, store: ArtifactStore, manifest: dict[str, Any], out: Path) -> None:
     if any(out.iterdir()):
         raise BackupError(f"{out} is not empty; give an empty directory or a .tar file name")
     if manifest["database"]:
@@ -176,7 +182,7 @@ def _unpack(source: Path, into: Path) -> Path:
 
 def _check_members(root: Path) -> dict[str, Any]:
     try:
-        manifest = json.loads((root / MANIFEST).read_text())
+        manifest: dict[str, Any] = json.loads((root / MANIFEST).read_text())
     except (OSError, ValueError) as exc:
         raise BackupError(f"backup has no readable {MANIFEST}: {exc}") from exc
     if manifest.get("format") != BACKUP_FORMAT:
@@ -193,7 +199,7 @@ def _check_members(root: Path) -> dict[str, Any]:
     return manifest
 
 
-def restore_store(*, settings: Any, source: str | Path) -> dict[str, Any]:
+def restore_store(*, settings: Settings, source: str | Path) -> dict[str, Any]:
     """Restore a backup into the (empty or absent) data directory of ``settings``.
 
     Everything is verified before the first byte is written to the data directory.

@@ -22,10 +22,15 @@ from __future__ import annotations
 
 import argparse
 import time
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:  # the command imports the database layer only when it runs
+    from sqlalchemy.orm import Session
+
+    from storage.artifacts import ArtifactStore
 
 from service.console import format_table, settings_from_args
 
@@ -102,7 +107,7 @@ _ARTIFACT_COLUMNS = {
 }
 
 
-def _references(session: Any) -> Iterable[tuple[str, int, str, str]]:
+def _references(session: Session) -> Iterable[tuple[str, int, str, str]]:
     """``(kind, row id, column, sha256)`` for every artifact a row names."""
     from sqlalchemy import select
 
@@ -124,7 +129,9 @@ def _old_enough(path: Path, *, now: float, grace_s: float) -> bool:
         return False
 
 
-def _check_rows(session: Any, store: Any, report: CheckReport, *, verify: bool) -> set[str]:
+def _check_rows(
+    session: Session, store: ArtifactStore, report: CheckReport, *, verify: bool
+) -> set[str]:
     referenced: set[str] = set()
     verified: dict[str, bool] = {}
     for kind, row_id, column, sha in _references(session):
@@ -145,7 +152,7 @@ def _check_rows(session: Any, store: Any, report: CheckReport, *, verify: bool) 
 
 
 def _check_orphans(
-    store: Any,
+    store: ArtifactStore,
     referenced: set[str],
     report: CheckReport,
     *,
@@ -165,7 +172,9 @@ def _check_orphans(
         report.problems.append(Problem("orphan", f"artifact {sha}", detail, fixed))
 
 
-def _check_staging(store: Any, report: CheckReport, *, repair: bool, now: float, grace_s: float):
+def _check_staging(
+    store: ArtifactStore, report: CheckReport, *, repair: bool, now: float, grace_s: float
+) -> None:
     import shutil
 
     for path in sorted(store.tmp_dir.iterdir()):
@@ -181,7 +190,7 @@ def _check_staging(store: Any, report: CheckReport, *, repair: bool, now: float,
         )
 
 
-def _check_jobs(session: Any, report: CheckReport, *, repair: bool) -> None:
+def _check_jobs(session: Session, report: CheckReport, *, repair: bool) -> None:
     from sqlalchemy import select
 
     from storage import repo
@@ -210,7 +219,7 @@ def _check_jobs(session: Any, report: CheckReport, *, repair: bool) -> None:
         report.problems.append(Problem("stuck_job", f"job {job.id}", detail, fixed))
 
 
-def _check_jobless(session: Any, report: CheckReport, *, repair: bool) -> None:
+def _check_jobless(session: Session, report: CheckReport, *, repair: bool) -> None:
     from sqlalchemy import and_, exists, select
 
     from storage import repo
@@ -233,8 +242,8 @@ def _check_jobless(session: Any, report: CheckReport, *, repair: bool) -> None:
 
 def check_store(
     *,
-    sessionmaker: Any,
-    store: Any,
+    sessionmaker: Callable[[], Session],
+    store: ArtifactStore,
     repair: bool = False,
     verify: bool = True,
     grace_s: float = DEFAULT_GRACE_S,

@@ -90,7 +90,9 @@ class FailedAuthLimiter:
 
 
 def get_settings_dep(request: Request) -> Settings:
-    return request.app.state.settings
+    # app.state is untyped; the app factory stores a Settings here.
+    settings: Settings = request.app.state.settings
+    return settings
 
 
 def get_session(request: Request) -> Iterator[Session]:
@@ -99,7 +101,8 @@ def get_session(request: Request) -> Iterator[Session]:
 
 
 def get_store(request: Request) -> ArtifactStore:
-    return request.app.state.store
+    store: ArtifactStore = request.app.state.store
+    return store
 
 
 SettingsDep = Annotated[Settings, Depends(get_settings_dep)]

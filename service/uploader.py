@@ -53,7 +53,7 @@ import time
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, BinaryIO, TextIO
+from typing import Any, BinaryIO, TextIO, cast
 
 import httpx
 
@@ -336,7 +336,8 @@ class _Sender:
                 reader = _ProgressReader(fh, bar.update)
                 return self.client.post(
                     url,
-                    files={"file": (path.name, reader, "application/octet-stream")},
+                    # httpx types files as IO[bytes] but calls only read/seek/tell/fileno.
+                    files={"file": (path.name, cast(BinaryIO, reader), "application/octet-stream")},
                     data={"meta": json.dumps(meta)},
                 )
 

@@ -97,7 +97,9 @@ class ConfoundChecks:
     warnings: tuple[str, ...]
 
 
-def _arena_means(values: NDArray[np.float64], arena: NDArray[np.intp], n_arenas: int):
+def _arena_means(
+    values: NDArray[np.float64], arena: NDArray[np.intp], n_arenas: int
+) -> NDArray[np.float64]:
     ok = np.isfinite(values)
     sums = np.bincount(arena[ok], weights=values[ok], minlength=n_arenas)
     counts = np.bincount(arena[ok], minlength=n_arenas)

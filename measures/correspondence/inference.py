@@ -147,7 +147,8 @@ def _group_sums(
     counts = np.bincount(groups, minlength=n_groups).astype(np.float64)
     sum_x = np.zeros((n_groups, design.shape[1]))
     np.add.at(sum_x, groups, design)
-    sum_y = np.bincount(groups, weights=y, minlength=n_groups)
+    # Weighted bincount is float64; numpy's stubs say intp, so say it (no copy is made).
+    sum_y = np.bincount(groups, weights=y, minlength=n_groups).astype(np.float64, copy=False)
     return counts, sum_x, sum_y
 
 
@@ -164,17 +165,18 @@ def _reml_pieces(
     # (Sherman-Morrison), so every GLS product needs only per-group sums.
     lam = math.exp(log_ratio)
     c = lam / (1.0 + counts * lam)
-    a = xtx - (sum_x * c[:, None]).T @ sum_x
+    a: NDArray[np.float64] = xtx - (sum_x * c[:, None]).T @ sum_x
     b = xty - (sum_x * (c * sum_y)[:, None]).sum(axis=0)
     ryy = yty - float(np.sum(c * sum_y**2))
     beta = np.linalg.solve(a, b)
     rss = ryy - float(b @ beta)
-    n, p = float(counts.sum()), a.shape[0]
+    n, p = float(counts.sum()), int(a.shape[0])
     sigma2 = max(rss, 1e-300) / (n - p)
     logdet_v = float(np.sum(np.log1p(counts * lam)))
     _, logdet_a = np.linalg.slogdet(a)
-    neg_reml = 0.5 * ((n - p) * math.log(sigma2) + logdet_v + logdet_a)
-    return neg_reml, beta, np.linalg.inv(a), sigma2
+    neg_reml = 0.5 * ((n - p) * math.log(sigma2) + logdet_v + float(logdet_a))
+    # The inverse of a float64 matrix is float64 (numpy's stubs say floating; no copy made).
+    return neg_reml, beta, np.linalg.inv(a).astype(np.float64, copy=False), sigma2
 
 
 def fit_random_intercept(

@@ -74,7 +74,9 @@ def _pooled(a: NDArray[np.int64], b: NDArray[np.int64]) -> float:
     return homogeneity_pvalue(np.append(a[:cut].sum(), a[cut:]), np.append(b[:cut].sum(), b[cut:]))
 
 
-def _g_test(a, b, ea, eb) -> float:
+def _g_test(
+    a: NDArray[np.int64], b: NDArray[np.int64], ea: NDArray[np.float64], eb: NDArray[np.float64]
+) -> float:
     obs = np.concatenate([a, b]).astype(float)
     exp = np.concatenate([ea, eb])
     nz = obs > 0

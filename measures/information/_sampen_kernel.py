@@ -21,7 +21,9 @@ _HALF_NEIGHBOURS = np.array([[0, 1], [1, -1], [1, 0], [1, 1]], dtype=np.int64)
 
 
 @numba.njit(cache=True)
-def _pair_counts(t, i, j, r, m, a, b):  # pragma: no cover - compiled
+def _pair_counts(
+    t: NDArray[np.float64], i: int, j: int, r: float, m: int, a: int, b: int
+) -> tuple[int, int]:  # pragma: no cover - compiled
     for c in range(m):
         if abs(t[j, c] - t[i, c]) > r:
             return a, b
@@ -32,7 +34,16 @@ def _pair_counts(t, i, j, r, m, a, b):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def _count_cells(t, keys, starts, ends, offsets, width, r, m):  # pragma: no cover - compiled
+def _count_cells(
+    t: NDArray[np.float64],
+    keys: NDArray[np.int64],
+    starts: NDArray[np.int64],
+    ends: NDArray[np.int64],
+    offsets: NDArray[np.int64],
+    width: np.int64,
+    r: float,
+    m: int,
+) -> tuple[int, int]:  # pragma: no cover - compiled
     a = 0
     b = 0
     n_cells = keys.size

@@ -92,6 +92,15 @@ _CELL_COUNT = 50  # expected counts per (history, symbol) cell for the default L
 _FAMILY_ERROR = 0.01  # expected false splits per run for the default alpha
 _MAX_CODE = 2**62
 
+# Types of the reconstruction's working state.
+_Codes = NDArray[np.int64]
+#: Per history length l: sorted history codes and their (n_hist, k) next-symbol counts.
+_Levels = list[tuple[_Codes, _Codes]]
+#: Per history length l: the state of each history (-1: none yet).
+_Assign = list[_Codes]
+#: Per state: its histories as (length, index into that length's codes).
+_Members = list[list[tuple[int, int]]]
+
 
 @dataclass(frozen=True)
 class CausalStateModel:
@@ -315,11 +324,11 @@ def _window_codes(s: NDArray[np.int64], k: int, length: int) -> NDArray[np.int64
     return codes
 
 
-def _history_counts(s, k, L):
+def _history_counts(s: _Codes, k: int, L: int) -> _Levels:
     """Per length l = 0..L: sorted history codes and their (n_hist, k) next-symbol counts."""
     n = s.size
     codes = np.zeros(n + 1, dtype=np.int64)
-    levels = []
+    levels: _Levels = []
     for l in range(L + 1):
         if l > 0:
             codes[: n - l + 1] = codes[: n - l + 1] * k + s[l - 1 :]
@@ -338,7 +347,7 @@ def _find(codes: NDArray[np.int64], code: int) -> int:
     return i if i < codes.size and codes[i] == code else -1
 
 
-def _split_states(levels, k, L, alpha):
+def _split_states(levels: _Levels, k: int, L: int, alpha: float) -> tuple[_Assign, _Members]:
     """Sufficiency step: grow histories into the past, splitting on rejected tests."""
     assign = [np.full(h.size, -1, dtype=np.int64) for h, _ in levels]
     assign[0][0] = 0
@@ -369,7 +378,7 @@ def _split_states(levels, k, L, alpha):
     return assign, members
 
 
-def _reference_counts(levels, mem, l, k):
+def _reference_counts(levels: _Levels, mem: list[tuple[int, int]], l: int, k: int) -> _Codes:
     """Pooled next-symbol counts of a state's histories at its longest length <= l."""
     lengths = [lev for lev, _ in mem if lev <= l]
     if not lengths:
@@ -378,7 +387,7 @@ def _reference_counts(levels, mem, l, k):
     return sum((levels[lev][1][i] for lev, i in mem if lev == top), np.zeros(k, dtype=np.int64))
 
 
-def _best_other_state(c, ref, exclude, alpha):
+def _best_other_state(c: _Codes, ref: list[_Codes], exclude: int, alpha: float) -> int:
     best, best_p = -1, alpha
     for st, r in enumerate(ref):
         if st == exclude or r.sum() == 0:
@@ -389,7 +398,7 @@ def _best_other_state(c, ref, exclude, alpha):
     return best
 
 
-def _lookup_state(levels, assign, code: int, length: int, k: int) -> int:
+def _lookup_state(levels: _Levels, assign: _Assign, code: int, length: int, k: int) -> int:
     """State of the longest assigned suffix (of length <= ``length``) of a history."""
     for l in range(length, -1, -1):
         j = _find(levels[l][0], code % k**l if l > 0 else 0)
@@ -398,7 +407,9 @@ def _lookup_state(levels, assign, code: int, length: int, k: int) -> int:
     return -1
 
 
-def _holder_signatures(levels, assign, mem, k, L):
+def _holder_signatures(
+    levels: _Levels, assign: _Assign, mem: list[tuple[int, int]], k: int, L: int
+) -> tuple[list[tuple[int, int]], _Codes]:
     """Successor states of a state's transition-carrying histories, (n, k), -1 unknown."""
     short = [(lev, i) for lev, i in mem if lev == L - 1]
     holders = short if short else [(lev, i) for lev, i in mem if lev == L]
@@ -433,7 +444,7 @@ def _group_signatures(sigs: NDArray[np.int64]) -> list[list[int]]:
     return groups
 
 
-def _determinise(levels, assign, members, k, L):
+def _determinise(levels: _Levels, assign: _Assign, members: _Members, k: int, L: int) -> None:
     """Recursion step: split states until each (state, symbol) has one successor."""
     changed = True
     while changed:
@@ -449,11 +460,20 @@ def _determinise(levels, assign, members, k, L):
             _apply_split(levels, assign, members, st, holders, groups, k, L)
 
 
-def _apply_split(levels, assign, members, st, holders, groups, k, L):
+def _apply_split(
+    levels: _Levels,
+    assign: _Assign,
+    members: _Members,
+    st: int,
+    holders: list[tuple[int, int]],
+    groups: list[list[int]],
+    k: int,
+    L: int,
+) -> None:
     """Give each group of holders of state ``st`` its own state; move the rest along."""
     new_ids = [st, *range(len(members), len(members) + len(groups) - 1)]
     members.extend([] for _ in groups[1:])
-    moved = set()
+    moved: set[tuple[int, int]] = set()
     for gid, g in zip(new_ids, groups, strict=True):
         for r in g:
             lev, i = holders[r]
@@ -475,7 +495,15 @@ def _apply_split(levels, assign, members, st, holders, groups, k, L):
         members[gid] = [m for m in all_members if assign[m[0]][m[1]] == gid]
 
 
-def _best_model(levels, assign, members, alphabet, L, alpha, s):
+def _best_model(
+    levels: _Levels,
+    assign: _Assign,
+    members: _Members,
+    alphabet: _Codes,
+    L: int,
+    alpha: float,
+    s: _Codes,
+) -> CausalStateModel:
     """The candidate machine (closed class) that explains most of ``s``."""
     k = alphabet.size
     n_all = len(members)
@@ -486,12 +514,13 @@ def _best_model(levels, assign, members, alphabet, L, alpha, s):
         if holders:
             trans[st] = np.max(sigs, axis=0)
             counts[st] = sum(levels[lev][1][i] for lev, i in holders)
-    best = None
+    best: tuple[float, CausalStateModel] | None = None
     for keep in _closed_classes(trans, counts):  # heaviest first
         model = _build_model(levels, assign, alphabet, L, alpha, s.size, trans, counts, keep)
         fraction = _synchronised_fraction(model, s)
         if best is None or fraction > best[0]:
             best = (fraction, model)
+    assert best is not None  # _closed_classes returns at least one class
     fraction, model = best
     reliable = fraction >= SYNCHRONISED_THRESHOLD
     note = ""
@@ -516,7 +545,17 @@ def _synchronised_fraction(model: CausalStateModel, s: NDArray[np.int64]) -> flo
     return float(explained.mean())
 
 
-def _build_model(levels, assign, alphabet, L, alpha, n, trans, counts, keep):
+def _build_model(
+    levels: _Levels,
+    assign: _Assign,
+    alphabet: _Codes,
+    L: int,
+    alpha: float,
+    n: int,
+    trans: _Codes,
+    counts: _Codes,
+    keep: _Codes,
+) -> CausalStateModel:
     n_all = trans.shape[0]
     remap = np.full(n_all, -1, dtype=np.int64)
     remap[keep] = np.arange(keep.size)
@@ -548,7 +587,7 @@ def _build_model(levels, assign, alphabet, L, alpha, n, trans, counts, keep):
     )
 
 
-def _closed_classes(trans, counts) -> list[NDArray[np.int64]]:
+def _closed_classes(trans: _Codes, counts: _Codes) -> list[NDArray[np.int64]]:
     """States of each closed strongly connected class, heaviest (most counts) first."""
     n_all = trans.shape[0]
     src, dst = np.nonzero((trans >= 0) & (counts > 0))
@@ -566,7 +605,7 @@ def _closed_classes(trans, counts) -> list[NDArray[np.int64]]:
     return [np.nonzero(label == c)[0] for c in order]
 
 
-def _stationary(trans, probs) -> NDArray[np.float64]:
+def _stationary(trans: _Codes, probs: NDArray[np.float64]) -> NDArray[np.float64]:
     m = trans.shape[0]
     matrix = np.zeros((m, m))
     for b in range(trans.shape[1]):
@@ -580,17 +619,19 @@ def _stationary(trans, probs) -> NDArray[np.float64]:
     return pi / pi.sum()
 
 
-def _decode(code: int, length: int, k: int, alphabet) -> tuple[int, ...]:
+def _decode(code: int, length: int, k: int, alphabet: _Codes) -> tuple[int, ...]:
     digits = [0] * length
     for i in range(length - 1, -1, -1):
         code, digits[i] = divmod(code, k)
     return tuple(alphabet[d].item() for d in digits)
 
 
-def _describe_states(levels, assign, keep, remap, alphabet, L):
+def _describe_states(
+    levels: _Levels, assign: _Assign, keep: _Codes, remap: _Codes, alphabet: _Codes, L: int
+) -> tuple[tuple[tuple[tuple[int, ...], ...], ...], tuple[_Codes, _Codes], tuple[_Codes, _Codes]]:
     k = alphabet.size
     per_state: list[list[tuple[int, ...]]] = [[] for _ in keep]
-    lookups = []
+    lookups: list[tuple[_Codes, _Codes]] = []
     for length in (L, L - 1):
         codes, _ = levels[length]
         st = assign[length]
@@ -602,7 +643,7 @@ def _describe_states(levels, assign, keep, remap, alphabet, L):
     return states, lookups[0], lookups[1]
 
 
-def _single_symbol_model(alphabet, L, alpha, n) -> CausalStateModel:
+def _single_symbol_model(alphabet: _Codes, L: int, alpha: float, n: int) -> CausalStateModel:
     empty = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64))
     one = (np.zeros(1, dtype=np.int64), np.zeros(1, dtype=np.int64))
     return CausalStateModel(

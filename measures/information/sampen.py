@@ -80,7 +80,9 @@ def _sampen_abs(x: NDArray[np.float64], m: int, tolerance: float) -> float:
     return math.inf if a == 0 else -math.log(a / b)
 
 
-def _check(x, m, r, ddof, func):
+def _check(
+    x: ArrayLike, m: int, r: float, ddof: int, func: str
+) -> tuple[NDArray[np.float64], int, float, int, float]:
     arr = as_float_array("x", x, func, ndim=1, min_length=3)
     m = check_positive_int("m", m, func)
     r = check_positive_float("r", r, func)

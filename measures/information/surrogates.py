@@ -42,6 +42,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Literal, overload
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -102,11 +103,12 @@ class _Fourier:
         random sign, so the inverse transform is real and every |X(f)| is
         kept. The mean (zero-frequency bin) keeps phase 1.
         """
+        half: tuple[int, ...]
         if self.field:
             ny, nx = self.shape
             half = (ny, nx // 2 + 1)
         else:
-            ny, nx = self.shape[0], None
+            ny, nx = self.shape[0], 0  # nx is read for fields only
             half = (ny // 2 + 1,)
         # Angles, cosine and sine in float32 (numpy's complex exp is several
         # times slower), then renormalised in float64 so |phase| = 1 to
@@ -202,6 +204,28 @@ def phase_surrogate(
     return fourier.inverse(fourier.forward(arr) * fourier.random_phases(_rng(seed, rng)))
 
 
+@overload
+def iaaft_surrogate(
+    x: ArrayLike,
+    *,
+    seed: int = ...,
+    rng: np.random.Generator | None = ...,
+    multichannel: bool = ...,
+    max_iter: int = ...,
+    tol: float = ...,
+    return_errors: Literal[False] = ...,
+) -> NDArray[np.float64]: ...
+@overload
+def iaaft_surrogate(
+    x: ArrayLike,
+    *,
+    seed: int = ...,
+    rng: np.random.Generator | None = ...,
+    multichannel: bool = ...,
+    max_iter: int = ...,
+    tol: float = ...,
+    return_errors: Literal[True],
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]: ...
 def iaaft_surrogate(
     x: ArrayLike,
     *,
@@ -398,13 +422,17 @@ def surrogate_test(
         fourier = _Fourier(arr.shape, field=arr.ndim == 2 and not multichannel)
         spectrum = fourier.forward(arr)
 
-        def make(a: NDArray[np.float64], **_: object) -> NDArray[np.float64]:
+        def make(
+            a: NDArray[np.float64], *, rng: np.random.Generator, multichannel: bool
+        ) -> NDArray[np.float64]:
             return fourier.inverse(spectrum * fourier.random_phases(g))
     elif kind == "iaaft" and max_iter is not None:
         cap = check_positive_int("max_iter", max_iter, func)
 
-        def make(a: NDArray[np.float64], **kw: object) -> NDArray[np.float64]:
-            return iaaft_surrogate(a, max_iter=cap, **kw)  # type: ignore[arg-type]
+        def make(
+            a: NDArray[np.float64], *, rng: np.random.Generator, multichannel: bool
+        ) -> NDArray[np.float64]:
+            return iaaft_surrogate(a, max_iter=cap, rng=rng, multichannel=multichannel)
     else:
         make = _KINDS[kind]
     sur = np.array(

@@ -164,7 +164,13 @@ def _tied_windows(columns: list[NDArray[np.float64]]) -> NDArray[np.bool_]:
     return tied
 
 
-def _prepare_windows(x, order, delay, min_windows_per_pattern, fn):
+def _prepare_windows(
+    x: ArrayLike,
+    order: int | tuple[int, int],
+    delay: int | tuple[int, int],
+    min_windows_per_pattern: float,
+    fn: str,
+) -> tuple[NDArray[np.float64], list[NDArray[np.float64]], tuple[int, int, int, int]]:
     arr = as_float_array("x", x, fn, ndim=(1, 2))
     dx, dy = _parse_order(order, arr.ndim, fn)
     tx, ty = _parse_delay(delay, arr.ndim, fn)
@@ -191,7 +197,13 @@ def _check_ties(ties: str, fn: str) -> str:
     return ties
 
 
-def _codes_with_rule(arr, columns, geometry, ties, seed):
+def _codes_with_rule(
+    arr: NDArray[np.float64],
+    columns: list[NDArray[np.float64]],
+    geometry: tuple[int, int, int, int],
+    ties: str,
+    seed: int | None,
+) -> NDArray[np.int64]:
     """Codes under a tie rule (random keys drawn per sample from ``seed``)."""
     if ties == "stable":
         return _lehmer_codes(columns)

@@ -191,7 +191,9 @@ def _fits(offsets: tuple[tuple[int, ...], ...], shape: tuple[int, ...]) -> bool:
     return True
 
 
-def _windows(dense: NDArray[np.int64], window: int | tuple[int, int] | None):
+def _windows(
+    dense: NDArray[np.int64], window: int | tuple[int, int] | None
+) -> tuple[NDArray[np.int64], tuple[int, ...], bool]:
     """Cut the input into full windows, shape (n_win, *window_shape)."""
     if dense.ndim == 1:
         w = TWO_PART_WINDOW if window is None else window
@@ -206,7 +208,7 @@ def _windows(dense: NDArray[np.int64], window: int | tuple[int, int] | None):
         return dense[: n_win * w].reshape(n_win, w), (w,), comparable
     if window is None or isinstance(window, (int, np.integer)):
         side = math.isqrt(TWO_PART_WINDOW if window is None else int(window))
-        shape = (side, side)
+        shape: tuple[int, ...] = (side, side)
     else:
         if len(window) != 2:
             raise InvalidParameterError("window", _FUNC, "an int or (rows, columns)", window)
@@ -220,7 +222,15 @@ def _windows(dense: NDArray[np.int64], window: int | tuple[int, int] | None):
     return tiles.transpose(0, 2, 1, 3).reshape(ny * nx, *shape), shape, comparable
 
 
-def _window_costs(codes, symbols, n_win, k, m, n_sites, n_edge):
+def _window_costs(
+    codes: NDArray[np.int64],
+    symbols: NDArray[np.int64],
+    n_win: int,
+    k: int,
+    m: int,
+    n_sites: int,
+    n_edge: int,
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
     """Model and data bits per window for contexts ``codes`` (see module notes)."""
     big_k = float(k) ** m
     # (window, context, symbol) keys; k**(m+1) * n_win stays far below 2**62
@@ -244,7 +254,8 @@ def _window_costs(codes, symbols, n_win, k, m, n_sites, n_edge):
     support = math.log2(min(big_k, n_sites)) + _log2_binom(big_k, n_ctx)
     elias = 2 * math.floor(math.log2(m + 1)) + 1
     model = elias + support + per_ctx_model
-    inner = np.bincount(win, weights=data, minlength=n_win)
+    # Weighted bincount is float64; numpy's stubs say intp, so say it (no copy is made).
+    inner = np.bincount(win, weights=data, minlength=n_win).astype(np.float64, copy=False)
     edge = n_edge * math.log2(k)
     return model, inner + edge, inner
 
@@ -367,7 +378,7 @@ def two_part_code(
         data_bits_per_symbol=float(np.mean(data)) / w_size,
         entropy_rate_bits_per_symbol=float(np.mean(inner)) / n_sites,
         effective_complexity_bits_per_second=(
-            None if duration is None else ec / (w_size / rate)  # per window duration
+            None if rate is None else ec / (w_size / rate)  # per window duration
         ),
         total_information_bits_per_second=(
             None if duration is None else total_rate * dense.size / duration

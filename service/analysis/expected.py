@@ -36,7 +36,7 @@ from service.analysis.tables import (
     SCAN_POLICY,
     Selection,
     choose_scans,
-    clean,
+    clean_object,
     load_study,
 )
 from storage import repo
@@ -86,7 +86,9 @@ def _default_terrain_measure(study_arenas: Any, names: Sequence[str]) -> str | N
     if not names:
         return None
     groups = redundancy_groups(study_arenas[list(names)].to_numpy(dtype=float), list(names))
-    return max(groups, key=lambda g: len(g.members)).representative  # first wins ties
+    # ``measures`` resolves names lazily, so mypy sees them as Any: name the type here.
+    best: str = max(groups, key=lambda g: len(g.members)).representative  # first wins ties
+    return best
 
 
 def expected_movement(
@@ -194,7 +196,7 @@ def expected_movement(
                 f"This arena's {terrain_measure!r} ({x0:.4g}) lies outside the range of the "
                 "study's arenas: the prediction is an extrapolation."
             )
-    return clean(
+    return clean_object(
         {
             "arena_id": arena.id,
             "arena_name": arena.name,

@@ -64,6 +64,7 @@ from service.analysis.tables import (
     Selection,
     StudyTables,
     clean,
+    clean_object,
     load_study,
 )
 from storage import repo
@@ -681,7 +682,7 @@ def correspondence_report(
             ),
         },
     }
-    return clean(report)
+    return clean_object(report)
 
 
 def _named(message: str, names: set[str]) -> list[str]:
@@ -728,7 +729,7 @@ def confounds_and_design(study: StudyTables) -> tuple[dict[str, Any], dict[str, 
         covariate_name=SPEED_SCORE,
     )
     coll = checks.collinearity
-    confounds = {
+    confounds: dict[str, Any] = {
         "speed": [
             {
                 "terrain_measure": r.terrain_measure,

@@ -14,9 +14,11 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from measures.errors import InsufficientDataError, InvalidParameterError
-from service.analysis.tables import Selection, choose_scans, clean
+from service.analysis.tables import Selection, choose_scans, clean_object
 from storage import repo
+from storage.artifacts import ArtifactStore
 from storage.errors import BadInput, StorageError
+from storage.models import Scan, Trial
 
 __all__ = ["LOCAL_DEFAULTS", "local_report", "trial_scores", "trial_windows"]
 
@@ -38,7 +40,7 @@ def _section(parameters: dict[str, Any], name: str, defaults: dict[str, Any]) ->
     return merged
 
 
-def _markers(session: Session, store: Any, trial: Any, p: dict[str, Any]) -> np.ndarray:
+def _markers(session: Session, store: ArtifactStore, trial: Trial, p: dict[str, Any]) -> np.ndarray:
     """Preprocessed markers (frames, markers, 3) in m: the stored artifact, else recomputed."""
     from measures.movement.kinematics import preprocess_trial
 
@@ -61,15 +63,17 @@ def _markers(session: Session, store: Any, trial: Any, p: dict[str, Any]) -> np.
 
 
 def _heightmap(
-    store: Any, scan: Any
+    store: ArtifactStore, scan: Scan
 ) -> tuple[np.ndarray, tuple[float, float], tuple[float, float]]:
+    if scan.heightmap_sha256 is None or scan.grid_dx_m is None:  # _local_scan picks gridded
+        raise BadInput(f"scan {scan.id} has no heightmap grid")
     z = np.array(store.get_array(scan.heightmap_sha256), dtype=np.float64)
     if scan.valid_mask_sha256:
         z[~np.asarray(store.get_array(scan.valid_mask_sha256), dtype=bool)] = np.nan
     meta = scan.meta or {}
     origin = meta.get("grid_origin_xy_m") or (meta.get("reader") or {}).get("origin_xy_m")
     dy = scan.grid_dy_m or scan.grid_dx_m
-    return z, (float(scan.grid_dx_m), float(dy)), tuple(origin or (0.0, 0.0))  # type: ignore[return-value]
+    return z, (float(scan.grid_dx_m), float(dy)), tuple(origin or (0.0, 0.0))
 
 
 def _to_scan_frame(points: np.ndarray, registration: Any) -> np.ndarray:
@@ -78,7 +82,8 @@ def _to_scan_frame(points: np.ndarray, registration: Any) -> np.ndarray:
         return points
     mat = np.asarray(registration, dtype=np.float64).reshape(4, 4)
     inv = np.linalg.inv(mat)
-    return points @ inv[:3, :3].T + inv[:3, 3]
+    out: np.ndarray = points @ inv[:3, :3].T + inv[:3, 3]
+    return out
 
 
 def trial_scores(*, session: Session, recipe_hash: str, trial_id: int) -> dict[str, float]:
@@ -91,7 +96,9 @@ def trial_scores(*, session: Session, recipe_hash: str, trial_id: int) -> dict[s
     }
 
 
-def _embedding(signal: np.ndarray, fs: float, scores: dict[str, float], p: dict[str, Any]):
+def _embedding(
+    signal: np.ndarray, fs: float, scores: dict[str, float], p: dict[str, Any]
+) -> tuple[int, int]:
     from measures.dynamics.embedding import embedding_dimension, first_ami_minimum
 
     delay_s, dim = (scores.get(k, math.nan) for k in ("embedding_delay_s", "embedding_dimension"))
@@ -107,7 +114,7 @@ def _embedding(signal: np.ndarray, fs: float, scores: dict[str, float], p: dict[
     return max(1, int(delay)), max(1, int(dim))
 
 
-def _local_scan(session: Session, recipe_hash: str, trial: Any) -> Any:
+def _local_scan(session: Session, recipe_hash: str, trial: Trial) -> Scan:
     # The scan policy of the grid ("latest": heightmap uploads first, then the latest),
     # among scans that have a heightmap grid to map the path onto.
     rows = repo.load_study_rows(session=session, recipe_hash=recipe_hash, trial_ids=[trial.id])
@@ -118,7 +125,7 @@ def _local_scan(session: Session, recipe_hash: str, trial: Any) -> Any:
 
 
 def _stored_windows(
-    session: Session, store: Any, trial_id: int, recipe_hash: str, window_s: float
+    session: Session, store: ArtifactStore, trial_id: int, recipe_hash: str, window_s: float
 ) -> dict[str, Any] | None:
     """Per-window movement measures the scoring job stored, or None (absent, other length)."""
     load = getattr(repo, "load_derived", None)  # added by the pipeline branch
@@ -156,7 +163,7 @@ def _stored_windows(
 
 
 def _computed_windows(
-    session: Session, store: Any, trial: Any, subject: Any, recipe: Any, window_s: float
+    session: Session, store: ArtifactStore, trial: Trial, subject: Any, recipe: Any, window_s: float
 ) -> dict[str, Any]:
     """Per-window movement measures computed from the preprocessed markers (fallback for
     stores scored before the scoring job kept them)."""
@@ -209,7 +216,7 @@ def _computed_windows(
 def trial_windows(
     *,
     session: Session,
-    store: Any,
+    store: ArtifactStore,
     trial_id: int,
     recipe: Any,
     window_s: float,
@@ -275,7 +282,7 @@ def trial_windows(
 def local_report(
     *,
     session: Session,
-    store: Any,
+    store: ArtifactStore,
     recipe: str,
     version: int | None = None,
     trial_ids: Sequence[int] = (),
@@ -401,7 +408,7 @@ def local_report(
             "margin_m",
         )
         trials_out.append({k: w[k] for k in keys} | {"windows": windows})
-    return clean(
+    return clean_object(
         {
             "recipe": {"name": prof.name, "version": prof.version, "hash": prof.hash},
             "window_s": window_s,

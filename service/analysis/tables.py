@@ -50,6 +50,7 @@ __all__ = [
     "StudyTables",
     "choose_scans",
     "clean",
+    "clean_object",
     "is_diagnostic",
     "load_study",
     "pick_measures",
@@ -412,3 +413,8 @@ def clean(value: Any) -> Any:
     if isinstance(value, (float, np.floating)):
         return float(value) if math.isfinite(value) else None
     return value
+
+
+def clean_object(value: dict[str, Any]) -> dict[str, Any]:
+    """:func:`clean` for a JSON object (a view's answer), typed as one."""
+    return {k: clean(v) for k, v in value.items()}

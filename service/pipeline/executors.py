@@ -98,7 +98,12 @@ class DaskPool:
         from distributed import Client
 
         self._own = isinstance(address, str)
-        self.client: Any = Client(address, set_as_default=False) if self._own else address
+        self.client: Any = (
+            # distributed does not annotate Client.__init__.
+            Client(address, set_as_default=False)  # type: ignore[no-untyped-call]
+            if self._own
+            else address
+        )
         self._refresh_s = refresh_s
         self._threads = 1
         self._checked = -float("inf")

@@ -13,7 +13,12 @@ import copy
 import inspect
 import json
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:  # the storage layer is imported when a function runs
+    from sqlalchemy.orm import Session
+
+    from storage.models import Recipe
 
 from measures.errors import InvalidParameterError
 
@@ -36,9 +41,11 @@ DEFAULT_CELL_M = 0.001
 _FUNCTION = "analysis recipe"
 
 
-def _jsonable(value: Any) -> Any:
+def _jsonable(value: Mapping[str, Any]) -> dict[str, Any]:
     # Tuples become lists: the stored form is JSON, and the hash is taken on that form.
-    return json.loads(json.dumps(value, allow_nan=False))
+    # A JSON object round-trips to a dict.
+    out: dict[str, Any] = json.loads(json.dumps(value, allow_nan=False))
+    return out
 
 
 def _heightmap_defaults() -> dict[str, Any]:
@@ -111,7 +118,7 @@ def complete_parameters(given: Mapping[str, Any] | None) -> dict[str, Any]:
         ) from None
 
 
-def ensure_default_recipe(session: Any) -> Any:
+def ensure_default_recipe(session: Session) -> Recipe:
     """Create recipe ``default`` v1 from the current defaults when no ``default`` exists."""
     from storage import repo
     from storage.errors import NotFound
@@ -125,7 +132,7 @@ def ensure_default_recipe(session: Any) -> Any:
         return recipe
 
 
-def resolve_recipe(session: Any, recipe_hash: str | None) -> Any:
+def resolve_recipe(session: Session, recipe_hash: str | None) -> Recipe:
     """The recipe a job runs under: by hash, or the latest ``default`` when it names none."""
     from storage import repo
 

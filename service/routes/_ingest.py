@@ -5,14 +5,20 @@ from __future__ import annotations
 import json
 import re
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from sqlalchemy.orm import Session
+
+    from service.settings import Settings
+    from storage.readers import ReaderLimits
 
 from fastapi import HTTPException, Request, Response, status
 from pydantic import BaseModel, ValidationError
 from starlette.concurrency import run_in_threadpool
 
 from service.routes._multipart import receive_upload
-from service.schemas import UploadPublic
+from service.schemas import MetaCorrected, UploadPublic
 from storage import repo
 
 __all__ = [
@@ -112,13 +118,13 @@ def check_format(filename: str, *, kind: str) -> str:
         raise HTTPException(status.HTTP_415_UNSUPPORTED_MEDIA_TYPE, detail=str(exc)) from exc
 
 
-def _job_for(session: Any, *, target_kind: str, target_id: int) -> int | None:
+def _job_for(session: Session, *, target_kind: str, target_id: int) -> int | None:
     # The upload's unit of work queued the job (for a duplicate, when it had none).
     job = repo.latest_job(session=session, target_kind=target_kind, target_id=target_id)
     return None if job is None else int(job.id)
 
 
-def reader_limits(settings: Any) -> Any:
+def reader_limits(settings: Settings) -> ReaderLimits:
     """The reader caps a server's settings give."""
     from storage.readers import ReaderLimits
 
@@ -200,10 +206,8 @@ async def handle_upload(
 
 def correct_upload_meta(
     request: Request, *, target_kind: str, target_id: int, body: BaseModel
-) -> Any:
+) -> MetaCorrected:
     """Apply a metadata correction (``storage.repo.correct_meta``) and answer what changed."""
-    from service.schemas import MetaCorrected
-
     state = request.app.state
     changes = body.model_dump(mode="json", exclude_unset=True)
     with state.sessionmaker() as session:

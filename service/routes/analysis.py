@@ -70,7 +70,8 @@ async def export_analysis_table(
             buf = io.BytesIO()
             frame.to_parquet(buf, index=False)
             return buf.getvalue()
-        return frame.to_csv(index=False).encode()
+        text: str = frame.to_csv(index=False)  # pandas is untyped here; no path -> str
+        return text.encode()
 
     body = await run_in_threadpool(build)
     stem = re.sub(r"[^A-Za-z0-9_.-]+", "_", f"{recipe}-{study}" if study else recipe)

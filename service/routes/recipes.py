@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 from fastapi import APIRouter, Response, status
 
 from service.deps import AnalyseToken, ReadToken, SessionDep
@@ -25,7 +27,7 @@ def create_recipe(
     return RecipeCreated.model_validate({**_public(recipe), "created": created})
 
 
-def _public(recipe: object) -> dict:
+def _public(recipe: object) -> dict[str, Any]:
     return RecipePublic.model_validate(recipe).model_dump()
 
 

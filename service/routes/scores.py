@@ -15,6 +15,7 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Depends, Query
 from fastapi.responses import Response, StreamingResponse
 from pydantic import BaseModel
+from sqlalchemy.orm import Session
 
 from service.deps import ReadToken, SessionDep
 from service.routes.arenas import Limit, Offset, StudyFilter
@@ -89,7 +90,7 @@ def list_scores(
 
 # -- (ui, issue 18 item 6) unknown ids are 404; frames typed as pandas expects -------------
 def _known_ids(
-    session: Any,
+    session: Session,
     arena_id: int | None,
     subject_id: int | None,
     trial_id: int | None,
@@ -129,7 +130,7 @@ def _typed(frame: Any) -> Any:
 
 
 # -- end (ui) ------------------------------------------------------------------------------------
-def _recipe_labels(session: Any) -> dict[str, str]:
+def _recipe_labels(session: Session) -> dict[str, str]:
     # Equal parameters share a hash; the earliest name and version labels it.
     labels: dict[str, str] = {}
     offset = 0
@@ -142,7 +143,7 @@ def _recipe_labels(session: Any) -> dict[str, str]:
             return labels
 
 
-def _tidy_rows(session: Any, filters: ScoreFilters) -> Iterator[dict[str, Any]]:
+def _tidy_rows(session: Session, filters: ScoreFilters) -> Iterator[dict[str, Any]]:
     labels = _recipe_labels(session)
     for row in iter_score_rows(session=session, **filters.model_dump()):
         row.pop("score_id", None)

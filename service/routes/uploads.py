@@ -13,10 +13,12 @@ import re
 from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, HTTPException, Path, Query, Response, status
+from sqlalchemy.orm import Session
 
 from service.deps import ReadOrUploadToken, SessionDep, token_scopes
 from service.schemas import UploadCheck
 from storage import repo
+from storage.models import Trial
 
 router = APIRouter(prefix="/uploads", tags=["uploads"])
 
@@ -28,7 +30,7 @@ _HEX = re.compile(r"^[0-9a-f]{64}$")
 
 
 def _records(
-    session: Any,
+    session: Session,
     sha256: str,
     *,
     token: Any,
@@ -47,15 +49,15 @@ def _records(
     rows = repo.find_by_sha256(session=session, sha256=sha256.lower())
     records = []
     for row in rows:
-        row_kind = "scan" if type(row).__name__ == "Scan" else "trial"
+        row_kind = "trial" if isinstance(row, Trial) else "scan"
         if kind is not None and row_kind != kind:
             continue
         if arena_id is not None and row.arena_id != arena_id:
             continue
-        if subject_id is not None and (row_kind != "trial" or row.subject_id != subject_id):
+        if subject_id is not None and not (isinstance(row, Trial) and row.subject_id == subject_id):
             continue
         record: dict[str, object] = {"kind": row_kind, "id": row.id, "arena_id": row.arena_id}
-        if row_kind == "trial":
+        if isinstance(row, Trial):
             record["subject_id"] = row.subject_id
         records.append(record)
     return records

@@ -199,7 +199,7 @@ def _score_rows_stmt(
     recipe_hash: str | None,
     measure: str | None,
     study_id: int | None = None,
-) -> Select[Any]:
+) -> Select[*tuple[Any, ...]]:
     arena_of = func.coalesce(Trial.arena_id, Scan.arena_id)
     stmt = (
         select(

@@ -54,7 +54,7 @@ __all__ = [
     "trial_ids_in_study",
 ]
 
-_TABLES: dict[str, tuple[Table, type, str]] = {
+_TABLES: dict[str, tuple[Table, type[Arena] | type[Subject] | type[Trial], str]] = {
     "arena": (study_arenas, Arena, "arena_id"),
     "subject": (study_subjects, Subject, "subject_id"),
     "trial": (study_trials, Trial, "trial_id"),
@@ -136,7 +136,7 @@ def study_members(*, session: Session, study_id: int) -> dict[str, list[int]]:
     return out
 
 
-def trial_ids_in_study(study_id: int) -> Select[tuple[int]]:
+def trial_ids_in_study(study_id: int) -> Select[int]:
     """SELECT of the ids of the study's trials: members, or arena and subject both members."""
     arenas = select(study_arenas.c.arena_id).where(study_arenas.c.study_id == study_id)
     subjects = select(study_subjects.c.subject_id).where(study_subjects.c.study_id == study_id)
@@ -149,21 +149,21 @@ def trial_ids_in_study(study_id: int) -> Select[tuple[int]]:
     )
 
 
-def arena_ids_in_study(study_id: int) -> Select[tuple[int]]:
+def arena_ids_in_study(study_id: int) -> Select[int]:
     """SELECT of the ids of the study's arenas: members, or the arena of a study trial."""
     members = select(study_arenas.c.arena_id).where(study_arenas.c.study_id == study_id)
     of_trials = select(Trial.arena_id).where(Trial.id.in_(trial_ids_in_study(study_id)))
     return select(Arena.id).where(or_(Arena.id.in_(members), Arena.id.in_(of_trials)))
 
 
-def subject_ids_in_study(study_id: int) -> Select[tuple[int]]:
+def subject_ids_in_study(study_id: int) -> Select[int]:
     """SELECT of the ids of the study's subjects: members, or the subject of a study trial."""
     members = select(study_subjects.c.subject_id).where(study_subjects.c.study_id == study_id)
     of_trials = select(Trial.subject_id).where(Trial.id.in_(trial_ids_in_study(study_id)))
     return select(Subject.id).where(or_(Subject.id.in_(members), Subject.id.in_(of_trials)))
 
 
-def scan_ids_in_study(study_id: int) -> Select[tuple[int]]:
+def scan_ids_in_study(study_id: int) -> Select[int]:
     """SELECT of the ids of the scans of the study's arenas."""
     return select(Scan.id).where(Scan.arena_id.in_(arena_ids_in_study(study_id)))
 
