@@ -86,7 +86,10 @@ DIAGNOSTIC_MEASURES = frozenset(
         "heightmap_hole_fraction",
         "hole_fraction",
         "flagged_frame_fraction",
+        "spike_flagged_fraction",
+        "up_axis_agrees",
         "causal_synchronised_fraction",
+        "rqa_rr",  # fixed by the recipe's recurrence-rate threshold rule, not by the gait
     }
 )
 #: Name endings that mark a diagnostic too (fit quality, fitted bands, tie fractions).
