@@ -37,6 +37,9 @@ uses the same per-pair arithmetic, so both agree bit for bit at ties.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from typing import Any, TypeAlias
+
 import numpy as np
 from llvmlite import ir
 from numba import njit, prange
@@ -53,13 +56,15 @@ _63 = np.uint64(63)
 #: Runs shorter than _K cells are counted from bit masks alone (branch-free);
 #: longer ones, rare, get their exact length from their start row.
 _K = 8
+#: Index arithmetic in the kernels mixes Python ints and numpy int64 scalars.
+_Int: TypeAlias = int | np.int64
 
 
 @intrinsic
-def _popcount(typingctx, x):
+def _popcount(typingctx: Any, x: Any) -> tuple[Any, Callable[..., Any]]:
     """Number of set bits of a uint64 (LLVM's ctpop; vectorises)."""
 
-    def codegen(context, builder, signature, args):
+    def codegen(context: Any, builder: ir.IRBuilder, signature: Any, args: list[ir.Value]) -> Any:
         i64 = ir.IntType(64)
         fn = cgutils.get_or_insert_function(
             builder.module, ir.FunctionType(i64, [i64]), "llvm.ctpop.i64"
@@ -84,7 +89,9 @@ def strip_edges(n: int, first_offset: int, n_strips: int) -> np.ndarray:
 
 
 @njit(cache=True, inline="always")
-def _accumulate(xt, i, c0, ncols, metric_code, acc, n_coords):
+def _accumulate(
+    xt: np.ndarray, i: int, c0: int, ncols: int, metric_code: int, acc: np.ndarray, n_coords: int
+) -> None:
     # Partial distances of the row segment over coordinates 0 .. n_coords - 1
     # (n_coords >= 1): squared differences summed in index order, or their max.
     # One pass per coordinate keeps the inner loop contiguous (vectorisable).
@@ -116,18 +123,38 @@ def _accumulate(xt, i, c0, ncols, metric_code, acc, n_coords):
 
 
 @njit(cache=True, inline="always")
-def _row_distances(xt, i, c0, ncols, metric_code, buf):
+def _row_distances(
+    xt: np.ndarray, i: int, c0: int, ncols: int, metric_code: int, buf: np.ndarray
+) -> None:
     _accumulate(xt, i, c0, ncols, metric_code, buf[:ncols], xt.shape[0])
 
 
 @njit(cache=True, inline="always")
-def _row_hits(xt, i, c0, ncols, metric_code, thr, buf, hit):
+def _row_hits(
+    xt: np.ndarray,
+    i: int,
+    c0: int,
+    ncols: int,
+    metric_code: int,
+    thr: float,
+    buf: np.ndarray,
+    hit: np.ndarray,
+) -> None:
     # hit[1 + jj] = 1 when the pair (i, c0 + jj) recurs (hit[0] is left as is).
     _hits_into(xt, i, c0, ncols, metric_code, thr, buf, hit[1 : ncols + 1])
 
 
 @njit(cache=True, inline="always")
-def _hits_into(xt, i, c0, ncols, metric_code, thr, buf, out):
+def _hits_into(
+    xt: np.ndarray,
+    i: int,
+    c0: int,
+    ncols: int,
+    metric_code: int,
+    thr: float,
+    buf: np.ndarray,
+    out: np.ndarray,
+) -> None:
     # out[jj] = 1 when the pair (i, c0 + jj) recurs. Same arithmetic as
     # _row_distances, but the last coordinate's term is added (or maxed) and
     # compared in the same pass. Slices indexed by the loop counter keep the
@@ -158,7 +185,7 @@ def _hits_into(xt, i, c0, ncols, metric_code, thr, buf, out):
 
 
 @njit(cache=True, inline="always")
-def _run_so_far(lev, w, b, start, i):
+def _run_so_far(lev: np.ndarray, w: _Int, b: _Int, start: _Int, i: _Int) -> _Int:
     # Length of the run (of one kind) ending at lane 64 w + b of this row,
     # read off the level masks; runs of _K or more cells use their start row.
     bit = _ONE << np.uint64(b)
@@ -171,13 +198,30 @@ def _run_so_far(lev, w, b, start, i):
 
 
 @njit(cache=True)
-def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dpre, dsuf):
+def _scan_strip(
+    xt: np.ndarray,
+    thr: float,
+    metric_code: int,
+    theiler: int,
+    c0: int,
+    c1: int,
+    s: int,
+    hd: np.ndarray,
+    hv: np.ndarray,
+    rpre: np.ndarray,
+    rsuf: np.ndarray,
+    dpre: np.ndarray,
+    dsuf: np.ndarray,
+) -> None:
     n = xt.shape[1]
     we = max(theiler, 1)
     width = c1 - c0
     if width <= 0 or c0 + we >= n:
         return
     K = _K
+    jj: _Int
+    w: _Int
+    r: _Int
     # 64 lanes (cells) per word; one spare lane for diagonals leaving the
     # strip. Level arrays carry a zero word in front (index 0) and behind,
     # so shifts across word edges need no branch.
@@ -221,7 +265,7 @@ def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dp
             col_new[0, w + 1] = x
             dia_new[0, w + 1] = x
             row[0, w + 1] = x
-            tot += _popcount(x)
+            tot += _popcount(x)  # type: ignore[call-arg]  # numba passes typingctx
         cnt_c[1] += tot
         cnt_d[1] += tot
         cnt_r[1] += tot
@@ -239,9 +283,9 @@ def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dp
                 dia_new[lv, w + 1] = xd
                 xr = h & ((row[lv - 1, w + 1] << _ONE) | (row[lv - 1, w] >> _63))
                 row[lv, w + 1] = xr
-                sc += _popcount(xc)
-                sd += _popcount(xd)
-                sr += _popcount(xr)
+                sc += _popcount(xc)  # type: ignore[call-arg]  # numba passes typingctx
+                sd += _popcount(xd)  # type: ignore[call-arg]  # numba passes typingctx
+                sr += _popcount(xr)  # type: ignore[call-arg]  # numba passes typingctx
             cnt_c[lv + 1] += sc
             cnt_d[lv + 1] += sd
             cnt_r[lv + 1] += sr
@@ -262,39 +306,39 @@ def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dp
             if (rc | ec | rd | ed | sr | er) == 0:
                 continue
             base = 64 * w
-            long_c += _popcount(rc)
-            long_d += _popcount(rd)
+            long_c += _popcount(rc)  # type: ignore[call-arg]  # numba passes typingctx
+            long_d += _popcount(rd)  # type: ignore[call-arg]  # numba passes typingctx
             while rc != 0:
-                jj = base + np.int64(trailing_zeros(rc))
+                jj = base + np.int64(trailing_zeros(rc))  # type: ignore[call-arg]  # numba passes typingctx
                 rc &= rc - _ONE
                 cstart[jj] = i - K + 1
             while ec != 0:
-                jj = base + np.int64(trailing_zeros(ec))
+                jj = base + np.int64(trailing_zeros(ec))  # type: ignore[call-arg]  # numba passes typingctx
                 ec &= ec - _ONE
                 hv[s, i - cstart[jj]] += 1
             while rd != 0:
-                jj = base + np.int64(trailing_zeros(rd))
+                jj = base + np.int64(trailing_zeros(rd))  # type: ignore[call-arg]  # numba passes typingctx
                 rd &= rd - _ONE
                 dstart[i - c0 - jj] = i - K + 1
             while ed != 0:
-                jj = base + np.int64(trailing_zeros(ed))
+                jj = base + np.int64(trailing_zeros(ed))  # type: ignore[call-arg]  # numba passes typingctx
                 ed &= ed - _ONE
                 hd[s, i - dstart[i - c0 - jj]] += 1
             # Row runs: the k-th lane reaching K cells pairs with the k-th
             # run end (one run may be open from the previous word).
             while er != 0:
-                e = base + np.int64(trailing_zeros(er))
+                e = base + np.int64(trailing_zeros(er))  # type: ignore[call-arg]  # numba passes typingctx
                 er &= er - _ONE
                 if pend >= 0:
                     st = pend
                     pend = -1
                 else:
-                    st = base + np.int64(trailing_zeros(sr))
+                    st = base + np.int64(trailing_zeros(sr))  # type: ignore[call-arg]  # numba passes typingctx
                     sr &= sr - _ONE
                 hv[s, e - st + K] += 1
                 long_r += 1
             if sr != 0:
-                pend = base + np.int64(trailing_zeros(sr))
+                pend = base + np.int64(trailing_zeros(sr))  # type: ignore[call-arg]  # numba passes typingctx
         # Diagonal prefix runs (from the strip's left edge) that stop here.
         pw = min(p_words + 1, nwa)
         p_words = 0
@@ -307,7 +351,7 @@ def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dp
                 p_words = w + 1
             ep = sp & ~h
             while ep != 0:
-                jj = 64 * w + np.int64(trailing_zeros(ep))
+                jj = 64 * w + np.int64(trailing_zeros(ep))  # type: ignore[call-arg]  # numba passes typingctx
                 ep &= ep - _ONE
                 if jj < width:
                     dpre[s, i - c0 - jj] = jj
@@ -320,13 +364,13 @@ def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dp
                 r += 64
                 w += 1
             if w < nwa:
-                r += np.int64(trailing_zeros(~hbits[w]))
+                r += np.int64(trailing_zeros(~hbits[w]))  # type: ignore[call-arg]  # numba passes typingctx
             rpre[s, i] = min(r, ncols)
         e = ncols - 1
         w = e // 64
         b = e - 64 * w
         x = hbits[w] << np.uint64(63 - b)
-        r = 64 if x == allones else np.int64(leading_zeros(~x))
+        r = 64 if x == allones else np.int64(leading_zeros(~x))  # type: ignore[call-arg]  # numba passes typingctx
         if r >= b + 1:
             r = b + 1
             w -= 1
@@ -334,7 +378,7 @@ def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dp
                 r += 64
                 w -= 1
             if w >= 0:
-                r += np.int64(leading_zeros(~hbits[w]))
+                r += np.int64(leading_zeros(~hbits[w]))  # type: ignore[call-arg]  # numba passes typingctx
         rsuf[s, i] = r
         if ncols == width:
             # The diagonal through (i, c1 - 1) leaves the strip here.
@@ -367,7 +411,7 @@ def _scan_strip(xt, thr, metric_code, theiler, c0, c1, s, hd, hv, rpre, rsuf, dp
 
 
 @njit(cache=True, inline="always")
-def _fold(cnt, n_long, hist, s):
+def _fold(cnt: np.ndarray, n_long: int, hist: np.ndarray, s: int) -> None:
     g_next = n_long
     for lv in range(_K - 1, 0, -1):
         g = cnt[lv] - cnt[lv + 1]
@@ -376,7 +420,14 @@ def _fold(cnt, n_long, hist, s):
 
 
 @njit(cache=True)
-def _stitch(edges, pre, suf, last, hist, tail):
+def _stitch(
+    edges: np.ndarray,
+    pre: np.ndarray,
+    suf: np.ndarray,
+    last: np.ndarray,
+    hist: np.ndarray,
+    tail: np.ndarray,
+) -> None:
     """Join the prefix/suffix runs of consecutive strips along each line.
 
     Line q (a row or a diagonal of the lower triangle) covers columns
@@ -421,7 +472,7 @@ def _stitch(edges, pre, suf, last, hist, tail):
 
 
 @njit(cache=True, inline="always")
-def _pair_distance(xt, i, j, metric_code, m):
+def _pair_distance(xt: np.ndarray, i: int, j: int, metric_code: int, m: int) -> float:
     # One pair's distance (squared for Euclidean) with the same order of operations as
     # _accumulate's per-column sums, so single pairs and whole rows compare equal values.
     if metric_code == 0:
@@ -440,7 +491,7 @@ def _pair_distance(xt, i, j, metric_code, m):
 
 
 @njit(cache=True, parallel=True)
-def _top_runs(xt, thr, metric_code, out):
+def _top_runs(xt: np.ndarray, thr: float, metric_code: int, out: np.ndarray) -> None:
     # theiler = 0: length of the run starting at (j + 1, j) down column j.
     n = xt.shape[1]
     m = xt.shape[0]
@@ -455,7 +506,19 @@ def _top_runs(xt, thr, metric_code, out):
 
 
 @njit(cache=True, parallel=True)
-def _scan_all(xt, thr, metric_code, theiler, edges, hd, hv, rpre, rsuf, dpre, dsuf):
+def _scan_all(
+    xt: np.ndarray,
+    thr: float,
+    metric_code: int,
+    theiler: int,
+    edges: np.ndarray,
+    hd: np.ndarray,
+    hv: np.ndarray,
+    rpre: np.ndarray,
+    rsuf: np.ndarray,
+    dpre: np.ndarray,
+    dsuf: np.ndarray,
+) -> None:
     for s in prange(edges.shape[0] - 1):
         _scan_strip(
             xt, thr, metric_code, theiler, edges[s], edges[s + 1], s, hd, hv,
@@ -521,7 +584,14 @@ def line_histograms(
 
 
 @njit(cache=True, parallel=True)
-def _count_all(xt, thr, metric_code, theiler, edges, counts):
+def _count_all(
+    xt: np.ndarray,
+    thr: float,
+    metric_code: int,
+    theiler: int,
+    edges: np.ndarray,
+    counts: np.ndarray,
+) -> None:
     n = xt.shape[1]
     we = max(theiler, 1)
     for s in prange(edges.shape[0] - 1):
@@ -552,7 +622,9 @@ def count_recurrences(xt: np.ndarray, thr: float, metric_code: int, theiler: int
 
 
 @njit(cache=True, parallel=True)
-def pair_distances(xt, rows, cols, metric_code):
+def pair_distances(
+    xt: np.ndarray, rows: np.ndarray, cols: np.ndarray, metric_code: int
+) -> np.ndarray:
     """Distances (squared for Euclidean) of the given pairs, same arithmetic."""
     m = xt.shape[0]
     out = np.empty(rows.shape[0], dtype=np.float64)
@@ -564,7 +636,17 @@ def pair_distances(xt, rows, cols, metric_code):
 
 
 @njit(cache=True, inline="always")
-def _bracket_row(xt, i, c0, ncols, metric_code, lo, hi, buf, flag):
+def _bracket_row(
+    xt: np.ndarray,
+    i: int,
+    c0: int,
+    ncols: int,
+    metric_code: int,
+    lo: float,
+    hi: float,
+    buf: np.ndarray,
+    flag: np.ndarray,
+) -> int:
     # Distances of the row segment (same arithmetic as _row_distances); the
     # last coordinate's pass also counts the cells <= lo and flags those in
     # (lo, hi], so buf is written once and reread only at flagged cells.
@@ -601,7 +683,19 @@ def _bracket_row(xt, i, c0, ncols, metric_code, lo, hi, buf, flag):
 
 
 @njit(cache=True, parallel=True)
-def _bracket_all(xt, lo, hi, metric_code, theiler, edges, starts, caps, below, filled, out):
+def _bracket_all(
+    xt: np.ndarray,
+    lo: float,
+    hi: float,
+    metric_code: int,
+    theiler: int,
+    edges: np.ndarray,
+    starts: np.ndarray,
+    caps: np.ndarray,
+    below: np.ndarray,
+    filled: np.ndarray,
+    out: np.ndarray,
+) -> None:
     n = xt.shape[1]
     we = max(theiler, 1)
     for s in prange(edges.shape[0] - 1):
@@ -629,7 +723,7 @@ def _bracket_all(xt, lo, hi, metric_code, theiler, edges, starts, caps, below, f
                     continue
                 mk = (x * _GATHER) >> _TOP
                 while mk != 0:
-                    jj = 8 * w + np.int64(trailing_zeros(mk))
+                    jj = 8 * w + np.int64(trailing_zeros(mk))  # type: ignore[call-arg]  # numba passes typingctx
                     mk &= mk - _ONE
                     if nf < cap:
                         out[base + nf] = buf[jj]
@@ -661,7 +755,7 @@ def bracket_pass(
     if np.any(filled > caps):
         return int(below.sum()), None
     # Close the gaps between the strips' shares in place (no second copy).
-    end = 0
+    end: int | np.int64 = 0
     for a, f in zip(starts, filled, strict=True):
         out[end : end + f] = out[a : a + f]
         end += f
@@ -669,7 +763,16 @@ def bracket_pass(
 
 
 @njit(cache=True, parallel=True)
-def _image_rows(xt, thr, metric_code, theiler, block, size, counts, admissible):
+def _image_rows(
+    xt: np.ndarray,
+    thr: float,
+    metric_code: int,
+    theiler: int,
+    block: int,
+    size: int,
+    counts: np.ndarray,
+    admissible: np.ndarray,
+) -> None:
     n = xt.shape[1]
     for bi in prange(size):
         buf = np.empty(n, dtype=np.float64)

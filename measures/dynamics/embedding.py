@@ -178,7 +178,9 @@ class FNNResult:
     fraction: NDArray[np.float64]
 
 
-def _nearest(points: NDArray[np.float64], p: float, theiler: int):
+def _nearest(
+    points: NDArray[np.float64], p: float, theiler: int
+) -> tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.bool_]]:
     """Index and distance of each point's nearest neighbour (self and |i-j| < theiler out)."""
     tree = cKDTree(points)
     k = min(points.shape[0], max(2, 2 * theiler + 2))
@@ -253,7 +255,7 @@ class CaoResult:
     e2: NDArray[np.float64]
 
 
-def _cao_terms(arr, tau, d, theiler):
+def _cao_terms(arr: NDArray[np.float64], tau: int, d: int, theiler: int) -> tuple[float, float]:
     """E(d) and E*(d) of Cao (1997), eq. (3) and (5)."""
     rows = arr.size - d * tau
     emb = delay_embed(arr[: rows + (d - 1) * tau], dimension=d, delay=tau)

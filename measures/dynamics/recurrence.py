@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import overload
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -164,7 +165,9 @@ def _summarise(
     )
 
 
-def _prepare(points, function, theiler, lmin, vmin, metric):
+def _prepare(
+    points: ArrayLike, function: str, theiler: int, lmin: int, vmin: int, metric: str
+) -> tuple[NDArray[np.float64], int, int, int]:
     x = as_float_array("points", points, function, ndim=(1, 2), min_length=2)
     if x.ndim == 1:
         x = x[:, None]
@@ -204,14 +207,18 @@ def _n_lower(n: int, theiler: int) -> int:
     return (n - we) * (n - we + 1) // 2
 
 
-def _all_lower_distances(xt, metric_code, theiler):
+def _all_lower_distances(
+    xt: NDArray[np.float64], metric_code: int, theiler: int
+) -> NDArray[np.float64]:
     n = xt.shape[1]
     we = max(theiler, 1)
     rows, cols = np.tril_indices(n, -we)
     return _k.pair_distances(xt, rows.astype(np.int64), cols.astype(np.int64), metric_code)
 
 
-def _sample_lower_pairs(n, theiler, n_pairs, seed):
+def _sample_lower_pairs(
+    n: int, theiler: int, n_pairs: int, seed: int
+) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
     """Uniform random pairs (i > j, i - j >= max(theiler, 1)), seeded."""
     rng = np.random.default_rng(seed)
     we = max(theiler, 1)
@@ -226,7 +233,9 @@ def _sample_lower_pairs(n, theiler, n_pairs, seed):
     return rows[:n_pairs], cols[:n_pairs]
 
 
-def _sample_quantile(xt, metric_code, theiler, lower_rank, seed):
+def _sample_quantile(
+    xt: NDArray[np.float64], metric_code: int, theiler: int, lower_rank: int, seed: int
+) -> tuple[NDArray[np.float64], float]:
     n = xt.shape[1]
     rows, cols = _sample_lower_pairs(n, theiler, SAMPLE_PAIRS, seed)
     d = np.sort(_k.pair_distances(xt, rows, cols, metric_code))
@@ -234,7 +243,14 @@ def _sample_quantile(xt, metric_code, theiler, lower_rank, seed):
     return d, frac
 
 
-def _comparison_threshold(xt, metric_code, theiler, recurrence_rate, method, seed):
+def _comparison_threshold(
+    xt: NDArray[np.float64],
+    metric_code: int,
+    theiler: int,
+    recurrence_rate: float,
+    method: str,
+    seed: int,
+) -> float:
     """Threshold in comparison units (squared for Euclidean) for a recurrence rate."""
     n = xt.shape[1]
     lower_rank = _lower_rank(_target_rank(recurrence_rate, n, theiler), n, theiler)
@@ -251,7 +267,9 @@ def _comparison_threshold(xt, metric_code, theiler, recurrence_rate, method, see
     return _exact_by_bracket(xt, metric_code, theiler, lower_rank, seed)
 
 
-def _exact_by_bracket(xt, metric_code, theiler, lower_rank, seed):
+def _exact_by_bracket(
+    xt: NDArray[np.float64], metric_code: int, theiler: int, lower_rank: int, seed: int
+) -> float:
     """Exact order statistic with one pass over all pairs.
 
     A sampled quantile brackets the rank (5 standard errors either side); one
@@ -280,7 +298,17 @@ def _exact_by_bracket(xt, metric_code, theiler, lower_rank, seed):
     raise RuntimeError("exact threshold selection did not converge")  # pragma: no cover
 
 
-def _check_threshold_args(function, threshold, recurrence_rate, method):
+@overload
+def _check_threshold_args(
+    function: str, threshold: None, recurrence_rate: float | None, method: str
+) -> tuple[None, float]: ...
+@overload
+def _check_threshold_args(
+    function: str, threshold: float | None, recurrence_rate: float | None, method: str
+) -> tuple[float | None, float | None]: ...
+def _check_threshold_args(
+    function: str, threshold: float | None, recurrence_rate: float | None, method: str
+) -> tuple[float | None, float | None]:
     """Validate the threshold arguments; return (eps or None, rate or None)."""
     if threshold is not None and recurrence_rate is not None:
         raise InvalidParameterError(
@@ -298,12 +326,22 @@ def _check_threshold_args(function, threshold, recurrence_rate, method):
     return None, rate
 
 
-def _resolve_threshold(xt, function, metric, theiler, threshold, recurrence_rate, method, seed):
+def _resolve_threshold(
+    xt: NDArray[np.float64],
+    function: str,
+    metric: str,
+    theiler: int,
+    threshold: float | None,
+    recurrence_rate: float | None,
+    method: str,
+    seed: int,
+) -> tuple[float, float, str]:
     """Return (comparison threshold, reported eps, method label)."""
     code = _METRICS[metric]
     eps, rate = _check_threshold_args(function, threshold, recurrence_rate, method)
     if eps is not None:
         return (eps * eps if code == 0 else eps), eps, "given"
+    assert rate is not None  # for mypy: without a threshold a rate is always resolved
     thr = _comparison_threshold(xt, code, theiler, rate, method, seed)
     return thr, (math.sqrt(thr) if code == 0 else thr), method
 
@@ -377,7 +415,17 @@ def rqa(
     return _rqa_from_comparison(xt, thr, eps, metric, theiler, lmin, vmin, method)
 
 
-def _rqa_from_comparison(xt, thr, eps, metric, theiler, lmin, vmin, method, n_strips=_N_STRIPS):
+def _rqa_from_comparison(
+    xt: NDArray[np.float64],
+    thr: float,
+    eps: float,
+    metric: str,
+    theiler: int,
+    lmin: int,
+    vmin: int,
+    method: str,
+    n_strips: int = _N_STRIPS,
+) -> RQAResult:
     diag, vert = _k.line_histograms(xt, thr, _METRICS[metric], theiler, n_strips)
     return _summarise(
         diag, vert, n=xt.shape[1], theiler=theiler, lmin=lmin, vmin=vmin,
@@ -434,10 +482,12 @@ def rqa_dense(
     if eps is not None:
         thr = eps * eps if code == 0 else eps
     elif threshold_method == "exact" or _n_lower(n, theiler) <= SAMPLE_PAIRS:
+        assert rate is not None  # for mypy: without a threshold a rate is always resolved
         # The definition read literally: K-th smallest of all admissible cells.
         rank = _target_rank(rate, n, theiler)
         thr = float(np.partition(dist[admissible], rank - 1)[rank - 1])
     else:
+        assert rate is not None  # for mypy: as above
         thr = _comparison_threshold(xt, code, theiler, rate, "sampled", seed)
     if eps is None:
         eps = math.sqrt(thr) if code == 0 else thr
@@ -584,6 +634,8 @@ def joint_recurrence(
     if eps_y is None:
         eps_y = _comparison_threshold(yt, 1, theiler, rate, "sampled", seed)
     pairs = _n_lower(n, theiler)
+    count_x: float
+    count_y: float
     if rates is None:
         count_x = _k.count_recurrences(xt, eps_x, 1, theiler)
         count_y = _k.count_recurrences(yt, eps_y, 1, theiler)

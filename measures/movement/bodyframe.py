@@ -13,6 +13,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -234,7 +235,8 @@ def _travel_direction(
     if n >= 2:
         vel = np.gradient(origin, axis=0)
     vel = vel - np.outer(vel @ up, up)
-    ok = np.isfinite(vel).all(axis=1)
+    # numpy's stubs type .all(axis=...) as scalar-or-array; with an axis it is an array.
+    ok = cast(NDArray[np.bool_], np.isfinite(vel).all(axis=1))
     filled = np.where(ok[:, None], vel, 0.0)
     kernel = np.ones(win)
     sums = np.stack([np.convolve(filled[:, i], kernel, mode="same") for i in range(3)], axis=1)
@@ -344,5 +346,5 @@ def check_up_axis(
         penalty = 0.0 if body_h > feet_h else 1.0
         scores[name] = float(np.mean(fracs)) + penalty if fracs else float("nan")
     finite = {k: v for k, v in scores.items() if np.isfinite(v)}
-    best = min(finite, key=finite.get) if finite else "+z"
+    best = min(finite, key=finite.__getitem__) if finite else "+z"
     return UpAxisCheck(best, scores, bool(AXIS_VECTORS[best] @ declared > 0.99))

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -357,7 +358,8 @@ def _ground_speed(
     # treadmill the planted foot moves back with the belt, so add the belt's
     # velocity (forward x belt speed) to get the speed relative to the belt.
     vel = np.full_like(foot, np.nan)
-    for a, b in _true_runs(np.isfinite(foot).all(axis=1)):
+    # numpy's stubs type .all(axis=...) as scalar-or-array; with an axis it is an array.
+    for a, b in _true_runs(cast(NDArray[np.bool_], np.isfinite(foot).all(axis=1))):
         if b - a >= 2:
             vel[a:b] = np.gradient(foot[a:b], axis=0) * fs
     if belt_m_s:
@@ -488,7 +490,8 @@ def hildebrand_coordinates(limbs: Mapping[str, LimbStrides]) -> tuple[float, flo
     Locomotion*, Plenum (axes: hind-limb duty factor, fore-hind lag; from
     memory).
     """
-    phases, duties = [], []
+    phases: list[float] = []
+    duties: list[float] = []
     for side in ("L", "R"):
         hind, fore = limbs.get(side + "H"), limbs.get(side + "F")
         if hind is None or fore is None or hind.start.size == 0:

@@ -20,7 +20,9 @@ hundred frames per second, 300 Hz typical, about 0.2 mm resolution).
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -221,7 +223,8 @@ def valid_segments(
     arr = _check_markers(markers, "valid_segments")
     if marker_indices is not None:
         arr = arr[:, np.asarray(marker_indices, dtype=int)]
-    ok = np.isfinite(arr).all(axis=(1, 2))
+    # numpy's stubs type .all(axis=...) as scalar-or-array; with an axis it is an array.
+    ok = cast(NDArray[np.bool_], np.isfinite(arr).all(axis=(1, 2)))
     return tuple(r for r in _runs(ok) if r[1] - r[0] >= min_length)
 
 
@@ -270,7 +273,7 @@ def fill_gaps(markers: ArrayLike, *, frame_rate_hz: float, max_gap_s: float = 0.
     mask = np.zeros((n_frames, n_markers), dtype=bool)
     long_gaps: list[tuple[tuple[int, int], ...]] = []
     for k in range(n_markers):
-        missing = ~np.isfinite(arr[:, k]).all(axis=1)
+        missing = cast(NDArray[np.bool_], ~np.isfinite(arr[:, k]).all(axis=1))
         out[missing, k] = np.nan
         gaps = _runs(missing)
         unfilled = [g for g in gaps if g[1] - g[0] > max_gap or g[0] == 0 or g[1] == n_frames]
@@ -294,7 +297,7 @@ def fill_gaps(markers: ArrayLike, *, frame_rate_hz: float, max_gap_s: float = 0.
             spline = CubicSpline(good, arr[good, k], axis=0)
             out[holes, k] = spline(holes)
             mask[holes, k] = True
-    segments = tuple(_runs(np.isfinite(out).all(axis=(1, 2))))
+    segments = tuple(_runs(cast(NDArray[np.bool_], np.isfinite(out).all(axis=(1, 2)))))
     return FilledGaps(out, mask, tuple(long_gaps), segments, max_gap)
 
 
@@ -546,7 +549,7 @@ def residual_analysis(
     signals = arr.reshape(arr.shape[0], -1)
     fs = check_positive_float("frame_rate_hz", frame_rate_hz, fn)
     if candidates_hz is None:
-        cand = np.arange(1, 81) * fs / 200.0
+        cand = np.arange(1, 81, dtype=np.float64) * fs / 200.0  # integers: exact either way
     else:
         cand = as_float_array("candidates_hz", candidates_hz, fn, ndim=1, min_length=3)
     fit_from = (
@@ -572,7 +575,13 @@ def residual_analysis(
     return ResidualAnalysis(cand, resid, intercept, cand[first], float(fit_from))
 
 
-def _residuals_filtfilt(signals, segs, cand, fs, order):
+def _residuals_filtfilt(
+    signals: NDArray[np.float64],
+    segs: Sequence[tuple[int, int]],
+    cand: NDArray[np.float64],
+    fs: float,
+    order: int,
+) -> NDArray[np.float64]:
     resid = np.empty((cand.size, signals.shape[1]))
     count = sum(b - a for a, b in segs)
     for i, fc in enumerate(cand):
@@ -586,7 +595,13 @@ def _residuals_filtfilt(signals, segs, cand, fs, order):
     return resid
 
 
-def _residuals_fft(signals, segs, cand, fs, order):
+def _residuals_fft(
+    signals: NDArray[np.float64],
+    segs: Sequence[tuple[int, int]],
+    cand: NDArray[np.float64],
+    fs: float,
+    order: int,
+) -> NDArray[np.float64]:
     """Residual RMS per candidate by Parseval on the odd extension of each segment."""
     sq = np.zeros((cand.size, signals.shape[1]))
     count = 0

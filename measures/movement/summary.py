@@ -373,7 +373,18 @@ def movement_summary(
     return _result(book, p, state, a, fs, image, classes, gait, pre, plots)
 
 
-def _result(book, p, state, a, fs, image, classes, gait, pre, plots) -> MovementSummary:
+def _result(
+    book: _Book,
+    p: dict[str, Any],
+    state: NDArray[np.float64],
+    a: int,
+    fs: float,
+    image: NDArray[np.float64],
+    classes: NDArray[np.int64],
+    gait: GaitParameters | None,
+    pre: PreprocessedTrial,
+    plots: dict[str, NDArray[Any]],
+) -> MovementSummary:
     lead = state[:, 0] if state.size else np.zeros(0)
     step = max(1, math.ceil(lead.size / p["plot_max_points"]))
     time_s = (a + np.arange(lead.size)) / fs
@@ -390,7 +401,13 @@ def _result(book, p, state, a, fs, image, classes, gait, pre, plots) -> Movement
     )  # fmt: skip
 
 
-def _check_up(pre, feet, body_idx, p, book: _Book) -> None:
+def _check_up(
+    pre: PreprocessedTrial,
+    feet: Mapping[str, int],
+    body_idx: list[int],
+    p: dict[str, Any],
+    book: _Book,
+) -> None:
     try:
         check = check_up_axis(
             pre.markers, feet=list(feet.values()), body=body_idx,
@@ -407,7 +424,14 @@ def _check_up(pre, feet, body_idx, p, book: _Book) -> None:
         )
 
 
-def _too_short(arr, fs, feet, p, book: _Book, err: Exception) -> MovementSummary:
+def _too_short(
+    arr: NDArray[np.float64],
+    fs: float,
+    feet: Mapping[str, int],
+    p: dict[str, Any],
+    book: _Book,
+    err: Exception,
+) -> MovementSummary:
     """NaN scores with the real cause when preprocessing has too little to work on."""
     n = arr.shape[0]
     reason = f"trial too short or too gappy: {n} frames ({n / fs:.3g} s at {fs:g} Hz); {err}"
@@ -441,7 +465,9 @@ _GAIT_UNITS = {
 }
 
 
-def _gait_scores(gait: GaitParameters, pre: PreprocessedTrial, feet, book: _Book) -> None:
+def _gait_scores(
+    gait: GaitParameters, pre: PreprocessedTrial, feet: Mapping[str, int], book: _Book
+) -> None:
     hind_duty, lag = gait.hildebrand
     counts = {k: int(v.contacts.touchdown.size) for k, v in gait.limbs.items()}
     no_stride = (
@@ -556,7 +582,9 @@ _STATE_UNITS = {
 }
 
 
-def _whole_body_scores(channels, fs, stride_hz, p, book: _Book):
+def _whole_body_scores(
+    channels: NDArray[np.float64], fs: float, stride_hz: float, p: dict[str, Any], book: _Book
+) -> tuple[NDArray[np.float64], int, NDArray[np.float64]]:
     window_s = p["ssa_window_s"]
     if window_s is None:
         window_s = 1.0 / stride_hz if np.isfinite(stride_hz) else 0.5
@@ -584,14 +612,21 @@ def _whole_body_scores(channels, fs, stride_hz, p, book: _Book):
     return st.state, delay, image
 
 
-def _nan_state(book: _Book, reason: str):
+def _nan_state(book: _Book, reason: str) -> tuple[NDArray[np.float64], int, NDArray[np.float64]]:
     book.fill(_STATE_UNITS, {}, reason)
     for name, unit in wb.COMPLEXITY_UNITS.items():
         book.add(name, math.nan, unit, reason)
     return np.zeros((0, 2)), 1, np.zeros((0, 0))
 
 
-def _state_stage(state, delay, fs, p, book: _Book, extra: dict[str, float]):
+def _state_stage(
+    state: NDArray[np.float64],
+    delay: int,
+    fs: float,
+    p: dict[str, Any],
+    book: _Book,
+    extra: dict[str, float],
+) -> NDArray[np.float64]:
     """RQA (full rate up to rqa_max_points), symbols, two-part code, surrogate z-scores."""
     q = max(1, math.ceil(state.shape[0] / p["rqa_max_points"]))
     points = wb.decimate(state, q)
@@ -650,7 +685,9 @@ def _state_stage(state, delay, fs, p, book: _Book, extra: dict[str, float]):
     ).image  # fmt: skip
 
 
-def _single_foot_scores(signal, fs, stride_hz, p, book: _Book):
+def _single_foot_scores(
+    signal: NDArray[np.float64], fs: float, stride_hz: float, p: dict[str, Any], book: _Book
+) -> tuple[NDArray[np.float64], int, NDArray[np.float64]]:
     """The delay embedding of one foot coordinate (the earlier analysis signal)."""
     try:
         delay, dim = _embedding_parameters(signal, fs, stride_hz, p)
@@ -700,7 +737,9 @@ _INTERLIMB_UNITS = {
 }
 
 
-def _interlimb_scores(limbs, delay, p, book: _Book) -> dict[str, NDArray[Any]]:
+def _interlimb_scores(
+    limbs: Mapping[str, NDArray[np.float64]], delay: int, p: dict[str, Any], book: _Book
+) -> dict[str, NDArray[Any]]:
     if len(limbs) < 2:
         book.fill(_INTERLIMB_UNITS, {}, "interlimb coordination needs at least two feet")
         return {}
