@@ -517,8 +517,11 @@ def recurrence_threshold(
 
     Examples
     --------
+    Ten points on a line: of the 90 admissible ordered pairs (Theiler 1), 18 lie at
+    distance 1, so a 20 % recurrence rate needs eps = 1.
+
     >>> round(recurrence_threshold(np.arange(10.0), recurrence_rate=0.2), 6)
-    2.0
+    1.0
     """
     fn = "recurrence_threshold"
     xt, theiler, _, _ = _prepare(points, fn, theiler, 1, 1, metric)
