@@ -51,7 +51,8 @@ def _check(response: Any) -> Any:
 
 
 def _all(client: Any, path: str) -> list[dict[str, Any]]:
-    return _check(client.get(path, params={"limit": 1000}))["data"]
+    rows: list[dict[str, Any]] = _check(client.get(path, params={"limit": 1000}))["data"]
+    return rows
 
 
 def _resolve(client: Any, path: str, key: str, ref: str) -> int:
@@ -216,7 +217,9 @@ def _recipe_list(args: argparse.Namespace) -> int:
 
 
 # -- rescore and waiting ----------------------------------------------------------------------
-def wait_for_jobs(client: Any, *, progress: bool, timeout_s: float | None = None) -> list[dict]:
+def wait_for_jobs(
+    client: Any, *, progress: bool, timeout_s: float | None = None
+) -> list[dict[str, Any]]:
     """Poll ``/v1/jobs`` until none is queued or running; a bar (or lines) with an ETA."""
     from service.progress import Progress
 

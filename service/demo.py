@@ -194,7 +194,8 @@ def summary_text(
 
     lines = [INVENTED, ""]
     prof = corr.get("recipe") or {}
-    label = cv.recipe_label(prof.get("name"), prof.get("version"))
+    # str(): a recipe without a name prints as before ("None"), now typed as text
+    label = cv.recipe_label(str(prof.get("name")), prof.get("version"))
     lines.append(
         f"Study: {corr.get('n_arenas')} arenas, {corr.get('n_subjects')} subjects, "
         f"{corr.get('n_trials')} trials; recipe {label} "

@@ -22,6 +22,7 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 from numba import njit, prange
@@ -32,14 +33,16 @@ _GOLDEN = np.uint64(0x9E3779B97F4A7C15)
 
 
 @njit(cache=True, inline="always")
-def _mix(z):  # splitmix64 finaliser (Steele, Lea & Flood 2014)
+def _mix(z: np.uint64) -> np.uint64:  # splitmix64 finaliser (Steele, Lea & Flood 2014)
     z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
     z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
     return z ^ (z >> np.uint64(31))
 
 
 @njit(cache=True, inline="always")
-def _before(a, b, tied, ka, kb, use_key):
+def _before(
+    a: float, b: float, tied: bool, ka: np.uint64, kb: np.uint64, use_key: bool
+) -> bool | np.bool_:
     """True when value a (earlier in the window) ranks below value b."""
     if not tied:
         return a < b or (a == b and not use_key) or (a == b and ka < kb)
@@ -49,7 +52,15 @@ def _before(a, b, tied, ka, kb, use_key):
 
 
 @njit(cache=True, parallel=True)
-def _ordinal_kernel(x, raw, wy, wx, use_key, seed, n_chunks):  # pragma: no cover - compiled
+def _ordinal_kernel(  # pragma: no cover - compiled
+    x: NDArray[np.floating[Any]],
+    raw: NDArray[np.floating[Any]],
+    wy: int,
+    wx: int,
+    use_key: bool,
+    seed: int,
+    n_chunks: int,
+) -> tuple[NDArray[np.int64], np.int64]:
     ny, nx = x.shape
     oy, ox = ny - wy + 1, nx - wx + 1
     d = wy * wx
@@ -103,7 +114,16 @@ def _ordinal_kernel(x, raw, wy, wx, use_key, seed, n_chunks):  # pragma: no cove
 
 
 @njit(cache=True, inline="always")
-def _below(vp, vq, rp, rq, cp, cq, use_key, s):
+def _below(
+    vp: float,
+    vq: float,
+    rp: float,
+    rq: float,
+    cp: int,
+    cq: int,
+    use_key: bool,
+    s: np.uint64,
+) -> tuple[bool | np.bool_, bool]:
     """(p ranks below q, tied) for p earlier in the window than q."""
     if rp == rq:
         if use_key:
@@ -113,7 +133,7 @@ def _below(vp, vq, rp, rq, cp, cq, use_key, s):
 
 
 @njit(cache=True, inline="always")
-def _digit_weight(rank):
+def _digit_weight(rank: int | np.integer[Any] | np.bool_) -> int:
     # (D - 1 - rank)! for D = 4
     if rank == 0:
         return 6
@@ -123,7 +143,13 @@ def _digit_weight(rank):
 
 
 @njit(cache=True, parallel=True)
-def _ordinal_kernel_22(x, raw, use_key, seed, n_chunks):  # pragma: no cover - compiled
+def _ordinal_kernel_22(  # pragma: no cover - compiled
+    x: NDArray[np.floating[Any]],
+    raw: NDArray[np.floating[Any]],
+    use_key: bool,
+    seed: int,
+    n_chunks: int,
+) -> tuple[NDArray[np.int64], np.int64]:
     """The 2 x 2 case of ``_ordinal_kernel`` written out (6 comparisons, no arrays)."""
     ny, nx = x.shape
     oy, ox = ny - 1, nx - 1
@@ -199,7 +225,9 @@ def ordinal_counts(
     return counts, int(n_ties)
 
 
-def _phase_spectrum(amp, rng, ny, nx_even):
+def _phase_spectrum(
+    amp: NDArray[np.float32], rng: np.random.Generator, ny: int, nx_even: bool
+) -> NDArray[np.complex64]:
     """amp * exp(i phi) with phi uniform, Hermitian on the real columns.
 
     numpy's float32 generator and SIMD cos/sin: 4x faster here than a fused

@@ -101,23 +101,26 @@ def level(
             by = (zz.mean(axis=1) @ yc) / (yc @ yc)
             out = zz - zz.mean() - bx * xc[None, :] - by * yc[:, None]
         else:
-            yy, xx = np.indices(z.shape, dtype=np.float64)
+            grid = np.indices(z.shape, dtype=np.float64)
+            yy, xx = grid[0], grid[1]
             xx *= dx
             yy *= dy
             design = np.column_stack([np.ones(w.sum()), xx[w], yy[w]])
-            coef, *_ = np.linalg.lstsq(design, zz[w], rcond=None)
+            coef = np.linalg.lstsq(design, zz[w], rcond=None)[0]
             out = zz - (coef[0] + coef[1] * xx + coef[2] * yy)
     out[~w] = 0.0
     return out
 
 
-def _gauss_transfer(shape: tuple[int, ...], spacings: tuple[float, ...], cutoff_m: float):
+def _gauss_transfer(
+    shape: tuple[int, ...], spacings: tuple[float, ...], cutoff_m: float
+) -> NDArray[np.float64]:
     """Low-pass Gaussian transmission exp(-pi (alpha lambda_c f)^2) on an rfft grid."""
     freqs = [sfft.fftfreq(n, d) for n, d in zip(shape[:-1], spacings[:-1], strict=True)]
     freqs.append(sfft.rfftfreq(shape[-1], spacings[-1]))
     f2 = np.zeros(tuple(len(f) for f in freqs))
     for axis, f in enumerate(freqs):
-        idx = [None] * len(freqs)
+        idx: list[slice | None] = [None] * len(freqs)
         idx[axis] = slice(None)
         f2 = f2 + f[tuple(idx)] ** 2
     return np.exp(-np.pi * (GAUSS_ALPHA * cutoff_m) ** 2 * f2)
@@ -146,7 +149,7 @@ def gaussian_lowpass(
     axes = tuple(range(z.ndim))
     crop = tuple(slice(0, n) for n in shape)
     w = None if valid is None else valid.astype(np.float64)
-    zw = z if w is None else np.where(valid, z, 0.0)
+    zw = z if valid is None else np.where(valid, z, 0.0)
     num = sfft.irfftn(sfft.rfftn(_mirror(zw), workers=-1) * transfer, ext_shape, axes=axes)
     num = num[crop]
     if w is None:

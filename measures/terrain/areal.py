@@ -8,6 +8,7 @@ is x (spacing ``dx``). All results are SI: heights in m, Sdr as a fraction
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -145,7 +146,7 @@ def gaussian_filter_surface(
 
 def _check_band(band_m: object, function: str) -> tuple[float | None, float | None]:
     try:
-        lo, hi = band_m  # type: ignore[misc]
+        lo, hi = cast("tuple[object, object]", band_m)
     except (TypeError, ValueError):
         raise InvalidParameterError(
             "band_m", function, "a pair (lo, hi) of wavelengths in m", band_m
@@ -285,7 +286,7 @@ def _decay_lengths(
     vals = ndimage.map_coordinates(np.nan_to_num(acf, nan=1.0), [rows, cols], order=1)
     vals = np.where(rr <= rmax[:, None], vals, np.inf)
     below = vals <= s
-    decayed = below.any(axis=1)
+    decayed = cast("NDArray[np.bool_]", below.any(axis=1))  # stubs: bool | array
     first = np.argmax(below, axis=1)
     out = rmax.copy()
     for i in np.flatnonzero(decayed):
@@ -366,7 +367,8 @@ def areal_parameters(
     with np.errstate(invalid="ignore", divide="ignore"):
         ssk = float(np.mean(h**3) / sq**3)
         sku = float(np.mean(h**4) / sq**4)
-    gy, gx = np.gradient(zl, dy_f, dx_f)
+    # numpy's stubs cannot tell a 2-D input's gradient pair from a 1-D array
+    gy, gx = cast("tuple[NDArray[np.float64], NDArray[np.float64]]", np.gradient(zl, dy_f, dx_f))
     gmask = _gradient_mask(mask, arr.shape)
     g2 = (gx**2 + gy**2)[gmask]
     sdq = float(np.sqrt(np.mean(g2)))

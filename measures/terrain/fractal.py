@@ -13,6 +13,7 @@ wavelength and a lag of the same length as the same scale, common practice).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import cast
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
@@ -40,6 +41,11 @@ _METHODS = ("psd", "variogram", "madogram", "boxcount")
 # no Hurst exponent is fitted (our choice, stated).
 MIN_VALID_FRACTION = 0.5
 _MAX_TRANSECTS = 1024
+
+# A fit as the estimators return it: H, band used (m), R^2, slope, intercept, fitted x and y.
+_Fit = tuple[
+    float, tuple[float, float], float, float, float, NDArray[np.float64], NDArray[np.float64]
+]
 
 
 @dataclass(frozen=True, eq=False)
@@ -118,7 +124,9 @@ def _fit(x: NDArray[np.float64], y: NDArray[np.float64]) -> tuple[float, float, 
     return float(slope), float(icpt), float(r2)
 
 
-def _log_bin(q, c, bins_per_decade=10):
+def _log_bin(
+    q: NDArray[np.float64], c: NDArray[np.float64], bins_per_decade: int = 10
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """Average a linearly sampled spectrum in log-spaced bins (q > 0 only)."""
     keep = q > 0
     q, c = q[keep], c[keep]
@@ -133,7 +141,9 @@ def _log_bin(q, c, bins_per_decade=10):
     return np.exp(qs[ok] / cnt[ok]), cs[ok] / cnt[ok]
 
 
-def _spectrum(arr, dx, dy, mask):
+def _spectrum(
+    arr: NDArray[np.float64], dx: float, dy: float, mask: NDArray[np.bool_] | None
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """Log-binned (q, C) for a surface (radial PSD) or a profile (1-D PSD)."""
     if arr.ndim == 2:
         r = radial_psd(arr, dx, dy, valid=mask)
@@ -191,7 +201,15 @@ def self_affine_band(
     )
 
 
-def _band_from_spectrum(q, c, ndim, r2_min, min_decades, slope_tolerance, hurst_range):
+def _band_from_spectrum(
+    q: NDArray[np.float64],
+    c: NDArray[np.float64],
+    ndim: int,
+    r2_min: float,
+    min_decades: float,
+    slope_tolerance: float,
+    hurst_range: tuple[float, float],
+) -> SelfAffineBand:
     """The band search of :func:`self_affine_band` on a log-binned spectrum."""
     ok = c > 0
     q, c = q[ok], c[ok]
@@ -238,7 +256,9 @@ def _band_from_spectrum(q, c, ndim, r2_min, min_decades, slope_tolerance, hurst_
     return SelfAffineBand(True, band, h, slope, r2, j - i + 1, "ok")
 
 
-def _lags_px(band, step, n, default_hi_frac):
+def _lags_px(
+    band: tuple[float, float] | None, step: float, n: int, default_hi_frac: float
+) -> NDArray[np.int_]:
     """Integer lags (px), about 10 per decade, in the band (m) or the default range."""
     lo_px, hi_px = (
         (2.0, max(4.0, n * default_hi_frac))
@@ -255,14 +275,16 @@ def _lags_px(band, step, n, default_hi_frac):
     return lags[lags >= 1]
 
 
-def _increments(arr, mask, lags, p):
+def _increments(
+    arr: NDArray[np.float64], mask: NDArray[np.bool_] | None, lags: NDArray[np.int_], p: int
+) -> NDArray[np.float64]:
     """Mean |z(x+h) - z(x)|^p per transect (rows, then columns if 2-D): (n_lines, n_lags)."""
     # At most _MAX_TRANSECTS evenly spaced rows (and columns): H is the median
     # over transects, which 1024 of them pin down as well as 4096 do.
     sr = max(1, -(-arr.shape[0] // _MAX_TRANSECTS)) if arr.ndim == 2 else 1
     sc = max(1, -(-arr.shape[-1] // _MAX_TRANSECTS)) if arr.ndim == 2 else 1
     lines = [arr[None, :]] if arr.ndim == 1 else [arr[::sr], np.ascontiguousarray(arr.T[::sc])]
-    masks = [None] * len(lines)
+    masks: list[NDArray[np.bool_] | None] = [None] * len(lines)
     if mask is not None:
         masks = [mask[None, :]] if arr.ndim == 1 else [mask[::sr], mask.T[::sc]]
     out = []
@@ -280,7 +302,14 @@ def _increments(arr, mask, lags, p):
     return np.vstack(out)
 
 
-def _structure_fit(arr, dx, dy, mask, band, p):
+def _structure_fit(
+    arr: NDArray[np.float64],
+    dx: float,
+    dy: float,
+    mask: NDArray[np.bool_] | None,
+    band: tuple[float, float] | None,
+    p: int,
+) -> _Fit:
     """Transect increment estimator, median over rows and columns (Gneiting et al. 2012)."""
     step = dx if arr.ndim == 1 else min(dx, dy)
     lags = _lags_px(band, step, min(arr.shape), 1 / 16)
@@ -295,12 +324,13 @@ def _structure_fit(arr, dx, dy, mask, band, p):
     lv, lh = np.log(v[good]), np.log(lags * step)
     lhc = lh - lh.mean()
     slopes = (lv - lv.mean(axis=1, keepdims=True)) @ lhc / (lhc @ lhc)
-    x, y = lags * step, v[good].mean(axis=0)
+    # int lags times a float step are float64 (the stubs only say floating)
+    x, y = cast("NDArray[np.float64]", lags * step), v[good].mean(axis=0)
     slope, icpt, r2 = _fit(x, y)
     return float(np.median(slopes)) / p, (float(x[0]), float(x[-1])), r2, slope, icpt, x, y
 
 
-def _box_counts(arr, sizes):
+def _box_counts(arr: NDArray[np.float64], sizes: NDArray[np.int_]) -> NDArray[np.float64]:
     """Boxes of height s touched per s x s cell block, heights scaled to the extent in px.
 
     Differential box counting (Sarkar & Chaudhuri 1994), with neighbouring
@@ -320,7 +350,12 @@ def _box_counts(arr, sizes):
     return np.array(counts)
 
 
-def _boxcount_fit(arr, dx, mask, band):
+def _boxcount_fit(
+    arr: NDArray[np.float64],
+    dx: float,
+    mask: NDArray[np.bool_] | None,
+    band: tuple[float, float] | None,
+) -> _Fit:
     if mask is not None:
         arr = fill_holes(arr, mask)
     n = min(arr.shape)
@@ -328,16 +363,22 @@ def _boxcount_fit(arr, dx, mask, band):
     sizes = [s for s in 2 ** np.arange(1, 20) if max(lo_px, 2) <= s <= min(hi_px, n / 4)]
     if len(sizes) < 3:
         raise InsufficientDataError("band", "hurst_exponent", "a band of >= 3 box sizes", band)
-    sizes = np.array(sizes)
-    counts = _box_counts(arr, sizes)
-    x = sizes * dx
+    size_arr = np.array(sizes)
+    counts = _box_counts(arr, size_arr)
+    # int sizes times a float spacing are float64 (the stubs only say floating)
+    x = cast("NDArray[np.float64]", size_arr * dx)
     slope, icpt, r2 = _fit(x, counts)
     dim = -slope
     h = (3.0 if arr.ndim == 2 else 2.0) - dim
     return h, (float(x[0]), float(x[-1])), r2, slope, icpt, x, counts
 
 
-def _psd_fit(arr, band, q, c):
+def _psd_fit(
+    arr: NDArray[np.float64],
+    band: tuple[float, float],
+    q: NDArray[np.float64],
+    c: NDArray[np.float64],
+) -> _Fit:
     sel = (q >= 2 * np.pi / band[1] * 0.999) & (q <= 2 * np.pi / band[0] * 1.001) & (c > 0)
     if sel.sum() < 3:
         raise InsufficientDataError("band", "hurst_exponent", "a band holding >= 3 PSD bins", band)
@@ -461,6 +502,7 @@ def hurst_exponent(
             n = max(arr.shape) if arr.ndim == 2 else arr.size
             step = max(dx_f, dy_f) if arr.ndim == 2 else dx_f
             fit_band = auto.band_m if found else (4 * step, n * step / 4)
+        assert fit_band is not None  # a found band always has band_m
         res = _psd_fit(filled, fit_band, q, c)
     elif method == "boxcount":
         zl = level(filled, dx_f, dy_f, spec_mask, "plane")

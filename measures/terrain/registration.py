@@ -233,8 +233,9 @@ def _fpfh_start(src, tgt, voxel_m: float, seed: int) -> NDArray[np.float64]:  # 
 
     reg = o3d.pipelines.registration
     param = o3d.geometry.KDTreeSearchParamHybrid(radius=5 * voxel_m, max_nn=100)
-    f_src = reg.compute_fpfh_feature(src, param)
-    f_tgt = reg.compute_fpfh_feature(tgt, param)
+    # open3d's stub drops the runtime default of `indices` (all points)
+    f_src = reg.compute_fpfh_feature(src, param)  # type: ignore[call-arg]
+    f_tgt = reg.compute_fpfh_feature(tgt, param)  # type: ignore[call-arg]
     o3d.utility.random.seed(int(seed))
     dist = 1.5 * voxel_m
     result = reg.registration_ransac_based_on_feature_matching(

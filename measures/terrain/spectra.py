@@ -143,7 +143,17 @@ def _window(n: int, kind: str) -> NDArray[np.float64]:
     return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n)
 
 
-def _prepared(z, dx, dy, valid, window, detrend, fn, *, ndim=2):
+def _prepared(
+    z: ArrayLike,
+    dx: float,
+    dy: float | None,
+    valid: ArrayLike | None,
+    window: str,
+    detrend: str,
+    fn: str,
+    *,
+    ndim: int = 2,
+) -> tuple[NDArray[np.float64], float, float]:
     arr, dx_f, dy_f, mask = check_grid(z, dx, dy, valid, fn, ndim=ndim, min_size=4)
     check_choice("window", window, fn, _WINDOWS)
     check_choice("detrend", detrend, fn, _DETRENDS)
@@ -154,7 +164,7 @@ def _prepared(z, dx, dy, valid, window, detrend, fn, *, ndim=2):
     return zl, dx_f, dy_f
 
 
-def _windowed_2d(zl, window):
+def _windowed_2d(zl: NDArray[np.float64], window: str) -> tuple[NDArray[np.float64], float]:
     wy, wx = _window(zl.shape[0], window), _window(zl.shape[1], window)
     w2 = np.outer(wy, wx)
     return zl * w2, float(np.mean(w2**2))

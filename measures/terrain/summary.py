@@ -14,7 +14,7 @@ from __future__ import annotations
 import os
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -31,7 +31,7 @@ from measures.information.symbolic import MIN_WINDOWS_PER_PATTERN
 from measures.terrain._fastfield import ordinal_counts, phase_surrogates
 from measures.terrain._surface import check_grid, fill_holes, hole_scale_cells, inpaint_holes, level
 from measures.terrain.areal import _check_band, areal_parameters, bandpass_surface
-from measures.terrain.fractal import hurst_exponent
+from measures.terrain.fractal import HurstResult, hurst_exponent
 from measures.terrain.spectra import psd_anisotropy, radial_psd, rms_slope_from_psd, surface_psd
 
 __all__ = [
@@ -176,7 +176,8 @@ def gradient_entropy(
     floor = check_positive_float("slope_floor_deg", slope_floor_deg, fn, allow_zero=True)
     # No copy of a hole-free grid: np.gradient does not write to its input.
     src = arr if mask is None and not np.isnan(arr).any() else fill_holes(np.nan_to_num(arr), mask)
-    gy, gx = np.gradient(src, dy_f, dx_f)
+    # numpy's stubs cannot tell a 2-D input's gradient pair from a 1-D array
+    gy, gx = cast("tuple[NDArray[np.float64], NDArray[np.float64]]", np.gradient(src, dy_f, dx_f))
     del src
     # In place: a 4096^2 scan makes each temporary 128 MiB.
     slope = np.hypot(gx, gy)
@@ -314,7 +315,13 @@ def _nan(name: str, unit: str, reason: str) -> Score:
     return Score(name, float("nan"), unit, note=reason)
 
 
-def _hurst_band(p, band, shape, step, hole_floor):
+def _hurst_band(
+    p: Mapping[str, Any],
+    band: tuple[float | None, float | None] | None,
+    shape: tuple[int, ...],
+    step: float,
+    hole_floor: float,
+) -> tuple[tuple[float, float] | None, str]:
     """The one band every Hurst estimator fits (None: each method's own default)."""
     extent = max(shape) * step
     if p["hurst_band"] == "auto":
@@ -338,9 +345,19 @@ def _hurst_band(p, band, shape, step, hole_floor):
     return (lo, hi), why
 
 
-def _hurst_scores(zl, dx, dy, mask, band, p, notes, hole_floor):
+def _hurst_scores(
+    zl: NDArray[np.float64],
+    dx: float,
+    dy: float,
+    mask: NDArray[np.bool_] | None,
+    band: tuple[float | None, float | None] | None,
+    p: Mapping[str, Any],
+    notes: list[str],
+    hole_floor: float,
+) -> tuple[list[Score], HurstResult | None]:
     """Hurst/fractal-dimension scores for each method, each with its band and fit quality."""
-    scores, psd_fit = [], None
+    scores: list[Score] = []
+    psd_fit: HurstResult | None = None
     step = max(dx, dy)
     fit_band, why = _hurst_band(p, band, zl.shape, step, hole_floor)
     notes.append(
@@ -414,7 +431,13 @@ def _zscore(value: float, sur: NDArray[np.float64]) -> float | None:
     return (value - float(sur.mean())) / sd if sd > 0 else None
 
 
-def _ordinal_hc(x, order, ties, seed, raw=None):
+def _ordinal_hc(
+    x: NDArray[np.floating[Any]],
+    order: tuple[int, int],
+    ties: str,
+    seed: int,
+    raw: NDArray[np.floating[Any]] | None = None,
+) -> tuple[float, float, float, int, int]:
     from measures.information.ordinal import jensen_shannon_complexity
 
     counts, n_ties = ordinal_counts(x, order, ties=ties, seed=seed, raw=raw)
@@ -423,7 +446,12 @@ def _ordinal_hc(x, order, ties, seed, raw=None):
     return float(h), float(c), n_ties / n, n, counts.size
 
 
-def _ordinal_scores(zb, p, notes, raw=None):
+def _ordinal_scores(
+    zb: NDArray[np.float64],
+    p: Mapping[str, Any],
+    notes: list[str],
+    raw: NDArray[np.float64] | None = None,
+) -> list[Score]:
     """Permutation entropy and JS complexity of the whole field (fused kernel), with surrogates.
 
     ``raw``: the measured heights (ties are their equalities; see ordinal_counts).
@@ -473,7 +501,7 @@ def _without_z(s: Score) -> Score:
     return Score(s.name, s.value, s.unit, s.ci_low, s.ci_high, None, s.note)
 
 
-def _two_part(sym, k):
+def _two_part(sym: NDArray[np.int64], k: int) -> tuple[float, float, str]:
     """(effective complexity bits, total information bits/site, note) of a symbol field.
 
     Calls the shared two-part code; until it accepts 2-D fields this returns
@@ -495,14 +523,14 @@ def _two_part(sym, k):
     )
 
 
-def _field_values(x, p):
+def _field_values(x: NDArray[np.float64], p: Mapping[str, Any]) -> dict[str, tuple[float, str]]:
     """The symbol-field scores of one field: {name: (value, note)}."""
     from measures.information.entropy import entropy_density_2d
     from measures.information.symbolic import quantile_symbols
 
     k = int(p["quantile_bins"])
     sym = quantile_symbols(x, n_bins=k)
-    out = {}
+    out: dict[str, tuple[float, str]] = {}
     try:
         ed = entropy_density_2d(sym, max_neighbourhood=p["max_neighbourhood"])
         out["entropy_density_2d_bits"] = (ed.entropy_density, "")
@@ -524,7 +552,7 @@ _FIELD_UNITS = {
 }
 
 
-def _central_tile(x, cells):
+def _central_tile(x: NDArray[np.float64], cells: int) -> NDArray[np.float64]:
     ny, nx = x.shape
     if ny * nx <= cells:
         return x
@@ -534,7 +562,7 @@ def _central_tile(x, cells):
     return x[y0 : y0 + ty, x0 : x0 + tx]
 
 
-def _field_scores(zb, p, notes):
+def _field_scores(zb: NDArray[np.float64], p: Mapping[str, Any], notes: list[str]) -> list[Score]:
     """Entropy density, excess entropy, effective complexity and total information.
 
     Values from the whole field; surrogate z-scores from the central tile
@@ -552,7 +580,7 @@ def _field_scores(zb, p, notes):
             )
         ref = _field_values(tile, p)
         make = phase_surrogates(tile, int(p["surrogate_seed"]) + 7919, workers=_WORKERS)
-        sur = {n: [] for n in wanted}
+        sur: dict[str, list[float]] = {n: [] for n in wanted}
         for k in range(p["n_surrogates"]):
             sv = _field_values(make(k).astype(np.float64), p)
             for n in wanted:
@@ -645,7 +673,7 @@ def terrain_summary(
             "interpolated surface"
         )
     zl = level(np.nan_to_num(arr), dx_f, dy_f, mask, p["detrend"])
-    zb = zl if band_m is None else bandpass_surface(zl, dx_f, dy_f, band_m=band, valid=mask)
+    zb = zl if band is None else bandpass_surface(zl, dx_f, dy_f, band_m=band, valid=mask)
     ap = areal_parameters(
         zb, dx_f, dy_f, valid=mask, detrend=p["detrend"], acf_threshold=p["acf_threshold"]
     )

@@ -33,7 +33,8 @@ def _block_mean(z: np.ndarray, factor: int) -> np.ndarray:
     ny, nx = (z.shape[0] // factor) * factor, (z.shape[1] // factor) * factor
     blocks = z[:ny, :nx].reshape(ny // factor, factor, nx // factor, factor)
     with np.errstate(invalid="ignore"):
-        return np.nanmean(blocks, axis=(1, 3))
+        means: np.ndarray = np.nanmean(blocks, axis=(1, 3))
+    return means
 
 
 def heightmap_payload(scan: Any, store: Any, max_px: int) -> dict[str, Any]:
@@ -64,7 +65,9 @@ def _arena_heightmap_scan(session: Any, arena_id: int) -> Any | None:
     return scans[0] if scans else None
 
 
-def replay_payload(session: Any, store: Any, trial_id: int, max_frames: int, max_px: int) -> dict:
+def replay_payload(
+    session: Any, store: Any, trial_id: int, max_frames: int, max_px: int
+) -> dict[str, Any]:
     """Markers (preprocessed when stored, else raw) every k-th frame, plus the arena ground."""
     trial = repo.get_trial(session=session, trial_id=trial_id)
     if trial.preprocessed_sha256:

@@ -22,7 +22,7 @@ import base64
 import io
 import math
 from collections.abc import Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from matplotlib import colormaps
@@ -30,6 +30,9 @@ from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
 from service.report.panels import MovementPanel, TerrainPanel
+
+if TYPE_CHECKING:
+    from matplotlib.typing import RcKeyType
 
 __all__ = [
     "OKABE_ITO",
@@ -45,7 +48,12 @@ __all__ = [
 
 OKABE_ITO = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000")
 DPI = 110
-_STYLE = {"font.size": 9, "axes.titlesize": 9, "axes.labelsize": 9, "legend.fontsize": 7.5}
+_STYLE: dict[RcKeyType, float] = {
+    "font.size": 9,
+    "axes.titlesize": 9,
+    "axes.labelsize": 9,
+    "legend.fontsize": 7.5,
+}
 
 
 def unit_label(unit: str | None) -> str:
@@ -179,7 +187,8 @@ def movement_figure(panels: list[MovementPanel]) -> str:
         if xy.shape[0] > 1:
             seg = np.stack([xy[:-1], xy[1:]], axis=1)
             t = np.arange(xy.shape[0] - 1) / p.frame_rate_hz
-            lc = LineCollection(seg, cmap="viridis", array=t, linewidths=0.8)
+            # matplotlib takes an (n, 2, 2) array; its stub only names a sequence of segments
+            lc = LineCollection(seg, cmap="viridis", array=t, linewidths=0.8)  # type: ignore[arg-type]
             ax2.add_collection(lc)
             ax2.autoscale()
             fig.colorbar(lc, ax=ax2, label="time (s)", shrink=0.85)

@@ -206,7 +206,7 @@ def _arena_fit(row: Mapping[str, Any], arenas: list[dict[str, Any]]) -> dict[str
     xs = np.array([a["x"] for a in arenas], dtype=float)
     ys = np.array([a["y"] for a in arenas], dtype=float)
     nan = float("nan")
-    out = {"slope": nan, "intercept": nan, "ci_low": nan, "ci_high": nan}
+    out: dict[str, Any] = {"slope": nan, "intercept": nan, "ci_low": nan, "ci_high": nan}
     out["source"] = "ordinary least squares on the arena means"
     if xs.size < 3 or np.ptp(xs) == 0:
         return out
@@ -383,7 +383,7 @@ def correspondence_view(
         )
     n_perm = correspondence.get("n_permutations")
     exact = bool(correspondence.get("exact_permutations"))
-    return _clean(
+    return _clean_object(
         {
             "study": correspondence.get("study"),
             "settings": {
@@ -445,3 +445,8 @@ def _clean(obj: Any) -> Any:
     if isinstance(obj, np.generic):
         return _clean(obj.item())
     return obj
+
+
+def _clean_object(obj: dict[str, Any]) -> dict[str, Any]:
+    """:func:`_clean` for a JSON object, typed as one."""
+    return {k: _clean(v) for k, v in obj.items()}
