@@ -385,6 +385,50 @@ def _expected_section(
     return head + "".join(lines) + "</section>"
 
 
+def _measures_section(correspondence: Mapping[str, Any]) -> str:
+    """The measures of this correspondence, ordered by how well each one discriminates.
+
+    The order and verdicts come from ``service/report/discrimination.json``, written by
+    ``bench/bench_discrimination.py`` (real walk and run clips, demo trays, synthetic
+    self-affine surfaces); a measure that separates nothing there says so.
+    """
+    import json
+    from pathlib import Path
+
+    path = Path(__file__).with_name("discrimination.json")
+    try:
+        table = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return ""
+    used = {r["terrain_measure"] for r in correspondence.get("rows", [])}
+    used |= {r["movement_measure"] for r in correspondence.get("rows", [])}
+    rank = {m["measure"]: k for k, m in enumerate(table.get("measures", []))}
+    rows = sorted(
+        (m for m in table.get("measures", []) if m["measure"] in used),
+        key=lambda m: (m["side"], rank[m["measure"]]),
+    )
+    missing = sorted(used - set(rank))
+    lines = [
+        '<section id="measures"><h2>Measures, by how well each discriminates</h2>',
+        "<p>How well each measure in this report separates known differences: real walk and "
+        "run clips (DeepMimic, in the pybullet package) at 30 and 120 Hz, invented demo trays "
+        "of equal Sq, and synthetic self-affine surfaces of known Hurst exponent at equal Sq. "
+        f"Rules: {_e(table['rules']['movement'])} (movement); {_e(table['rules']['terrain'])} "
+        f"(terrain). Table made by <code>{_e(table.get('command', ''))}</code> on "
+        f"{_e(str(table.get('generated_at', ''))[:10])}.</p>",
+        "<table><thead><tr><th>side</th><th>measure</th><th>verdict</th></tr></thead><tbody>",
+    ]
+    for m in rows:
+        verdict = m["verdict"] if m["separates"] else "separates nothing on these data"
+        lines.append(
+            f"<tr><td>{_e(m['side'])}</td><td>{_e(m['measure'])}</td><td>{_e(verdict)}</td></tr>"
+        )
+    lines.append("</tbody></table>")
+    if missing:
+        lines.append(f"<p>Not in the table: {_e(', '.join(missing))}.</p>")
+    return "".join(lines) + "</section>"
+
+
 def build_report(
     *,
     session: Any,
@@ -419,6 +463,7 @@ def build_report(
         _summary_section(study, correspondence),
         *_figure_sections(study, correspondence, session, store, colours),
         _expected_section(session, study, correspondence),
+        _measures_section(correspondence),
         "</main></body></html>",
     ]
     return "\n".join(parts)
