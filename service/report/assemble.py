@@ -269,8 +269,9 @@ def _figure_sections(
                 figures.movement_figure(mpanels),
                 "recurrence plots and SSA portraits",
                 "A trial on the smoothest and one on the roughest arena: recurrence plot "
-                "of the delay-embedded foot-height signal (block-averaged), its SSA "
-                "phase portrait, and the step-cycle class of each stride.",
+                "of the whole-body state (multichannel SSA of every role marker in the body "
+                "frame; block-averaged), the state's two leading components, and the "
+                "step-cycle class of each stride.",
             )
         )
     else:

@@ -193,9 +193,11 @@ def movement_figure(panels: list[MovementPanel]) -> str:
             ax2.autoscale()
             fig.colorbar(lc, ax=ax2, label="time (s)", shrink=0.85)
         ax2.set_aspect("equal", adjustable="datalim")
-        ax2.set_xlabel("SSA component 1 (mm)")
-        ax2.set_ylabel("SSA component 2 (mm)")
-        ax2.set_title("SSA phase portrait of the foot-height signal")
+        # Projections of the lag-embedded body-frame coordinates onto the leading
+        # eigenvectors: lengths, but summed over lags and markers, not one marker's excursion.
+        ax2.set_xlabel("state component 1 (mm, projected)")
+        ax2.set_ylabel("state component 2 (mm, projected)")
+        ax2.set_title("Whole-body state, two leading components")
     ax = fig.add_subplot(grid[n, :])
     n_max = 1
     for row, p in enumerate(panels):
