@@ -323,8 +323,8 @@ def _figure_sections(
             _img(
                 figures.complexity_entropy_figure(arenas, trials, bounds, colours),
                 "complexity-entropy plane",
-                "Surfaces (2-D ordinal patterns) and foot-height signals (1-D ordinal "
-                "patterns) on the same plane; curves bound the admissible region.",
+                "Surfaces (2-D ordinal patterns) and trials (1-D ordinal patterns of the "
+                "whole-body state's leading component) on one plane; curves bound the admissible region.",
             )
         )
     parts.append("</section>")

@@ -361,7 +361,7 @@ def complexity_entropy_figure(
             va="center",
             arrowprops={"arrowstyle": "-", "color": "0.4", "lw": 0.6} if leader else None,
         )
-    ax.scatter([], [], s=16, color="grey", label="trials (foot-height signal)")
+    ax.scatter([], [], s=16, color="grey", label="trials (whole-body state, leading component)")
     ax.scatter([], [], s=60, marker="s", color="grey", edgecolor="black", label="arenas (surface)")
     ax.set_xlim(0, 1.0)
     ax.set_ylim(0, top)
