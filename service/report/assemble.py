@@ -324,7 +324,8 @@ def _figure_sections(
                 figures.complexity_entropy_figure(arenas, trials, bounds, colours),
                 "complexity-entropy plane",
                 "Surfaces (2-D ordinal patterns) and trials (1-D ordinal patterns of the "
-                "whole-body state's leading component) on one plane; curves bound the admissible region.",
+                "whole-body state's leading component) on one plane; curves bound the "
+                "admissible region.",
             )
         )
     parts.append("</section>")
