@@ -81,11 +81,6 @@ def test_uploads_are_scored_without_asking_and_rescore_works(tmp_path: Path) -> 
 HEAVY = ("numba", "scipy.stats", "open3d", "sklearn")
 
 
-@pytest.mark.xfail(
-    strict=False,
-    reason="service/analysis/grid.py and service/report import measures.information (numba, "
-    "scipy.stats) at module level; owned by the analysis and report work (issue 17 item 5)",
-)
 def test_web_process_starts_without_heavy_numerics() -> None:
     code = (
         "import sys\n"

@@ -10,9 +10,29 @@ from __future__ import annotations
 from typing import Any
 
 from service.report import convention as cv
-from service.report.assemble import REPORT_CSP, build_report, design_warnings, strongest_pairs
-from service.report.study import StudyData, load_study
-from service.report.view import correspondence_view
+
+# The report's modules (matplotlib, scipy.stats, the analysis layer) load on first use, so
+# the web process starts without them; ``from service.report import NAME`` still works.
+_LAZY = {
+    "REPORT_CSP": "service.report.assemble",
+    "build_report": "service.report.assemble",
+    "design_warnings": "service.report.assemble",
+    "strongest_pairs": "service.report.assemble",
+    "StudyData": "service.report.study",
+    "load_study": "service.report.study",
+    "correspondence_view": "service.report.view",
+}
+
+
+def __getattr__(name: str) -> Any:
+    if name in _LAZY:
+        import importlib
+
+        value = getattr(importlib.import_module(_LAZY[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'service.report' has no attribute {name!r}")
+
 
 __all__ = [
     "REPORT_CSP",
@@ -56,6 +76,9 @@ def render_report(
             n_boot=n_boot,
             seed=seed,
         )
+    from service.report.assemble import build_report
+    from service.report.study import load_study
+
     data = load_study(session=session, recipe=recipe, study=study)
     return build_report(
         session=session, store=store, correspondence=correspondence, recipe=recipe, study=data

@@ -24,10 +24,7 @@ __all__ = ["MIN_TRIAL_S", "REPORT_CSP", "build_report", "design_warnings", "stro
 MIN_TRIAL_S = 5.0
 MIN_STRIDES = 10
 # The report carries no scripts and loads nothing: only inline styles and data: images.
-REPORT_CSP = (
-    "default-src 'none'; img-src data:; style-src 'unsafe-inline'; base-uri 'none'; "
-    "form-action 'none'; frame-ancestors 'none'"
-)
+REPORT_CSP = cv.REPORT_CSP
 TERRAIN_ROUGHNESS_KEY = "sq_m"
 
 _CSS = """

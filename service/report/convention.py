@@ -13,6 +13,13 @@ import math
 from collections.abc import Iterable
 from typing import Any
 
+# The report is one self-contained page: its figures are data URIs, its style inline.
+REPORT_CSP = (
+    "default-src 'none'; img-src data:; style-src 'unsafe-inline'; base-uri 'none'; "
+    "form-action 'none'; frame-ancestors 'none'"
+)
+
+
 __all__ = [
     "DIVERGING",
     "EFFECT_FIELD",

@@ -9,8 +9,6 @@ from fastapi.responses import PlainTextResponse
 from pydantic import Field
 from starlette.concurrency import run_in_threadpool
 
-from service.analysis.grid import correspondence_report, rows_csv
-from service.analysis.local import local_report
 from service.analysis.tables import Selection
 from service.deps import ReadToken
 from service.schemas import (
@@ -178,6 +176,9 @@ async def get_correspondence(
         study,
     )
 
+    # The analysis layer (numba, scipy.stats) loads on first use, not at server start.
+    from service.analysis.grid import correspondence_report, rows_csv
+
     def compute() -> dict[str, Any]:
         with request.app.state.sessionmaker() as session:
             return correspondence_report(
@@ -197,6 +198,8 @@ async def get_correspondence(
 
 
 async def _local(request: Request, **kwargs: Any) -> dict[str, Any]:
+    from service.analysis.local import local_report  # loads numerics on first use
+
     def compute() -> dict[str, Any]:
         with request.app.state.sessionmaker() as session:
             return local_report(session=session, store=request.app.state.store, **kwargs)

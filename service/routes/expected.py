@@ -9,7 +9,6 @@ from fastapi.responses import PlainTextResponse
 from pydantic import BaseModel, Field
 from starlette.concurrency import run_in_threadpool
 
-from service.analysis.expected import expected_csv, expected_movement
 from service.deps import ReadToken
 
 router = APIRouter(tags=["correspondence"])
@@ -80,6 +79,8 @@ async def get_expected_movement(
 ) -> Any:
     """Predicted movement measures with 95 % prediction intervals, this arena left out."""
     names = tuple(v.strip() for item in movement_measure for v in item.split(",") if v.strip())
+    # The analysis layer (numba, scipy.stats) loads on first use, not at server start.
+    from service.analysis.expected import expected_csv, expected_movement
 
     def compute() -> dict[str, Any]:
         with request.app.state.sessionmaker() as session:

@@ -9,13 +9,12 @@ from fastapi.responses import HTMLResponse
 from starlette.concurrency import run_in_threadpool
 
 from service.deps import ReadToken
-from service.report import REPORT_CSP, render_report
 from service.report import convention as cv
 
 router = APIRouter(tags=["correspondence"])
 
 REPORT_HEADERS = {
-    "Content-Security-Policy": REPORT_CSP,
+    "Content-Security-Policy": cv.REPORT_CSP,
     "X-Content-Type-Options": "nosniff",
     "Referrer-Policy": "no-referrer",
     "Cache-Control": "no-store",
@@ -43,6 +42,8 @@ async def get_report(
 ) -> HTMLResponse:
     """The report (study summary, terrain, movement, correspondence, warnings) as HTML."""
     study = study.strip() if study and study.strip() else None
+
+    from service.report import render_report  # matplotlib and the analysis layer: on first use
 
     def compute() -> str:
         with request.app.state.sessionmaker() as session:
