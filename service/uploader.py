@@ -58,6 +58,7 @@ from typing import Any, BinaryIO, TextIO, cast
 import httpx
 
 from service.console import format_table
+from service.progress import Progress
 from storage.artifacts import sha256_file
 
 __all__ = [
@@ -283,6 +284,9 @@ class _Sender:
         self.backoff_s = backoff_s
         self.sleep = sleep
         self.progress = progress
+        # One overall bar for the whole run (bytes of every file to send, in MiB).
+        self.bar: Progress | None = None
+        self.done_bytes = 0
 
     def _retrying(self, send: Callable[[], httpx.Response]) -> tuple[httpx.Response, int]:
         attempt = 0
@@ -314,26 +318,19 @@ class _Sender:
         return records[0]["id"] if records else None
 
     def upload(self, path: Path, url: str, meta: dict[str, Any]) -> tuple[httpx.Response, int]:
-        from tqdm import tqdm
-
-        size = path.stat().st_size
-        with (
-            open(path, "rb") as fh,
-            tqdm(
-                total=size,
-                unit="B",
-                unit_scale=True,
-                desc=path.name,
-                leave=False,
-                disable=not self.progress,
-                file=sys.stderr,
-            ) as bar,
-        ):
+        base = self.done_bytes  # the overall bar restarts this file's share on a retry
+        with open(path, "rb") as fh:
 
             def send() -> httpx.Response:
                 fh.seek(0)
-                bar.reset(total=size)
-                reader = _ProgressReader(fh, bar.update)
+                sent = [0]
+
+                def on_read(n: int) -> None:
+                    sent[0] += n
+                    if self.bar is not None:
+                        self.bar.update((base + sent[0]) / _MIB)
+
+                reader = _ProgressReader(fh, on_read)
                 return self.client.post(
                     url,
                     # httpx types files as IO[bytes] but calls only read/seek/tell/fileno.
@@ -421,19 +418,36 @@ def upload_files(
 ) -> list[UploadResult]:
     """Upload each planned file through ``client`` (base URL and token already set)."""
     sender = _Sender(client, retries=retries, backoff_s=backoff_s, sleep=sleep, progress=progress)
+    planned = list(planned)
+    sizes = {item.path: _size(item.path) for item in planned if not item.ignored}
     results: list[UploadResult] = []
     stop = ""
-    for item in planned:
-        if stop and not item.ignored:
-            results.append(UploadResult(item.path, item.kind or "?", "not attempted",
-                                        message=stop))  # fmt: skip
-            continue
-        result = _upload_one(sender, item)
-        results.append(result)
-        if result.status == "failed" and result.message.startswith(("HTTP 401", "HTTP 403")):
-            # A token problem fails every file alike: stop instead of repeating it.
-            stop = f"stopped after {result.path.name}: {result.message}"
+    with Progress("upload", total=sum(sizes.values()) / _MIB, unit="MiB", enabled=progress) as bar:
+        sender.bar = bar
+        for item in planned:
+            if stop and not item.ignored:
+                results.append(UploadResult(item.path, item.kind or "?", "not attempted",
+                                            message=stop))  # fmt: skip
+                continue
+            result = _upload_one(sender, item)
+            # Sent, skipped or failed, this file's share of the run is over.
+            sender.done_bytes += sizes.get(item.path, 0)
+            bar.update(sender.done_bytes / _MIB)
+            results.append(result)
+            if result.status == "failed" and result.message.startswith(("HTTP 401", "HTTP 403")):
+                # A token problem fails every file alike: stop instead of repeating it.
+                stop = f"stopped after {result.path.name}: {result.message}"
     return results
+
+
+_MIB = float(1 << 20)
+
+
+def _size(path: Path) -> int:
+    try:
+        return path.stat().st_size
+    except OSError:
+        return 0
 
 
 def summary_table(results: list[UploadResult]) -> str:

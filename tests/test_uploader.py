@@ -354,3 +354,24 @@ def test_acquisition_pc_with_an_upload_only_token(tmp_path: Path, rng: np.random
     access = [line for line in log.splitlines() if '"gaitscape.access"' in line]
     assert any('"HEAD /v1/uploads/' in line for line in access)
     assert "arena_id=" not in log and '" 200 OK' not in log  # uvicorn's own format is off
+
+
+def test_one_overall_progress_line_for_the_whole_run(tmp_path, capsys) -> None:
+    # Issue 18: one bar for the run, not one per file; off a terminal, plain lines.
+    from service.progress import Progress
+
+    lines = []
+
+    class Stream:
+        def write(self, text: str) -> None:
+            lines.append(text)
+
+        def flush(self) -> None:
+            pass
+
+    bar = Progress("upload", total=3.0, unit="MiB", stream=Stream(), interval_s=0.0)
+    for k in (1.0, 2.0, 3.0):
+        bar.update(k)
+    bar.close()
+    assert all(t.startswith("upload: ") and t.endswith("\n") for t in lines)
+    assert "3/3 MiB (100 %)" in lines[-1]
