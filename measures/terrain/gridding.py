@@ -189,11 +189,6 @@ def heightmap_cell_m(
         lo = lo if blo is None else check_positive_float("bounds_m", blo, fn)
         hi = hi if bhi is None else check_positive_float("bounds_m", bhi, fn)
     spacing = point_spacing_m(xy)
-    # Clustered clouds (airborne lidar lines, ground-class subsets) have a small median
-    # neighbour distance but cover their box thinly: the cell is never finer than the mean
-    # area per point, or most cells would be empty holes to fill.
-    mean_spacing = math.sqrt(float(span[0]) * float(span[1]) / max(xy.shape[0], 1))
-    spacing = max(spacing, mean_spacing)
     raw = f * spacing
     c = float(min(max(raw, lo), hi)) if lo <= hi else hi
     note = f"cell {c:.3g} m = {f:g} x point spacing {spacing:.3g} m"

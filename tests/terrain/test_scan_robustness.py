@@ -360,19 +360,3 @@ def test_float32_acf_matches_direct_float64_sums(rng):
         b = zl[max(0, ty) :, max(0, tx) :][: a.shape[0], : a.shape[1]]
         direct = float(np.mean(a * b) / var)
         assert acf[cy + ty, cx + tx] == pytest.approx(direct, abs=1e-5)
-
-
-def test_cell_never_finer_than_the_mean_area_per_point() -> None:
-    # A clustered cloud (points in tight lines, as airborne lidar lays them) has a small
-    # median neighbour distance but covers its box thinly; the cell follows the mean area
-    # per point sqrt(A / n) so most cells hold data (analytic: 10 lines of 100 points,
-    # 1 cm apart along each line, 10 m apart across, on a 10 m x 90 m box).
-    from measures import heightmap_cell_m
-
-    x = np.tile(np.arange(100) * 0.01, 10) * 10.0  # along-line spacing 0.1 m
-    y = np.repeat(np.arange(10) * 10.0, 100)
-    pts = np.c_[x, y, np.zeros_like(x)]
-    cell, note = heightmap_cell_m(pts)
-    mean_spacing = np.sqrt(np.ptp(x) * np.ptp(y) / x.size)
-    assert cell >= min(3 * mean_spacing, np.ptp(x) / 64) - 1e-12
-    assert "point spacing" in note
