@@ -360,3 +360,18 @@ def test_float32_acf_matches_direct_float64_sums(rng):
         b = zl[max(0, ty) :, max(0, tx) :][: a.shape[0], : a.shape[1]]
         direct = float(np.mean(a * b) / var)
         assert acf[cy + ty, cx + tx] == pytest.approx(direct, abs=1e-5)
+
+
+def test_clustered_cloud_gets_a_cell_between_sampling_and_coverage() -> None:
+    # Points in tight lines, as airborne lidar lays them: 10 lines of 1,000 points, 0.1 m
+    # apart along each line and 10 m apart across, on a 100 m x 90 m box. The median
+    # neighbour distance (0.1 m) alone gives 0.3 m cells, 97 % of them empty; the mean area
+    # per point is sqrt(A / n) = 0.95 m; the rule takes their geometric mean (analytic:
+    # 3 x sqrt(0.1 x 0.949) = 0.92 m).
+    from measures import heightmap_cell_m
+
+    x = np.tile(np.arange(1000) * 0.1, 10)
+    y = np.repeat(np.arange(10) * 10.0, 1000)
+    cell, note = heightmap_cell_m(np.c_[x, y, np.zeros_like(x)])
+    assert cell == pytest.approx(3 * np.sqrt(0.1 * np.sqrt(99.9 * 90 / 10_000)), rel=0.02)
+    assert "point spacing" in note
