@@ -192,10 +192,12 @@ def heightmap_cell_m(
     # Clustered clouds (airborne lidar lines, ground-class subsets) have a median neighbour
     # distance far below the mean area per point sqrt(A / n): on such a tile (23,000 ground
     # points, 0.08 m median spacing, 1 km box) the median alone asks for 13 M cells, 99.8 %
-    # of them empty. The geometric mean of the two sits between local sampling and coverage;
-    # for evenly sampled scans the two agree and the rule stays "f x the point spacing".
+    # of them empty. For such clouds the geometric mean of the two sits between local
+    # sampling and coverage. Evenly sampled scans are left alone: there sqrt(A / n) is 1-2.1x
+    # the median distance (a grid; Poisson points, 0.5 / sqrt(density) - analytic), so the
+    # rule applies only beyond 3x.
     coverage = math.sqrt(float(span[0]) * float(span[1]) / max(xy.shape[0], 1))
-    if coverage > spacing:
+    if coverage > 3.0 * spacing:
         spacing = math.sqrt(spacing * coverage)
     raw = f * spacing
     c = float(min(max(raw, lo), hi)) if lo <= hi else hi
