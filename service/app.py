@@ -12,7 +12,7 @@ from contextlib import asynccontextmanager
 from dataclasses import dataclass
 from typing import Any
 
-from fastapi import FastAPI
+from fastapi import FastAPI, Response
 from fastapi.middleware.cors import CORSMiddleware
 
 from service import __version__
@@ -114,6 +114,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     def healthz() -> Health:
         """Liveness check; needs no token."""
         return Health(version=__version__)
+
+    @app.get("/favicon.ico", include_in_schema=False)
+    def favicon() -> Response:
+        """No icon (204): browsers ask for one on every page, and a 404 is noise in logs."""
+        return Response(status_code=204)
 
     for router in ROUTERS:
         app.include_router(router, prefix=API_PREFIX)

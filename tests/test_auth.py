@@ -22,6 +22,7 @@ OPEN_PATHS = {
     "/openapi.json",
     "/docs",
     "/docs/oauth2-redirect",
+    "/favicon.ico",  # an empty 204: browsers ask for it on every page
     "/redoc",
     "/docs/static/{name}",
 }
