@@ -142,9 +142,11 @@ def _lehmer_codes(
             if keys is None:
                 earlier_not_greater = columns[p] <= columns[q]
             else:
-                earlier_not_greater = (columns[p] < columns[q]) | (
-                    (columns[p] == columns[q]) & (keys[p] <= keys[q])
-                )
+                earlier_not_greater = columns[p] < columns[q]
+                equal = columns[p] == columns[q]
+                if equal.any():  # the keys matter only where values tie
+                    equal &= keys[p] <= keys[q]
+                    earlier_not_greater |= equal
             rank[q] += earlier_not_greater
             rank[p] += ~earlier_not_greater
             inversions[q] += ~earlier_not_greater

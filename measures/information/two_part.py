@@ -45,7 +45,7 @@ context size and ``K = k**m`` possible contexts:
 Model bits (effective complexity) = the first four items; data bits = the
 rest. The context size m is the one with the shortest total code summed over
 all full windows (minimum description length), searched from 0 to the
-largest m with ``max(k, 2)**(m + 1) * 8 <= window`` whose template fits.
+largest m with ``max(k, 2)**(m + 1) * 4 <= window`` whose template fits.
 
 Consequences worth knowing: a fair coin takes the uniform rule at m = 0, so
 its effective complexity is the smallest any input can have (4 bits for a
@@ -91,8 +91,9 @@ _FUNC = "two_part_code"
 #: Sites per window by default: 4096 symbols in 1D, a 64 x 64 tile in 2D.
 TWO_PART_WINDOW = 4096
 
-# Context-size cap: at least 8 sites per possible (context, symbol) cell.
-_SITES_PER_CELL = 8
+# Context-size cap: at least 4 sites per possible (context, symbol) cell (MDL decides
+# below the cap; 4 lets a 24-symbol alphabet try one neighbour in a 4096-site window).
+_SITES_PER_CELL = 4
 _LN2 = math.log(2.0)
 
 
@@ -281,7 +282,7 @@ def two_part_code(
         Default: the number of distinct symbols present.
     max_context : int, optional
         Largest context size searched. Default: the largest m with
-        ``max(k, 2)**(m + 1) * 8 <= window size`` whose template fits.
+        ``max(k, 2)**(m + 1) * 4 <= window size`` whose template fits.
     window : int or (rows, columns), optional
         Sites per window (1D) or tile shape (2D); an int in 2D gives a square
         tile of about that many sites. Default 4096 (64 x 64 in 2D). An input
