@@ -77,11 +77,15 @@ class Progress:
         if not self.total:
             return f"{self.desc}: elapsed {elapsed}"
         pct = 100.0 * min(self.n / self.total, 1.0)
-        done = f"{self.n:.0f}" if float(self.n).is_integer() else f"{self.n:.1f}"
+
+        def num(v: float) -> str:  # whole counts as integers, sizes such as 0.4 MiB with a decimal
+            return f"{v:.0f}" if float(v).is_integer() else f"{v:.1f}"
+
+        done = num(self.n)
         eta = self.eta_s()
         tail = "" if eta is None else f", ETA {format_duration(eta)}"
         return (
-            f"{self.desc}: {done}/{self.total:.0f} {self.unit} ({pct:.0f} %), "
+            f"{self.desc}: {done}/{num(self.total)} {self.unit} ({pct:.0f} %), "
             f"elapsed {elapsed}{tail}"
         )
 
