@@ -317,6 +317,9 @@ def test_replay_controls(live) -> None:
     assert "foot_LF" not in page.inner_text("#replay")
     import time
 
+    # The button is enabled once the scene is drawn and wired; the clock then reads 0.
+    expect(page.locator("#play")).to_be_enabled(timeout=30_000)
+    expect(page.locator("#clock")).to_have_text("t = 0 s")
     began = time.monotonic()
     page.click("#play")
     # The clock moves once the software-rendered (SwiftShader) scene has drawn a later

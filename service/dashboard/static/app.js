@@ -217,12 +217,13 @@ async function trialPage(id) {
   document.querySelector("main h1").textContent = "Trial " + id + ": " + subject.label + " on " + arena.name;
   const plot = el("div", { id: "replay", class: "plot", role: "img", "aria-label": "3D replay of the trial's markers over the arena heightmap" });
   const slider = el("input", { type: "range", id: "frame", min: 0, max: 0, value: 0, "aria-label": "frame" });
-  const play = el("button", { type: "button", id: "play", text: "Play" });
+  // Disabled until the scene is drawn and the controls are wired: a click before that was lost.
+  const play = el("button", { type: "button", id: "play", text: "Play", disabled: true });
   const speed = el("select", { id: "speed", "aria-label": "playback speed" },
     [["0.25", "0.25x"], ["0.5", "0.5x"], ["1", "1x (real time)"]].map(([v, t]) => el("option", { value: v, text: t, selected: v === "1" })));
   const exag = el("select", { id: "exaggeration", "aria-label": "vertical exaggeration" },
     [1, 2, 5, 10, 20].map(v => el("option", { value: v, text: v + "x", selected: v === 5 })));
-  const clock = el("span", { id: "clock", "aria-live": "off" });
+  const clock = el("span", { id: "clock", "aria-live": "off", text: "loading" });
   const facts = { arena: arena.name, subject: subject.label, file: trial.filename, format: trial.format,
     "frame rate (Hz)": trial.frame_rate_hz, frames: trial.n_frames, markers: trial.n_markers,
     "duration (s)": trial.frame_rate_hz ? trial.n_frames / trial.frame_rate_hz : null, condition: trial.condition, recorded: trial.recorded_at };
@@ -299,6 +300,7 @@ async function trialPage(id) {
   play.addEventListener("click", () => { if (running) { running = false; play.textContent = "Play"; } else begin(); });
   speed.addEventListener("change", () => { if (running) begin(); });
   draw(0);
+  play.disabled = false;
 }
 
 // The movement an arena's ground predicts (the arena left out of the fit), as the report shows it.
