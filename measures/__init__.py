@@ -17,6 +17,7 @@ import importlib
 from typing import Any
 
 from measures._types import *  # noqa: F403
+from measures.defaults import *  # noqa: F403  (plain data, no numerics)
 from measures.errors import *  # noqa: F403
 
 __version__ = "0.2.0"

@@ -82,9 +82,13 @@ HEAVY = ("numba", "scipy.stats", "open3d", "sklearn")
 
 
 def test_web_process_starts_without_heavy_numerics() -> None:
+    # create_app on an empty data folder (first start): migrations and the default recipe
+    # (built from measures.defaults, plain data) load none of the numerics either.
     code = (
-        "import sys\n"
+        "import sys, tempfile, pathlib\n"
         "from service.app import create_app\n"
+        "from service.settings import Settings\n"
+        "create_app(Settings(data_dir=pathlib.Path(tempfile.mkdtemp()) / 'd', job_runner=False))\n"
         f"print(','.join(m for m in {HEAVY!r} if m in sys.modules))\n"
     )
     root = Path(__file__).resolve().parents[1]

@@ -38,6 +38,7 @@ from measures._validation import (
     check_positive_float,
     check_positive_int,
 )
+from measures.defaults import FLAGGED_WARN_FRACTION, SPIKE_WINDOW_S
 
 __all__ = [
     "FilledGaps",
@@ -56,13 +57,7 @@ __all__ = [
 
 #: Marker resolution of small-animal capture (common practice: about 0.2 mm).
 MARKER_RESOLUTION_M = 2e-4
-#: Running-median span of the spike detector: 5 frames at 300 Hz (handles
-#: spikes of up to 2 frames there), scaled with the frame rate elsewhere.
-SPIKE_WINDOW_S = 5.0 / 300.0
-#: Flagged-frame fraction above which preprocessing warns (our choice: a clean
-#: capture flags well under 1 %; a few percent means spikes, swaps or a
-#: detector that does not fit the data).
-FLAGGED_WARN_FRACTION = 0.02
+# SPIKE_WINDOW_S and FLAGGED_WARN_FRACTION live with the other defaults (measures/defaults.py).
 
 
 @dataclass(frozen=True)

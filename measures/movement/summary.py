@@ -46,14 +46,13 @@ from numpy.typing import ArrayLike, NDArray
 
 from measures._types import Score
 from measures._validation import InsufficientDataError, InvalidParameterError, as_float_array
+from measures.defaults import MOVEMENT_DEFAULTS
 from measures.dynamics import embedding, recurrence
 from measures.information import entropy, ordinal
 from measures.movement import state as wb
 from measures.movement.bodyframe import AXIS_VECTORS, body_frame, check_up_axis
 from measures.movement.gait import GaitParameters, cycle_classes, gait_parameters, step_cycles
 from measures.movement.kinematics import (
-    FLAGGED_WARN_FRACTION,
-    SPIKE_WINDOW_S,
     FilledGaps,
     PreprocessedTrial,
     SpikeReport,
@@ -61,83 +60,6 @@ from measures.movement.kinematics import (
 )
 
 __all__ = ["MOVEMENT_DEFAULTS", "MovementSummary", "movement_summary"]
-
-#: Every parameter of :func:`movement_summary` with its default.
-MOVEMENT_DEFAULTS: dict[str, Any] = {
-    # preprocessing (measures.movement.kinematics)
-    "max_gap_s": 0.05,
-    "cutoff_hz": None,  # None: Winter's residual analysis per marker and axis
-    "filter_order": 2,
-    "remove_spikes": True,
-    "spike_threshold": 8.0,
-    "spike_window_s": SPIKE_WINDOW_S,  # 5 frames at 300 Hz, 3 at 30 Hz
-    "flagged_warn_fraction": FLAGGED_WARN_FRACTION,
-    "min_segment_s": 0.1,
-    # body frame (measures.movement.bodyframe)
-    "up": (0.0, 0.0, 1.0),
-    "up_axis": None,  # "x", "y", "z", "-x", ...: overrides ``up``
-    "heading": "auto",  # "axis", "velocity" (upright bodies) or "auto"
-    "heading_window_s": 1.0,
-    "treadmill_speed_m_s": None,
-    # contacts and strides (measures.movement.gait)
-    "reference_limb": "LH",
-    "contact_low_fraction": 0.2,
-    "contact_high_fraction": 0.4,
-    "contact_velocity_fraction": 0.1,
-    "min_phase_s": 0.01,
-    "contact_min_lift_m": 1e-3,  # 5 x the 0.2 mm capture resolution (common practice)
-    "contact_method": "speed",  # ground speed: robust where stones lift a planted foot
-    "contact_speed_low_fraction": 0.1,
-    "contact_speed_high_fraction": 0.2,
-    # step-cycle classes
-    "cycle_samples": 101,
-    "cycle_k_max": 6,
-    "cycle_min_silhouette": 0.5,
-    "seed": 0,
-    # analysis state
-    "analysis_state": "whole_body",  # or "single_foot"
-    "ssa_window_s": None,  # None: one mean stride period (0.5 s without strides)
-    "ssa_max_lags": 32,
-    "ssa_max_channels": 8,
-    "ssa_variance_fraction": 0.9,
-    "ssa_max_components": 6,
-    "symbol_channels": 2,
-    # single-foot analysis signal (analysis_state="single_foot")
-    "signal_limb": None,  # None: the reference limb
-    "signal_axis": "z",  # body frame: x forward, y left, z up (foot height)
-    # embedding
-    "embedding_delay": None,  # samples at the frame rate; None: from delay_method
-    "delay_method": "ami",  # "ami" (first AMI minimum) or "quarter_stride"
-    "embedding_dimension": None,  # None: from dimension_method
-    "dimension_method": "fnn",  # "fnn" (Kennel et al. 1992) or "cao" (Cao 1997)
-    "ami_bins": 32,
-    "max_delay_s": 0.5,
-    "max_dimension": 8,
-    "ssa_window": None,  # single foot: samples; None: one mean stride period
-    # recurrence quantification
-    "rqa_recurrence_rate": 0.05,
-    "rqa_theiler": None,  # None: the (decimated) delay
-    "rqa_lmin": 2,
-    "rqa_vmin": 2,
-    "rqa_metric": "euclidean",
-    "rqa_max_points": 180_000,  # 10 minutes at 300 Hz at full rate
-    "plot_max_size": 256,
-    "plot_max_points": 2000,
-    # ordinal patterns (complexity-entropy plane)
-    "ordinal_order": 4,
-    "ordinal_delay": None,  # None: the delay
-    # symbolic dynamics
-    "symbol_order": 2,  # ordinal order per channel (2: up/down)
-    "entropy_method": "block",
-    # sample entropy on the coarse series
-    "sampen_m": 2,
-    "sampen_r": 0.2,
-    # surrogates and interlimb coordination
-    "n_surrogates": 19,  # 19: smallest one-sided p 0.05
-    "surrogate_max_points": 2500,  # exact RQA threshold up to ~2,800 points
-    "surrogate_max_iter": 50,  # IAAFT iterations per surrogate
-    "interlimb_max_points": 8000,
-}
 
 _AXES = {"x": 0, "y": 1, "z": 2}
 _CHOICES = {

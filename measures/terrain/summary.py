@@ -27,6 +27,7 @@ from measures._validation import (
     check_positive_float,
     check_positive_int,
 )
+from measures.defaults import TERRAIN_DEFAULTS
 from measures.information.symbolic import MIN_WINDOWS_PER_PATTERN
 from measures.terrain._fastfield import ordinal_counts, phase_surrogates
 from measures.terrain._surface import check_grid, fill_holes, hole_scale_cells, inpaint_holes, level
@@ -42,46 +43,6 @@ __all__ = [
     "hillshade",
     "terrain_summary",
 ]
-
-# Every parameter terrain_summary uses, with its default. Plain values only,
-# so the dict can be stored as a versioned analysis profile (JSON).
-TERRAIN_DEFAULTS: dict[str, Any] = {
-    "detrend": "plane",  # levelling before every measure ("plane" or "mean")
-    "acf_threshold": 0.2,  # s for Sal and Str (ISO 25178-2 default)
-    "slope_bin_deg": 1.0,  # fixed slope-histogram bin width, 0..90 degrees
-    "aspect_bin_deg": 10.0,  # fixed aspect-histogram bin width, 0..360 degrees
-    "slope_floor_deg": 2.0,  # aspect counted only where the slope exceeds this
-    "psd_bins_per_decade": 10,
-    "hurst_methods": ["psd", "variogram", "madogram", "boxcount"],
-    # "common": every Hurst estimator on one band (the arena's band_m when given,
-    # else 4 cells to an eighth of the shorter side); "auto": each method's own
-    # default (the PSD's self-affine band search, the lag and box defaults).
-    "hurst_band": "common",
-    "min_valid_fraction": 0.5,  # below: no spectral or Hurst estimate (NaN, noted)
-    "ordinal_order": [2, 2],  # 2-D ordinal patch (Ribeiro et al. 2012)
-    # "random": equal heights ordered by a seeded random key (insensitive to
-    # quantisation); "stable": the earlier cell ranks lower (order of appearance).
-    "ordinal_ties": "random",
-    "quantile_bins": 4,  # symbols for the 2-D entropy density and the two-part code
-    "max_neighbourhood": None,  # None: the largest the field supports
-    "surrogate_scores": [
-        "permutation_entropy_2d",
-        "js_complexity_2d",
-        "entropy_density_2d_bits",
-        "excess_entropy_2d_bits",
-        "effective_complexity_2d_bits",
-        "total_information_2d_bits_per_site",
-    ],
-    "n_surrogates": 19,
-    "surrogate_seed": 20261201,
-    # The ordinal scores' surrogates use the whole field (fused kernel); the
-    # symbol-field scores' z-scores use the central tile of at most this many
-    # cells, value and surrogates alike (noted when the tile is smaller).
-    "surrogate_tile_cells": 256 * 256,
-    "thumbnail_px": 256,  # longer side of the hillshade thumbnail
-    "hillshade_azimuth_deg": 135.0,
-    "hillshade_altitude_deg": 45.0,
-}
 
 # Threads for the FFTs of the surrogates (numba kernels use numba's own pool).
 _WORKERS = min(2, os.cpu_count() or 1)

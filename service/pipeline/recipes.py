@@ -10,7 +10,6 @@ own seed, so there is no second, top-level seed to disagree with them.
 from __future__ import annotations
 
 import copy
-import inspect
 import json
 from collections.abc import Mapping
 from typing import TYPE_CHECKING, Any
@@ -48,27 +47,17 @@ def _jsonable(value: Mapping[str, Any]) -> dict[str, Any]:
     return out
 
 
-def _heightmap_defaults() -> dict[str, Any]:
-    from measures import points_to_heightmap
-
-    params = inspect.signature(points_to_heightmap).parameters
-    out = {
-        name: p.default
-        for name, p in params.items()
-        if p.kind is inspect.Parameter.KEYWORD_ONLY and p.default is not inspect.Parameter.empty
-    }
-    return out
-
-
 def default_parameters() -> dict[str, Any]:
     """The complete default parameter set, as plain JSON."""
-    import measures
+    # measures.defaults is plain data: the web process builds the default recipe without
+    # importing the numerics (start-up time, issue figures in DEVELOPERS.md).
+    from measures.defaults import HEIGHTMAP_DEFAULTS, MOVEMENT_DEFAULTS, TERRAIN_DEFAULTS
 
     return _jsonable(
         {
-            "movement": measures.MOVEMENT_DEFAULTS,
-            "terrain": measures.TERRAIN_DEFAULTS,
-            "heightmap": _heightmap_defaults(),
+            "movement": MOVEMENT_DEFAULTS,
+            "terrain": TERRAIN_DEFAULTS,
+            "heightmap": HEIGHTMAP_DEFAULTS,
         }
     )
 
