@@ -5,19 +5,21 @@ Nothing is built at import time: callers make an engine from a URL and pass it o
 
 from __future__ import annotations
 
+import ast
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from alembic import command
-from alembic.config import Config
-from alembic.runtime.migration import MigrationContext
-from sqlalchemy import URL, Engine, create_engine, event, make_url
+from sqlalchemy import URL, Engine, create_engine, event, inspect, make_url, text
 from sqlalchemy.orm import Session, sessionmaker
+
+if TYPE_CHECKING:
+    from alembic.config import Config
 
 __all__ = [
     "DB_FILENAME",
     "alembic_config",
     "current_revision",
+    "head_revision",
     "make_engine",
     "make_sessionmaker",
     "sqlite_url",
@@ -86,6 +88,8 @@ def make_sessionmaker(engine: Engine) -> sessionmaker[Session]:
 
 def alembic_config(engine: Engine | None = None) -> Config:
     """Alembic configuration from the packaged ``storage/alembic.ini``."""
+    from alembic.config import Config
+
     cfg = Config(str(_HERE / "alembic.ini"))
     cfg.set_main_option("script_location", str(_HERE / "migrations"))
     if engine is not None:
@@ -95,8 +99,47 @@ def alembic_config(engine: Engine | None = None) -> Config:
     return cfg
 
 
+def head_revision() -> str:
+    """The newest migration's revision id, read from the migration files.
+
+    Parsed with ``ast`` rather than through Alembic, whose import (with Mako and Pygments)
+    costs about half a second of the server's start-up; ``tests/test_migrations.py`` checks
+    the result against Alembic's own script directory.
+    """
+    revisions: dict[str, str | None] = {}
+    for path in sorted((_HERE / "migrations" / "versions").glob("*.py")):
+        found: dict[str, str | None] = {}
+        for node in ast.parse(path.read_text(encoding="utf-8")).body:
+            if isinstance(node, ast.Assign) and len(node.targets) == 1:
+                target = node.targets[0]
+                if isinstance(target, ast.Name) and target.id in ("revision", "down_revision"):
+                    found[target.id] = ast.literal_eval(node.value)
+        if found.get("revision"):
+            revisions[str(found["revision"])] = found.get("down_revision")
+    heads = set(revisions) - {d for d in revisions.values() if d is not None}
+    if len(heads) != 1:
+        raise RuntimeError(f"migrations must have one head, found {sorted(heads)}")
+    return heads.pop()
+
+
+def _stored_revision(engine: Engine) -> str | None:
+    # The version Alembic recorded, read with plain SQL (no Alembic import).
+    with engine.connect() as connection:
+        if not inspect(connection).has_table("alembic_version"):
+            return None
+        rows = connection.execute(text("SELECT version_num FROM alembic_version")).all()
+    return str(rows[0][0]) if len(rows) == 1 else None
+
+
 def upgrade(engine: Engine, revision: str = "head") -> None:
-    """Bring the database schema up to ``revision`` (Alembic, on the engine's connection)."""
+    """Bring the database schema up to ``revision`` (Alembic, on the engine's connection).
+
+    A database already at the head revision is left alone without loading Alembic.
+    """
+    if revision == "head" and _stored_revision(engine) == head_revision():
+        return
+    from alembic import command
+
     cfg = alembic_config(engine)
     with engine.begin() as connection:
         cfg.attributes["connection"] = connection
@@ -105,5 +148,7 @@ def upgrade(engine: Engine, revision: str = "head") -> None:
 
 def current_revision(engine: Engine) -> str | None:
     """The Alembic revision the database is at (None when never migrated)."""
+    from alembic.runtime.migration import MigrationContext
+
     with engine.connect() as connection:
         return MigrationContext.configure(connection).get_current_revision()

@@ -130,3 +130,24 @@ def test_upgrade_from_the_second_release_keeps_every_row(tmp_path):
         assert after[table] == before[table], table
     assert _diff(engine) == []
     engine.dispose()
+
+
+def test_head_revision_read_from_files_is_alembics_head(tmp_path):
+    # storage.db.upgrade skips Alembic when the database is at head_revision(); that id
+    # must be the head Alembic itself finds, or a new migration would be skipped.
+    from alembic.script import ScriptDirectory
+
+    from sqlalchemy import text
+
+    from storage.db import head_revision
+
+    assert head_revision() == ScriptDirectory.from_config(alembic_config()).get_current_head()
+    engine = make_engine(sqlite_url(tmp_path))
+    upgrade(engine, "0002_studies")
+    upgrade(engine)  # not at head: Alembic runs
+    with engine.connect() as connection:
+        assert connection.execute(text("SELECT version_num FROM alembic_version")).scalar() == (
+            head_revision()
+        )
+    upgrade(engine)  # at head: a no-op
+    engine.dispose()
