@@ -136,7 +136,6 @@ def test_head_revision_read_from_files_is_alembics_head(tmp_path):
     # storage.db.upgrade skips Alembic when the database is at head_revision(); that id
     # must be the head Alembic itself finds, or a new migration would be skipped.
     from alembic.script import ScriptDirectory
-
     from sqlalchemy import text
 
     from storage.db import head_revision
