@@ -41,6 +41,17 @@ def _score(name: str, value: float, unit: str = "1", z: float | None = None) -> 
     )
 
 
+def _save_plots(session, store, target: tuple[str, int], recipe_hash: str, summary) -> None:
+    # The plot arrays a scoring job stores (service.pipeline.flows), which the report reads.
+    from service.pipeline.tasks import plot_arrays
+
+    kind = "terrain_plots" if target[0] == "scan" else "movement_plots"
+    repo.save_derived(
+        session=session, store=store, target_kind=target[0], target_id=target[1],
+        recipe_hash=recipe_hash, kind=kind, arrays=plot_arrays(summary),
+    )  # fmt: skip
+
+
 def build_small_store(data_dir: Path, *, duration_s: float = 3.0) -> dict:
     """4 arenas x 2 subjects, one trial each, heightmaps attached, scores saved directly.
 
@@ -50,6 +61,7 @@ def build_small_store(data_dir: Path, *, duration_s: float = 3.0) -> dict:
     from demo_arena import SUBJECTS as SPECS
     from demo_arena import self_affine_surface, walk_over
     from demo_arena.files import write_csv_wide, write_heightmap_npy
+    from measures import movement_summary, terrain_summary
 
     settings = get_settings(data_dir=data_dir, job_runner=False)
     res = open_resources(settings)
@@ -110,6 +122,7 @@ def build_small_store(data_dir: Path, *, duration_s: float = 3.0) -> dict:
                 code_version="test",
                 input_sha256=scan.sha256,
             )
+            _save_plots(session, res.store, ("scan", scan.id), prof.hash, terrain_summary(z, DX_M))
             out["arenas"].append(arena.id)
             out["scans"].append(scan.id)
             for s, subject in enumerate(subjects):
@@ -145,6 +158,15 @@ def build_small_store(data_dir: Path, *, duration_s: float = 3.0) -> dict:
                     code_version="test",
                     input_sha256=trial.sha256,
                 )
+                if s == 0:  # the report draws the first trial of an arena
+                    summary = movement_summary(
+                        rec.markers,
+                        frame_rate_hz=rec.frame_rate_hz,
+                        marker_names=list(rec.marker_names),
+                        roles=ROLES,
+                        params={"n_surrogates": 0},
+                    )
+                    _save_plots(session, res.store, ("trial", trial.id), prof.hash, summary)
                 out["trials"].append(trial.id)
     res.engine.dispose()
     return out

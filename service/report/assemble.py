@@ -236,7 +236,7 @@ def _figure_sections(
     # The legend's H is the table's (the correspondence's scan policy), never another scan's.
     tpanels = [
         replace(p, hurst=float(study.terrain.get(p.arena_id, {}).get("hurst_psd", np.nan)))
-        for p in terrain_panels(study, store)
+        for p in terrain_panels(study, session=session, store=store)
     ]
     if tpanels:
         thumbs, spectra = figures.terrain_figure(tpanels, colours)

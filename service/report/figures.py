@@ -78,7 +78,9 @@ def axis_label(measure: str, unit: str | None) -> str:
 
 def png_data_uri(fig: Figure) -> str:
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI, bbox_inches="tight")
+    # No bbox_inches="tight": the constrained layout already fits the figure, and "tight"
+    # draws every figure twice (half the report's time).
+    fig.savefig(buf, format="png", dpi=DPI)
     return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
@@ -86,7 +88,41 @@ def _figure(width: float, height: float) -> Figure:
     import matplotlib
 
     matplotlib.rcParams.update(_STYLE)
-    return Figure(figsize=(width, height), layout="constrained")
+    # No layout engine: constrained layout measured every tick label of every axes and took
+    # two thirds of the report's time. Each figure sets its margins in inches (_margins).
+    return Figure(figsize=(width, height))
+
+
+def _margins(
+    fig: Figure,
+    *,
+    left: float,
+    right: float,
+    bottom: float,
+    top: float,
+    cols: int = 1,
+    rows: int = 1,
+    wgap: float = 0.0,
+    hgap: float = 0.0,
+) -> dict[str, float]:
+    """Subplot parameters for margins and gaps given in inches (figure fractions out)."""
+    w, h = fig.get_size_inches()
+    ax_w = max((w - left - right - (cols - 1) * wgap) / cols, 0.1)
+    ax_h = max((h - top - bottom - (rows - 1) * hgap) / rows, 0.1)
+    return {
+        "left": left / w,
+        "right": 1 - right / w,
+        "bottom": bottom / h,
+        "top": 1 - top / h,
+        "wspace": wgap / ax_w,
+        "hspace": hgap / ax_h,
+    }
+
+
+def _wrap(text: str, width: int) -> str:
+    import textwrap
+
+    return textwrap.fill(text, width)
 
 
 def arena_colours(arena_ids: Sequence[int], roughness: dict[int, float]) -> dict[int, Any]:
@@ -107,6 +143,10 @@ def terrain_figure(panels: list[TerrainPanel], colours: dict[int, Any]) -> tuple
     cols = min(4, n)
     rows = math.ceil(n / cols)
     fig = _figure(2.6 * cols, 1.25 * rows + 0.4)
+    fig.subplots_adjust(
+        **_margins(fig, left=0.5, right=0.1, bottom=0.45, top=0.25, cols=cols, rows=rows,
+                   wgap=0.45, hgap=0.65)
+    )  # fmt: skip
     for i, p in enumerate(panels):
         ax = fig.add_subplot(rows, cols, i + 1)
         ex, ey = p.extent_m
@@ -129,6 +169,9 @@ def terrain_figure(panels: list[TerrainPanel], colours: dict[int, Any]) -> tuple
     thumbs = png_data_uri(fig)
 
     fig = _figure(9.5, 3.4)
+    fig.subplots_adjust(
+        **_margins(fig, left=0.85, right=0.15, bottom=0.5, top=0.3, cols=2, wgap=0.9)
+    )
     ax_psd, ax_slope = fig.subplots(1, 2)
     for p in panels:
         c = colours.get(p.arena_id, "black")
@@ -140,13 +183,14 @@ def terrain_figure(panels: list[TerrainPanel], colours: dict[int, Any]) -> tuple
         width = np.diff(p.slope_edges_deg)
         frac = p.slope_counts / max(p.slope_counts.sum(), 1) / width
         ax_slope.step(p.slope_edges_deg[:-1], frac, where="post", color=c, lw=1.3)
-    ax_psd.set_xlabel("wavenumber q (rad m$^{-1}$)")
-    ax_psd.set_ylabel("radially averaged PSD C(q) (m$^4$)")
+    # Unicode superscripts, not mathtext: parsing "$^{-1}$" cost a second per report.
+    ax_psd.set_xlabel("wavenumber q (rad m\u207b\u00b9)")
+    ax_psd.set_ylabel("radially averaged PSD C(q) (m\u2074)")
     ax_psd.set_title("Roughness spectra; dashed: power-law fit over the animal-scale band")
     ax_psd.legend(loc="lower left", frameon=False)
     ax_slope.set_yscale("log")
     ax_slope.set_xlabel("local slope (degrees)")
-    ax_slope.set_ylabel("fraction of cells per degree (deg$^{-1}$)")
+    ax_slope.set_ylabel("fraction of cells per degree (deg\u207b\u00b9)")
     ax_slope.set_title("Slope histograms (band-passed surface)")
     top = max(
         (
@@ -165,7 +209,13 @@ def movement_figure(panels: list[MovementPanel]) -> str:
     """Recurrence plots, SSA phase portraits and step-cycle class strips."""
     n = len(panels)
     fig = _figure(9.5, 3.1 * n + 0.9)
-    grid = fig.add_gridspec(n + 1, 2, height_ratios=[3.1] * n + [0.9])
+    grid = fig.add_gridspec(
+        n + 1,
+        2,
+        height_ratios=[3.1] * n + [0.9],
+        **_margins(fig, left=0.7, right=0.1, bottom=0.5, top=0.3, cols=2, rows=n + 1,
+                   wgap=1.6, hgap=0.7),
+    )  # fmt: skip
     for row, p in enumerate(panels):
         ax = fig.add_subplot(grid[row, 0])
         d = p.duration_s
@@ -181,7 +231,7 @@ def movement_figure(panels: list[MovementPanel]) -> str:
         ax.set_xlabel("time i (s)")
         ax.set_ylabel("time j (s)")
         ax.set_title(f"Recurrence plot, trial {p.trial_id} ({p.subject_label}, {p.arena_name})")
-        fig.colorbar(im, ax=ax, label="recurrent fraction of block (dimensionless)", shrink=0.85)
+        fig.colorbar(im, ax=ax, label="recurrent fraction of\nblock (dimensionless)", shrink=0.85)
         ax2 = fig.add_subplot(grid[row, 1])
         xy = p.ssa_pair * 1000.0
         if xy.shape[0] > 1:
@@ -242,7 +292,16 @@ def heatmap_figure(grid: dict[str, Any]) -> str:
     q = np.array(
         [[np.nan if v is None else v for v in row] for row in grid["q"]], dtype=float
     ).reshape(len(terrain), len(movement))
-    fig = _figure(max(5.0, 0.42 * len(movement) + 3.2), max(2.6, 0.36 * len(terrain) + 2.3))
+    # Margins from the label lengths (about 0.065 in per character at 9 pt; column labels
+    # are turned 60 degrees), so nothing is cut without a layout engine.
+    title = _wrap(grid["legend"], 60)
+    left = 0.45 + 0.065 * max((len(t) for t in terrain), default=4)
+    bottom = 0.55 + 0.065 * 0.87 * max((len(m) for m in movement), default=4)
+    top = 0.2 + 0.16 * (title.count("\n") + 1)
+    right = 1.5
+    width = max(5.0, 0.42 * len(movement) + left + right)
+    fig = _figure(width, max(2.6, 0.36 * len(terrain) + top + bottom))
+    fig.subplots_adjust(**_margins(fig, left=left, right=right, bottom=bottom, top=top))
     ax = fig.add_subplot()
     im = ax.imshow(
         np.ma.masked_invalid(effect),
@@ -259,10 +318,8 @@ def heatmap_figure(grid: dict[str, Any]) -> str:
     ax.set_yticks(range(len(terrain)), terrain)
     ax.set_xlabel("movement measure")
     ax.set_ylabel("terrain measure")
-    import textwrap
-
-    fig.colorbar(im, ax=ax, label=textwrap.fill(f"{grid['statistic']} (dimensionless)", 24))
-    ax.set_title(textwrap.fill(grid["legend"], 60), fontsize=8)
+    fig.colorbar(im, ax=ax, label=_wrap(f"{grid['statistic']} (dimensionless)", 24))
+    ax.set_title(title, fontsize=8)
     return png_data_uri(fig)
 
 
@@ -273,6 +330,10 @@ def main_result_figure(pairs: list[dict[str, Any]], colours: dict[int, Any]) -> 
     cols = min(2, n)
     rows = math.ceil(n / cols)
     fig = _figure(5.2 * cols, 3.9 * rows)
+    fig.subplots_adjust(
+        **_margins(fig, left=0.8, right=0.2, bottom=0.5, top=0.45, cols=cols, rows=rows,
+                   wgap=1.0, hgap=0.95)
+    )  # fmt: skip
     for k, pair in enumerate(pairs):
         ax = fig.add_subplot(rows, cols, k + 1)
         for s in pair["subjects"]:
@@ -309,7 +370,8 @@ def main_result_figure(pairs: list[dict[str, Any]], colours: dict[int, Any]) -> 
         ax.set_ylim(*pair["y_range"])
         ax.set_xlabel(pair["x_label"])
         ax.set_ylabel(pair["y_label"])
-        ax.set_title(pair["title"], fontsize=7.5)
+        ax.set_title(_wrap(pair["title"], 75), fontsize=7.5)
+        ax.ticklabel_format(axis="both", style="plain", useOffset=False)  # no "+1" offsets
     ax = fig.axes[0]
     ax.plot([], [], color="0.55", lw=0.8, alpha=0.6, label="subjects (mean per arena)")
     ax.plot([], [], color="black", lw=1.4, label="arena-level fit")
@@ -326,6 +388,7 @@ def complexity_entropy_figure(
 ) -> str:
     """Arenas (squares, 2-D ordinal patterns) and trials (dots) on one H-C plane."""
     fig = _figure(6.2, 4.3)
+    fig.subplots_adjust(**_margins(fig, left=0.75, right=0.15, bottom=0.5, top=0.3))
     ax = fig.add_subplot()
     for b in bounds:
         ax.plot(b.entropy_max, b.complexity_max, color="0.35", lw=0.9)
