@@ -136,7 +136,7 @@ def point_spacing_m(points: ArrayLike, *, max_points: int = _SPACING_TILE_POINTS
         xy = xy[np.argpartition(d, m - 1)[:m]]
     from scipy.spatial import cKDTree
 
-    dist, _ = cKDTree(xy).query(xy, k=2)
+    dist, _ = cKDTree(xy).query(xy, k=2, workers=-1)
     nn = dist[:, 1]
     nn = nn[nn > 0]
     if nn.size == 0:

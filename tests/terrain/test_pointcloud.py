@@ -287,3 +287,22 @@ def test_many_holes_fill_by_the_iterative_route_and_stay_exact_on_a_harmonic_sur
     assert (~valid).sum() > pc._DIRECT_FILL_MAX_HOLES
     out = pc._harmonic_fill(np.where(valid, z, np.nan), valid)
     assert np.abs(out - z).max() < 1e-7 * np.abs(z).max()  # CG to rtol 1e-10
+
+
+def test_knn_filter_keeps_what_open3d_keeps(rng) -> None:
+    # Reference: open3d's PointCloud.remove_statistical_outlier (a general-purpose library),
+    # same k and ratio, on a noisy floor with sprayed outliers (no coincident points).
+    o3d = pytest.importorskip("open3d")
+    from measures.terrain.pointcloud import _knn_inliers
+
+    floor = np.column_stack([rng.uniform(0, 0.2, (6000, 2)), rng.normal(0, 2e-4, 6000)])
+    spray = np.column_stack([rng.uniform(0, 0.2, (150, 2)), rng.uniform(0.002, 0.05, 150)])
+    pts = np.vstack([floor, spray])
+    for k, ratio in ((20, 2.0), (8, 1.0), (30, 3.0)):
+        cloud = o3d.geometry.PointCloud(o3d.utility.Vector3dVector(pts))
+        _, kept = cloud.remove_statistical_outlier(nb_neighbors=k, std_ratio=ratio)
+        expected = np.zeros(pts.shape[0], dtype=bool)
+        expected[np.asarray(kept, dtype=np.int64)] = True
+        got = _knn_inliers(pts, k, ratio)
+        assert np.array_equal(got, expected), (k, ratio, int((got != expected).sum()))
+    assert not _knn_inliers(pts, 20, 2.0)[6000:].all()  # the spray is (partly) flagged
