@@ -149,7 +149,7 @@ TERRAIN_DEFAULTS: dict[str, Any] = {
 #: Keyword defaults of ``points_to_heightmap`` (point cloud -> levelled grid),
 #: stored in the recipe's ``heightmap`` section.
 HEIGHTMAP_DEFAULTS: dict[str, Any] = {
-    "cell_m": None,  # None: from the cloud's own point spacing (heightmap_cell_m)
+    "dx_m": None,  # None: from the cloud's own point spacing (heightmap_dx_m)
     "outlier_method": "cell",
     "outlier_neighbours": 20,
     "outlier_std": 2.0,

@@ -442,7 +442,7 @@ class RecipeCreate(_In):
         default_factory=dict,
         description="Overrides by section: movement, terrain, heightmap. Unnamed parameters "
         "take today's defaults; the stored recipe holds every parameter.",
-        examples=[{"heightmap": {"cell_m": 0.0005}, "movement": {"rqa_recurrence_rate": 0.03}}],
+        examples=[{"heightmap": {"dx_m": 0.0005}, "movement": {"rqa_recurrence_rate": 0.03}}],
     )
 
 

@@ -15,6 +15,7 @@ from sqlalchemy.orm import Session
 
 from measures.errors import InsufficientDataError, InvalidParameterError
 from service.analysis.tables import Selection, choose_scans, clean_object
+from service.pipeline.recipes import current_parameters
 from storage import repo
 from storage.artifacts import ArtifactStore
 from storage.errors import BadInput, StorageError
@@ -172,7 +173,7 @@ def _computed_windows(
     from measures.movement.kinematics import valid_segments
     from measures.movement.summary import MOVEMENT_DEFAULTS
 
-    p = _section(recipe.parameters or {}, "movement", MOVEMENT_DEFAULTS)
+    p = _section(current_parameters(recipe.parameters), "movement", MOVEMENT_DEFAULTS)
     roles, names = subject.marker_set.roles, list(trial.marker_names)
     ant = [names.index(n) for n in np.atleast_1d(roles["anterior"])]
     post = [names.index(n) for n in np.atleast_1d(roles["posterior"])]
@@ -240,7 +241,7 @@ def trial_windows(
     subject = repo.get_subject(session=session, subject_id=trial.subject_id)
     if subject.marker_set is None:
         raise BadInput(f"subject {subject.id} has no marker roles")
-    params = recipe.parameters or {}
+    params = current_parameters(recipe.parameters)
     order = tuple(_section(params, "terrain", TERRAIN_DEFAULTS)["ordinal_order"])
     windows = _stored_windows(session, store, trial.id, recipe.hash, window_s)
     if windows is None:
