@@ -352,8 +352,8 @@ class ScanPublic(_Out):
     n_points: int | None = None
     grid_nx: int | None = None
     grid_ny: int | None = None
-    grid_dx_m: float | None = None
-    grid_dy_m: float | None = None
+    dx_m: float | None = None
+    dy_m: float | None = None
     captured_at: datetime | None = None
     created_at: datetime | None = None
 

@@ -66,15 +66,15 @@ def _markers(session: Session, store: ArtifactStore, trial: Trial, p: dict[str, 
 def _heightmap(
     store: ArtifactStore, scan: Scan
 ) -> tuple[np.ndarray, tuple[float, float], tuple[float, float]]:
-    if scan.heightmap_sha256 is None or scan.grid_dx_m is None:  # _local_scan picks gridded
+    if scan.heightmap_sha256 is None or scan.dx_m is None:  # _local_scan picks gridded
         raise BadInput(f"scan {scan.id} has no heightmap grid")
     z = np.array(store.get_array(scan.heightmap_sha256), dtype=np.float64)
     if scan.valid_mask_sha256:
         z[~np.asarray(store.get_array(scan.valid_mask_sha256), dtype=bool)] = np.nan
     meta = scan.meta or {}
     origin = meta.get("grid_origin_xy_m") or (meta.get("reader") or {}).get("origin_xy_m")
-    dy = scan.grid_dy_m or scan.grid_dx_m
-    return z, (float(scan.grid_dx_m), float(dy)), tuple(origin or (0.0, 0.0))
+    dy = scan.dy_m or scan.dx_m
+    return z, (float(scan.dx_m), float(dy)), tuple(origin or (0.0, 0.0))
 
 
 def _to_scan_frame(points: np.ndarray, registration: Any) -> np.ndarray:
@@ -119,7 +119,7 @@ def _local_scan(session: Session, recipe_hash: str, trial: Trial) -> Scan:
     # The scan policy of the grid ("latest": heightmap uploads first, then the latest),
     # among scans that have a heightmap grid to map the path onto.
     rows = repo.load_study_rows(session=session, recipe_hash=recipe_hash, trial_ids=[trial.id])
-    scans = [s for s in rows.scans if s["heightmap_sha256"] and s["grid_dx_m"]]
+    scans = [s for s in rows.scans if s["heightmap_sha256"] and s["dx_m"]]
     if not scans:
         raise BadInput(f"arena {trial.arena_id} has no heightmap to map trial {trial.id} onto")
     return repo.get_scan(session=session, scan_id=choose_scans(scans, "latest")[0]["id"])

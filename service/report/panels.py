@@ -66,7 +66,7 @@ def _terrain_panel(study: StudyData, store: Any, arena: Any, scan: Any) -> Terra
     if scan.valid_mask_sha256:
         valid &= np.asarray(store.get_array(scan.valid_mask_sha256), dtype=bool)
     mask = None if bool(valid.all()) else valid
-    dx, dy = float(scan.grid_dx_m), float(scan.grid_dy_m)
+    dx, dy = float(scan.dx_m), float(scan.dy_m)
     zf = np.where(valid, z, np.nanmean(z[valid]))
     rp = radial_psd(zf, dx, dy, valid=mask, bins_per_decade=int(p.get("psd_bins_per_decade", 10)))
     band = arena.scale_band_m
