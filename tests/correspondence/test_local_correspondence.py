@@ -52,7 +52,7 @@ def test_patches_recover_rough_and_smooth_halves():
         window_start_s=starts,
         window_stop_s=starts + 2.0,
         z=z,
-        grid_spacing_m=DX_M,
+        dx_m=DX_M,
         margin_m=0.02,
     )
     r0, r1, c0, c1 = p.bounds_ij[1]  # x in 0.15..0.25 m: rough only
