@@ -215,7 +215,7 @@ def symbolic_values(
 def _rqa_values(
     points: NDArray[np.float64], delay: int, p: Mapping[str, Any], threshold_method: str
 ) -> dict[str, Any]:
-    theiler = delay if p["rqa_theiler"] is None else int(p["rqa_theiler"])
+    theiler = delay if p["rqa_theiler_samples"] is None else int(p["rqa_theiler_samples"])
     res = recurrence.rqa(
         points, recurrence_rate=p["rqa_recurrence_rate"], theiler=theiler, lmin=p["rqa_lmin"],
         vmin=p["rqa_vmin"], metric=p["rqa_metric"], seed=p["seed"],

@@ -104,8 +104,8 @@ def _embedding(
 
     delay_s, dim = (scores.get(k, math.nan) for k in ("embedding_delay_s", "embedding_dimension"))
     delay = round(delay_s * fs) if math.isfinite(delay_s) else None
-    if p.get("embedding_delay") is not None:
-        delay = int(p["embedding_delay"])
+    if p.get("embedding_delay_samples") is not None:
+        delay = int(p["embedding_delay_samples"])
     if not delay:
         delay = first_ami_minimum(signal, max_lag=max(2, min(round(0.5 * fs), signal.size // 10)))
     if p.get("embedding_dimension") is not None:

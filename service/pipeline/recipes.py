@@ -48,6 +48,12 @@ _FUNCTION = "analysis recipe"
 #: client sends (:func:`complete_parameters`).
 LEGACY_NAMES: dict[str, dict[str, str | None]] = {
     "heightmap": {"cell_m": "dx_m"},
+    "movement": {
+        "embedding_delay": "embedding_delay_samples",
+        "ordinal_delay": "ordinal_delay_samples",
+        "rqa_theiler": "rqa_theiler_samples",
+        "ssa_window": None,  # never read: the state window is ssa_window_s
+    },
 }
 
 

@@ -155,7 +155,7 @@ def lab(tmp_path: Path, rng):
         _, secret = repo.create_token(session=s, scopes=["read"], label="t")
         arena = repo.create_arena(session=s, name="half rough", kind="open_field")
         subject = repo.create_subject(session=s, label="Q1", marker_roles=ROLES)
-        params = {"movement": {"embedding_delay": 10, "embedding_dimension": 3}}
+        params = {"movement": {"embedding_delay_samples": 10, "embedding_dimension": 3}}
         repo.create_recipe(session=s, name="default", parameters=params)
         z = _ground()
         npy = io.BytesIO()
