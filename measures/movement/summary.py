@@ -526,7 +526,7 @@ def _whole_body_scores(
     extra = {
         "embedding_delay_s": delay / fs,
         "embedding_dimension": r,
-        "state_window_s": (st.window - 1) * st.lag_step / fs,
+        "state_window_s": (st.window_samples - 1) * st.lag_step / fs,
         "state_variance_explained": float(st.variance_share[:r].sum()),
     }
     image = _state_stage(st.state, delay, fs, p, book, extra)
