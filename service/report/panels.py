@@ -16,6 +16,7 @@ import numpy as np
 
 from service.report.study import StudyData
 from storage import repo
+from storage.errors import StorageError
 
 __all__ = ["MovementPanel", "TerrainPanel", "movement_panels", "terrain_panels"]
 
@@ -148,20 +149,18 @@ _DERIVED_KEYS = ("recurrence_image", "ssa_pair", "class_sequence", "signal_time_
 
 
 def _stored_arrays(session: Any, store: Any, trial_id: int, recipe_hash: str) -> Any | None:
-    """The plot arrays the scoring job stored (``derived`` table), when the repository offers
-    ``load_derived``; None otherwise. Expected: a mapping with ``_DERIVED_KEYS``."""
-    load = getattr(repo, "load_derived", None)
-    if load is None:
-        return None
+    """The plot arrays the scoring job stored (``derived`` kind ``movement_plots``), or None
+    when none are stored for this trial. Expected: a mapping with ``_DERIVED_KEYS``."""
     try:
-        arrays = load(
+        arrays = repo.load_derived(
             session=session,
             store=store,
             target_kind="trial",
             target_id=trial_id,
             recipe_hash=recipe_hash,
+            kind="movement_plots",
         )
-    except Exception as exc:  # not stored for this trial: fall back below
+    except StorageError as exc:  # not stored for this trial: fall back below
         log.info("report: no stored plot arrays for trial %s: %s", trial_id, exc)
         return None
     if not arrays or any(k not in arrays for k in _DERIVED_KEYS):
