@@ -111,7 +111,8 @@ def main() -> None:
         foot = np.nan_to_num(markers[:, 5, 2] - np.nanmean(markers[:, 5, 2]))
         for window in (52, 218):
             t_lag, fast = _median_time(
-                lambda w=window: singular_spectrum(foot, window=w, n_reconstructed=2), repeats
+                lambda w=window: singular_spectrum(foot, window_samples=w, n_reconstructed=2),
+                repeats,
             )
             c_lag = CPU_TIMES[-1]
             t_svd, ref = _median_time(lambda w=window: _svd_route(foot, w), repeats)

@@ -56,7 +56,7 @@ def _child(n: int) -> None:
 
     pts = make_cloud(n)
     t0 = time.perf_counter()
-    hm = points_to_heightmap(pts, cell_m=TRAY_M / GRID, crop=(0, TRAY_M, 0, TRAY_M))
+    hm = points_to_heightmap(pts, dx_m=TRAY_M / GRID, crop=(0, TRAY_M, 0, TRAY_M))
     wall = time.perf_counter() - t0
     rss_gb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1e6
     print(
@@ -76,7 +76,7 @@ def _compare(n: int) -> None:
     from measures.terrain.pointcloud import points_to_heightmap
 
     pts = make_cloud(n, seed=11)
-    kw = {"cell_m": TRAY_M / 256, "crop": 4 * TRAY_M / 256}
+    kw = {"dx_m": TRAY_M / 256, "crop": 4 * TRAY_M / 256}
     t0 = time.perf_counter()
     fast = points_to_heightmap(pts, **kw)
     t_fast = time.perf_counter() - t0
@@ -113,7 +113,7 @@ def _flat_tray() -> None:
         ("open3d statistical filter  ", {"outlier_method": "knn", "pit_sigmas": None}),
     ):
         t0 = time.perf_counter()
-        hm = points_to_heightmap(pts, cell_m=1e-3, **kw)
+        hm = points_to_heightmap(pts, dx_m=1e-3, **kw)
         wall = time.perf_counter() - t0
         ap = areal_parameters(hm.z, 1e-3)
         rows.append((label, wall, ap))

@@ -72,17 +72,16 @@ MOVEMENT_DEFAULTS: dict[str, Any] = {
     "signal_limb": None,  # None: the reference limb
     "signal_axis": "z",  # body frame: x forward, y left, z up (foot height)
     # embedding
-    "embedding_delay": None,  # samples at the frame rate; None: from delay_method
+    "embedding_delay_samples": None,  # samples at the frame rate; None: from delay_method
     "delay_method": "ami",  # "ami" (first AMI minimum) or "quarter_stride"
     "embedding_dimension": None,  # None: from dimension_method
     "dimension_method": "fnn",  # "fnn" (Kennel et al. 1992) or "cao" (Cao 1997)
     "ami_bins": 32,
     "max_delay_s": 0.5,
     "max_dimension": 8,
-    "ssa_window": None,  # single foot: samples; None: one mean stride period
     # recurrence quantification
     "rqa_recurrence_rate": 0.05,
-    "rqa_theiler": None,  # None: the (decimated) delay
+    "rqa_theiler_samples": None,  # None: the (decimated) delay
     "rqa_lmin": 2,
     "rqa_vmin": 2,
     "rqa_metric": "euclidean",
@@ -91,7 +90,7 @@ MOVEMENT_DEFAULTS: dict[str, Any] = {
     "plot_max_points": 2000,
     # ordinal patterns (complexity-entropy plane)
     "ordinal_order": 4,
-    "ordinal_delay": None,  # None: the delay
+    "ordinal_delay_samples": None,  # None: the delay
     # symbolic dynamics
     "symbol_order": 2,  # ordinal order per channel (2: up/down)
     "entropy_method": "block",
@@ -149,7 +148,7 @@ TERRAIN_DEFAULTS: dict[str, Any] = {
 #: Keyword defaults of ``points_to_heightmap`` (point cloud -> levelled grid),
 #: stored in the recipe's ``heightmap`` section.
 HEIGHTMAP_DEFAULTS: dict[str, Any] = {
-    "cell_m": None,  # None: from the cloud's own point spacing (heightmap_cell_m)
+    "dx_m": None,  # None: from the cloud's own point spacing (heightmap_dx_m)
     "outlier_method": "cell",
     "outlier_neighbours": 20,
     "outlier_std": 2.0,

@@ -13,6 +13,7 @@ import json
 import os
 import sys
 import time
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -310,10 +311,39 @@ def _mm_band(values: list[str]) -> list[float]:
     return [float(v) for v in values]
 
 
+def _create_and_list(
+    sub: Any,
+    noun: str,
+    plural: str,
+    create_help: str,
+    create: Callable[..., Any],
+    list_: Callable[..., Any],
+    help_: str = "",
+) -> argparse.ArgumentParser:
+    """``gaitscape NOUN create|list`` with the server options; returns ``create``'s parser
+    for its own arguments."""
+    p = sub.add_parser(noun, help=help_ or f"create or list {plural} on a server")
+    s = p.add_subparsers(dest=f"{noun}_command", required=True)
+    c: argparse.ArgumentParser = s.add_parser("create", help=create_help)
+    _common(c)
+    c.set_defaults(http_func=create)
+    ls = s.add_parser("list", help=f"list {plural}")
+    _common(ls)
+    ls.set_defaults(http_func=list_)
+    return c
+
+
+def _waiting(p: argparse.ArgumentParser, func: Callable[..., Any]) -> None:
+    # rescore and report both wait for scoring jobs under a recipe
+    p.add_argument("--recipe", default="default")
+    p.add_argument("--timeout", type=float, help="give up waiting after this many seconds")
+    p.add_argument("--no-progress", action="store_true")
+    _common(p)
+    p.set_defaults(http_func=func)
+
+
 def register_arena(sub: Any) -> None:
-    p = sub.add_parser("arena", help="create or list arenas on a server")
-    s = p.add_subparsers(dest="arena_command", required=True)
-    c = s.add_parser("create", help="register an arena")
+    c = _create_and_list(sub, "arena", "arenas", "register an arena", _arena_create, _arena_list)
     c.add_argument("name")
     c.add_argument("--kind", default="runway", help="runway, open_field, treadmill or other")
     c.add_argument(
@@ -325,17 +355,17 @@ def register_arena(sub: Any) -> None:
         "default: the whole scan",
     )
     c.add_argument("--notes", default="")
-    _common(c)
-    c.set_defaults(http_func=_arena_create)
-    ls = s.add_parser("list", help="list arenas")
-    _common(ls)
-    ls.set_defaults(http_func=_arena_list)
 
 
 def register_subject(sub: Any) -> None:
-    p = sub.add_parser("subject", help="create or list subjects on a server")
-    s = p.add_subparsers(dest="subject_command", required=True)
-    c = s.add_parser("create", help="register a subject and its marker roles")
+    c = _create_and_list(
+        sub,
+        "subject",
+        "subjects",
+        "register a subject and its marker roles",
+        _subject_create,
+        _subject_list,
+    )
     c.add_argument("label")
     c.add_argument("--anterior", required=True, help="marker at the head end (e.g. snout)")
     c.add_argument("--posterior", required=True, help="marker at the tail end (e.g. tailbase)")
@@ -351,63 +381,51 @@ def register_subject(sub: Any) -> None:
     c.add_argument("--species", default="")
     c.add_argument("--body-length-mm", type=float)
     c.add_argument("--mass-g", type=float)
-    _common(c)
-    c.set_defaults(http_func=_subject_create)
-    ls = s.add_parser("list", help="list subjects")
-    _common(ls)
-    ls.set_defaults(http_func=_subject_list)
 
 
 def register_study(sub: Any) -> None:
-    p = sub.add_parser("study", help="create or list studies on a server")
-    s = p.add_subparsers(dest="study_command", required=True)
-    c = s.add_parser("create", help="create a study with member arenas and subjects")
+    c = _create_and_list(
+        sub,
+        "study",
+        "studies",
+        "create a study with member arenas and subjects",
+        _study_create,
+        _study_list,
+    )
     c.add_argument("name")
     c.add_argument("--arena", action="append", help="arena name or id; repeat")
     c.add_argument("--subject", action="append", help="subject label or id; repeat")
     c.add_argument("--notes", default="")
-    _common(c)
-    c.set_defaults(http_func=_study_create)
-    ls = s.add_parser("list", help="list studies")
-    _common(ls)
-    ls.set_defaults(http_func=_study_list)
 
 
 def register_recipe(sub: Any) -> None:
-    p = sub.add_parser("recipe", help="create or list recipes (scoring parameters)")
-    s = p.add_subparsers(dest="recipe_command", required=True)
-    c = s.add_parser("create", help="create a recipe (a new version when the name exists)")
+    c = _create_and_list(
+        sub,
+        "recipe",
+        "recipes",
+        "create a recipe (a new version when the name exists)",
+        _recipe_create,
+        _recipe_list,
+        help_="create or list recipes (scoring parameters)",
+    )
     c.add_argument("name")
     c.add_argument("--set", action="append", help="SECTION.NAME=VALUE override; repeat")
     c.add_argument("--file", help="JSON file of overrides by section")
-    _common(c)
-    c.set_defaults(http_func=_recipe_create)
-    ls = s.add_parser("list", help="list recipes")
-    _common(ls)
-    ls.set_defaults(http_func=_recipe_list)
 
 
 def register_rescore(sub: Any) -> None:
     p = sub.add_parser("rescore", help="queue scoring under a recipe (every record by default)")
-    p.add_argument("--recipe", default="default")
     p.add_argument("--arena", action="append", help="only this arena (name or id); repeat")
     p.add_argument("--wait", action="store_true", help="wait for the jobs, with progress")
-    p.add_argument("--timeout", type=float, help="give up waiting after this many seconds")
-    p.add_argument("--no-progress", action="store_true")
-    _common(p)
-    p.set_defaults(http_func=_rescore)
+    _waiting(p, _rescore)
 
 
 def register_report(sub: Any) -> None:
     p = sub.add_parser("report", help="fetch the correspondence report as one HTML file")
     p.add_argument("--out", required=True, help="file to write (e.g. report.html)")
     p.add_argument("--study", help="limit to this study")
-    p.add_argument("--recipe", default="default")
     p.add_argument("--no-wait", action="store_true", help="do not wait for pending scoring")
-    p.add_argument("--timeout", type=float, help="give up waiting after this many seconds")
-    p.add_argument("--no-progress", action="store_true")
-    _common(p)
-    p.set_defaults(http_func=_report)
+    _waiting(p, _report)
 
 
 HTTP_COMMANDS = [

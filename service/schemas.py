@@ -352,8 +352,8 @@ class ScanPublic(_Out):
     n_points: int | None = None
     grid_nx: int | None = None
     grid_ny: int | None = None
-    grid_dx_m: float | None = None
-    grid_dy_m: float | None = None
+    dx_m: float | None = None
+    dy_m: float | None = None
     captured_at: datetime | None = None
     created_at: datetime | None = None
 
@@ -442,7 +442,7 @@ class RecipeCreate(_In):
         default_factory=dict,
         description="Overrides by section: movement, terrain, heightmap. Unnamed parameters "
         "take today's defaults; the stored recipe holds every parameter.",
-        examples=[{"heightmap": {"cell_m": 0.0005}, "movement": {"rqa_recurrence_rate": 0.03}}],
+        examples=[{"heightmap": {"dx_m": 0.0005}, "movement": {"rqa_recurrence_rate": 0.03}}],
     )
 
 

@@ -73,7 +73,7 @@ class Settings(BaseSettings):
         description="Largest heightmap, in cells, a scan job may build (default 4096 x 4096, "
         "128 MiB per float64 array; the terrain summary holds several such arrays). A scan "
         "whose grid would be larger is refused before anything is allocated, with the cell "
-        "size that would fit; set heightmap.cell_m in a recipe or raise this cap.",
+        "size that would fit; set heightmap.dx_m in a recipe or raise this cap.",
     )
     cors_origins: Annotated[list[str], NoDecode] = Field(
         default_factory=list,

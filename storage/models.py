@@ -214,8 +214,8 @@ class Scan(Base):
     meta: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
     heightmap_sha256: Mapped[str | None] = mapped_column(String(64))
     valid_mask_sha256: Mapped[str | None] = mapped_column(String(64))
-    grid_dx_m: Mapped[float | None] = mapped_column(Float)
-    grid_dy_m: Mapped[float | None] = mapped_column(Float)
+    dx_m: Mapped[float | None] = mapped_column(Float)
+    dy_m: Mapped[float | None] = mapped_column(Float)
     registration: Mapped[dict[str, Any] | None] = mapped_column(JSON)
     created_at: Mapped[datetime] = _created()
 

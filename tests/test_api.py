@@ -396,7 +396,7 @@ def test_scan_metadata_correction(tmp_path: Path, rng: np.random.Generator) -> N
     fixed = lab.client.patch(f"/v1/scans/{sid}", json={"dx": 0.25, "dy": 0.5})
     assert fixed.status_code == 200, fixed.text
     scan = lab.client.get(f"/v1/scans/{sid}").json()
-    assert scan["grid_dx_m"] == pytest.approx(0.25e-3) and scan["grid_dy_m"] == pytest.approx(5e-4)
+    assert scan["dx_m"] == pytest.approx(0.25e-3) and scan["dy_m"] == pytest.approx(5e-4)
     too_far = lab.client.patch(f"/v1/scans/{sid}", json={"dx": 1e9})
     assert too_far.status_code == 422 and "outside the accepted" in too_far.json()["detail"]
 

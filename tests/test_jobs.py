@@ -227,7 +227,7 @@ def test_infrastructure_errors_are_told_from_deterministic_ones() -> None:
     assert is_infrastructure_error(BrokenProcessPool("a worker died"))
     assert is_infrastructure_error(OperationalError("SELECT 1", {}, Exception("locked")))
     for exc in (
-        InvalidParameterError("cell_m", "f", "positive", -1.0),
+        InvalidParameterError("dx_m", "f", "positive", -1.0),
         InsufficientDataError("x", "f", "at least 10 samples", 3),
         BadInput("unreadable", file="a.csv"),
         ValueError("bad"),

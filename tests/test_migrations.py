@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 
 import pytest
@@ -149,4 +150,76 @@ def test_head_revision_read_from_files_is_alembics_head(tmp_path):
             head_revision()
         )
     upgrade(engine)  # at head: a no-op
+    engine.dispose()
+
+
+def test_upgrade_from_the_third_release_keeps_every_row(tmp_path):
+    # A store at revision 0003_recipes with a gridded scan, a recipe stored under the old
+    # parameter names and a heightmap_cell_m score; upgraded to head, every row survives:
+    # the scan's grid_dx_m/grid_dy_m become dx_m/dy_m, the score is renamed heightmap_dx_m,
+    # and the recipe (its JSON and the hash its scores are keyed by) is left as it was.
+    from sqlalchemy import text
+
+    from storage import repo
+    from storage.db import make_sessionmaker
+
+    engine = make_engine(sqlite_url(tmp_path))
+    upgrade(engine, "0003_recipes")
+    with make_sessionmaker(engine)() as session:
+        arena = repo.create_arena(session=session, name="tray", kind="runway")
+        repo.create_token(session=session, scopes=["read"], label="old")
+        arena_id = arena.id
+    now = "2026-12-02 10:00:00.000000"
+    recipe = '{"heightmap": {"cell_m": 0.001}}'
+    with engine.begin() as conn:
+        conn.execute(
+            text(
+                "INSERT INTO scan (id, arena_id, sha256, filename, format, kind, units,"
+                " size_bytes, grid_nx, grid_ny, meta, grid_dx_m, grid_dy_m, created_at)"
+                " VALUES (1, :a, :h, 'g.npy', 'npy', 'heightmap', 'm', 10, 6, 5, '{}', 0.001,"
+                " 0.002, :now)"
+            ),
+            {"a": arena_id, "h": "ab" * 32, "now": now},
+        )
+        conn.execute(
+            text(
+                "INSERT INTO recipe (id, name, version, parameters, hash, created_at)"
+                " VALUES (1, 'default', 1, :p, :h, :now)"
+            ),
+            {"p": recipe, "h": "cd" * 32, "now": now},
+        )
+        for k, measure in enumerate(("heightmap_cell_m", "sq_m"), start=1):
+            conn.execute(
+                text(
+                    "INSERT INTO score (id, target_kind, target_id, recipe_hash, measure, value,"
+                    " unit, code_version, input_sha256, computed_at, note) VALUES (:k, 'scan',"
+                    " 1, :p, :m, 0.001, 'm', '0.2.0', :h, :now, 'cell fixed')"
+                ),
+                {"k": k, "m": measure, "p": "cd" * 32, "h": "ab" * 32, "now": now},
+            )
+    before = _snapshot(engine)
+    upgrade(engine)
+    after = _snapshot(engine)
+    scan = _renamed(_renamed(before["scan"], "grid_dx_m", "dx_m"), "grid_dy_m", "dy_m")
+    assert after["scan"] == scan
+    assert ("dx_m", "0.001") in after["scan"][0] and ("dy_m", "0.002") in after["scan"][0]
+    renamed = [
+        tuple(sorted((k, "heightmap_dx_m" if v == "heightmap_cell_m" else v) for k, v in row))
+        for row in before["score"]
+    ]
+    assert after["score"] == sorted(renamed)
+    assert {dict(r)["measure"] for r in after["score"]} == {"heightmap_dx_m", "sq_m"}
+    for table in ("arena", "recipe", "token", "study", "derived", "job", "trial"):
+        assert after[table] == before[table], table
+    assert dict(after["recipe"][0])["parameters"] == str(json.loads(recipe))
+    assert _diff(engine) == []
+    # and back: the downgrade restores the third release's names
+    from alembic import command
+
+    with engine.begin() as conn:
+        cfg = alembic_config(engine)
+        cfg.attributes["connection"] = conn
+        command.downgrade(cfg, "0003_recipes")
+    assert _snapshot(engine)["score"] == before["score"]
+    assert _snapshot(engine)["scan"] == before["scan"]
     engine.dispose()

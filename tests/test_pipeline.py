@@ -62,7 +62,7 @@ def test_uploads_are_scored_without_asking_and_rescore_works(tmp_path: Path) -> 
         assert {"rqa_det", "stride_frequency_hz"} & {r["measure"] for r in rows}
         assert all(r["subject"] == "s1" and r["arena"] == "tray" for r in rows)
         v2 = c.post(
-            "/v1/recipes", json={"name": "coarse", "parameters": {"heightmap": {"cell_m": 0.002}}}
+            "/v1/recipes", json={"name": "coarse", "parameters": {"heightmap": {"dx_m": 0.002}}}
         ).json()
         again = c.post("/v1/jobs/rescore", json={"recipe": "coarse", "arena_ids": [arena["id"]]})
         assert again.status_code == 202 and again.json()["count"] == 2

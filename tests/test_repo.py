@@ -108,7 +108,7 @@ def test_pagination_and_filters(session):
 def test_scan_ingest_and_duplicate(session, store, tmp_path, arena, rng):
     z = rng.normal(size=(8, 9))
     scan, created = _scan(session, store, tmp_path, arena, z)
-    assert created and scan.kind == "heightmap" and scan.grid_dx_m == 1e-3
+    assert created and scan.kind == "heightmap" and scan.dx_m == 1e-3
     assert scan.sha256 == hashlib.sha256((tmp_path / "h.npy").read_bytes()).hexdigest()
     again, created = _scan(session, store, tmp_path, arena, z)
     assert not created and again.id == scan.id
@@ -173,7 +173,7 @@ def test_attach_heightmap(session, store, tmp_path, arena, rng):
                                 dx_m=1e-3, dy_m=2e-3)  # fmt: skip
     np.testing.assert_array_equal(store.get_array(row.heightmap_sha256), z)
     np.testing.assert_array_equal(store.get_array(row.valid_mask_sha256), valid)
-    assert (row.grid_ny, row.grid_nx, row.grid_dy_m) == (5, 6, 2e-3)
+    assert (row.grid_ny, row.grid_nx, row.dy_m) == (5, 6, 2e-3)
     with pytest.raises(BadInput, match="unknown artifact role"):
         repo.attach_artifact(session=session, store=store, target_kind="scan", target_id=scan.id,
                              role="preprocessed", array=z)  # fmt: skip

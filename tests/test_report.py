@@ -360,3 +360,27 @@ def test_numbers_are_printed_without_e_notation() -> None:
     assert si_scale([1.6e-3], "m") == (1e3, "mm")
     assert si_scale([300.0], "Hz") == (1.0, "Hz")
     assert si_scale([2.0], "bits") == (1.0, "bits")
+
+
+def test_movement_panels_read_the_plot_arrays_the_job_stored(small_store: dict) -> None:
+    # Views read what jobs stored: the arrays saved under (trial, recipe, "movement_plots")
+    # come back as they were; with none stored there is no panel (nothing is recomputed).
+    from service.report.panels import _derived, _NotStored
+
+    res = open_resources(small_store["settings"])
+    trial_id, recipe_hash = small_store["trials"][0], "ef" * 32  # a recipe no other test uses
+    keys = ("recurrence_image", "ssa_pair", "class_sequence", "signal_time_s")
+    arrays = {k: np.arange(6.0).reshape(2, 3) + i for i, k in enumerate(keys)}
+    target = ("trial", trial_id)
+    try:
+        with res.sessionmaker() as session:
+            with pytest.raises(_NotStored, match="rescore"):
+                _derived(session, res.store, "movement_plots", target, recipe_hash)
+            repo.save_derived(session=session, store=res.store, target_kind="trial",
+                              target_id=trial_id, recipe_hash=recipe_hash,
+                              kind="movement_plots", arrays=arrays)  # fmt: skip
+            got = _derived(session, res.store, "movement_plots", target, recipe_hash)
+    finally:
+        res.engine.dispose()
+    for k in keys:
+        np.testing.assert_array_equal(got[k], arrays[k])

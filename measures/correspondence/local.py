@@ -51,6 +51,7 @@ from measures._validation import (
     InsufficientDataError,
     InvalidParameterError,
     as_float_array,
+    check_positive_float,
     check_positive_int,
 )
 from measures.correspondence.inference import fit_random_intercept
@@ -108,15 +109,6 @@ class TerrainPatches:
         return np.column_stack([self.sq_m, self.permutation_entropy_2d, self.js_complexity_2d])
 
 
-def _spacing(grid_spacing_m: float | Sequence[float], fn: str) -> tuple[float, float]:
-    vals = np.atleast_1d(np.asarray(grid_spacing_m, dtype=np.float64))
-    if vals.size not in (1, 2) or not np.all(np.isfinite(vals)) or np.any(vals <= 0):
-        raise InvalidParameterError(
-            "grid_spacing_m", fn, "a positive spacing or a pair (dx, dy) in m", grid_spacing_m
-        )
-    return float(vals[0]), float(vals[-1])
-
-
 def _cell_range(lo: float, hi: float, origin: float, step: float, n: int) -> tuple[int, int]:
     # Cell i has its centre at origin + (i + 0.5) step (the rasteriser's convention).
     first = max(0, math.ceil((lo - origin) / step - 0.5))
@@ -147,7 +139,8 @@ def window_terrain_patches(
     window_start_s: ArrayLike,
     window_stop_s: ArrayLike,
     z: ArrayLike,
-    grid_spacing_m: float | Sequence[float],
+    dx_m: float,
+    dy_m: float | None = None,
     origin_xy_m: Sequence[float] = (0.0, 0.0),
     margin_m: float = 0.0,
     ordinal_order: tuple[int, int] = (2, 2),
@@ -164,7 +157,8 @@ def window_terrain_patches(
         Window bounds (inclusive) on the same clock.
     z : array_like, shape (ny, nx), m
         Heights; NaN for holes. Row i is y, column j is x.
-    grid_spacing_m : float or (dx, dy), m
+    dx_m, dy_m : float, m
+        Grid spacing along x and y; ``dy_m`` defaults to ``dx_m``.
     origin_xy_m : (x0, y0), m, default (0, 0)
         Corner of the grid: cell (i, j) has its centre at
         ``(x0 + (j + 0.5) dx, y0 + (i + 0.5) dy)``.
@@ -187,7 +181,7 @@ def window_terrain_patches(
     >>> z = np.zeros((40, 40)); z[:, 20:] = np.indices((40, 20)).sum(0) % 2 * 2e-3 - 1e-3
     >>> t = np.linspace(0, 1, 101); xy = np.column_stack([0.3 + 0.05 * t, np.full(101, 0.2)])
     >>> p = window_terrain_patches(xy, time_s=t, window_start_s=[0.0], window_stop_s=[1.0],
-    ...     z=z, grid_spacing_m=0.01, margin_m=0.05)
+    ...     z=z, dx_m=0.01, margin_m=0.05)
     >>> float(round(p.sq_m[0], 6))
     0.001
     """
@@ -203,7 +197,8 @@ def window_terrain_patches(
     if lo.shape != hi.shape or np.any(hi < lo):
         raise InvalidParameterError("window_stop_s", fn, "window_start_s <= stop, same shape", hi)
     grid = as_float_array("z", z, fn, ndim=2, min_length=2, allow_nan=True)
-    dx, dy = _spacing(grid_spacing_m, fn)
+    dx = check_positive_float("dx_m", dx_m, fn)
+    dy = dx if dy_m is None else check_positive_float("dy_m", dy_m, fn)
     x0, y0 = (float(v) for v in origin_xy_m)
     if not (math.isfinite(margin_m) and margin_m >= 0):
         raise InvalidParameterError("margin_m", fn, "a finite length >= 0 (m)", margin_m)

@@ -328,11 +328,11 @@ class SingularSpectrum:
 
     Attributes
     ----------
-    eigenvalues : ndarray, shape (window,)
+    eigenvalues : ndarray, shape (window_samples,)
         Eigenvalues of the lag-covariance matrix X^T X / K (descending), in
-        squared units of x; they sum to ``window`` times the mean square of
+        squared units of x; they sum to ``window_samples`` times the mean square of
         the centred series (up to edge effects).
-    variance_share : ndarray, shape (window,)
+    variance_share : ndarray, shape (window_samples,)
         eigenvalues / their sum.
     components : ndarray, shape (n_reconstructed, N)
         Reconstructed components by diagonal averaging, leading first; with
@@ -366,7 +366,7 @@ def _diagonal_averages(
 
 
 def lag_covariance(
-    x: NDArray[np.float64], *, window: int, lag_step: int = 1
+    x: NDArray[np.float64], *, window_samples: int, lag_step: int = 1
 ) -> NDArray[np.float64]:
     """X^T X of the (multichannel) trajectory matrix without forming X.
 
@@ -381,7 +381,7 @@ def lag_covariance(
     Parameters
     ----------
     x : ndarray (N, c), centred
-    window : int
+    window_samples : int
         L, number of lags.
     lag_step : int, default 1
         s, samples between lags.
@@ -392,10 +392,10 @@ def lag_covariance(
     """
     n, c = x.shape
     s = lag_step
-    span = (window - 1) * s
+    span = (window_samples - 1) * s
     k = n - span
-    out = np.empty((window, c, window, c))
-    for d in range(window):
+    out = np.empty((window_samples, c, window_samples, c))
+    for d in range(window_samples):
         off = d * s
         full = x[: n - off].T @ x[off:]  # (c, c): sum over u of x_u^T x_{u+off}
         # head[i] = sum over u < i s; tail[i] = sum over u >= i s + K.
@@ -407,23 +407,23 @@ def lag_covariance(
         prod_t = x[u_tail][:, :, None] * x[u_tail + off][:, None, :]
         # suffix sums: rev_cum[m] = sum of prod_t[m:]
         rev_cum = np.concatenate((np.cumsum(prod_t[::-1], axis=0)[::-1], np.zeros((1, c, c))))
-        for i in range(window - d):
+        for i in range(window_samples - d):
             j = i + d
             block = full - cum_h[i * s] - rev_cum[i * s]
             out[i, :, j, :] = block
             out[j, :, i, :] = block.T
-    return out.reshape(window * c, window * c)
+    return out.reshape(window_samples * c, window_samples * c)
 
 
 def _principal_components(
-    x: NDArray[np.float64], vecs: NDArray[np.float64], window: int, lag_step: int
+    x: NDArray[np.float64], vecs: NDArray[np.float64], window_samples: int, lag_step: int
 ) -> NDArray[np.float64]:
     """X @ vecs without forming X: one (K, c) @ (c, r) product per lag."""
     n, c = x.shape
-    k = n - (window - 1) * lag_step
-    e = vecs.reshape(window, c, -1)
+    k = n - (window_samples - 1) * lag_step
+    e = vecs.reshape(window_samples, c, -1)
     out = np.zeros((k, vecs.shape[1]))
-    for i in range(window):
+    for i in range(window_samples):
         out += x[i * lag_step : i * lag_step + k] @ e[i]
     return out
 
@@ -440,7 +440,7 @@ def _leading_eigh(
 def singular_spectrum(
     x: ArrayLike,
     *,
-    window: int,
+    window_samples: int,
     variance_fraction: float = 0.9,
     n_reconstructed: int | None = None,
 ) -> SingularSpectrum:
@@ -456,8 +456,8 @@ def singular_spectrum(
     Parameters
     ----------
     x : array_like, shape (N,)
-    window : int
-        Embedding window L (2 <= L <= N / 2 is usual).
+    window_samples : int
+        Embedding window L in samples (2 <= L <= N / 2 is usual).
     variance_fraction : float in (0, 1], default 0.9
     n_reconstructed : int, optional
         Number of leading components to reconstruct (default: all L).
@@ -476,33 +476,33 @@ def singular_spectrum(
     Examples
     --------
     >>> t = np.arange(400)
-    >>> ssa = singular_spectrum(np.sin(2 * np.pi * t / 40), window=40, n_reconstructed=2)
+    >>> ssa = singular_spectrum(np.sin(2 * np.pi * t / 40), window_samples=40, n_reconstructed=2)
     >>> round(float(ssa.variance_share[:2].sum()), 6)
     1.0
     """
     fn = "singular_spectrum"
     arr = _series(x, fn)
-    window = check_positive_int("window", window, fn, minimum=2)
+    window_samples = check_positive_int("window_samples", window_samples, fn, minimum=2)
     frac = check_positive_float("variance_fraction", variance_fraction, fn)
-    if window > arr.size // 2 + 1 or frac > 1:
+    if window_samples > arr.size // 2 + 1 or frac > 1:
         raise InsufficientDataError(
-            "window", fn, f"at most N / 2 + 1 = {arr.size // 2 + 1}", window
+            "window_samples", fn, f"at most N / 2 + 1 = {arr.size // 2 + 1}", window_samples
         )
-    n_rec = window if n_reconstructed is None else n_reconstructed
+    n_rec = window_samples if n_reconstructed is None else n_reconstructed
     n_rec = check_positive_int("n_reconstructed", n_rec, fn, minimum=1)
-    n_rec = min(n_rec, window)
+    n_rec = min(n_rec, window_samples)
     mean = float(arr.mean())
     centred = (arr - mean)[:, None]
-    k = arr.size - window + 1
-    vals, vecs = _leading_eigh(lag_covariance(centred, window=window), n_rec)
+    k = arr.size - window_samples + 1
+    vals, vecs = _leading_eigh(lag_covariance(centred, window_samples=window_samples), n_rec)
     eig = vals / k
     share = eig / eig.sum()
-    pcs = _principal_components(centred, vecs, window, 1)  # = u * sv of the SVD route
+    pcs = _principal_components(centred, vecs, window_samples, 1)  # = u * sv of the SVD route
     comps = _diagonal_averages(pcs, np.ones(n_rec), vecs.T)
     n_comp = int(np.searchsorted(np.cumsum(share), frac - 1e-12) + 1)
     return SingularSpectrum(
         eigenvalues=eig, variance_share=share, components=comps,
-        n_components=min(n_comp, window), mean=mean,
+        n_components=min(n_comp, window_samples), mean=mean,
     )  # fmt: skip
 
 
@@ -514,15 +514,15 @@ class MultichannelSSA:
     ----------
     state : ndarray (K, n_components)
         Principal components: the windowed vectors projected on the leading
-        eigenvectors (the embedded state), K = N - (window - 1) lag_step.
-    eigenvalues : ndarray (window * channels,)
+        eigenvectors (the embedded state), K = N - (window_samples - 1) lag_step.
+    eigenvalues : ndarray (window_samples * channels,)
         Eigenvalues of the lag-covariance matrix / K, descending.
     variance_share : ndarray, same shape
-    eofs : ndarray (window, channels, n_components)
+    eofs : ndarray (window_samples, channels, n_components)
         Leading eigenvectors (space-time patterns).
     n_components : int
         Chosen by the rule of :func:`multichannel_ssa`.
-    window, lag_step : int
+    window_samples, lag_step : int
     mean : ndarray (channels,)
     """
 
@@ -531,7 +531,7 @@ class MultichannelSSA:
     variance_share: NDArray[np.float64]
     eofs: NDArray[np.float64]
     n_components: int
-    window: int
+    window_samples: int
     lag_step: int
     mean: NDArray[np.float64]
 
@@ -540,10 +540,10 @@ class MultichannelSSA:
         a = self.state[:, component]
         e = self.eofs[:, :, component]  # (L, c)
         k, s = a.size, self.lag_step
-        n = k + (self.window - 1) * s
+        n = k + (self.window_samples - 1) * s
         out = np.zeros((n, e.shape[1]))
         counts = np.zeros(n)
-        for i in range(self.window):
+        for i in range(self.window_samples):
             out[i * s : i * s + k] += a[:, None] * e[i][None, :]
             counts[i * s : i * s + k] += 1
         return out / counts[:, None]
@@ -552,7 +552,7 @@ class MultichannelSSA:
 def multichannel_ssa(
     x: ArrayLike,
     *,
-    window: int,
+    window_samples: int,
     lag_step: int = 1,
     variance_fraction: float = 0.9,
     min_components: int = 2,
@@ -571,10 +571,10 @@ def multichannel_ssa(
     ----------
     x : array_like (N, channels), one unit for every channel (not rescaled,
         so each channel weighs by its own variance)
-    window : int
+    window_samples : int
         L, number of lags (>= 2).
     lag_step : int, default 1
-        Samples between lags; the window spans (L - 1) s samples.
+        Samples between lags; the window_samples spans (L - 1) s samples.
     variance_fraction : float in (0, 1], default 0.9
     min_components, max_components : int, defaults 2 and 6
 
@@ -593,28 +593,29 @@ def multichannel_ssa(
     --------
     >>> t = np.arange(600)
     >>> x = np.column_stack([np.sin(2 * np.pi * t / 50), np.cos(2 * np.pi * t / 50)])
-    >>> m = multichannel_ssa(x, window=10, lag_step=2)
+    >>> m = multichannel_ssa(x, window_samples=10, lag_step=2)
     >>> m.state.shape, m.n_components
     ((582, 2), 2)
     """
     fn = "multichannel_ssa"
     arr = as_float_array("x", x, fn, ndim=(1, 2))
     arr = arr[:, None] if arr.ndim == 1 else arr
-    window = check_positive_int("window", window, fn, minimum=2)
+    window_samples = check_positive_int("window_samples", window_samples, fn, minimum=2)
     s = check_positive_int("lag_step", lag_step, fn)
     frac = check_positive_float("variance_fraction", variance_fraction, fn)
     lo = check_positive_int("min_components", min_components, fn)
     hi = check_positive_int("max_components", max_components, fn, minimum=lo)
     n, c = arr.shape
-    if n - (window - 1) * s < max(2 * window, 10) or frac > 1:
+    L = window_samples
+    if n - (L - 1) * s < max(2 * L, 10) or frac > 1:
         raise InsufficientDataError(
-            "x", fn, f"more than {(window - 1) * s + 2 * window} samples for this window", arr
+            "x", fn, f"more than {(L - 1) * s + 2 * L} samples for this window", arr
         )
     mean = arr.mean(axis=0)
     centred = arr - mean
-    k = n - (window - 1) * s
-    cov = lag_covariance(centred, window=window, lag_step=s)
-    n_max = min(hi, window * c)
+    k = n - (window_samples - 1) * s
+    cov = lag_covariance(centred, window_samples=window_samples, lag_step=s)
+    n_max = min(hi, window_samples * c)
     vals, vecs = _leading_eigh(cov, n_max)
     eig = vals / k
     total = eig.sum()
@@ -622,8 +623,8 @@ def multichannel_ssa(
     r = int(np.searchsorted(np.cumsum(share), frac - 1e-12) + 1)
     r = int(np.clip(r, min(lo, n_max), n_max))
     vecs = vecs[:, :r]
-    state = _principal_components(centred, vecs, window, s)
+    state = _principal_components(centred, vecs, window_samples, s)
     return MultichannelSSA(
         state=state, eigenvalues=eig, variance_share=share,
-        eofs=vecs.reshape(window, c, r), n_components=r, window=window, lag_step=s, mean=mean,
+        eofs=vecs.reshape(L, c, r), n_components=r, window_samples=L, lag_step=s, mean=mean,
     )  # fmt: skip

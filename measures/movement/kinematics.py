@@ -155,7 +155,7 @@ class PreprocessedTrial:
     filter_order : int
     flagged_fraction : float
         Fraction of frames in which at least one marker was flagged as a spike.
-    spike_window : int
+    spike_window_samples : int
         Running-median length (frames) used by the spike detector.
     warnings : tuple of str
         Plain-language warnings (flagged fraction above
@@ -172,7 +172,7 @@ class PreprocessedTrial:
     valid_fraction: float
     filter_order: int
     flagged_fraction: float = 0.0
-    spike_window: int = 5
+    spike_window_samples: int = 5
     warnings: tuple[str, ...] = ()
 
 
@@ -313,13 +313,13 @@ def detect_spikes(
     markers: ArrayLike,
     *,
     threshold: float = 8.0,
-    window: int = 5,
+    window_samples: int = 5,
     resolution_m: float = MARKER_RESOLUTION_M,
     motion_scaled: bool = True,
 ) -> SpikeReport:
     """Flag isolated outliers (spikes) and step changes (jumps) per marker.
 
-    Spikes: the distance of each sample from a running median of ``window``
+    Spikes: the distance of each sample from a running median of ``window_samples``
     frames (per axis) exceeds ``threshold`` times a scale. A running median
     follows smooth motion to second order but not a one- or two-frame
     excursion. The scale at frame t is the largest of
@@ -342,7 +342,7 @@ def detect_spikes(
     markers : array (n_frames, n_markers, 3)
     threshold : float, default 8.0
         Robust z threshold (1.4826 MAD is the normal-consistent SD).
-    window : int, default 5
+    window_samples : int, default 5
         Odd running-median length in frames; :func:`spike_window_frames`
         scales it to the frame rate (5 frames at 300 Hz, 3 at 30 Hz).
     resolution_m : float, default 2e-4
@@ -363,7 +363,7 @@ def detect_spikes(
     fn = "detect_spikes"
     arr = _check_markers(markers, fn)
     thr = check_positive_float("threshold", threshold, fn)
-    win = check_positive_int("window", window, fn, minimum=3)
+    win = check_positive_int("window_samples", window_samples, fn, minimum=3)
     floor = check_positive_float("resolution_m", resolution_m, fn)
     spikes, jumps = [], []
     for k in range(arr.shape[1]):
@@ -710,7 +710,7 @@ def preprocess_trial(
     table = _cutoff_table(cutoff_hz, arr.shape[1], fs, fn)
     min_len = max(round(check_positive_float("min_segment_s", min_segment_s, fn) * fs), 16)
     window = spike_window_frames(fs, check_positive_float("spike_window_s", spike_window_s, fn))
-    spikes = detect_spikes(arr, threshold=spike_threshold, window=window)
+    spikes = detect_spikes(arr, threshold=spike_threshold, window_samples=window)
     flagged = np.zeros(arr.shape[0], dtype=bool)
     for frames in spikes.spike_frames:
         flagged[frames] = True

@@ -67,7 +67,7 @@ class WholeBodyState:
     delay : int
         Decorrelation delay (frames): first zero of the autocorrelation of the
         leading component (a quarter stride for an oscillating gait).
-    window : int
+    window_samples : int
         Lags L.
     lag_step : int
         Frames between lags.
@@ -79,7 +79,7 @@ class WholeBodyState:
 
     state: NDArray[np.float64]
     delay: int
-    window: int
+    window_samples: int
     lag_step: int
     n_channels: int
     variance_share: NDArray[np.float64]
@@ -107,7 +107,7 @@ def whole_body_state(
     lags = int(min(max_lags, span + 1))
     step = max(1, round(span / (lags - 1)))
     ssa = embedding.multichannel_ssa(
-        x, window=lags, lag_step=step, variance_fraction=variance_fraction,
+        x, window_samples=lags, lag_step=step, variance_fraction=variance_fraction,
         max_components=max_components,
     )  # fmt: skip
     lead = ssa.state[:, 0]
@@ -215,7 +215,7 @@ def symbolic_values(
 def _rqa_values(
     points: NDArray[np.float64], delay: int, p: Mapping[str, Any], threshold_method: str
 ) -> dict[str, Any]:
-    theiler = delay if p["rqa_theiler"] is None else int(p["rqa_theiler"])
+    theiler = delay if p["rqa_theiler_samples"] is None else int(p["rqa_theiler_samples"])
     res = recurrence.rqa(
         points, recurrence_rate=p["rqa_recurrence_rate"], theiler=theiler, lmin=p["rqa_lmin"],
         vmin=p["rqa_vmin"], metric=p["rqa_metric"], seed=p["seed"],

@@ -521,12 +521,12 @@ def _whole_body_scores(
     except InsufficientDataError as err:
         reason = f"the longest gap-free stretch ({channels.shape[0]} frames) is too short: {err}"
         return _nan_state(book, reason)
-    delay = st.delay if p["embedding_delay"] is None else int(p["embedding_delay"])
+    delay = st.delay if p["embedding_delay_samples"] is None else int(p["embedding_delay_samples"])
     r = st.state.shape[1]
     extra = {
         "embedding_delay_s": delay / fs,
         "embedding_dimension": r,
-        "state_window_s": (st.window - 1) * st.lag_step / fs,
+        "state_window_s": (st.window_samples - 1) * st.lag_step / fs,
         "state_variance_explained": float(st.variance_share[:r].sum()),
     }
     image = _state_stage(st.state, delay, fs, p, book, extra)
@@ -553,7 +553,7 @@ def _state_stage(
     q = max(1, math.ceil(state.shape[0] / p["rqa_max_points"]))
     points = wb.decimate(state, q)
     delay_q = max(1, round(delay / q))
-    ord_delay = delay if p["ordinal_delay"] is None else int(p["ordinal_delay"])
+    ord_delay = delay if p["ordinal_delay_samples"] is None else int(p["ordinal_delay_samples"])
     try:
         values = wb.state_scores(points, delay_q, fs / q, p)
     except InsufficientDataError as err:
@@ -637,7 +637,7 @@ def _embedding_parameters(
     high and has spurious early minima.
     """
     max_delay = max(2, min(round(p["max_delay_s"] * fs), x.size // 10))
-    delay = p["embedding_delay"]
+    delay = p["embedding_delay_samples"]
     if delay is None and p["delay_method"] == "quarter_stride":
         if not np.isfinite(stride_hz):
             raise InsufficientDataError("markers", "movement_summary", "complete strides", x)

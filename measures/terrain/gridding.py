@@ -28,7 +28,7 @@ from measures._validation import (
 __all__ = [
     "CELL_SPACING_FACTOR",
     "HeightmapMemory",
-    "heightmap_cell_m",
+    "heightmap_dx_m",
     "heightmap_memory",
     "point_spacing_m",
 ]
@@ -70,7 +70,7 @@ class HeightmapMemory:
     bytes : int
         Estimated peak: ``cells * bytes_per_cell + n_points * bytes_per_point``.
     cap_bytes : int or None
-    smallest_cell_m : float or None
+    smallest_dx_m : float or None
         Smallest cell whose job fits ``cap_bytes`` (None without a cap, NaN
         when the points alone exceed it).
     """
@@ -81,7 +81,7 @@ class HeightmapMemory:
     n_points: int
     bytes: int
     cap_bytes: int | None
-    smallest_cell_m: float | None
+    smallest_dx_m: float | None
 
 
 def _xy(points: ArrayLike, function: str) -> np.ndarray:
@@ -144,35 +144,35 @@ def point_spacing_m(points: ArrayLike, *, max_points: int = _SPACING_TILE_POINTS
     return float(np.median(nn))
 
 
-def heightmap_cell_m(
+def heightmap_dx_m(
     points: ArrayLike,
     *,
-    cell_m: float | None = None,
+    dx_m: float | None = None,
     spacing_factor: float = CELL_SPACING_FACTOR,
     bounds_m: tuple[float | None, float | None] | None = None,
 ) -> tuple[float, str]:
     """Cell size for gridding a levelled cloud, and a note saying how it was chosen.
 
-    ``cell_m`` given: used as is (the recipe fixes it). Otherwise
+    ``dx_m`` given: used as is (the recipe fixes it). Otherwise
     ``spacing_factor * point_spacing_m(points)`` clipped to the bounds:
     by default at least 0.1 mm and ``longest side / 8192``, at most
     ``shortest side / 64`` (module constants); ``bounds_m`` overrides them.
 
     Returns
     -------
-    (cell_m, note) : (float, str)
+    (dx_m, note) : (float, str)
 
     Examples
     --------
     >>> import numpy as np
     >>> g = np.stack(np.meshgrid(np.arange(400), np.arange(300)), -1).reshape(-1, 2) * 1e-3
-    >>> c, note = heightmap_cell_m(g)
+    >>> c, note = heightmap_dx_m(g)
     >>> round(c, 6)
     0.003
     """
-    fn = "heightmap_cell_m"
-    if cell_m is not None:
-        c = check_positive_float("cell_m", cell_m, fn)
+    fn = "heightmap_dx_m"
+    if dx_m is not None:
+        c = check_positive_float("dx_m", dx_m, fn)
         return c, f"cell {c:.3g} m fixed by the parameters"
     f = check_positive_float("spacing_factor", spacing_factor, fn)
     xy = _xy(points, fn)
@@ -219,7 +219,7 @@ def _cells(extent_x: float, extent_y: float, cell: float) -> tuple[int, int]:
 def heightmap_memory(
     extent_x_m: float,
     extent_y_m: float,
-    cell_m: float,
+    dx_m: float,
     *,
     n_points: int = 0,
     cap_bytes: int | None = None,
@@ -235,7 +235,7 @@ def heightmap_memory(
     ----------
     extent_x_m, extent_y_m : float, m
         Extent of the grid (the crop rectangle of the levelled cloud).
-    cell_m : float, m
+    dx_m : float, m
     n_points : int
         Points to be gridded (0 for a heightmap upload).
     cap_bytes : int, optional
@@ -262,7 +262,7 @@ def heightmap_memory(
     fn = "heightmap_memory"
     ex = check_positive_float("extent_x_m", extent_x_m, fn)
     ey = check_positive_float("extent_y_m", extent_y_m, fn)
-    cell = check_positive_float("cell_m", cell_m, fn)
+    cell = check_positive_float("dx_m", dx_m, fn)
     npts = check_positive_int("n_points", n_points, fn, minimum=0)
     bpc = check_positive_int("bytes_per_cell", bytes_per_cell, fn)
     bpp = check_positive_int("bytes_per_point", bytes_per_point, fn, minimum=0)
@@ -287,7 +287,7 @@ def heightmap_memory(
             else:
                 hint = f"the smallest cell that fits is {smallest:.4g} m"
             raise InvalidParameterError(
-                "cell_m",
+                "dx_m",
                 fn,
                 f"a cell whose grid fits the memory cap of {cap:,} bytes: a {cell:.4g} m "
                 f"cell over {ex:.4g} m x {ey:.4g} m makes {nx:,} x {ny:,} = {cells:,} cells "

@@ -25,8 +25,8 @@ seconds; see ``bench/bench_pointcloud.py``):
    are kept;
 8. harmonic (Laplace) filling of empty cells, keeping the validity mask.
 
-The cell size can come from the cloud (``cell_m=None``, see
-:func:`measures.terrain.gridding.heightmap_cell_m`), and the grid's memory
+The cell size can come from the cloud (``dx_m=None``, see
+:func:`measures.terrain.gridding.heightmap_dx_m`), and the grid's memory
 is estimated before anything is allocated (``memory_cap_bytes``).
 """
 
@@ -47,7 +47,7 @@ from measures._validation import (
     check_positive_float,
     check_positive_int,
 )
-from measures.terrain.gridding import heightmap_cell_m, heightmap_memory
+from measures.terrain.gridding import heightmap_dx_m, heightmap_memory
 
 __all__ = ["Heightmap", "points_to_heightmap"]
 
@@ -129,7 +129,7 @@ class Heightmap:
 def points_to_heightmap(
     points: ArrayLike,
     *,
-    cell_m: float | None = None,
+    dx_m: float | None = None,
     outlier_method: str = "cell",
     outlier_neighbours: int = 20,
     outlier_std: float = 2.0,
@@ -151,10 +151,10 @@ def points_to_heightmap(
     points : array_like of float, shape (n, 3), m
         Scanned points (x, y, z) in any frame; n >= 3, not all identical,
         not collinear.
-    cell_m : float or None, m
+    dx_m : float or None, m
         Grid spacing (square cells). None: 3 x the median nearest-neighbour
         spacing of the levelled points, within arena-scale bounds
-        (:func:`measures.terrain.gridding.heightmap_cell_m`; the choice is
+        (:func:`measures.terrain.gridding.heightmap_dx_m`; the choice is
         in ``notes``).
     outlier_method : {"cell", "knn", "none"}, default "cell"
         "cell": a point is an outlier when it lies more than
@@ -232,13 +232,13 @@ def points_to_heightmap(
     >>> import numpy as np
     >>> xy = np.random.default_rng(0).uniform(0, 0.1, (20000, 2))
     >>> pts = np.column_stack([xy, 0.01 + 0.1 * xy[:, 0]])  # tilted plane
-    >>> hm = points_to_heightmap(pts, cell_m=0.01)
+    >>> hm = points_to_heightmap(pts, dx_m=0.01)
     >>> hm.z.shape, bool(np.abs(hm.z).max() < 1e-9)  # levelled, x spans 0.1005 m
     ((10, 11), True)
     """
     pts = _check_points(points, "points", _FUNC)
-    if cell_m is not None:
-        cell_m = check_positive_float("cell_m", cell_m, _FUNC)
+    if dx_m is not None:
+        dx_m = check_positive_float("dx_m", dx_m, _FUNC)
     if pit_sigmas is not None:
         pit_sigmas = check_positive_float("pit_sigmas", pit_sigmas, _FUNC)
     check_choice("outlier_method", outlier_method, _FUNC, ("cell", "knn", "none"))
@@ -275,8 +275,8 @@ def points_to_heightmap(
     del pts
     rect = _resolve_crop(crop, fit @ rotation.T if outlier_method == "cell" else lev)
     notes: list[str] = []
-    if cell_m is None:
-        cell_m, note = heightmap_cell_m(
+    if dx_m is None:
+        dx_m, note = heightmap_dx_m(
             (fit @ rotation.T)[:, :2],
             bounds_m=(None, min(rect[1] - rect[0], rect[3] - rect[2]) / 64),
         )
@@ -284,12 +284,12 @@ def points_to_heightmap(
     heightmap_memory(
         rect[1] - rect[0],
         rect[3] - rect[2],
-        cell_m,
+        dx_m,
         n_points=n_in,
         cap_bytes=memory_cap_bytes,
     )
-    nx = max(1, int(np.ceil((rect[1] - rect[0]) / cell_m - 1e-9)))
-    ny = max(1, int(np.ceil((rect[3] - rect[2]) / cell_m - 1e-9)))
+    nx = max(1, int(np.ceil((rect[1] - rect[0]) / dx_m - 1e-9)))
+    ny = max(1, int(np.ceil((rect[3] - rect[2]) / dx_m - 1e-9)))
     x, y, h = lev[:, 0], lev[:, 1], lev[:, 2]
     inside = (x >= rect[0]) & (x <= rect[1]) & (y >= rect[2]) & (y <= rect[3])
     n_outside = int(inside.size - inside.sum())
@@ -297,8 +297,8 @@ def points_to_heightmap(
         x, y, h = x[inside], y[inside], h[inside]
     if h.size < 3:
         raise InsufficientDataError("crop", _FUNC, "a region holding at least 3 points", rect)
-    ix = np.minimum(((x - rect[0]) / cell_m).astype(np.int64), nx - 1)
-    iy = np.minimum(((y - rect[2]) / cell_m).astype(np.int64), ny - 1)
+    ix = np.minimum(((x - rect[0]) / dx_m).astype(np.int64), nx - 1)
+    iy = np.minimum(((y - rect[2]) / dx_m).astype(np.int64), ny - 1)
     cell = iy * nx + ix
     del x, y, ix, iy, lev
     if outlier_method == "cell":
@@ -322,7 +322,7 @@ def points_to_heightmap(
     if fill_holes and holes:
         z = _harmonic_fill(z, valid)
     params = {
-        "cell_m": cell_m,
+        "dx_m": dx_m,
         "outlier_method": outlier_method,
         "outlier_neighbours": outlier_neighbours,
         "outlier_std": outlier_std,
@@ -343,8 +343,8 @@ def points_to_heightmap(
         z=z,
         valid=valid,
         count=count,
-        dx_m=cell_m,
-        dy_m=cell_m,
+        dx_m=dx_m,
+        dy_m=dx_m,
         origin_xy=(rect[0], rect[2]),
         filled_fraction=holes / z.size,
         plane_normal=normal,

@@ -11,7 +11,7 @@ Topogr.: Metrol. Prop. 5:013001): with wavevectors q in rad/m,
 - isotropic (radial) average ``C_iso(q)``: ``Sq^2 = (1 / 2 pi) integral q C_iso dq``.
 - 1-D profiles: ``C_1D(q) = |h~(q)|^2 / L``; ``Sq^2 = (1 / pi) integral_0^inf C_1D dq``.
 
-A window multiplies the heights before the transform; the PSD is divided by
+A taper (window) multiplies the heights before the transform; the PSD is divided by
 ``mean(w^2)`` so that the power of a stationary surface is preserved.
 """
 
@@ -39,7 +39,7 @@ __all__ = [
     "surface_psd",
 ]
 
-_WINDOWS = ("hann", "none")
+_TAPERS = ("hann", "none")
 _DETRENDS = ("plane", "mean", "none")
 
 
@@ -53,14 +53,14 @@ class SurfacePSD:
     qy : array (ny,), rad/m, ascending
     psd : array (ny, nx), m^4
         C(q) in the Jacobs et al. (2017) normalisation (module docstring).
-    window, detrend : str
+    taper, detrend : str
         What was applied before the transform.
     """
 
     qx: NDArray[np.float64]
     qy: NDArray[np.float64]
     psd: NDArray[np.float64]
-    window: str
+    taper: str
     detrend: str
 
 
@@ -84,7 +84,7 @@ class RadialPSD:
     psd: NDArray[np.float64]
     counts: NDArray[np.int64]
     q_edges: NDArray[np.float64]
-    window: str = field(default="hann")
+    taper: str = field(default="hann")
     detrend: str = field(default="plane")
 
 
@@ -109,7 +109,7 @@ class ProfilePSD:
     axis: int
     n_profiles: int
     n_samples: int
-    window: str = "hann"
+    taper: str = "hann"
     detrend: str = "linear"
 
 
@@ -136,7 +136,7 @@ class PSDAnisotropy:
     moments: tuple[float, float, float]
 
 
-def _window(n: int, kind: str) -> NDArray[np.float64]:
+def _taper(n: int, kind: str) -> NDArray[np.float64]:
     if kind == "none":
         return np.ones(n)
     # Periodic Hann (sym=False) is the one whose power is exactly 3/8 on average.
@@ -148,14 +148,14 @@ def _prepared(
     dx: float,
     dy: float | None,
     valid: ArrayLike | None,
-    window: str,
+    taper: str,
     detrend: str,
     fn: str,
     *,
     ndim: int = 2,
 ) -> tuple[NDArray[np.float64], float, float]:
     arr, dx_f, dy_f, mask = check_grid(z, dx, dy, valid, fn, ndim=ndim, min_size=4)
-    check_choice("window", window, fn, _WINDOWS)
+    check_choice("taper", taper, fn, _TAPERS)
     check_choice("detrend", detrend, fn, _DETRENDS)
     # Holes are interpolated, not mean-filled: a mean fill puts a step at every
     # hole edge whose white spectrum buries the short-wavelength power law.
@@ -164,8 +164,8 @@ def _prepared(
     return zl, dx_f, dy_f
 
 
-def _windowed_2d(zl: NDArray[np.float64], window: str) -> tuple[NDArray[np.float64], float]:
-    wy, wx = _window(zl.shape[0], window), _window(zl.shape[1], window)
+def _tapered_2d(zl: NDArray[np.float64], taper: str) -> tuple[NDArray[np.float64], float]:
+    wy, wx = _taper(zl.shape[0], taper), _taper(zl.shape[1], taper)
     w2 = np.outer(wy, wx)
     return zl * w2, float(np.mean(w2**2))
 
@@ -175,7 +175,7 @@ def surface_psd(
     dx: float,
     dy: float | None = None,
     *,
-    window: str = "hann",
+    taper: str = "hann",
     detrend: str = "plane",
     valid: ArrayLike | None = None,
 ) -> SurfacePSD:
@@ -186,7 +186,7 @@ def surface_psd(
     z : array (ny, nx), float, m
     dx, dy : float, m
         Spacing along x (axis 1) and y (axis 0); ``dy`` defaults to ``dx``.
-    window : {"hann", "none"}
+    taper : {"hann", "none"}
         Separable periodic Hann window (power corrected) or none.
     detrend : {"plane", "mean", "none"}
         Levelling before the window.
@@ -208,18 +208,18 @@ def surface_psd(
     --------
     >>> import numpy as np
     >>> z = np.random.default_rng(0).normal(size=(64, 64))
-    >>> p = surface_psd(z, 0.5, window="none", detrend="none")
+    >>> p = surface_psd(z, 0.5, taper="none", detrend="none")
     >>> dq = 2 * np.pi / (64 * 0.5)
     >>> bool(np.isclose(p.psd.sum() * dq * dq / (2 * np.pi) ** 2, np.mean(z**2)))
     True
     """
-    zl, dx_f, dy_f = _prepared(z, dx, dy, valid, window, detrend, "surface_psd")
+    zl, dx_f, dy_f = _prepared(z, dx, dy, valid, taper, detrend, "surface_psd")
     ny, nx = zl.shape
-    zw, wpow = _windowed_2d(zl, window)
+    zw, wpow = _tapered_2d(zl, taper)
     spec = np.abs(sfft.fft2(zw, workers=-1)) ** 2 * (dx_f * dy_f / (nx * ny) / wpow)
     qx = sfft.fftshift(sfft.fftfreq(nx, dx_f)) * 2 * np.pi
     qy = sfft.fftshift(sfft.fftfreq(ny, dy_f)) * 2 * np.pi
-    return SurfacePSD(qx, qy, sfft.fftshift(spec), window, detrend)
+    return SurfacePSD(qx, qy, sfft.fftshift(spec), taper, detrend)
 
 
 def radial_psd(
@@ -227,7 +227,7 @@ def radial_psd(
     dx: float,
     dy: float | None = None,
     *,
-    window: str = "hann",
+    taper: str = "hann",
     detrend: str = "plane",
     valid: ArrayLike | None = None,
     bins_per_decade: int = 10,
@@ -242,7 +242,7 @@ def radial_psd(
 
     Parameters
     ----------
-    z, dx, dy, window, detrend, valid
+    z, dx, dy, taper, detrend, valid
         As in :func:`surface_psd`.
     bins_per_decade : int
         Number of log-spaced annuli per decade of q.
@@ -256,10 +256,10 @@ def radial_psd(
     Jacobs, Junge & Pastewka (2017), section on the isotropic PSD.
     """
     fn = "radial_psd"
-    zl, dx_f, dy_f = _prepared(z, dx, dy, valid, window, detrend, fn)
+    zl, dx_f, dy_f = _prepared(z, dx, dy, valid, taper, detrend, fn)
     bpd = check_positive_int("bins_per_decade", bins_per_decade, fn)
     ny, nx = zl.shape
-    zw, wpow = _windowed_2d(zl, window)
+    zw, wpow = _tapered_2d(zl, taper)
     half = sfft.rfft2(zw, workers=-1)
     spec = (half.real**2 + half.imag**2) * (dx_f * dy_f / (nx * ny) / wpow)
     qx = sfft.rfftfreq(nx, dx_f) * 2 * np.pi
@@ -292,7 +292,7 @@ def radial_psd(
         psd=sums[keep] / cnts[keep],
         counts=np.rint(cnts[keep]).astype(np.int64),
         q_edges=np.column_stack([edges[:-1], edges[1:]])[keep],
-        window=window,
+        taper=taper,
         detrend=detrend,
     )
 
@@ -303,7 +303,7 @@ def profile_psd(
     dy: float | None = None,
     *,
     axis: int = 1,
-    window: str = "hann",
+    taper: str = "hann",
     detrend: str = "linear",
     valid: ArrayLike | None = None,
 ) -> ProfilePSD:
@@ -316,7 +316,7 @@ def profile_psd(
         Spacing along x (axis 1) and y (axis 0). For a 1-D ``z`` only ``dx``.
     axis : {1, 0}
         1: profiles along x (each row); 0: profiles along y (each column).
-    window : {"hann", "none"}
+    taper : {"hann", "none"}
     detrend : {"linear", "mean", "none"}
         Per profile.
     valid : bool array, optional
@@ -339,7 +339,7 @@ def profile_psd(
         raise InvalidParameterError("axis", fn, "0 or 1", axis)
     check_choice("detrend", detrend, fn, ("linear", "mean", "none"))
     arr, dx_f, dy_f, mask = check_grid(z, dx, dy, valid, fn, ndim=(1, 2), min_size=4)
-    check_choice("window", window, fn, _WINDOWS)
+    check_choice("taper", taper, fn, _TAPERS)
     filled = (
         fill_holes(np.nan_to_num(arr), mask)
         if arr.ndim == 1
@@ -357,11 +357,11 @@ def profile_psd(
         profiles = profiles - profiles.mean(axis=1, keepdims=True) - slope[:, None] * t
     elif detrend == "mean":
         profiles = profiles - profiles.mean(axis=1, keepdims=True)
-    w = _window(n, window)
+    w = _taper(n, taper)
     spec = np.abs(sfft.rfft(profiles * w, axis=1, workers=-1)) ** 2
     psd = spec.mean(axis=0) * step / n / float(np.mean(w**2))
     q = sfft.rfftfreq(n, step) * 2 * np.pi
-    return ProfilePSD(q, psd, axis_used, profiles.shape[0], n, window, detrend)
+    return ProfilePSD(q, psd, axis_used, profiles.shape[0], n, taper, detrend)
 
 
 def _moment(psd: SurfacePSD | RadialPSD | ProfilePSD, power: int) -> float:
@@ -404,7 +404,7 @@ def rms_slope_from_psd(psd: SurfacePSD | RadialPSD | ProfilePSD) -> float:
     >>> import numpy as np
     >>> x = np.arange(256) * 0.01
     >>> z = np.tile(np.sin(2 * np.pi * x / 0.32), (16, 1))
-    >>> p = surface_psd(z, 0.01, window="none", detrend="none")
+    >>> p = surface_psd(z, 0.01, taper="none", detrend="none")
     >>> round(float(rms_slope_from_psd(p) / (2 * np.pi / 0.32 / np.sqrt(2))), 6)
     1.0
     """

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -15,9 +16,10 @@ from sqlalchemy.orm import Session
 
 from measures.errors import InsufficientDataError, InvalidParameterError
 from service.analysis.tables import Selection, choose_scans, clean_object
+from service.pipeline.recipes import current_parameters
 from storage import repo
 from storage.artifacts import ArtifactStore
-from storage.errors import BadInput, StorageError
+from storage.errors import BadInput, NotFound
 from storage.models import Scan, Trial
 
 __all__ = ["LOCAL_DEFAULTS", "local_report", "trial_scores", "trial_windows"]
@@ -65,15 +67,15 @@ def _markers(session: Session, store: ArtifactStore, trial: Trial, p: dict[str, 
 def _heightmap(
     store: ArtifactStore, scan: Scan
 ) -> tuple[np.ndarray, tuple[float, float], tuple[float, float]]:
-    if scan.heightmap_sha256 is None or scan.grid_dx_m is None:  # _local_scan picks gridded
+    if scan.heightmap_sha256 is None or scan.dx_m is None:  # _local_scan picks gridded
         raise BadInput(f"scan {scan.id} has no heightmap grid")
     z = np.array(store.get_array(scan.heightmap_sha256), dtype=np.float64)
     if scan.valid_mask_sha256:
         z[~np.asarray(store.get_array(scan.valid_mask_sha256), dtype=bool)] = np.nan
     meta = scan.meta or {}
     origin = meta.get("grid_origin_xy_m") or (meta.get("reader") or {}).get("origin_xy_m")
-    dy = scan.grid_dy_m or scan.grid_dx_m
-    return z, (float(scan.grid_dx_m), float(dy)), tuple(origin or (0.0, 0.0))
+    dy = scan.dy_m or scan.dx_m
+    return z, (float(scan.dx_m), float(dy)), tuple(origin or (0.0, 0.0))
 
 
 def _to_scan_frame(points: np.ndarray, registration: Any) -> np.ndarray:
@@ -103,8 +105,8 @@ def _embedding(
 
     delay_s, dim = (scores.get(k, math.nan) for k in ("embedding_delay_s", "embedding_dimension"))
     delay = round(delay_s * fs) if math.isfinite(delay_s) else None
-    if p.get("embedding_delay") is not None:
-        delay = int(p["embedding_delay"])
+    if p.get("embedding_delay_samples") is not None:
+        delay = int(p["embedding_delay_samples"])
     if not delay:
         delay = first_ami_minimum(signal, max_lag=max(2, min(round(0.5 * fs), signal.size // 10)))
     if p.get("embedding_dimension") is not None:
@@ -114,34 +116,19 @@ def _embedding(
     return max(1, int(delay)), max(1, int(dim))
 
 
-def _local_scan(session: Session, recipe_hash: str, trial: Trial) -> Scan:
+def _local_scan(session: Session, scans: list[dict[str, Any]], trial: dict[str, Any]) -> Scan:
     # The scan policy of the grid ("latest": heightmap uploads first, then the latest),
-    # among scans that have a heightmap grid to map the path onto.
-    rows = repo.load_study_rows(session=session, recipe_hash=recipe_hash, trial_ids=[trial.id])
-    scans = [s for s in rows.scans if s["heightmap_sha256"] and s["grid_dx_m"]]
-    if not scans:
-        raise BadInput(f"arena {trial.arena_id} has no heightmap to map trial {trial.id} onto")
-    return repo.get_scan(session=session, scan_id=choose_scans(scans, "latest")[0]["id"])
-
-
-def _stored_windows(
-    session: Session, store: ArtifactStore, trial_id: int, recipe_hash: str, window_s: float
-) -> dict[str, Any] | None:
-    """Per-window movement measures the scoring job stored, or None (absent, other length)."""
-    load = getattr(repo, "load_derived", None)  # added by the pipeline branch
-    if load is None:
-        return None
-    try:
-        arrays = load(
-            session=session,
-            store=store,
-            target_kind="trial",
-            target_id=trial_id,
-            recipe_hash=recipe_hash,
-            kind="movement_windows",
+    # among the arena's scans that have a heightmap grid to map the path onto.
+    gridded = [s for s in scans if s["heightmap_sha256"] and s["dx_m"]]
+    if not gridded:
+        raise BadInput(
+            f"arena {trial['arena_id']} has no heightmap to map trial {trial['id']} onto"
         )
-    except StorageError:
-        return None
+    return repo.get_scan(session=session, scan_id=choose_scans(gridded, "latest")[0]["id"])
+
+
+def _stored_windows(arrays: dict[str, np.ndarray] | None, window_s: float) -> dict[str, Any] | None:
+    """Per-window movement measures the scoring job stored, or None (absent, other length)."""
     if arrays is None or "window_s" not in arrays:
         return None
     if abs(float(np.asarray(arrays["window_s"]).ravel()[0]) - window_s) > 1e-9:
@@ -150,16 +137,41 @@ def _stored_windows(
         "source": "stored",
         "window_start_s": np.asarray(arrays["window_start_s"], dtype=float),
         "window_stop_s": np.asarray(arrays["window_stop_s"], dtype=float),
-        "delay": int(np.asarray(arrays["delay_samples"]).ravel()[0]),
-        "dimension": int(np.asarray(arrays["dimension"]).ravel()[0]),
+        "delay": int(np.asarray(arrays.get("delay_samples", 0)).ravel()[0]),
+        "dimension": int(np.asarray(arrays.get("dimension", 0)).ravel()[0]),
         "movement": {
             k.removeprefix("m_"): np.asarray(v, dtype=float)
             for k, v in arrays.items()
             if k.startswith("m_")
         },
-        "path_m": np.asarray(arrays["path_origin_m"], dtype=float),
-        "path_time_s": np.asarray(arrays["path_time_s"], dtype=float),
+        "path_m": np.asarray(arrays.get("path_origin_m", np.zeros((0, 3))), dtype=float),
+        "path_time_s": np.asarray(arrays.get("path_time_s", np.zeros(0)), dtype=float),
     }
+
+
+@dataclass
+class _Batch:
+    """What the request reads once for all its trials: the trial rows (joined with arena
+    and subject), their arenas' scans, and the stored per-window measures (one query)."""
+
+    trials: dict[int, dict[str, Any]]
+    scans: dict[int, list[dict[str, Any]]]
+    windows: dict[int, dict[str, np.ndarray]]
+    heightmaps: dict[int, tuple[Scan, Any]] = field(default_factory=dict)
+
+
+def _batch(
+    session: Session, store: ArtifactStore, recipe_hash: str, rows: repo.StudyRows
+) -> _Batch:
+    scans: dict[int, list[dict[str, Any]]] = {}
+    for row in rows.scans:
+        scans.setdefault(row["arena_id"], []).append(row)
+    trials = {t["id"]: t for t in rows.trials}
+    windows = repo.load_derived_many(
+        session=session, store=store, target_kind="trial", target_ids=list(trials),
+        recipe_hash=recipe_hash, kind="movement_windows",
+    )  # fmt: skip
+    return _Batch(trials, scans, windows)
 
 
 def _computed_windows(
@@ -172,7 +184,7 @@ def _computed_windows(
     from measures.movement.kinematics import valid_segments
     from measures.movement.summary import MOVEMENT_DEFAULTS
 
-    p = _section(recipe.parameters or {}, "movement", MOVEMENT_DEFAULTS)
+    p = _section(current_parameters(recipe.parameters), "movement", MOVEMENT_DEFAULTS)
     roles, names = subject.marker_set.roles, list(trial.marker_names)
     ant = [names.index(n) for n in np.atleast_1d(roles["anterior"])]
     post = [names.index(n) for n in np.atleast_1d(roles["posterior"])]
@@ -221,34 +233,45 @@ def trial_windows(
     recipe: Any,
     window_s: float,
     margin_m: float | None,
+    batch: _Batch | None = None,
 ) -> dict[str, Any]:
     """Prepare one trial for local correspondence: window movement measures and the
     terrain patch under the animal in each window (the one function every caller uses).
 
     Movement windows are read from what the scoring job stored (derived kind
-    ``movement_windows``) when present with the requested window length; otherwise they
-    are computed here (:func:`_computed_windows`, same rules as before). ``movement_source``
-    in the result says which.
+    ``movement_windows``, read for every trial of a request in one query: ``batch``) when
+    present with the requested window length; otherwise, for stores scored before the job
+    kept them or for another window length, they are computed here
+    (:func:`_computed_windows`). ``movement_source`` in the result says which.
     """
     from measures.correspondence.local import window_terrain_patches
     from measures.terrain.summary import TERRAIN_DEFAULTS
 
-    trial = repo.get_trial(session=session, trial_id=trial_id)
-    arena = repo.get_arena(session=session, arena_id=trial.arena_id)
-    if trial.treadmill_speed_m_s is not None or arena.kind == "treadmill":
-        raise BadInput(f"trial {trial.id} is on a treadmill; local correspondence needs overground")
-    subject = repo.get_subject(session=session, subject_id=trial.subject_id)
-    if subject.marker_set is None:
-        raise BadInput(f"subject {subject.id} has no marker roles")
-    params = recipe.parameters or {}
+    if batch is None:
+        rows = repo.load_study_rows(session=session, recipe_hash=recipe.hash, trial_ids=[trial_id])
+        batch = _batch(session, store, recipe.hash, rows)
+    row = batch.trials.get(trial_id)
+    if row is None:
+        raise NotFound("trial", trial_id)
+    if row["treadmill_speed_m_s"] is not None or row["arena_kind"] == "treadmill":
+        raise BadInput(f"trial {trial_id} is on a treadmill; local correspondence needs overground")
+    params = current_parameters(recipe.parameters)
     order = tuple(_section(params, "terrain", TERRAIN_DEFAULTS)["ordinal_order"])
-    windows = _stored_windows(session, store, trial.id, recipe.hash, window_s)
+    windows = _stored_windows(batch.windows.get(trial_id), window_s)
     if windows is None:
+        trial = repo.get_trial(session=session, trial_id=trial_id)
+        subject = repo.get_subject(session=session, subject_id=trial.subject_id)
+        if subject.marker_set is None:
+            raise BadInput(f"subject {subject.id} has no marker roles")
         windows = _computed_windows(session, store, trial, subject, recipe, window_s)
-    scan = _local_scan(session, recipe.hash, trial)
-    z, spacing, origin = _heightmap(store, scan)
+    arena_id = row["arena_id"]
+    if arena_id not in batch.heightmaps:  # one heightmap read per arena, not per trial
+        scan = _local_scan(session, batch.scans.get(arena_id, []), row)
+        batch.heightmaps[arena_id] = (scan, _heightmap(store, scan))
+    scan, (z, spacing, origin) = batch.heightmaps[arena_id]
     if margin_m is None:
-        margin_m = subject.body_length_m / 4 if subject.body_length_m else _FALLBACK_MARGIN_M
+        body_length_m = row["body_length_m"]
+        margin_m = body_length_m / 4 if body_length_m else _FALLBACK_MARGIN_M
     path = _to_scan_frame(windows["path_m"], scan.registration)[:, :2]
     patches = window_terrain_patches(
         path,
@@ -256,15 +279,16 @@ def trial_windows(
         window_start_s=windows["window_start_s"],
         window_stop_s=windows["window_stop_s"],
         z=z,
-        grid_spacing_m=spacing,
+        dx_m=spacing[0],
+        dy_m=spacing[1],
         origin_xy_m=origin,
         margin_m=margin_m,
         ordinal_order=order,
     )
     return {
-        "trial_id": trial.id,
-        "arena_id": trial.arena_id,
-        "subject_id": trial.subject_id,
+        "trial_id": trial_id,
+        "arena_id": arena_id,
+        "subject_id": row["subject_id"],
         "scan_id": scan.id,
         "embedding_delay_samples": windows["delay"],
         "embedding_dimension": windows["dimension"],
@@ -299,24 +323,24 @@ def local_report(
     warnings: list[str] = []
     if trial_ids:
         ids = list(trial_ids)
+        study_rows = repo.load_study_rows(session=session, recipe_hash=prof.hash, trial_ids=ids)
     else:
         study_id = (
             None
             if selection.study is None
             else repo.get_study_by_name(session=session, name=selection.study).id
         )
-        ids = [
-            t["id"]
-            for t in repo.load_study_rows(
-                session=session,
-                recipe_hash=prof.hash,
-                study_id=study_id,
-                arena_ids=selection.arena_ids,
-                subject_ids=selection.subject_ids,
-                conditions=selection.conditions,
-                trial_ids=selection.trial_ids,
-            ).trials
-        ]
+        study_rows = repo.load_study_rows(
+            session=session,
+            recipe_hash=prof.hash,
+            study_id=study_id,
+            arena_ids=selection.arena_ids,
+            subject_ids=selection.subject_ids,
+            conditions=selection.conditions,
+            trial_ids=selection.trial_ids,
+        )
+        ids = [t["id"] for t in study_rows.trials]
+    batch = _batch(session, store, prof.hash, study_rows)
     per_trial = []
     for tid in ids:
         try:
@@ -328,6 +352,7 @@ def local_report(
                     recipe=prof,
                     window_s=window_s,
                     margin_m=margin_m,
+                    batch=batch,
                 )
             )
         except (BadInput, InvalidParameterError, InsufficientDataError, ValueError) as exc:

@@ -82,7 +82,7 @@ DIAGNOSTIC_MEASURES = frozenset(
         "step_classes_n",
         "step_class_within_rms_m",
         "valid_fraction",
-        "heightmap_cell_m",
+        "heightmap_dx_m",
         "heightmap_hole_fraction",
         "hole_fraction",
         "flagged_frame_fraction",

@@ -46,7 +46,7 @@ def heightmap_payload(scan: Any, store: Any, max_px: int) -> dict[str, Any]:
         z = np.where(np.asarray(store.get_array(scan.valid_mask_sha256), dtype=bool), z, np.nan)
     factor = max(1, int(np.ceil(max(z.shape) / max_px)))
     small = _block_mean(z, factor)
-    dx, dy = float(scan.grid_dx_m) * factor, float(scan.grid_dy_m) * factor
+    dx, dy = float(scan.dx_m) * factor, float(scan.dy_m) * factor
     return {
         "scan_id": scan.id,
         "arena_id": scan.arena_id,

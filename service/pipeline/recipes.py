@@ -23,8 +23,10 @@ from measures.errors import InvalidParameterError
 
 __all__ = [
     "DEFAULT_RECIPE",
+    "LEGACY_NAMES",
     "SECTIONS",
     "complete_parameters",
+    "current_parameters",
     "default_parameters",
     "ensure_default_recipe",
     "resolve_recipe",
@@ -34,10 +36,25 @@ DEFAULT_RECIPE = "default"
 SECTIONS = ("movement", "terrain", "heightmap")
 # A fixed grid spacing a recipe may choose for rasterised scans: 1 mm, five times the ~0.2 mm
 # resolution of small-animal capture (common practice). The default recipe leaves
-# ``heightmap.cell_m`` unset: the cell then comes from the cloud's own point spacing
-# (measures.heightmap_cell_m), so a 30 m lidar tile and a 30 cm tray both get a sensible grid.
-DEFAULT_CELL_M = 0.001
+# ``heightmap.dx_m`` unset: the cell then comes from the cloud's own point spacing
+# (measures.heightmap_dx_m), so a 30 m lidar tile and a 30 cm tray both get a sensible grid.
+DEFAULT_DX_M = 0.001
 _FUNCTION = "analysis recipe"
+
+#: Parameter names of earlier releases -> today's name, by section (``None``: the parameter
+#: was never read and is dropped). A stored recipe keeps its JSON, and so its hash, the key
+#: its scores and jobs are stored under; its names are translated here, in this one place,
+#: whenever a job or a view reads it (:func:`current_parameters`) and in the overrides a
+#: client sends (:func:`complete_parameters`).
+LEGACY_NAMES: dict[str, dict[str, str | None]] = {
+    "heightmap": {"cell_m": "dx_m"},
+    "movement": {
+        "embedding_delay": "embedding_delay_samples",
+        "ordinal_delay": "ordinal_delay_samples",
+        "rqa_theiler": "rqa_theiler_samples",
+        "ssa_window": None,  # never read: the state window is ssa_window_s
+    },
+}
 
 
 def _jsonable(value: Mapping[str, Any]) -> dict[str, Any]:
@@ -62,6 +79,28 @@ def default_parameters() -> dict[str, Any]:
     )
 
 
+def _translate(section: str, params: Mapping[str, Any]) -> dict[str, Any]:
+    old_names = LEGACY_NAMES.get(section, {})
+    out: dict[str, Any] = {}
+    for key, value in params.items():
+        new = old_names.get(key, key)
+        if new is not None and not (new != key and new in params):  # today's name wins
+            out[new] = value
+    return out
+
+
+def current_parameters(parameters: Mapping[str, Any] | None) -> dict[str, Any]:
+    """A stored recipe's parameters under today's names (:data:`LEGACY_NAMES`).
+
+    The stored JSON and its hash are left as they are; only the copy returned is renamed.
+    """
+    out: dict[str, Any] = copy.deepcopy(dict(parameters or {}))
+    for section, params in out.items():
+        if isinstance(params, Mapping):
+            out[section] = _translate(section, params)
+    return out
+
+
 def _check_value(section: str, key: str, value: Any, default: Any) -> None:
     # Light type check against the default; the measures check ranges when a job runs.
     if default is None or value is None:
@@ -80,10 +119,11 @@ def _check_value(section: str, key: str, value: Any, default: Any) -> None:
 def complete_parameters(given: Mapping[str, Any] | None) -> dict[str, Any]:
     """Merge ``given`` (sections of overrides) onto the defaults; reject unknown names.
 
-    Raises ``InvalidParameterError`` naming the section and key.
+    Names of earlier releases (:data:`LEGACY_NAMES`) are accepted and stored under
+    today's names. Raises ``InvalidParameterError`` naming the section and key.
     """
     out = default_parameters()
-    for section, overrides in (given or {}).items():
+    for section, overrides in current_parameters(given).items():
         if section not in SECTIONS:
             raise InvalidParameterError(
                 "parameters", _FUNCTION, f"sections among {SECTIONS}", section

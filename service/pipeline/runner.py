@@ -32,7 +32,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from service.pipeline.flows import FLOWS, Compute, Flow, JobContext, record_missing
-from service.pipeline.recipes import resolve_recipe
+from service.pipeline.recipes import current_parameters, resolve_recipe
 from service.pipeline.tasks import DEFAULT_MAX_GRID_CELLS
 from storage import repo
 from storage.repo.jobs import release_job
@@ -226,7 +226,7 @@ class JobRunner:
             flow = self.flows[job.target_kind]
             ctx = JobContext(
                 job_id=job.id, target_kind=job.target_kind, target_id=job.target_id,
-                recipe_hash=recipe.hash, parameters=recipe.parameters,
+                recipe_hash=recipe.hash, parameters=current_parameters(recipe.parameters),
                 sessionmaker=self.sessionmaker, store=self.store, listener=self.listener,
                 max_grid_cells=self.max_grid_cells,
             )  # fmt: skip

@@ -154,33 +154,33 @@ def _bytes_text(n: float) -> str:
 
 
 def grid_cap_check(
-    extent_x_m: float, extent_y_m: float, cell_m: float, max_cells: int | None
+    extent_x_m: float, extent_y_m: float, dx_m: float, max_cells: int | None
 ) -> None:
     """Refuse a heightmap past ``max_cells`` before anything is allocated.
 
     The message names the cells, the bytes per float64 array and the smallest cell that
-    fits, so a lab can set ``heightmap.cell_m`` in a recipe (or raise the cap).
+    fits, so a lab can set ``heightmap.dx_m`` in a recipe (or raise the cap).
     """
     from measures.errors import InvalidParameterError
 
-    if max_cells is None or not (cell_m > 0):
+    if max_cells is None or not (dx_m > 0):
         return
-    nx = math.floor(extent_x_m / cell_m) + 1
-    ny = math.floor(extent_y_m / cell_m) + 1
+    nx = math.floor(extent_x_m / dx_m) + 1
+    ny = math.floor(extent_y_m / dx_m) + 1
     cells = nx * ny
     if cells <= max_cells:
         return
-    fit = math.sqrt(max(extent_x_m, cell_m) * max(extent_y_m, cell_m) / max_cells)
+    fit = math.sqrt(max(extent_x_m, dx_m) * max(extent_y_m, dx_m) / max_cells)
     while (math.floor(extent_x_m / fit) + 1) * (math.floor(extent_y_m / fit) + 1) > max_cells:
         fit *= 1.01
     raise InvalidParameterError(
-        "cell_m",
+        "dx_m",
         "the heightmap step",
         f"at least {fit:.3g} m for this scan ({extent_x_m:.3g} m x {extent_y_m:.3g} m): at "
-        f"{cell_m:g} m its grid would have {nx:,} x {ny:,} = {cells:,} cells "
+        f"{dx_m:g} m its grid would have {nx:,} x {ny:,} = {cells:,} cells "
         f"({_bytes_text(cells * 8)} per float64 array), past the cap of {max_cells:,} "
-        "cells (GAITSCAPE_MAX_GRID_CELLS); set heightmap.cell_m in a recipe or raise the cap",
-        cell_m,
+        "cells (GAITSCAPE_MAX_GRID_CELLS); set heightmap.dx_m in a recipe or raise the cap",
+        dx_m,
     )
 
 
@@ -215,7 +215,7 @@ def heightmap_task(
     1 mm grid would ask for hundreds of GiB). ``heightmap_hole_fraction`` is the fraction of
     cells without data (filled by interpolation for a point cloud, NaN in a heightmap file).
     """
-    from measures import Score, heightmap_cell_m, points_to_heightmap
+    from measures import Score, heightmap_dx_m, points_to_heightmap
     from storage.readers import read_scan
 
     _verify(path, sha256)
@@ -224,11 +224,11 @@ def heightmap_task(
         points = np.asarray(data.points, dtype=np.float64)
         ex, ey = _points_extent(points, params.get("crop"))
         # The cell is chosen once, here, so the cap is checked on the grid that will be built.
-        cell_m, cell_note = heightmap_cell_m(points, cell_m=params.get("cell_m"))
-        grid_cap_check(ex, ey, cell_m, max_cells)
-        hm = points_to_heightmap(points, **{**dict(params), "cell_m": cell_m})
+        dx_m, cell_note = heightmap_dx_m(points, dx_m=params.get("dx_m"))
+        grid_cap_check(ex, ey, dx_m, max_cells)
+        hm = points_to_heightmap(points, **{**dict(params), "dx_m": dx_m})
         qc: tuple[Any, ...] = (
-            Score("heightmap_cell_m", cell_m, "m", note=cell_note),
+            Score("heightmap_dx_m", dx_m, "m", note=cell_note),
             Score("heightmap_filled_fraction", hm.filled_fraction, "1"),
             Score("heightmap_hole_fraction", hm.filled_fraction, "1"),
             Score("heightmap_points_used", float(hm.n_points_used), "count"),

@@ -86,7 +86,7 @@ def _terrain_panel(
     study: StudyData, session: Any, store: Any, arena: Any, scan: Any
 ) -> TerrainPanel:
     a = _derived(session, store, "terrain_plots", ("scan", scan.id), study.recipe_hash)
-    dx, dy = float(scan.grid_dx_m), float(scan.grid_dy_m or scan.grid_dx_m)
+    dx, dy = float(scan.dx_m), float(scan.dy_m or scan.dx_m)
     nx, ny = int(scan.grid_nx or 0), int(scan.grid_ny or 0)
     return TerrainPanel(
         arena_id=arena.id,

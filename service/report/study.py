@@ -10,6 +10,7 @@ from collections import defaultdict
 from dataclasses import dataclass, field
 from typing import Any
 
+from service.pipeline.recipes import current_parameters
 from storage import repo
 
 __all__ = ["StudyData", "TrialScores", "load_study"]
@@ -146,7 +147,7 @@ def load_study(*, session: Any, recipe: str | None = None, study: str | None = N
         recipe_name=prof.name,
         recipe_version=prof.version,
         recipe_hash=prof.hash,
-        parameters=dict(prof.parameters or {}),
+        parameters=current_parameters(prof.parameters),
         arenas=arenas,
         subjects=subjects,
         scans=scans,

@@ -19,7 +19,7 @@ from storage.repo.catalog import (
     normalise_arena_kind,
     validate_roles,
 )
-from storage.repo.derived import list_derived, load_derived, save_derived
+from storage.repo.derived import list_derived, load_derived, load_derived_many, save_derived
 from storage.repo.jobs import (
     claim_job,
     enqueue_job,
@@ -127,6 +127,7 @@ __all__ = [
     "list_tokens",
     "list_trials",
     "load_derived",
+    "load_derived_many",
     "load_scan_data",
     "load_study_rows",
     "load_trial_data",

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import io
 import zipfile
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 from sqlalchemy import select
@@ -21,7 +21,7 @@ from storage.errors import BadInput, NotFound
 from storage.models import TARGET_KINDS, Derived, utcnow
 from storage.repo._common import need_text
 
-__all__ = ["list_derived", "load_derived", "save_derived"]
+__all__ = ["list_derived", "load_derived", "load_derived_many", "save_derived"]
 
 
 def _npz_bytes(arrays: Mapping[str, np.ndarray]) -> bytes:
@@ -130,10 +130,41 @@ def load_derived(
     )
     if row is None:
         raise NotFound("derived arrays", f"{kind} of {target_kind} {target_id}")
+    return _read(store, row)
+
+
+def _read(store: ArtifactStore, row: Derived) -> dict[str, np.ndarray]:
     data = store.read_bytes(row.sha256, verify=True)
     try:
         with np.load(io.BytesIO(data), allow_pickle=False) as npz:
             return {name: npz[name] for name in npz.files}
     except (ValueError, OSError, zipfile.BadZipFile) as exc:
-        what = f"derived arrays {kind} of {target_kind} {target_id}"
+        what = f"derived arrays {row.kind} of {row.target_kind} {row.target_id}"
         raise BadInput(f"{what} unreadable: {exc}") from None
+
+
+def load_derived_many(
+    *,
+    session: Session,
+    store: ArtifactStore,
+    target_kind: str,
+    target_ids: Sequence[int],
+    recipe_hash: str,
+    kind: str,
+) -> dict[int, dict[str, np.ndarray]]:
+    """The arrays of ``kind`` stored for each of ``target_ids`` under one recipe, by target
+    id, from one query; targets with none stored are absent from the result.
+
+    Each entry is read as :func:`load_derived` reads it (hash checked, no pickle).
+    """
+    if not target_ids:
+        return {}
+    rows = session.scalars(
+        select(Derived).where(
+            Derived.target_kind == target_kind,
+            Derived.target_id.in_(list(target_ids)),
+            Derived.recipe_hash == recipe_hash,
+            Derived.kind == kind,
+        )
+    )
+    return {row.target_id: _read(store, row) for row in rows}

@@ -180,7 +180,7 @@ class StudyRows:
 
     ``trials``: one mapping per selected trial with its arena name and kind and its
     subject's label, body length and mass. ``scans``: every scan of those arenas (id,
-    arena_id, kind, captured_at, created_at, heightmap_sha256, grid_dx_m). ``scores``:
+    arena_id, kind, captured_at, created_at, heightmap_sha256, dx_m). ``scores``:
     ``(target_kind, target_id, measure, value, surrogate_z)`` of those trials and scans
     under the recipe.
     """
@@ -247,7 +247,7 @@ def load_study_rows(
             Scan.captured_at,
             Scan.created_at,
             Scan.heightmap_sha256,
-            Scan.grid_dx_m,
+            Scan.dx_m,
         )
         .where(Scan.arena_id.in_(arenas_of))
         .order_by(Scan.id)
@@ -285,7 +285,7 @@ def arena_scan_scores(
             Scan.captured_at,
             Scan.created_at,
             Scan.heightmap_sha256,
-            Scan.grid_dx_m,
+            Scan.dx_m,
         )
         .where(Scan.arena_id == arena_id)
         .order_by(Scan.id)

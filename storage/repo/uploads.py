@@ -220,8 +220,8 @@ def _scan_fields(data: ScanData) -> dict[str, Any]:
         "n_points": None if data.points is None else len(data.points),
         "grid_ny": None if data.z is None else data.z.shape[0],
         "grid_nx": None if data.z is None else data.z.shape[1],
-        "grid_dx_m": data.dx_m,
-        "grid_dy_m": data.dy_m,
+        "dx_m": data.dx_m,
+        "dy_m": data.dy_m,
     }
 
 
@@ -627,7 +627,7 @@ def attach_heightmap(
                     role="heightmap", array=z)  # fmt: skip
     attach_artifact(session=session, store=store, target_kind="scan", target_id=scan_id,
                     role="valid_mask", array=valid)  # fmt: skip
-    row.grid_dx_m, row.grid_dy_m = dx, dy
+    row.dx_m, row.dy_m = dx, dy
     row.grid_ny, row.grid_nx = z.shape
     session.commit()
     return row

@@ -52,7 +52,7 @@ def test_patches_recover_rough_and_smooth_halves():
         window_start_s=starts,
         window_stop_s=starts + 2.0,
         z=z,
-        grid_spacing_m=DX_M,
+        dx_m=DX_M,
         margin_m=0.02,
     )
     r0, r1, c0, c1 = p.bounds_ij[1]  # x in 0.15..0.25 m: rough only
@@ -155,7 +155,7 @@ def lab(tmp_path: Path, rng):
         _, secret = repo.create_token(session=s, scopes=["read"], label="t")
         arena = repo.create_arena(session=s, name="half rough", kind="open_field")
         subject = repo.create_subject(session=s, label="Q1", marker_roles=ROLES)
-        params = {"movement": {"embedding_delay": 10, "embedding_dimension": 3}}
+        params = {"movement": {"embedding_delay_samples": 10, "embedding_dimension": 3}}
         repo.create_recipe(session=s, name="default", parameters=params)
         z = _ground()
         npy = io.BytesIO()
@@ -224,3 +224,62 @@ def test_route_unknown_and_treadmill_trials(lab):
         s.commit()
     res = client.get(f"/v1/trials/{trial_id}/local-correspondence", params=params)
     assert res.status_code == 400 and "treadmill" in res.json()["detail"]
+
+
+def test_stored_windows_are_read_for_every_trial_in_one_query(lab, rng):
+    # What the scoring job stores (derived kind "movement_windows") is what the view uses:
+    # two trials with stored windows give the same rows as when the view computed them, the
+    # result says "stored", and the derived table is read by one statement for both trials.
+    from sqlalchemy import event
+
+    from service.analysis.local import _computed_windows
+
+    client, first = lab
+    app = client.app
+    params = {"recipe": "default", "window_s": 2.0, "margin_m": 0.02, "n_permutations": 99}
+    with app.state.sessionmaker() as s:
+        trial = repo.get_trial(session=s, trial_id=first)
+        second, _ = repo.ingest_trial(
+            session=s,
+            store=app.state.store,
+            staged=app.state.store.put_stream([_walk_csv(rng)], filename="w2.csv"),
+            filename="w2.csv",
+            meta={"arena_id": trial.arena_id, "subject_id": trial.subject_id, "units": "mm"},
+        )
+        ids = [first, second.id]
+    computed = client.get("/v1/correspondence/local", params={**params, "trial_id": ids})
+    assert computed.status_code == 200, computed.text
+    assert {t["movement_source"] for t in computed.json()["trials"]} == {"computed"}
+    with app.state.sessionmaker() as s:
+        recipe = repo.get_recipe(session=s, name="default")
+        for tid in ids:
+            t = repo.get_trial(session=s, trial_id=tid)
+            subject = repo.get_subject(session=s, subject_id=t.subject_id)
+            w = _computed_windows(s, app.state.store, t, subject, recipe, 2.0)
+            arrays = {
+                "window_start_s": w["window_start_s"],
+                "window_stop_s": w["window_stop_s"],
+                "window_s": np.asarray(2.0),
+                "delay_samples": np.asarray(w["delay"]),
+                "dimension": np.asarray(w["dimension"]),
+                "path_origin_m": w["path_m"],
+                "path_time_s": w["path_time_s"],
+            } | {f"m_{k}": v for k, v in w["movement"].items()}
+            repo.save_derived(session=s, store=app.state.store, target_kind="trial",
+                              target_id=tid, recipe_hash=recipe.hash,
+                              kind="movement_windows", arrays=arrays)  # fmt: skip
+    statements: list[str] = []
+    engine = app.state.sessionmaker.kw["bind"]
+
+    def count(conn, cursor, statement, *args):
+        statements.append(statement)
+
+    event.listen(engine, "before_cursor_execute", count)
+    try:
+        stored = client.get("/v1/correspondence/local", params={**params, "trial_id": ids})
+    finally:
+        event.remove(engine, "before_cursor_execute", count)
+    assert stored.status_code == 200, stored.text
+    assert {t["movement_source"] for t in stored.json()["trials"]} == {"stored"}
+    assert sum("FROM derived" in q for q in statements) == 1
+    assert stored.json()["rows"] == computed.json()["rows"]

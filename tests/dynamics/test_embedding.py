@@ -97,7 +97,7 @@ def test_ssa_two_sinusoids(rng):
     a1, a2, sigma = 2.0, 1.0, 0.1
     x = a1 * np.sin(2 * np.pi * t / 10) + a2 * np.sin(2 * np.pi * t / 20 + 0.4)
     x = x + rng.normal(scale=sigma, size=n)
-    ssa = singular_spectrum(x, window=window, variance_fraction=0.95)
+    ssa = singular_spectrum(x, window_samples=window, variance_fraction=0.95)
     lam = ssa.eigenvalues
     # Tolerance 2 %: finite window leakage and noise-sample variance.
     assert_allclose(lam[0] + lam[1], window * (a1**2 / 2 + 2 * sigma**2 / window), rtol=0.02)

@@ -33,11 +33,11 @@ def _svd_components(x: np.ndarray, window: int) -> tuple[np.ndarray, np.ndarray]
 def test_lag_covariance_route_equals_svd(window, rng) -> None:
     x = np.sin(np.arange(400) / 6.0) + 0.3 * rng.standard_normal(400)
     ref, eig = _svd_components(x, window)
-    got = singular_spectrum(x, window=window)
+    got = singular_spectrum(x, window_samples=window)
     assert_allclose(got.eigenvalues, eig, rtol=0, atol=1e-10)
     assert_allclose(got.components, ref, rtol=0, atol=1e-10)  # issue: equal within 1e-10
     assert_allclose(got.components.sum(axis=0), x - x.mean(), rtol=0, atol=1e-10)
-    lead = singular_spectrum(x, window=window, n_reconstructed=2)
+    lead = singular_spectrum(x, window_samples=window, n_reconstructed=2)
     assert lead.components.shape == (min(2, window), x.size)
     assert_allclose(lead.components, ref[:2], rtol=0, atol=1e-10)
 
@@ -48,7 +48,7 @@ def test_lag_covariance_equals_explicit_product(channels, step, rng) -> None:
     x -= x.mean(axis=0)
     traj = delay_embed(x if channels > 1 else x[:, 0], dimension=7, delay=step)
     assert_allclose(
-        lag_covariance(x, window=7, lag_step=step), traj.T @ traj, rtol=1e-12, atol=1e-9
+        lag_covariance(x, window_samples=7, lag_step=step), traj.T @ traj, rtol=1e-12, atol=1e-9
     )
 
 
@@ -58,7 +58,7 @@ def test_multichannel_state_is_the_pca_of_the_trajectory_matrix(rng) -> None:
     x = np.column_stack(
         [np.sin(2 * np.pi * t / 40), np.cos(2 * np.pi * t / 40), 0.2 * rng.standard_normal(800)]
     )
-    m = multichannel_ssa(x, window=8, lag_step=3, max_components=4, variance_fraction=0.5)
+    m = multichannel_ssa(x, window_samples=8, lag_step=3, max_components=4, variance_fraction=0.5)
     traj = delay_embed(x - x.mean(axis=0), dimension=8, delay=3)
     vals, vecs = np.linalg.eigh(traj.T @ traj)
     order = np.argsort(vals)[::-1]
@@ -73,7 +73,7 @@ def test_sinusoid_pair_holds_all_variance() -> None:
     # Analytic: a sinusoid observed in two channels is a rank-2 trajectory matrix.
     t = np.arange(600)
     x = np.column_stack([np.sin(2 * np.pi * t / 50), 2 * np.cos(2 * np.pi * t / 50)])
-    m = multichannel_ssa(x, window=10, lag_step=2)
+    m = multichannel_ssa(x, window_samples=10, lag_step=2)
     assert m.n_components == 2
     assert_allclose(m.variance_share[:2].sum(), 1.0, rtol=1e-10)
     rec = m.reconstruct(0) + m.reconstruct(1)
@@ -82,4 +82,4 @@ def test_sinusoid_pair_holds_all_variance() -> None:
 
 def test_multichannel_too_short() -> None:
     with pytest.raises(InsufficientDataError):
-        multichannel_ssa(np.zeros((20, 2)), window=10, lag_step=2)
+        multichannel_ssa(np.zeros((20, 2)), window_samples=10, lag_step=2)

@@ -53,7 +53,7 @@ def test_fast_motion_is_not_a_spike(rate, rng) -> None:
     assert pre.flagged_fraction < 0.01 and not pre.warnings
     assert pre.valid_fraction >= 0.95
     if rate == 30.0:
-        old = detect_spikes(m, window=5, motion_scaled=False)
+        old = detect_spikes(m, window_samples=5, motion_scaled=False)
         flagged = np.unique(np.concatenate(old.spike_frames)).size / m.shape[0]
         assert flagged > 0.1  # the failure the motion scale removes
 
@@ -63,7 +63,7 @@ def test_injected_spikes_are_found(rate, rng) -> None:
     m = _fast_walker(rate, rng)
     frames = np.array([20, 70, 130])
     m[frames, 2, 1] += 0.08  # 8 cm one-frame excursions of one foot marker
-    found = detect_spikes(m, window=spike_window_frames(rate)).spike_frames[2]
+    found = detect_spikes(m, window_samples=spike_window_frames(rate)).spike_frames[2]
     assert set(frames) <= set(found.tolist())
 
 

@@ -163,7 +163,7 @@ def test_lidar_tile_on_the_default_grid_is_refused_before_allocation(name: str) 
 
     from measures.errors import InvalidParameterError
     from service.pipeline import DEFAULT_MAX_GRID_CELLS
-    from service.pipeline.recipes import DEFAULT_CELL_M
+    from service.pipeline.recipes import DEFAULT_DX_M
     from service.pipeline.tasks import _points_extent, grid_cap_check
 
     las = laspy.read(_las_file(name))
@@ -171,7 +171,7 @@ def test_lidar_tile_on_the_default_grid_is_refused_before_allocation(name: str) 
     ex, ey = _points_extent(points, None)
     assert ex > 10 and ey > 10  # metres: the file's scale and offset applied by laspy
     with pytest.raises(InvalidParameterError) as err:
-        grid_cap_check(ex, ey, DEFAULT_CELL_M, DEFAULT_MAX_GRID_CELLS)
+        grid_cap_check(ex, ey, DEFAULT_DX_M, DEFAULT_MAX_GRID_CELLS)
     text = str(err.value)
     assert "GAITSCAPE_MAX_GRID_CELLS" in text and "GiB per float64 array" in text
     fits = float(text.split("must be at least ")[1].split(" m ")[0])

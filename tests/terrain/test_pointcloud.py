@@ -41,9 +41,7 @@ def test_sine_surface_rasterises_to_analytic_cell_means(rng):
     amp, lam, cell = 2e-3, 0.05, 2.5e-3
     k = 2 * np.pi / lam
     pts = _sine(rng, 400_000, amp, lam)
-    hm = points_to_heightmap(
-        pts, cell_m=cell, plane="none", outlier_method="none", crop=(0, L, 0, L)
-    )
+    hm = points_to_heightmap(pts, dx_m=cell, plane="none", outlier_method="none", crop=(0, L, 0, L))
     assert hm.z.shape == (80, 80)
     assert hm.valid.all() and hm.filled_fraction == 0.0
     edges = np.arange(81) * cell
@@ -67,9 +65,7 @@ def test_sine_surface_rasterises_to_analytic_cell_means(rng):
 
 def test_counts_match_numpy_histogram2d(rng):
     pts = _sine(rng, 50_000)
-    hm = points_to_heightmap(
-        pts, cell_m=0.01, plane="none", outlier_method="none", crop=(0, L, 0, L)
-    )
+    hm = points_to_heightmap(pts, dx_m=0.01, plane="none", outlier_method="none", crop=(0, L, 0, L))
     edges = np.linspace(0, L, 21)
     ref, _, _ = np.histogram2d(pts[:, 1], pts[:, 0], bins=[edges, edges])  # numpy reference
     np.testing.assert_array_equal(hm.count, ref.astype(np.int64))
@@ -78,7 +74,7 @@ def test_counts_match_numpy_histogram2d(rng):
 @pytest.mark.parametrize("plane", ["lstsq", "ransac"])
 def test_flat_plane_noise_levels(rng, plane):
     pts = _flat(rng)
-    hm = points_to_heightmap(pts, cell_m=4e-3, plane=plane)
+    hm = points_to_heightmap(pts, dx_m=4e-3, plane=plane)
     # ISO 25178-2 Sq of the raw heights about the plane is the noise sigma;
     # 200k points give a relative standard error of 1/sqrt(2n) = 0.16 %.
     assert_allclose(hm.point_sq_m, SIGMA, rtol=0.01)
@@ -90,11 +86,11 @@ def test_flat_plane_noise_levels(rng, plane):
 
 def test_tilted_plane_is_levelled_to_the_same_numbers(rng):
     pts = _flat(rng)
-    level = points_to_heightmap(pts, cell_m=4e-3, plane="lstsq")
+    level = points_to_heightmap(pts, dx_m=4e-3, plane="lstsq")
     axis = np.array([*rng.normal(size=2), 0.0])
     tilt = Rotation.from_rotvec(np.radians(15) * axis / np.linalg.norm(axis))
     tilted = tilt.apply(pts) + np.array([0.3, -0.1, 0.5])
-    hm = points_to_heightmap(tilted, cell_m=4e-3, plane="ransac", seed=3)
+    hm = points_to_heightmap(tilted, dx_m=4e-3, plane="ransac", seed=3)
     true_normal = tilt.apply([0.0, 0.0, 1.0])
     angle = np.degrees(np.arccos(np.clip(hm.plane_normal @ true_normal, -1, 1)))
     # Slope error of a plane fit ~ sigma / (L sqrt(N / 12)) ~ 1e-5 rad (least
@@ -116,7 +112,7 @@ def test_outliers_are_removed(rng, method):
     xy = rng.uniform(0, L, (n_out, 2))
     dz = rng.choice([-1.0, 1.0], n_out) * rng.uniform(5e-3, 5e-2, n_out)  # 25-250 sigma
     dirty = np.vstack([clean, np.column_stack([xy, dz])])
-    kw = {"cell_m": 5e-3, "plane": "none", "crop": (0, L, 0, L)}
+    kw = {"dx_m": 5e-3, "plane": "none", "crop": (0, L, 0, L)}
     ref = points_to_heightmap(clean, outlier_method="none", **kw)
     hm = points_to_heightmap(dirty, outlier_method=method, **kw)
     raw = points_to_heightmap(dirty, outlier_method="none", **kw)
@@ -150,9 +146,7 @@ def test_holes_fill_exactly_within_maximum_principle(rng):
     keep = (d > radii).all(axis=1)
     pts = np.column_stack([xy[keep], surface(*xy[keep].T)])
     cell = 5e-3
-    hm = points_to_heightmap(
-        pts, cell_m=cell, plane="none", outlier_method="none", crop=(0, L, 0, L)
-    )
+    hm = points_to_heightmap(pts, dx_m=cell, plane="none", outlier_method="none", crop=(0, L, 0, L))
     edges = np.linspace(0, L, 41)
     counts, _, _ = np.histogram2d(pts[:, 1], pts[:, 0], bins=[edges, edges])
     np.testing.assert_array_equal(hm.valid, counts > 0)  # numpy reference
@@ -163,7 +157,7 @@ def test_holes_fill_exactly_within_maximum_principle(rng):
     measured_err = np.abs(hm.z - exact)[hm.valid].max()
     assert np.abs(hm.z - exact)[~hm.valid].max() <= measured_err * (1 + 1e-9)
     unfilled = points_to_heightmap(
-        pts, cell_m=cell, plane="none", outlier_method="none", crop=(0, L, 0, L), fill_holes=False
+        pts, dx_m=cell, plane="none", outlier_method="none", crop=(0, L, 0, L), fill_holes=False
     )
     assert np.isnan(unfilled.z[~unfilled.valid]).all()
     assert np.isfinite(unfilled.z[unfilled.valid]).all()
@@ -175,8 +169,8 @@ def test_ransac_finds_the_floor_under_a_raised_block(rng):
     pts = _flat(rng, 100_000)
     on_block = (pts[:, 0] > 0.12) & (pts[:, 1] > 0.05)
     pts[on_block, 2] += 0.02
-    r = points_to_heightmap(pts, cell_m=5e-3, plane="ransac", outlier_method="none")
-    q = points_to_heightmap(pts, cell_m=5e-3, plane="lstsq", outlier_method="none")
+    r = points_to_heightmap(pts, dx_m=5e-3, plane="ransac", outlier_method="none")
+    q = points_to_heightmap(pts, dx_m=5e-3, plane="lstsq", outlier_method="none")
     tilt_r = np.degrees(np.arccos(r.plane_normal[2]))
     tilt_q = np.degrees(np.arccos(q.plane_normal[2]))
     assert tilt_r < 0.01 and tilt_q > 1.0
@@ -185,8 +179,8 @@ def test_ransac_finds_the_floor_under_a_raised_block(rng):
 
 def test_seeded_and_reproducible(rng):
     pts = _sine(rng, 30_000)
-    a = points_to_heightmap(pts, cell_m=0.01, seed=5, max_points_for_fit=5000)
-    b = points_to_heightmap(pts, cell_m=0.01, seed=5, max_points_for_fit=5000)
+    a = points_to_heightmap(pts, dx_m=0.01, seed=5, max_points_for_fit=5000)
+    b = points_to_heightmap(pts, dx_m=0.01, seed=5, max_points_for_fit=5000)
     np.testing.assert_array_equal(a.z, b.z)
     assert a.parameters["plane_threshold_m"] == b.parameters["plane_threshold_m"]
 
@@ -208,9 +202,9 @@ def _compare_paths(rng, n, fit_points):
     pts = Rotation.from_rotvec([0.05, -0.08, 0.3]).apply(pts)
     cell = L / 64
     full = points_to_heightmap(
-        pts, cell_m=cell, outlier_method="knn", max_points_for_fit=None, crop=2 * cell
+        pts, dx_m=cell, outlier_method="knn", max_points_for_fit=None, crop=2 * cell
     )
-    fast = points_to_heightmap(pts, cell_m=cell, max_points_for_fit=fit_points, crop=2 * cell)
+    fast = points_to_heightmap(pts, dx_m=cell, max_points_for_fit=fit_points, crop=2 * cell)
     assert full.z.shape == fast.z.shape
     angle = np.arccos(np.clip(full.plane_normal @ fast.plane_normal, -1, 1))  # rad
     # Slope standard error of a least-squares plane on N points spread
@@ -240,7 +234,7 @@ def test_voxel_downsample_is_the_voxel_centroid(rng):
     ref = np.array([pts[(idx == v).all(axis=1)].mean(axis=0) for v in np.unique(idx, axis=0)])
     assert out.shape == ref.shape
     assert_allclose(np.sort(out, axis=0), np.sort(ref, axis=0), rtol=0, atol=1e-15)
-    hm = points_to_heightmap(_flat(rng, 50_000), cell_m=0.01, voxel_m=2e-3)
+    hm = points_to_heightmap(_flat(rng, 50_000), dx_m=0.01, voxel_m=2e-3)
     assert hm.n_points_in == 50_000 and hm.n_points_used < 50_000
 
 
@@ -256,19 +250,19 @@ def test_voxel_downsample_is_the_voxel_centroid(rng):
 )
 def test_degenerate_clouds_raise(points, error):
     with pytest.raises(error):
-        points_to_heightmap(points, cell_m=0.01)
+        points_to_heightmap(points, dx_m=0.01)
 
 
 def test_bad_parameters_raise(rng):
     pts = _flat(rng, 1000)
-    with pytest.raises(InvalidParameterError, match="cell_m"):
-        points_to_heightmap(pts, cell_m=0.0)
+    with pytest.raises(InvalidParameterError, match="dx_m"):
+        points_to_heightmap(pts, dx_m=0.0)
     with pytest.raises(InvalidParameterError, match="plane"):
-        points_to_heightmap(pts, cell_m=0.01, plane="best")
+        points_to_heightmap(pts, dx_m=0.01, plane="best")
     with pytest.raises(InvalidParameterError, match="crop"):
-        points_to_heightmap(pts, cell_m=0.01, crop=(0.1, 0.0, 0, 1))
+        points_to_heightmap(pts, dx_m=0.01, crop=(0.1, 0.0, 0, 1))
     with pytest.raises(InsufficientDataError, match="crop"):
-        points_to_heightmap(pts, cell_m=0.01, crop=(5, 6, 5, 6))
+        points_to_heightmap(pts, dx_m=0.01, crop=(5, 6, 5, 6))
 
 
 def test_many_holes_fill_by_the_iterative_route_and_stay_exact_on_a_harmonic_surface() -> None:

@@ -141,7 +141,7 @@ def test_height_change_after_registration_finds_the_added_bump(rng):
     moving = _apply(np.linalg.inv(truth), terrain.scan(150_000, extra=bump))
     reg = register_scans(moving, fixed, voxel_m=3e-3)
     aligned = _apply(reg.transform, moving)
-    kw = {"cell_m": 4e-3, "plane": "none", "crop": (0.02, 0.38, 0.02, 0.38)}
+    kw = {"dx_m": 4e-3, "plane": "none", "crop": (0.02, 0.38, 0.02, 0.38)}
     old = points_to_heightmap(fixed, **kw)
     new = points_to_heightmap(aligned, **kw)
     hc = height_change(new.z, old.z, valid_new=new.valid, valid_old=old.valid, dx_m=4e-3)

@@ -9,7 +9,7 @@ import pytest
 
 from measures import (
     InvalidParameterError,
-    heightmap_cell_m,
+    heightmap_dx_m,
     heightmap_memory,
     point_spacing_m,
     points_to_heightmap,
@@ -42,14 +42,14 @@ def test_point_spacing_regular_grid_and_poisson():
 
 def test_cell_from_cloud_within_bounds():
     g = np.stack(np.meshgrid(np.arange(400), np.arange(300)), -1).reshape(-1, 2) * 1e-3
-    cell, note = heightmap_cell_m(g)
+    cell, note = heightmap_dx_m(g)
     assert cell == pytest.approx(3e-3) and "point spacing" in note
     # A sparse cloud over a small tray: 3 x spacing would leave < 64 cells across,
     # so the upper bound (shorter side / 64) applies and the note says so.
     sparse = np.stack(np.meshgrid(np.arange(40), np.arange(40)), -1).reshape(-1, 2) * 0.01
-    cell, note = heightmap_cell_m(sparse)
+    cell, note = heightmap_dx_m(sparse)
     assert cell == pytest.approx(0.39 / 64) and "clipped" in note
-    assert heightmap_cell_m(g, cell_m=0.002)[0] == 0.002
+    assert heightmap_dx_m(g, dx_m=0.002)[0] == 0.002
 
 
 def test_memory_estimate_and_refusal():
@@ -62,7 +62,7 @@ def test_memory_estimate_and_refusal():
         heightmap_memory(360.0, 170.0, 1e-3, n_points=110_000, cap_bytes=cap)
     text = str(info.value)
     assert "61,200,000,000 cells" in text and "bytes" in text and "smallest cell" in text
-    smallest = heightmap_memory(360.0, 170.0, 1.0, n_points=110_000, cap_bytes=cap).smallest_cell_m
+    smallest = heightmap_memory(360.0, 170.0, 1.0, n_points=110_000, cap_bytes=cap).smallest_dx_m
     assert heightmap_memory(360.0, 170.0, smallest, n_points=110_000, cap_bytes=cap).bytes <= cap
     with pytest.raises(InvalidParameterError):
         heightmap_memory(360.0, 170.0, smallest * 0.99, n_points=110_000, cap_bytes=cap)
@@ -76,7 +76,7 @@ def test_points_to_heightmap_refuses_before_allocating():
     pts = np.column_stack([rng.uniform(0, 360, 5000), rng.uniform(0, 170, 5000), np.zeros(5000)])
     pts[:, 2] = rng.normal(0, 0.01, 5000)
     with pytest.raises(InvalidParameterError, match="smallest cell that fits"):
-        points_to_heightmap(pts, cell_m=1e-3, memory_cap_bytes=2**30, plane="none")
+        points_to_heightmap(pts, dx_m=1e-3, memory_cap_bytes=2**30, plane="none")
     hm = points_to_heightmap(pts, plane="none")  # cell from the cloud
     assert hm.dx_m > 1.0 and any("point spacing" in n for n in hm.notes)
 
@@ -285,7 +285,7 @@ def _pit_field(seed=0):
 
 def test_pit_field_is_cleaned():
     pts, cell = _pit_field()
-    kw = {"cell_m": cell, "plane": "none", "crop": (0, 0.2, 0, 0.2)}
+    kw = {"dx_m": cell, "plane": "none", "crop": (0, 0.2, 0, 0.2)}
     hm = points_to_heightmap(pts, **kw)
     # After pit removal every cell is within 5 noise sigmas of the flat ground.
     assert np.abs(hm.z).max() < 5 * NOISE_M
@@ -306,7 +306,7 @@ def test_flat_tray_cloud_agrees_with_its_heightmap():
     spec = next(t for t in TRAYS if t.key == "treadmill-belt")  # the flattest ground
     z = make_tray(spec, seed=5)
     ref = areal_parameters(z, 1e-3)
-    hm = points_to_heightmap(scan_points(z, 1e-3, n_points=600_000, seed=3), cell_m=1e-3)
+    hm = points_to_heightmap(scan_points(z, 1e-3, n_points=600_000, seed=3), dx_m=1e-3)
     cloud = areal_parameters(hm.z, 1e-3)
     # Within the capture resolution: Sq within half of it (the cloud adds its own
     # averaged noise, ~0.2 mm / sqrt(2 points per cell) in quadrature), no cell
@@ -368,10 +368,10 @@ def test_clustered_cloud_gets_a_cell_between_sampling_and_coverage() -> None:
     # neighbour distance (0.1 m) alone gives 0.3 m cells, 97 % of them empty; the mean area
     # per point is sqrt(A / n) = 0.95 m; the rule takes their geometric mean (analytic:
     # 3 x sqrt(0.1 x 0.949) = 0.92 m).
-    from measures import heightmap_cell_m
+    from measures import heightmap_dx_m
 
     x = np.tile(np.arange(1000) * 0.1, 10)
     y = np.repeat(np.arange(10) * 10.0, 1000)
-    cell, note = heightmap_cell_m(np.c_[x, y, np.zeros_like(x)])
+    cell, note = heightmap_dx_m(np.c_[x, y, np.zeros_like(x)])
     assert cell == pytest.approx(3 * np.sqrt(0.1 * np.sqrt(99.9 * 90 / 10_000)), rel=0.02)
     assert "point spacing" in note

@@ -22,7 +22,7 @@ from measures.terrain._synthesis import self_affine_surface
 def test_parseval_2d_no_window(rng):
     # Parseval / Jacobs, Junge & Pastewka (2017) normalisation: (2 pi)^-2 sum C dq^2 = Sq^2.
     z = rng.normal(size=(96, 128))
-    p = surface_psd(z, 2e-3, 3e-3, window="none", detrend="mean")
+    p = surface_psd(z, 2e-3, 3e-3, taper="none", detrend="mean")
     dqx, dqy = 2 * np.pi / (128 * 2e-3), 2 * np.pi / (96 * 3e-3)
     sq = areal_parameters(z, 2e-3, 3e-3).Sq
     assert_allclose(p.psd.sum() * dqx * dqy / (2 * np.pi) ** 2, sq**2, rtol=1e-10)
@@ -42,10 +42,10 @@ def test_profile_parseval(rng):
     # 1-D: (1/pi) integral_0^inf C dq = h_rms^2 (Jacobs et al. 2017); exact on the grid.
     for n in (200, 201):
         z = rng.normal(size=(7, n))
-        p = profile_psd(z, 0.5, window="none", detrend="mean")
+        p = profile_psd(z, 0.5, taper="none", detrend="mean")
         zz = z - z.mean(axis=1, keepdims=True)
         assert_allclose(rms_height_from_psd(p) ** 2, np.mean(zz**2), rtol=1e-10)
-    pc = profile_psd(z, 0.5, 0.25, axis=0, window="none", detrend="mean")
+    pc = profile_psd(z, 0.5, 0.25, axis=0, taper="none", detrend="mean")
     assert pc.n_profiles == n and pc.axis == 0
 
 
@@ -55,13 +55,13 @@ def test_sinusoid_psd_slope_and_direction():
     n, dx, lam = 256, 0.01, 0.32
     x = np.arange(n) * dx
     z = np.tile(0.5 * np.sin(2 * np.pi * x / lam), (64, 1))
-    p = surface_psd(z, dx, window="none", detrend="none")
+    p = surface_psd(z, dx, taper="none", detrend="none")
     assert_allclose(rms_slope_from_psd(p), 2 * np.pi / lam * 0.5 / np.sqrt(2), rtol=1e-10)
     an = psd_anisotropy(p)
     assert_allclose(an.ratio, 0.0, atol=1e-6)
     assert_allclose(an.wavevector_direction_rad, 0.0, atol=1e-6)
     assert_allclose(an.lay_direction_rad, np.pi / 2, atol=1e-6)
-    prof = profile_psd(z, dx, window="none", detrend="none")
+    prof = profile_psd(z, dx, taper="none", detrend="none")
     assert_allclose(rms_slope_from_psd(prof), 2 * np.pi / lam * 0.5 / np.sqrt(2), rtol=1e-10)
 
 
@@ -81,10 +81,10 @@ def test_self_affine_psd_slopes():
     # PSD slope -(2 + 2H) = -3.4 and mean row PSD slope -(1 + 2H) = -2.4, ±0.05, over
     # 4/N < q/(2 pi) < 0.25 (our seed differs from the oracle's; the band holds).
     z = self_affine_surface(1024, 0.7, seed=5)
-    r = radial_psd(z, 1.0, window="none", detrend="none")
+    r = radial_psd(z, 1.0, taper="none", detrend="none")
     sel = (r.q > 2 * np.pi * 4 / 1024) & (r.q < 2 * np.pi * 0.25)
     assert abs(np.polyfit(np.log(r.q[sel]), np.log(r.psd[sel]), 1)[0] + 3.4) < 0.05
-    p = profile_psd(z, 1.0, window="none", detrend="none")
+    p = profile_psd(z, 1.0, taper="none", detrend="none")
     sel = (p.q > 2 * np.pi * 4 / 1024) & (p.q < 2 * np.pi * 0.25)
     assert abs(np.polyfit(np.log(p.q[sel]), np.log(p.psd[sel]), 1)[0] + 2.4) < 0.05
 
@@ -94,9 +94,9 @@ def test_rms_from_synthesised_spectrum():
     # the PSD integral; the radial average (log bins, Riemann sum) agrees within 15 %
     # once the spectrum rolls off below q_r (most power then sits in resolved bins).
     z = self_affine_surface(512, 0.8, seed=3, q_roll_px=64.0)
-    p = surface_psd(z, 1.0, window="none", detrend="none")
+    p = surface_psd(z, 1.0, taper="none", detrend="none")
     assert_allclose(rms_height_from_psd(p), z.std(), rtol=1e-10)
-    r = radial_psd(z, 1.0, window="none", detrend="none")
+    r = radial_psd(z, 1.0, taper="none", detrend="none")
     assert_allclose(rms_height_from_psd(r), z.std(), rtol=0.15)
     assert_allclose(rms_slope_from_psd(r), rms_slope_from_psd(p), rtol=0.15)
 
@@ -112,6 +112,6 @@ def test_radial_bins_log_spaced():
 
 def test_invalid():
     with pytest.raises(InvalidParameterError):
-        surface_psd(np.zeros((8, 8)), 1.0, window="kaiser")
+        surface_psd(np.zeros((8, 8)), 1.0, taper="kaiser")
     with pytest.raises(InvalidParameterError):
         profile_psd(np.zeros((8, 8)), 1.0, axis=2)

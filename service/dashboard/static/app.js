@@ -328,10 +328,10 @@ async function scanPage(id) {
   const arena = await api("/v1/arenas/" + scan.arena_id);
   document.querySelector("main h1").textContent = "Scan " + id + " of " + arena.name;
   const plot = el("div", { id: "surface", class: "plot", role: "img", "aria-label": "heightmap surface of the scan" });
-  const cell = siValue(scan.grid_dx_m, "m");
+  const cell = siValue(scan.dx_m, "m");
   const facts = { arena: arena.name, file: scan.filename, format: scan.format, kind: scan.kind, "file units": scan.units,
     points: scan.n_points, "grid (cells)": scan.grid_nx && scan.grid_ny ? scan.grid_nx + " x " + scan.grid_ny : null,
-    ["cell (" + cell[1] + ")"]: cell[0], captured: scan.captured_at };
+    ["grid spacing (" + cell[1] + ")"]: cell[0], captured: scan.captured_at };
   show(kv(facts, Object.keys(facts)), el("h2", { text: "Heightmap" }), plot,
     el("h2", { text: "Expected movement on this ground" }), el("div", { id: "expected" }),
     el("h2", { text: "Scores" }), el("div", { id: "scores" }));
