@@ -510,3 +510,31 @@ def test_scan_policy_names_arenas_measured_by_the_other_kind(study):
         tables = load_study(session=s, recipe_hash=study.recipe.hash, selection=Selection())
     assert tables.scan_policy["kind"] == "heightmap"  # a tie goes to heightmaps
     assert any("'cloud only'" in w and "another kind" in w for w in tables.warnings)
+
+
+def test_expected_movement_equals_leave_one_arena_out(study, rng):
+    # One code path: the endpoint's prediction for each study arena is the held-out
+    # prediction measures.leave_one_arena_out makes on the same table (which the benchmark
+    # validates).
+    from measures import leave_one_arena_out
+
+    _populate(study, rng, n_arenas=7, n_subjects=3, trials=2)
+    with study.sm() as s:
+        tables = load_study(session=s, recipe_hash=study.recipe.hash, selection=Selection())
+        table = tables.trials.copy()
+    ids = tables.arenas.index.to_numpy()
+    loo = leave_one_arena_out(
+        tables.arenas["sq_m"].to_numpy(dtype=float),
+        table[tables.movement_measures].to_numpy(dtype=float),
+        np.searchsorted(ids, table["arena_id"].to_numpy()),
+        table["subject_id"].to_numpy(),
+    )
+    for k, a in enumerate(ids):
+        body = study.client.get(
+            f"/v1/arenas/{a}/expected-movement",
+            params={"recipe": "default", "terrain_measure": "sq_m"},
+        ).json()
+        got = {r["movement_measure"]: r for r in body["rows"]}
+        for j, name in enumerate(tables.movement_measures):
+            assert_allclose(got[name]["predicted"], loo.predicted[k, j], rtol=1e-12)
+            assert_allclose(got[name]["pi_high"], loo.pi_high[k, j], rtol=1e-12)

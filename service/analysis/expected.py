@@ -26,7 +26,7 @@ from sqlalchemy.orm import Session
 
 from measures import (
     MIN_PREDICTION_ARENAS,
-    arena_movement_means,
+    arena_means_by_measure,
     not_estimable_reason,
     predict_arena_movement,
     redundancy_groups,
@@ -164,19 +164,14 @@ def expected_movement(
     else:
         ids = arenas.index.to_numpy()
         x = arenas[terrain_measure].to_numpy(dtype=float)
-        means = np.full((len(ids), len(tables.movement_measures)), np.nan)
-        for j, name in enumerate(tables.movement_measures):
-            ok = np.isfinite(trials[name].to_numpy(dtype=float))
-            sub = trials[ok]
-            if sub.empty:
-                continue
-            present = np.unique(sub["arena_id"].to_numpy())
-            codes = np.searchsorted(present, sub["arena_id"].to_numpy())
-            m = arena_movement_means(
-                sub[name].to_numpy(dtype=float), codes, sub["subject_id"].to_numpy(),
-                n_arenas=present.size,
-            )  # fmt: skip
-            means[np.searchsorted(ids, present), j] = m.mean[:, 0]
+        # The same two calls as measures.leave_one_arena_out (validated by it on the demo
+        # and on simulated studies in bench/bench_prediction.py).
+        means = arena_means_by_measure(
+            trials[tables.movement_measures].to_numpy(dtype=float),
+            np.searchsorted(ids, trials["arena_id"].to_numpy()),
+            trials["subject_id"].to_numpy(),
+            len(ids),
+        )
         x0 = own[terrain_measure]
         pred = predict_arena_movement(x, means, x0, level=level)
         for j, name in enumerate(tables.movement_measures):
