@@ -538,3 +538,18 @@ def test_expected_movement_equals_leave_one_arena_out(study, rng):
         for j, name in enumerate(tables.movement_measures):
             assert_allclose(got[name]["predicted"], loo.predicted[k, j], rtol=1e-12)
             assert_allclose(got[name]["pi_high"], loo.pi_high[k, j], rtol=1e-12)
+
+
+def test_report_terrain_figure_uses_the_tables_scan():
+    # The report's hillshade of an arena shows the scan its table values come from (the
+    # scan policy's), not the first heightmap upload.
+    from types import SimpleNamespace
+
+    from service.report.panels import _heightmap_scan
+
+    hm = SimpleNamespace(id=1, arena_id=5, kind="heightmap", heightmap_sha256="a")
+    cloud = SimpleNamespace(id=2, arena_id=5, kind="points", heightmap_sha256="b")
+    study = SimpleNamespace(scans=[hm, cloud], policy_scan_ids={5: [2]})
+    assert _heightmap_scan(study, 5) is cloud
+    study.policy_scan_ids = {}
+    assert _heightmap_scan(study, 5) is hm  # no policy entry: the heightmap upload

@@ -51,9 +51,11 @@ class MovementPanel:
 
 
 def _heightmap_scan(study: StudyData, arena_id: int) -> Any | None:
-    # Prefer a scan that came as a heightmap file (no rasterisation), else any with a heightmap.
+    # The scan the tables take the arena's terrain values from (the correspondence's scan
+    # policy), so figure, legend and table show one scan; else one with a heightmap file.
     scans = [s for s in study.scans if s.arena_id == arena_id and s.heightmap_sha256]
-    scans.sort(key=lambda s: (s.kind != "heightmap", s.id))
+    policy = study.policy_scan_ids.get(arena_id, [])
+    scans.sort(key=lambda s: (s.id not in policy, s.kind != "heightmap", s.id))
     return scans[0] if scans else None
 
 
