@@ -2,10 +2,12 @@
 
 Prints, in one run:
 - wall time of ``correspondence_grid`` for 50 arenas x 2,000 trials x 20 x 20
-  measure pairs with 9,999 permutations (target: under 30 s on 2 cores), without
-  and with two trial-level covariates (arena-level Freedman-Lane test);
-- our REML random-intercept fit against statsmodels' ``MixedLM`` on the same
-  pair (median per fit, and the ratio);
+  measure pairs with 9,999 permutations (target: under 30 s on 2 cores), with and
+  without the trial-level reference model, and with two trial-level covariates
+  (arena-level Freedman-Lane test);
+- the trial-level reference model (REML random intercept), batched over the movement
+  measures of one terrain column, against one fit per pair; and one fit against
+  statsmodels' ``MixedLM`` on the same pair (median per fit, and the ratio);
 - the vectorised permutation test against a straightforward per-permutation
   loop (measured on a subset of permutations, ratio per permutation);
 - the arena-level slope grid (the main interval) against statsmodels OLS fitted pair
@@ -19,11 +21,15 @@ from __future__ import annotations
 
 import argparse
 import statistics
+import sys
 import time
 import warnings
+from pathlib import Path
 
 import numpy as np
 import statsmodels.api as sm
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # the checkout's packages
 
 from measures import (
     arena_movement_means,
@@ -31,6 +37,7 @@ from measures import (
     arena_slope,
     correspondence_grid,
     fit_random_intercept,
+    random_intercept_columns,
 )
 
 
@@ -63,22 +70,29 @@ def main() -> None:
     names_t = [f"t{i}" for i in range(n_pairs)]
     names_m = [f"m{i}" for i in range(n_pairs)]
 
-    grid_s = _median_time(
-        lambda: correspondence_grid(
-            terrain,
-            movement,
-            arena,
-            subject,
-            terrain_names=names_t,
-            movement_names=names_m,
-            n_permutations=n_perm,
-            n_boot=1999,
-        ),
-        repeats,
-    )
+    def grid(trial_level: bool) -> float:
+        return _median_time(
+            lambda: correspondence_grid(
+                terrain,
+                movement,
+                arena,
+                subject,
+                terrain_names=names_t,
+                movement_names=names_m,
+                n_permutations=n_perm,
+                n_boot=1999,
+                trial_level=trial_level,
+            ),
+            repeats,
+        )
+
+    grid_s = grid(True)
+    lean_s = grid(False)
     print(
         f"correspondence_grid {n_arenas} arenas x {n_trials} trials x {n_pairs}x{n_pairs} "
-        f"pairs, {n_perm} permutations: median {grid_s:.2f} s (target < 30 s)"
+        f"pairs, {n_perm} permutations: median {grid_s:.2f} s with the trial-level reference "
+        f"model, {lean_s:.2f} s without it (trial_level=False; the reference costs "
+        f"{grid_s - lean_s:.2f} s) (target < 30 s)"
     )
 
     speed = np.random.default_rng(2).normal(size=(n_trials, 2))
@@ -102,7 +116,21 @@ def main() -> None:
         f"{cov_s:.2f} s, ratio to no covariates {cov_s / grid_s:.2f}x (target < 30 s)"
     )
 
-    y, x = movement[:, 0], terrain[arena, 0]
+    x = terrain[arena, 0]
+    batched = _median_time(lambda: random_intercept_columns(movement, x, subject), repeats)
+
+    def one_by_one() -> None:
+        for j in range(n_pairs):
+            fit_random_intercept(movement[:, j], x, subject)
+
+    single = _median_time(one_by_one, repeats)
+    print(
+        f"trial-level reference, one terrain column x {n_pairs} movement measures: batched "
+        f"{batched * 1e3:.1f} ms, one fit per pair {single * 1e3:.1f} ms, ratio "
+        f"{single / batched:.1f}x"
+    )
+
+    y = movement[:, 0]
     ours = _median_time(lambda: fit_random_intercept(y, x, subject), 5)
     exog = sm.add_constant(x)
     with warnings.catch_warnings():  # boundary-fit notices from statsmodels on null data

@@ -438,3 +438,118 @@ def test_warning_names_a_measure_defined_on_fewer_arenas(study, rng):
     assert "3 of 8 arenas" in detail["message"] and "0.333" in detail["message"]
     row = next(r for r in body["rows"] if r["terrain_measure"] == "hurst_psd")
     assert row["n_arenas"] == 3 and row["slope_df"] == 1
+
+
+def _cloud(study: Study, arena_id: int, scores: dict[str, float], captured_at=None) -> int:
+    """A scored point-cloud scan of ``arena_id`` (the fixture's ``scan`` adds heightmaps)."""
+    with study.sm() as s:
+        row = Scan(
+            arena_id=arena_id, sha256=_sha("cloud", arena_id, scores), format="ply",
+            kind="points", units="m", size_bytes=1, captured_at=captured_at,
+        )  # fmt: skip
+        s.add(row)
+        s.commit()
+        repo.save_scores(
+            session=s, target_kind="scan", target_id=row.id, recipe_hash=study.recipe.hash,
+            scores=[Score(k, v, "1") for k, v in scores.items()], code_version="t",
+            input_sha256=row.sha256,
+        )  # fmt: skip
+        return row.id
+
+
+def test_expected_movement_and_study_table_use_the_same_scan(study, rng):
+    # Like the demo: most arenas scanned as point clouds, two also as heightmaps whose
+    # values differ from their clouds' (invented values). The dashboard's scan page asks
+    # the endpoint without a study; the value it predicts from must be the table's.
+    arenas = [study.arena(f"tray {k}") for k in range(7)]
+    subjects = [study.subject(f"M{k}") for k in range(3)]
+    ed = np.linspace(0.2, 1.2, 7)  # the clouds' values, all inside the study's range
+    pairs = {arenas[1]: 0.05, arenas[4]: 0.1}  # their heightmaps: far below the range
+    hm_ids, cloud_ids = {}, {}
+    for a, v in zip(arenas, ed, strict=True):
+        cloud_ids[a] = _cloud(study, a, {"sq_m": v, "entropy_density_2d_bits": v})
+        if a in pairs:
+            hm_ids[a] = study.scan(a, {"sq_m": v, "entropy_density_2d_bits": pairs[a]})
+        for s in subjects:
+            study.trial(a, s, {"rqa_det": 1.0 + 0.5 * v + rng.normal(0, 0.1)})
+    with study.sm() as s:
+        tables = load_study(
+            session=s, recipe_hash=study.recipe.hash, selection=Selection(terrain_measures=("all",))
+        )
+    policy = {e["arena_id"]: e for e in tables.scan_policy["arenas"]}
+    assert tables.scan_policy["kind"] == "points"  # 7 arenas have clouds, 2 heightmaps
+    for a in arenas:
+        body = study.client.get(
+            f"/v1/arenas/{a}/expected-movement",
+            params={"recipe": "default", "terrain_measure": "entropy_density_2d_bits"},
+        ).json()
+        assert body["terrain_value"] == tables.arenas.loc[a, "entropy_density_2d_bits"]
+        assert body["scan_policy"]["scan_ids"] == policy[a]["scan_ids"] == [cloud_ids[a]]
+        if a in pairs:  # interior by its cloud; its heightmap value would extrapolate
+            assert not any("extrapolation" in w for w in body["warnings"]), body["warnings"]
+    # A new arena outside the study with both kinds: the same rule (the study's kind).
+    new = study.arena("fresh tray")
+    study.scan(new, {"sq_m": 0.5, "entropy_density_2d_bits": 0.01})
+    fresh = _cloud(study, new, {"sq_m": 0.5, "entropy_density_2d_bits": 0.5})
+    body = study.client.get(
+        f"/v1/arenas/{new}/expected-movement",
+        params={"recipe": "default", "terrain_measure": "entropy_density_2d_bits"},
+    ).json()
+    assert not body["left_out"] and body["scan_policy"]["scan_ids"] == [fresh]
+    assert body["terrain_value"] == 0.5
+
+
+def test_scan_policy_names_arenas_measured_by_the_other_kind(study):
+    a, b = study.arena("cloud only"), study.arena("heightmap only")
+    now = datetime(2026, 1, 1, tzinfo=UTC)
+    _cloud(study, a, {"sq_m": 1.0}, captured_at=now)
+    study.scan(b, {"sq_m": 2.0})  # no capture time: ranks with naive and aware times alike
+    for arena in (a, b):
+        study.trial(arena, study.subject(f"M{arena}"), {"rqa_det": 0.5})
+    with study.sm() as s:
+        tables = load_study(session=s, recipe_hash=study.recipe.hash, selection=Selection())
+    assert tables.scan_policy["kind"] == "heightmap"  # a tie goes to heightmaps
+    assert any("'cloud only'" in w and "another kind" in w for w in tables.warnings)
+
+
+def test_expected_movement_equals_leave_one_arena_out(study, rng):
+    # One code path: the endpoint's prediction for each study arena is the held-out
+    # prediction measures.leave_one_arena_out makes on the same table (which the benchmark
+    # validates).
+    from measures import leave_one_arena_out
+
+    _populate(study, rng, n_arenas=7, n_subjects=3, trials=2)
+    with study.sm() as s:
+        tables = load_study(session=s, recipe_hash=study.recipe.hash, selection=Selection())
+        table = tables.trials.copy()
+    ids = tables.arenas.index.to_numpy()
+    loo = leave_one_arena_out(
+        tables.arenas["sq_m"].to_numpy(dtype=float),
+        table[tables.movement_measures].to_numpy(dtype=float),
+        np.searchsorted(ids, table["arena_id"].to_numpy()),
+        table["subject_id"].to_numpy(),
+    )
+    for k, a in enumerate(ids):
+        body = study.client.get(
+            f"/v1/arenas/{a}/expected-movement",
+            params={"recipe": "default", "terrain_measure": "sq_m"},
+        ).json()
+        got = {r["movement_measure"]: r for r in body["rows"]}
+        for j, name in enumerate(tables.movement_measures):
+            assert_allclose(got[name]["predicted"], loo.predicted[k, j], rtol=1e-12)
+            assert_allclose(got[name]["pi_high"], loo.pi_high[k, j], rtol=1e-12)
+
+
+def test_report_terrain_figure_uses_the_tables_scan():
+    # The report's hillshade of an arena shows the scan its table values come from (the
+    # scan policy's), not the first heightmap upload.
+    from types import SimpleNamespace
+
+    from service.report.panels import _policy_scan
+
+    hm = SimpleNamespace(id=1, arena_id=5, kind="heightmap", heightmap_sha256="a")
+    cloud = SimpleNamespace(id=2, arena_id=5, kind="points", heightmap_sha256="b")
+    study = SimpleNamespace(scans=[hm, cloud], policy_scan_ids={5: [2]})
+    assert _policy_scan(study, 5) is cloud
+    study.policy_scan_ids = {}
+    assert _policy_scan(study, 5) is hm  # no policy entry: the heightmap upload

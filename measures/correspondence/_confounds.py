@@ -65,12 +65,33 @@ class BalanceCheck:
 
 @dataclass(frozen=True)
 class CollinearityCheck:
-    """Arena-level correlation matrix and VIF of the terrain measures."""
+    """Arena-level correlation matrix and VIF of the terrain measures.
+
+    ``n_arenas``: arenas with a value of every measure (the ones both use); ``vif`` is NaN
+    (undefined) when ``n_arenas <= len(names)``.
+    """
 
     names: tuple[str, ...]
     correlation: NDArray[np.float64]
     vif: NDArray[np.float64]
     same_pairs: tuple[tuple[str, str, float], ...]
+    n_arenas: int = 0
+
+    @property
+    def vif_defined(self) -> bool:
+        """Whether the arenas are enough for a VIF (more arenas than measures)."""
+        return len(self.names) < 2 or self.n_arenas > len(self.names)
+
+    def pairs_by_abs_r(self) -> list[tuple[str, str, float]]:
+        """Every pair of measures with its r, most to least correlated (finite r only)."""
+        k = len(self.names)
+        pairs = [
+            (self.names[i], self.names[j], float(self.correlation[i, j]))
+            for i in range(k)
+            for j in range(i + 1, k)
+            if np.isfinite(self.correlation[i, j])
+        ]
+        return sorted(pairs, key=lambda p: -abs(p[2]))
 
 
 @dataclass(frozen=True)
@@ -195,7 +216,10 @@ def collinearity_check(
 
     VIF_j = 1 / (1 - R_j^2), R_j^2 from the least-squares regression of measure
     j on an intercept and the other measures, over arenas where all are finite
-    (infinite when the others explain it exactly or there are too few arenas).
+    (Belsley, Kuh & Welsch 1980). Infinite when the others explain it exactly;
+    NaN (undefined) when there are no more arenas than measures: the regression
+    has ``k`` coefficients, so ``n <= k`` arenas fit it exactly whatever the
+    terrain, and a VIF there says nothing about the measures.
 
     Examples
     --------
@@ -219,7 +243,10 @@ def collinearity_check(
         if k == 1 and tss > 0:
             vif[j] = 1.0
             continue
-        if n <= k or tss == 0:
+        if n <= k:
+            vif[j] = np.nan
+            continue
+        if tss == 0:
             continue
         others = np.column_stack([np.ones(n), np.delete(t, j, axis=1)])
         coef, *_ = np.linalg.lstsq(others, t[:, j], rcond=None)
@@ -232,7 +259,7 @@ def collinearity_check(
         for j in range(i + 1, k)
         if np.isfinite(corr[i, j]) and abs(corr[i, j]) > threshold
     )
-    return CollinearityCheck(tuple(terrain_names), corr, vif, pairs)
+    return CollinearityCheck(tuple(terrain_names), corr, vif, pairs, n)
 
 
 def detectable_rank_correlation(n_arenas: int, *, alpha: float = 0.05, power: float = 0.8) -> float:
@@ -279,6 +306,54 @@ def design_summary(
     )
 
 
+def collinearity_notes(coll: CollinearityCheck) -> list[str]:
+    """What the VIFs and the pairwise r of the terrain measures say, in plain words.
+
+    Undefined VIFs (no more arenas than measures) are said to be undefined rather than
+    reported as "above 10"; otherwise the measures above :data:`VIF_LIMIT` are named, with
+    the arena count; and the least correlated pair says how distinct the measures are.
+    """
+    k = len(coll.names)
+    if k < 2:
+        return []
+    notes = []
+    names = list(coll.names)
+    if not coll.vif_defined:
+        notes.append(
+            f"Variance inflation factors of the terrain measures {names} are undefined: "
+            f"{coll.n_arenas} arenas have values of all {k}, and a VIF regresses each on the "
+            f"other {k - 1} and an intercept ({k} coefficients), which {coll.n_arenas} arenas "
+            "fit exactly whatever the terrain. Whether their effects can be told apart is not "
+            "measurable with these arenas; the pairwise r below is."
+        )
+    else:
+        high = [n for n, v in zip(names, coll.vif, strict=True) if v > VIF_LIMIT]
+        df = coll.n_arenas - k
+        rough = (
+            f" With {df} residual degree(s) of freedom per VIF regression these VIFs are "
+            "themselves rough."
+            if df <= 3
+            else ""
+        )
+        if len(high) > 1:
+            notes.append(
+                f"Terrain measures {high} have variance inflation factors above {VIF_LIMIT:g} "
+                f"over {coll.n_arenas} arenas (checked with {names}): their separate effects "
+                f"cannot be told apart with these arenas.{rough}"
+            )
+    pairs = coll.pairs_by_abs_r()
+    if pairs:
+        a, b, r = pairs[0]
+        c, d, r_low = pairs[-1]
+        distinct = sum(abs(p[2]) < SAME_THING_R for p in pairs)
+        notes.append(
+            f"Terrain measures {names} over {coll.n_arenas} arenas: |r| between two of them "
+            f"ranges from {abs(r_low):.2f} ({c!r} vs {d!r}) to {abs(r):.2f} ({a!r} vs {b!r}); "
+            f"{distinct} of {len(pairs)} pairs have |r| < {SAME_THING_R:g}."
+        )
+    return notes
+
+
 def confound_checks(
     terrain: ArrayLike,
     arena_index: ArrayLike,
@@ -321,10 +396,5 @@ def confound_checks(
             f"Terrain measures {a!r} and {b!r} are the same thing twice across these arenas "
             f"(r = {r:.3f}); their correspondences are not separate findings."
         )
-    high = [n for n, v in zip(coll.names, coll.vif, strict=True) if v > VIF_LIMIT]
-    if len(high) > 1:
-        notes.append(
-            f"Terrain measures {high} have variance inflation factors above {VIF_LIMIT:g}: "
-            "their separate effects cannot be told apart with these arenas."
-        )
+    notes.extend(collinearity_notes(coll))
     return ConfoundChecks(speed_rows, balance, coll, tuple(notes))

@@ -40,6 +40,8 @@ __all__ = [
     "MIN_PREDICTION_ARENAS",
     "ArenaPrediction",
     "LeaveOneOut",
+    "arena_means_by_measure",
+    "held_out_arena_mean",
     "leave_one_arena_out",
     "predict_arena_movement",
 ]
@@ -165,6 +167,87 @@ def predict_arena_movement(
     )
 
 
+def arena_means_by_measure(
+    movement: ArrayLike,
+    arena_index: ArrayLike,
+    subject_index: ArrayLike,
+    n_arenas: int,
+) -> NDArray[np.float64]:
+    """Subject-adjusted arena means, each measure over its own finite trials.
+
+    The points a prediction is fitted to (:func:`arena_movement_means` per measure, so a
+    NaN in one measure does not drop the trial from the others). The expected-movement
+    endpoint and :func:`leave_one_arena_out` both call this, then
+    :func:`predict_arena_movement`: one code path.
+
+    Parameters
+    ----------
+    movement : array_like, shape (n_trials,) or (n_trials, n_movement)
+        NaN where a trial has no value.
+    arena_index : array_like of int, shape (n_trials,)
+        Arena code in ``0 .. n_arenas - 1``.
+    subject_index : array_like, shape (n_trials,)
+    n_arenas : int
+
+    Returns
+    -------
+    ndarray, shape (n_arenas, n_movement)
+        NaN for an arena without values of the measure.
+    """
+    m = np.asarray(movement, dtype=np.float64)
+    m = m.reshape(m.shape[0], -1)
+    arena = np.asarray(arena_index, dtype=np.intp)
+    subject = np.asarray(subject_index)
+    out = np.full((int(n_arenas), m.shape[1]), np.nan)
+    for j in range(m.shape[1]):
+        ok = np.isfinite(m[:, j])
+        if ok.sum() < 2:
+            continue
+        present = np.unique(arena[ok])
+        codes = np.searchsorted(present, arena[ok])
+        means = arena_movement_means(m[ok, j], codes, subject[ok], n_arenas=present.size)
+        out[present, j] = means.mean[:, 0]
+    return out
+
+
+def held_out_arena_mean(
+    movement: ArrayLike,
+    arena_index: ArrayLike,
+    subject_index: ArrayLike,
+    held_out: int,
+) -> NDArray[np.float64]:
+    """The held-out arena's observed mean, adjusted by subject offsets from the others.
+
+    Mean over the arena's subjects of (their trial mean there minus their offset), the
+    offset being the subject's mean over the other arenas minus the other arenas' grand
+    mean (0 for a subject seen only here). Per measure over finite values, so nothing of
+    the held-out arena enters the fit it is compared with (Stone 1974).
+
+    Returns
+    -------
+    ndarray, shape (n_movement,)
+    """
+    m = np.asarray(movement, dtype=np.float64)
+    m = m.reshape(m.shape[0], -1)
+    arena = np.asarray(arena_index, dtype=np.intp)
+    subject = np.asarray(subject_index)
+    out = np.full(m.shape[1], np.nan)
+    train = arena != held_out
+    for j in range(m.shape[1]):
+        ok = np.isfinite(m[:, j])
+        here = ok & ~train
+        if not here.any():
+            continue
+        grand = m[ok & train, j].mean() if (ok & train).any() else 0.0
+        held = []
+        for s in np.unique(subject[here]):
+            in_train = ok & train & (subject == s)
+            offset = m[in_train, j].mean() - grand if in_train.any() else 0.0
+            held.append(m[here & (subject == s), j].mean() - offset)
+        out[j] = float(np.mean(held))
+    return out
+
+
 @dataclass(frozen=True)
 class LeaveOneOut:
     """Leave-one-arena-out predictions of a study.
@@ -204,6 +287,7 @@ def leave_one_arena_out(
     ----------
     terrain : array_like, shape (n_arenas,)
     movement : array_like, shape (n_trials,) or (n_trials, n_movement)
+        NaN where a trial has no value (each measure uses its own finite trials).
     arena_index, subject_index : array_like of int, shape (n_trials,)
     level : float, default 0.95
     min_arenas : int, default 5
@@ -216,27 +300,19 @@ def leave_one_arena_out(
     m = np.asarray(movement, dtype=np.float64)
     m = m.reshape(m.shape[0], -1)
     arena = np.asarray(arena_index, dtype=np.intp)
-    _, subject = np.unique(np.asarray(subject_index), return_inverse=True)
+    subject = np.asarray(subject_index)
     n_a, k = t.size, m.shape[1]
     shape = (n_a, k)
     obs, pred, lo, hi, base = (np.full(shape, np.nan) for _ in range(5))
     for a in range(n_a):
         train = arena != a
-        codes = np.searchsorted(np.unique(arena[train]), arena[train])
-        keep = np.unique(arena[train])
-        means = arena_movement_means(m[train], codes, subject[train], n_arenas=keep.size)
-        p = predict_arena_movement(
-            t[keep], means.mean, float(t[a]), level=level, min_arenas=min_arenas
-        )
+        # The fit: the other arenas' points (row ``a`` stays NaN, so it is not used).
+        means = arena_means_by_measure(m[train], arena[train], subject[train], n_a)
+        if not math.isfinite(t[a]):
+            continue
+        p = predict_arena_movement(t, means, float(t[a]), level=level, min_arenas=min_arenas)
         pred[a], lo[a], hi[a], base[a] = p.predicted, p.pi_low, p.pi_high, p.baseline
-        # Subject offsets from the training trials: subject mean minus training grand mean.
-        grand = m[train].mean(axis=0)
-        held = []
-        for s in np.unique(subject[arena == a]):
-            in_train = train & (subject == s)
-            offset = m[in_train].mean(axis=0) - grand if in_train.any() else 0.0
-            held.append(m[(arena == a) & (subject == s)].mean(axis=0) - offset)
-        obs[a] = np.mean(held, axis=0)
+        obs[a] = held_out_arena_mean(m, arena, subject, a)
     with np.errstate(invalid="ignore"):
         covered = (lo <= obs) & (obs <= hi)
     return LeaveOneOut(obs, pred, lo, hi, base, covered)

@@ -26,7 +26,7 @@ from sqlalchemy.orm import Session
 
 from measures import (
     MIN_PREDICTION_ARENAS,
-    arena_movement_means,
+    arena_means_by_measure,
     not_estimable_reason,
     predict_arena_movement,
     redundancy_groups,
@@ -35,7 +35,8 @@ from service.analysis.tables import (
     HEADLINE_MEASURES,
     SCAN_POLICY,
     Selection,
-    choose_scans,
+    StudyTables,
+    arena_terrain,
     clean_object,
     load_study,
 )
@@ -59,27 +60,29 @@ EXPECTED_FIELDS = (
 )
 
 
-def _arena_terrain(
-    session: Session, recipe_hash: str, arena_id: int, rule: str
-) -> tuple[dict[str, float], list[int]]:
-    """The arena's terrain values under the scan policy, and the scans used."""
-    # The arena may have scans but no trials, so the study tables may not hold it.
+def _own_terrain(
+    session: Session, recipe_hash: str, arena_id: int, tables: StudyTables, rule: str
+) -> tuple[dict[str, float], list[dict[str, Any]]]:
+    """The arena's terrain values and the scans they come from, by the study's scan policy.
+
+    An arena of the study takes its row of the study table (the very value the grid, the
+    report and the dashboard show); an arena outside it (scans but no trials) goes through
+    the same :func:`arena_terrain` with the study's scan kind.
+    """
+    if arena_id in tables.arenas.index:
+        row = tables.arenas.loc[arena_id]
+        entry = next(e for e in tables.scan_policy["arenas"] if e["arena_id"] == arena_id)
+        scans = [
+            {"id": i, "kind": k} for i, k in zip(entry["scan_ids"], entry["kinds"], strict=True)
+        ]
+        return {m: float(row[m]) for m in tables.terrain_measures}, scans
     scans, scores = repo.arena_scan_scores(
         session=session, recipe_hash=recipe_hash, arena_id=arena_id
     )
     values: dict[int, dict[str, float]] = {}
     for scan_id, measure, value in scores:
-        values.setdefault(scan_id, {})[measure] = math.nan if value is None else float(value)
-    candidates = [s for s in scans if s["id"] in values]
-    if not candidates:
-        return {}, []
-    used = choose_scans(candidates, rule)
-    names = {m for s in used for m in values[s["id"]]}
-    out = {}
-    for name in names:
-        finite = [v for s in used if math.isfinite(v := values[s["id"]].get(name, math.nan))]
-        out[name] = float(np.mean(finite)) if finite else math.nan
-    return out, [int(s["id"]) for s in used]
+        values.setdefault(int(scan_id), {})[measure] = math.nan if value is None else float(value)
+    return arena_terrain(scans, values, rule, tables.scan_policy.get("kind"))
 
 
 def _default_terrain_measure(study_arenas: Any, names: Sequence[str]) -> str | None:
@@ -106,9 +109,6 @@ def expected_movement(
     """The movement the arena's ground predicts, as a JSON-ready dict (NaN as None)."""
     prof = repo.get_recipe(session=session, name=recipe, version=version)
     arena = repo.get_arena(session=session, arena_id=arena_id)
-    own, own_scans = _arena_terrain(session, prof.hash, arena_id, scans)
-    if not own:
-        raise BadInput(f"arena {arena_id} has no scored scan under recipe {prof.name!r}")
     tables = load_study(
         session=session,
         recipe_hash=prof.hash,
@@ -117,6 +117,9 @@ def expected_movement(
             scans=scans, study=study,
         ),
     )  # fmt: skip
+    own, own_scans = _own_terrain(session, prof.hash, arena_id, tables, scans)
+    if not own:
+        raise BadInput(f"arena {arena_id} has no scored scan under recipe {prof.name!r}")
     left_out = arena_id in set(tables.arenas.index)
     arenas = tables.arenas.drop(index=arena_id, errors="ignore")
     trials = tables.trials[tables.trials["arena_id"] != arena_id]
@@ -134,8 +137,16 @@ def expected_movement(
         if math.isfinite(own.get(m, math.nan)) and not_estimable_reason(arenas[m]) is None
     ]
     if terrain_measure is None:
-        terrain_measure = _default_terrain_measure(arenas, usable)
-        how = "representative of the largest group of redundant terrain measures"
+        # Chosen on terrain alone over all the study's arenas (this one too: its terrain is
+        # known, its movement is not used), so every arena's panel uses the same measure,
+        # among the grid's headline measures when any is usable.
+        headline = [m for m in usable if m in HEADLINE_MEASURES["terrain"]]
+        terrain_measure = _default_terrain_measure(tables.arenas, headline or usable)
+        how = (
+            "representative of the largest group of redundant "
+            + ("headline " if headline else "")
+            + "terrain measures across the study's arenas"
+        )
     elif terrain_measure not in usable:
         raise BadInput(
             f"terrain measure {terrain_measure!r} is not usable for a prediction here (it "
@@ -153,19 +164,14 @@ def expected_movement(
     else:
         ids = arenas.index.to_numpy()
         x = arenas[terrain_measure].to_numpy(dtype=float)
-        means = np.full((len(ids), len(tables.movement_measures)), np.nan)
-        for j, name in enumerate(tables.movement_measures):
-            ok = np.isfinite(trials[name].to_numpy(dtype=float))
-            sub = trials[ok]
-            if sub.empty:
-                continue
-            present = np.unique(sub["arena_id"].to_numpy())
-            codes = np.searchsorted(present, sub["arena_id"].to_numpy())
-            m = arena_movement_means(
-                sub[name].to_numpy(dtype=float), codes, sub["subject_id"].to_numpy(),
-                n_arenas=present.size,
-            )  # fmt: skip
-            means[np.searchsorted(ids, present), j] = m.mean[:, 0]
+        # The same two calls as measures.leave_one_arena_out (validated by it on the demo
+        # and on simulated studies in bench/bench_prediction.py).
+        means = arena_means_by_measure(
+            trials[tables.movement_measures].to_numpy(dtype=float),
+            np.searchsorted(ids, trials["arena_id"].to_numpy()),
+            trials["subject_id"].to_numpy(),
+            len(ids),
+        )
         x0 = own[terrain_measure]
         pred = predict_arena_movement(x, means, x0, level=level)
         for j, name in enumerate(tables.movement_measures):
@@ -183,13 +189,18 @@ def expected_movement(
                     "note": pred.note[j],
                 }
             )
-        few = sorted(
-            {int(n) for n, note in zip(pred.n_arenas, pred.note, strict=True) if "needed" in note}
-        )
+        few = [
+            f"{name!r} ({int(n)})"
+            for name, n, note in zip(
+                tables.movement_measures, pred.n_arenas, pred.note, strict=True
+            )
+            if "needed" in note
+        ]
         if few:
             warnings.append(
-                f"Too few arenas to predict: {few} arena(s) with values where at least "
-                f"{MIN_PREDICTION_ARENAS} are needed; those rows carry no prediction."
+                f"Too few arenas to predict {', '.join(few)}: arenas with values in brackets, "
+                f"where at least {MIN_PREDICTION_ARENAS} are needed; those rows carry no "
+                "prediction."
             )
         if any("extrapolation" in note for note in pred.note):
             warnings.append(
@@ -213,7 +224,9 @@ def expected_movement(
             "scan_policy": {
                 "rule": scans,
                 "description": SCAN_POLICY[scans],
-                "scan_ids": own_scans,
+                "kind": tables.scan_policy.get("kind"),
+                "scan_ids": [int(sc["id"]) for sc in own_scans],
+                "scan_kinds": [str(sc["kind"]) for sc in own_scans],
             },
             "method": (
                 "OLS of subject-adjusted arena mean movement on arena terrain over the study's "

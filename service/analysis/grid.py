@@ -620,7 +620,7 @@ def correspondence_report(
     multi, multi_notes = multivariate_summary(study, terrain=reps_t, movement=reps_m, seed=seed)
     names = set(study.terrain_measures) | set(study.movement_measures)
     plane = {m for v in PLANE_MEASURES.values() for m in v}
-    confounds, design, confound_notes = confounds_and_design(study)
+    confounds, design, confound_notes = confounds_and_design(study, reps_t)
     # The groups say what "same thing twice" said, and act on it.
     confound_notes = [n for n in confound_notes if "same thing twice" not in n]
     details = [_warning(w, "study") for w in study.warnings]
@@ -713,18 +713,26 @@ def _keep_complete_covariates(study: StudyTables) -> dict[str, Any]:
     return info
 
 
-def confounds_and_design(study: StudyTables) -> tuple[dict[str, Any], dict[str, Any], list[str]]:
-    """Confound checks (speed vs terrain, balance, collinearity) and the design table."""
+def confounds_and_design(
+    study: StudyTables, terrain_measures: Sequence[str] | None = None
+) -> tuple[dict[str, Any], dict[str, Any], list[str]]:
+    """Confound checks (speed vs terrain, balance, collinearity) and the design table.
+
+    ``terrain_measures``: the ones checked (default: all of the study's); the grid passes
+    its estimable group representatives, so a folded group counts once and a measure
+    defined on a few arenas does not shrink the arenas the VIFs are computed on.
+    """
+    names = list(study.terrain_measures if terrain_measures is None else terrain_measures)
     arena_ids = study.arenas.index.to_numpy()
     arena_codes = np.searchsorted(arena_ids, study.trials["arena_id"].to_numpy())
     subject_ids = np.array(sorted(set(study.trials["subject_id"])))
-    terrain = study.arenas[study.terrain_measures].to_numpy(dtype=float)
+    terrain = study.arenas[names].to_numpy(dtype=float).reshape(len(arena_ids), len(names))
     speed = study.trials[SPEED_SCORE].to_numpy(dtype=float) if SPEED_SCORE in study.trials else None
     checks = confound_checks(
         terrain,
         arena_codes,
         study.trials["subject_id"].to_numpy(),
-        terrain_names=study.terrain_measures,
+        terrain_names=names,
         speed=speed,
         covariate_name=SPEED_SCORE,
     )
@@ -751,6 +759,9 @@ def confounds_and_design(study: StudyTables) -> tuple[dict[str, Any], dict[str, 
             "measures": list(coll.names),
             "correlation": coll.correlation.tolist(),
             "vif": [float(v) if np.isfinite(v) else None for v in coll.vif],
+            "vif_defined": coll.vif_defined,
+            "n_arenas": coll.n_arenas,
+            "pairs": [{"a": a, "b": b, "r": r} for a, b, r in coll.pairs_by_abs_r()],
             "same_thing_twice": [{"a": a, "b": b, "r": r} for a, b, r in coll.same_pairs],
         },
     }

@@ -7,12 +7,16 @@ scans and all their scores with every filter in SQL; nothing here queries per ro
 
 Decisions (also in the report's ``notes``):
 
-- Scan policy (:data:`SCAN_POLICY`, applied by :func:`choose_scans` and nowhere else): an
-  arena's terrain value comes from its *scored* scans. ``"latest"`` takes one scan: scans
-  uploaded as heightmaps before point clouds (a point cloud is used only where the arena
-  has no scored heightmap), then the latest by ``captured_at``, upload time and id.
-  ``"mean"`` averages each measure over all scored scans (NaN ignored). The scans used per
-  arena are returned in ``StudyTables.scan_policy`` and shown in every response.
+- Scan policy (:data:`SCAN_POLICY`, applied by :func:`arena_terrain` and nowhere else,
+  for the study tables and for expected movement alike): an arena's terrain value comes
+  from its *scored* scans. ``"latest"`` takes one scan: of the study's scan kind (the kind
+  scored in the most of the study's arenas, ties to heightmaps; :func:`study_scan_kind`)
+  where the arena has one, so every arena is measured by the same kind of capture (a
+  heightmap and a point cloud of one tray disagree on the fine-scale measures), else of its
+  other kind; then the latest by ``captured_at``, upload time and id. ``"mean"`` averages
+  each measure over all scored scans (NaN ignored). The scans used per arena are returned
+  in ``StudyTables.scan_policy`` and shown in every response; arenas measured by the other
+  kind are named in a warning.
 - Without a measure list, the headline measures (:data:`HEADLINE_MEASURES`); ``all`` means
   every scored measure except the diagnostics in :data:`DIAGNOSTIC_MEASURES`.
 - Covariates are trial-level: any trial score or one of :data:`DERIVED_COVARIATES`.
@@ -25,8 +29,8 @@ Blocking; the routes call it through ``run_in_threadpool``.
 from __future__ import annotations
 
 import math
-from collections import defaultdict
-from collections.abc import Iterable, Sequence
+from collections import Counter, defaultdict
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
@@ -48,6 +52,7 @@ __all__ = [
     "SCAN_RULES",
     "Selection",
     "StudyTables",
+    "arena_terrain",
     "choose_scans",
     "clean",
     "clean_object",
@@ -55,6 +60,7 @@ __all__ = [
     "load_study",
     "pick_measures",
     "scan_rank",
+    "study_scan_kind",
 ]
 
 #: Scores that describe how a measure was computed rather than the ground or the gait.
@@ -137,8 +143,9 @@ SCAN_RULES = ("latest", "mean")
 #: What each scan rule means, shown in every response that uses it.
 SCAN_POLICY = {
     "latest": (
-        "One scan per arena: among its scored scans, heightmap uploads before point clouds "
-        "(a point cloud only where the arena has no scored heightmap), then the latest by "
+        "One scan per arena: among its scored scans, those of the study's scan kind (the "
+        "kind scored in the most arenas; a tie goes to heightmap uploads) where it has one, "
+        "so all arenas are measured the same way, else its other kind; then the latest by "
         "capture time, upload time and id."
     ),
     "mean": "Per arena, each measure averaged over all its scored scans (NaN ignored).",
@@ -240,22 +247,73 @@ def pick_measures(available: Iterable[str], wanted: Sequence[str], kind: str) ->
 _FLOOR = datetime.min.replace(tzinfo=UTC)
 
 
+def _aware(value: datetime | None) -> datetime:
+    # SQLite returns naive datetimes (stored as UTC); compare them as UTC so a scan with a
+    # capture time and one without can be ranked together.
+    if value is None:
+        return _FLOOR
+    return value if value.tzinfo is not None else value.replace(tzinfo=UTC)
+
+
 def scan_rank(scan: dict[str, Any]) -> tuple[bool, datetime, datetime, int]:
-    """Sort key of the scan policy: heightmap uploads first, then the latest."""
+    """Sort key of the scan policy within one kind choice: heightmaps, then the latest."""
     return (
         scan["kind"] == "heightmap",
-        scan["captured_at"] or _FLOOR,
-        scan["created_at"] or _FLOOR,
+        _aware(scan["captured_at"]),
+        _aware(scan["created_at"]),
         int(scan["id"]),
     )
 
 
-def choose_scans(scans: Sequence[dict[str, Any]], rule: str) -> list[dict[str, Any]]:
-    """The scans of one arena that the policy ``rule`` uses (see :data:`SCAN_POLICY`)."""
+def study_scan_kind(scans_by_arena: Mapping[Any, Sequence[dict[str, Any]]]) -> str | None:
+    """The scan kind scored in the most arenas (ties: heightmap); None without scans."""
+    counts = Counter(
+        kind for scans in scans_by_arena.values() for kind in {s["kind"] for s in scans}
+    )
+    if not counts:
+        return None
+    best: str = max(sorted(counts), key=lambda k: (counts[k], k == "heightmap"))
+    return best
+
+
+def choose_scans(
+    scans: Sequence[dict[str, Any]], rule: str, kind: str | None = None
+) -> list[dict[str, Any]]:
+    """The scans of one arena that the policy ``rule`` uses (see :data:`SCAN_POLICY`).
+
+    ``kind``: the study's scan kind (:func:`study_scan_kind`); ``"latest"`` takes a scan of
+    that kind when the arena has one. Without it, heightmaps rank first.
+    """
     if rule not in SCAN_RULES:
         raise BadInput(f"scans must be one of {SCAN_RULES}, got {rule!r}")
-    ranked = sorted(scans, key=scan_rank)
-    return ranked[-1:] if rule == "latest" else ranked
+    if rule == "mean":
+        return sorted(scans, key=scan_rank)
+    same = [s for s in scans if s["kind"] == kind] or list(scans)
+    return sorted(same, key=scan_rank)[-1:]
+
+
+def arena_terrain(
+    scans: Sequence[dict[str, Any]],
+    values: Mapping[int, Mapping[str, float]],
+    rule: str,
+    kind: str | None,
+) -> tuple[dict[str, float], list[dict[str, Any]]]:
+    """One arena's terrain values under the scan policy, and the scans they come from.
+
+    ``scans``: the arena's scans; ``values``: scan id -> measure -> value (NaN allowed);
+    only scans with at least one score take part. The one function that turns scans into
+    an arena's terrain value (study tables and expected movement).
+    """
+    scored = [s for s in scans if values.get(int(s["id"]))]
+    if not scored:
+        return {}, []
+    used = choose_scans(scored, rule, kind)
+    names = {m for s in used for m in values[int(s["id"])]}
+    out: dict[str, float] = {}
+    for name in names:
+        finite = [v for s in used if math.isfinite(v := values[int(s["id"])].get(name, math.nan))]
+        out[name] = float(np.mean(finite)) if finite else math.nan
+    return out, used
 
 
 def _nan(value: Any) -> float:
@@ -290,18 +348,15 @@ def load_study(*, session: Session, recipe_hash: str, selection: Selection) -> S
     for scan in rows.scans:
         if values.get(("scan", scan["id"])):
             scans_by_arena[scan["arena_id"]].append(scan)
-    used = {a: choose_scans(s, selection.scans) for a, s in scans_by_arena.items()}
+    scan_values = {t: v for (k, t), v in values.items() if k == "scan"}
+    study_arenas = {t["arena_id"] for t in trials if values.get(("trial", t["id"]))}
+    scan_kind = study_scan_kind({a: s for a, s in scans_by_arena.items() if a in study_arenas})
     terrain: dict[int, dict[str, float]] = {}
-    for arena_id, chosen in used.items():
-        names = {m for s in chosen for m in values[("scan", s["id"])]}
-        terrain[arena_id] = {}
-        for name in names:
-            finite = [
-                v
-                for s in chosen
-                if math.isfinite(v := values[("scan", s["id"])].get(name, math.nan))
-            ]
-            terrain[arena_id][name] = float(np.mean(finite)) if finite else math.nan
+    used: dict[int, list[dict[str, Any]]] = {}
+    for arena_id, arena_scans in scans_by_arena.items():
+        terrain[arena_id], used[arena_id] = arena_terrain(
+            arena_scans, scan_values, selection.scans, scan_kind
+        )
     without = sorted({t["arena_id"] for t in trials} - set(terrain))
     if without:
         warnings.append(
@@ -379,9 +434,17 @@ def load_study(*, session: Session, recipe_hash: str, selection: Selection) -> S
     for key in targets:
         for name, z in surrogate_of.get(key, {}).items():
             surrogate[(key[0], name)].append(z)
+    other = [a for a in arena_ids if any(s["kind"] != scan_kind for s in used[a])]
+    if selection.scans == "latest" and other:
+        warnings.append(
+            f"Arenas {[str(arena_name[a]) for a in other]} have no scored {scan_kind} scan: their "
+            f"terrain values come from another kind of scan than the other arenas', which "
+            "can shift the fine-scale measures."
+        )
     policy = {
         "rule": selection.scans,
         "description": SCAN_POLICY[selection.scans],
+        "kind": scan_kind,
         "arenas": [
             {
                 "arena_id": int(a),

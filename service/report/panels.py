@@ -51,19 +51,12 @@ class MovementPanel:
 
 
 def _policy_scan(study: StudyData, arena_id: int) -> Any | None:
-    # The scan the study tables use for this arena (service.analysis.tables.choose_scans,
-    # rule "latest"), among those with a heightmap: figure and table show the same scan.
-    from service.analysis.tables import choose_scans
-
+    # The scan the tables take the arena's terrain values from (the correspondence's scan
+    # policy), so figure, legend and table show one scan; else one with a heightmap file.
     scans = [s for s in study.scans if s.arena_id == arena_id and s.heightmap_sha256]
-    if not scans:
-        return None
-    keyed = [
-        {"kind": s.kind, "captured_at": s.captured_at, "created_at": s.created_at, "id": s.id}
-        for s in scans
-    ]
-    chosen = choose_scans(keyed, "latest")[0]["id"]
-    return next(s for s in scans if s.id == chosen)
+    policy = study.policy_scan_ids.get(arena_id, [])
+    scans.sort(key=lambda s: (s.id not in policy, s.kind != "heightmap", s.id))
+    return scans[0] if scans else None
 
 
 class _NotStored(Exception):

@@ -57,6 +57,8 @@ class StudyData:
     scan_scores: dict[int, dict[str, float]] = field(default_factory=dict)
     failed_jobs: list[str] = field(default_factory=list)
     study_name: str | None = None  # None: the whole store
+    # arena id -> the scans the correspondence's scan policy takes its terrain values from
+    policy_scan_ids: dict[int, list[int]] = field(default_factory=dict)
 
     @property
     def scored_arena_ids(self) -> list[int]:
@@ -160,4 +162,8 @@ def load_study(*, session: Any, recipe: str | None = None, study: str | None = N
         failed_jobs=failed,
         scan_scores=scan_scores,
         study_name=study,
+        policy_scan_ids={
+            int(e["arena_id"]): [int(i) for i in e["scan_ids"]]
+            for e in tables.scan_policy.get("arenas", [])
+        },
     )

@@ -383,16 +383,28 @@ def correspondence_view(
         )
     n_perm = correspondence.get("n_permutations")
     exact = bool(correspondence.get("exact_permutations"))
+    rule = correspondence.get("scans") or cv.SCAN_POLICY
+    kind = (correspondence.get("scan_policy") or {}).get("kind")
+    # Rows on fewer arenas (a measure missing in some) were tested with fewer permutations:
+    # say so, so the header does not contradict those rows' smallest possible p.
+    n_all = correspondence.get("n_arenas")
+    fewer = any(
+        r.get("n_arenas") is not None and n_all is not None and r["n_arenas"] < n_all
+        for r in correspondence.get("rows", [])
+    )
+    label = {"points": "point-cloud"}.get(str(kind), str(kind))
+    same_kind = f", {label} scans where the arena has one" if kind and rule == "latest" else ""
     return _clean_object(
         {
             "study": correspondence.get("study"),
             "settings": {
                 "n_permutations": n_perm,
                 "exact": exact,
-                "scans": correspondence.get("scans") or cv.SCAN_POLICY,
+                "scans": rule,
                 "text": (
-                    f"{'exact test, ' if exact else ''}{n_perm} arena permutations; "
-                    f"scans: {correspondence.get('scans') or cv.SCAN_POLICY} per arena"
+                    f"{'exact test, ' if exact else ''}{n_perm} arena permutations"
+                    f"{' (fewer for rows on fewer arenas)' if fewer else ''}; "
+                    f"scans: {rule} per arena{same_kind}"
                 ),
             },
             "counts": {

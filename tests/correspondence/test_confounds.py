@@ -152,3 +152,37 @@ def test_design_summary_counts(rng):
     assert (res.counts == pd.crosstab(arena, subject).to_numpy()).all()
     assert res.n_trials == 80 and res.n_arenas == 6 and res.n_subjects == 4
     assert_allclose(res.detectable_rho, detectable_rank_correlation(6))
+
+
+def test_vif_undefined_when_arenas_do_not_exceed_measures(rng):
+    # A regression with k coefficients fits k points exactly (any data): R^2 = 1 by
+    # construction, so with n <= k arenas the VIF is undefined, not "above 10".
+    names = [f"m{j}" for j in range(5)]
+    terrain = rng.normal(size=(5, 5))  # independent columns; 5 arenas, 5 measures
+    res = collinearity_check(terrain, terrain_names=names)
+    assert res.n_arenas == 5 and not res.vif_defined and np.isnan(res.vif).all()
+    checks = confound_checks(terrain, np.arange(5), np.zeros(5, int), terrain_names=names)
+    assert any("undefined" in w for w in checks.warnings)
+    assert not any("above 10" in w for w in checks.warnings)
+    # One arena more: defined, and equal to statsmodels' (1 residual df: flagged as rough).
+    six = rng.normal(size=(6, 5))
+    res = collinearity_check(six, terrain_names=names)
+    exog = np.column_stack([np.ones(6), six])
+    assert_allclose(res.vif, [variance_inflation_factor(exog, j) for j in range(1, 6)], rtol=1e-9)
+
+
+def test_pairwise_r_of_terrain_measures_is_reported(rng):
+    # Reference: scipy's Pearson r for the extreme pairs the note names.
+    x = rng.normal(size=(12, 3))
+    x[:, 1] = x[:, 0] + 0.1 * rng.normal(size=12)
+    names = ["a", "b", "c"]
+    coll = collinearity_check(x, terrain_names=names)
+    pairs = coll.pairs_by_abs_r()
+    assert pairs[0][:2] == ("a", "b")
+    assert_allclose(pairs[0][2], stats.pearsonr(x[:, 0], x[:, 1])[0], rtol=1e-9)
+    low = min(((i, j) for i in range(3) for j in range(i + 1, 3)),
+              key=lambda ij: abs(stats.pearsonr(x[:, ij[0]], x[:, ij[1]])[0]))  # fmt: skip
+    assert (pairs[-1][0], pairs[-1][1]) == (names[low[0]], names[low[1]])
+    checks = confound_checks(x, np.arange(12), np.zeros(12, int), terrain_names=names)
+    (note,) = [w for w in checks.warnings if "ranges from" in w]
+    assert f"to {abs(pairs[0][2]):.2f} ('a' vs 'b')" in note and "over 12 arenas" in note

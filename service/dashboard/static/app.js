@@ -316,7 +316,10 @@ async function expectedPanel(node, arenaId) {
       { label: "note", get: r => r.note || "" },
     ];
     const caption = "From " + (out.terrain_measure || "the ground") + " by the arena-level fit of the other arenas" +
-      (out.left_out ? " (this arena left out)" : "");
+      (out.left_out ? " (this arena left out)" : "") +
+      // Which scan gave this arena's terrain value: the study table's, not necessarily the scan on this page.
+      ((out.scan_policy && out.scan_policy.scan_ids && out.scan_policy.scan_ids.length) ? "; " + out.terrain_measure + " = " + fmt(out.terrain_value) +
+        " from scan " + out.scan_policy.scan_ids.join(", ") + " (" + (out.scan_policy.scan_kinds || []).join(", ") + "), scan policy '" + out.scan_policy.rule + "' as in the study table" : "");
     node.replaceChildren(table(cols, out.rows, caption), ...(out.warnings || []).map(w => el("p", { class: "warning", text: w })));
   } catch (err) {
     node.replaceChildren(el("p", { text: "No prediction: " + err.message }));
