@@ -77,8 +77,8 @@ def test_uploads_are_scored_without_asking_and_rescore_works(tmp_path: Path) -> 
 
 
 #: Heavy numerics the web process must not load at start (workers import them): numba and
-#: scipy.stats cost seconds of import; open3d and scikit-learn more.
-HEAVY = ("numba", "scipy.stats", "open3d", "sklearn")
+#: scipy.stats cost seconds of import; open3d and scikit-learn more; pandas half a second.
+HEAVY = ("numba", "scipy.stats", "open3d", "sklearn", "pandas", "matplotlib")
 
 
 def test_web_process_starts_without_heavy_numerics() -> None:
@@ -112,3 +112,24 @@ def test_pipeline_package_imports_no_heavy_numerics() -> None:
         check=True,
     )  # fmt: skip
     assert out.stdout.strip() == "", f"loaded: {out.stdout.strip()}"
+
+
+def test_restart_on_a_current_database_loads_no_alembic(tmp_path) -> None:
+    # A database already at the newest revision needs no migration, so no Alembic (with Mako
+    # and Pygments, half a second of start-up): storage.db.upgrade checks the version first.
+    code = (
+        "import sys, pathlib\n"
+        "from service.app import create_app\n"
+        "from service.settings import Settings\n"
+        f"create_app(Settings(data_dir=pathlib.Path({str(tmp_path / 'd')!r}), job_runner=False))\n"
+        "print('alembic' in sys.modules)\n"
+    )
+    root = Path(__file__).resolve().parents[1]
+    runs = [
+        subprocess.run(
+            [sys.executable, "-c", code], cwd=root, capture_output=True, text=True, timeout=300,
+            check=True,
+        ).stdout.strip()
+        for _ in range(2)
+    ]  # fmt: skip
+    assert runs == ["True", "False"]  # first start migrates; the restart does not
