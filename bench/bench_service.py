@@ -1,0 +1,147 @@
+"""Benchmark: how fast the service starts and how fast its report renders (medians).
+
+Targets (quiet 2-core machine): ``/healthz`` answers <= 2 s after ``gaitscape serve``, and
+the demo's report renders in <= 3 s. References measured in the same run, printed with
+ratios:
+
+- start-up: a minimal FastAPI app with one route under uvicorn, started the same way (the
+  floor any FastAPI service pays: interpreter, FastAPI, uvicorn);
+- report: rendering one empty 6 x 4 inch matplotlib figure to PNG six times (the report
+  draws six figures; this is the drawing floor without any content).
+
+Run: python bench/bench_service.py [--demo DIR] [--repeats N]
+(``--demo``: a finished ``gaitscape demo`` directory; without it the report is skipped.)
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import socket
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+import urllib.request
+from pathlib import Path
+
+MINIMAL_APP = """
+import uvicorn
+from fastapi import FastAPI
+app = FastAPI()
+@app.get("/healthz")
+def healthz():
+    return {"status": "ok"}
+uvicorn.run(app, host="127.0.0.1", port=int(__import__("sys").argv[1]), log_level="warning")
+"""
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def _time_to_healthz(cmd: list[str], port: int) -> float:
+    env = dict(os.environ)
+    env.pop("PYTHONDONTWRITEBYTECODE", None)  # a normal install has compiled bytecode
+    t0 = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env)
+    try:
+        while True:
+            try:
+                with urllib.request.urlopen(f"http://127.0.0.1:{port}/healthz", timeout=1) as r:
+                    if r.status == 200:
+                        return time.perf_counter() - t0
+            except OSError:
+                if proc.poll() is not None:
+                    raise RuntimeError(f"{cmd[0]} exited with {proc.returncode}") from None
+                time.sleep(0.01)
+    finally:
+        proc.terminate()
+        proc.wait(timeout=30)
+
+
+def bench_startup(repeats: int) -> None:
+    gaitscape = shutil.which("gaitscape") or sys.exit("gaitscape is not on PATH")
+    with tempfile.TemporaryDirectory() as tmp:
+        script = Path(tmp) / "minimal.py"
+        script.write_text(MINIMAL_APP)
+        ref, first, again = [], [], []
+        for k in range(repeats):
+            port = _free_port()
+            ref.append(_time_to_healthz([sys.executable, str(script), str(port)], port))
+            data = Path(tmp) / f"d{k}"
+            port = _free_port()
+            cmd = [gaitscape, "serve", "--data", str(data), "--port", str(port)]
+            first.append(_time_to_healthz(cmd, port))  # empty folder: migrations, token
+            port = _free_port()
+            cmd = [gaitscape, "serve", "--data", str(data), "--port", str(port)]
+            again.append(_time_to_healthz(cmd, port))  # restart on a current database
+    r = statistics.median(ref)
+    print(f"/healthz, minimal FastAPI app (reference)      median {r:6.2f} s")
+    for label, times in (("first start (empty folder)", first), ("restart", again)):
+        m = statistics.median(times)
+        print(f"/healthz after gaitscape serve, {label:27s} median {m:6.2f} s  ratio {m / r:5.2f}")
+    print("  target: <= 2 s on a quiet 2-core machine")
+
+
+def bench_report(demo: Path, repeats: int) -> None:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from matplotlib.figure import Figure
+
+    from service.app import open_resources
+    from service.report import render_report
+    from service.report import convention as cv
+    from service.report.cache import shared_correspondence
+    from service.settings import Settings
+
+    def empty_figures() -> None:
+        import io
+
+        for _ in range(6):
+            fig = Figure(figsize=(6, 4))
+            fig.add_subplot()
+            fig.savefig(io.BytesIO(), format="png", dpi=110)
+
+    res = open_resources(Settings(data_dir=demo, job_runner=False))
+    with res.sessionmaker() as session:
+        corr = shared_correspondence(
+            session=session, recipe="default", version=None, study=None,
+            n_permutations=cv.N_PERMUTATIONS, n_boot=cv.N_BOOT, seed=cv.SEED,
+        )  # fmt: skip
+        t0 = time.perf_counter()
+        render_report(session=session, store=res.store, recipe="default", correspondence=corr)
+        cold = time.perf_counter() - t0  # imports matplotlib, as the demo's one report does
+        ref, times = [], []
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            empty_figures()
+            ref.append(time.perf_counter() - t0)
+            t0 = time.perf_counter()
+            render_report(session=session, store=res.store, recipe="default", correspondence=corr)
+            times.append(time.perf_counter() - t0)
+    res.engine.dispose()
+    r, m = statistics.median(ref), statistics.median(times)
+    print(f"report: six empty figures (reference)          median {r:6.2f} s")
+    print(f"report of {demo.name}, first render (imports)  once   {cold:6.2f} s")
+    print(f"report of {demo.name} (correspondence given)  median {m:6.2f} s  ratio {m / r:5.1f}")
+    print("  target: <= 3 s on a quiet 2-core machine (the demo's report)")
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--demo", type=Path, help="a finished gaitscape demo directory")
+    ap.add_argument("--repeats", type=int, default=3)
+    args = ap.parse_args()
+    bench_startup(args.repeats)
+    if args.demo is not None:
+        bench_report(args.demo, args.repeats)
+
+
+if __name__ == "__main__":
+    main()
