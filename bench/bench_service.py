@@ -95,8 +95,8 @@ def bench_report(demo: Path, repeats: int) -> None:
     from matplotlib.figure import Figure
 
     from service.app import open_resources
-    from service.report import render_report
     from service.report import convention as cv
+    from service.report import render_report
     from service.report.cache import shared_correspondence
     from service.settings import Settings
 
