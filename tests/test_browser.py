@@ -322,16 +322,15 @@ def test_replay_controls(live) -> None:
     expect(page.locator("#clock")).to_have_text("t = 0 s")
     began = time.monotonic()
     page.click("#play")
-    # The clock moves once the software-rendered (SwiftShader) scene has drawn a later
-    # frame; on a loaded machine the first redraw can take a second or more.
-    expect(page.locator("#clock")).not_to_have_text("t = 0 s", timeout=20_000)
-    page.wait_for_timeout(1000)
-    page.click("#play")
+    expect(page.locator("#play")).to_have_text("Pause")
+    # Playback stops by itself at the last frame (the trial lasts 2 s); on a loaded machine
+    # software-rendered redraws are slow, so frames are skipped, never slowed down.
+    expect(page.locator("#play")).to_have_text("Play", timeout=60_000)
     wall = time.monotonic() - began
     t = float(page.inner_text("#clock").removeprefix("t = ").removesuffix(" s"))
-    # Real time: the frame shown follows the wall clock, so the recording time reached is
-    # never ahead of the wall time that passed (frames are skipped, never slowed down),
-    # and playback did advance (the 2 s trial ends at 2 s).
-    assert 0.0 < t <= min(wall, 2.0) + 0.1, (t, wall)
+    # Real time: the last frame (t near 2 s) is shown, and it was not reached sooner than
+    # the recording time that it shows (the clock follows the wall clock, never runs ahead).
+    assert 1.5 < t <= 2.0 + 1e-9, t
+    assert wall >= t - 0.1, (t, wall)
     _shot(page, "replay")
     assert live["problems"] == [], live["problems"]
