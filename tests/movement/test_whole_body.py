@@ -104,3 +104,45 @@ def test_state_options_and_names(state) -> None:
     assert all(x.note for x in s.scores if not np.isfinite(x.value))
     if state == "single_foot":
         assert s.score("state_variance_explained") == 1.0
+
+
+# --- symbolic scores at demo length (measures.movement.state.symbolic_values) ----------
+
+
+def _golden_mean(n: int, seed: int) -> np.ndarray:
+    """Golden mean process: after a 0 always a 1, after a 1 a fair coin (no "00")."""
+    rng = np.random.default_rng(seed)
+    out, last = np.empty(n, dtype=np.int64), 1
+    for t in range(n):
+        last = 1 if last == 0 else int(rng.integers(0, 2))
+        out[t] = last
+    return out
+
+
+def test_symbolic_values_golden_mean_from_a_short_sequence() -> None:
+    # Crutchfield & Feldman (2003), Chaos 13:25: golden mean h = 2/3 bit/symbol,
+    # C_mu = H(2/3, 1/3) = 0.918 bit. 2,000 symbols, too few for the earlier
+    # 100-per-word rule beyond L = 4, reach words of 7 and histories of 6 here.
+    from measures.defaults import MOVEMENT_DEFAULTS
+    from measures.movement.state import symbolic_values
+
+    v = symbolic_values(_golden_mean(2000, 1), 10.0, MOVEMENT_DEFAULTS)
+    assert v["_word_length"] == 7 and v["_history_length"] == 6
+    assert abs(v["entropy_rate_bits"] - 2 / 3) < 0.05
+    assert abs(v["statistical_complexity_bits"] - 0.918296) < 0.05
+    assert abs(v["causal_entropy_rate_bits"] - 2 / 3) < 0.05
+
+
+def test_symbolic_values_period_p_and_too_short() -> None:
+    # Period p: C_mu = log2 p, h = 0 (Crutchfield & Feldman 2003); 80 symbols, the
+    # size of a demo pass, suffice. 10 symbols of 4 kinds do not (4**2 > 10): NaN and a note.
+    from measures.defaults import MOVEMENT_DEFAULTS
+    from measures.movement.state import symbolic_values
+
+    v = symbolic_values(np.tile([0, 1, 2, 3, 2], 16), 10.0, MOVEMENT_DEFAULTS)
+    assert abs(v["statistical_complexity_bits"] - np.log2(5)) < 1e-9
+    assert abs(v["entropy_rate_bits"]) < 0.05
+    short = symbolic_values(np.array([0, 1, 2, 3, 0, 1, 2, 3, 0, 1]), 10.0, MOVEMENT_DEFAULTS)
+    assert "statistical_complexity_bits" not in short
+    assert "Marton-Shields" in short["_causal_note"]
+    assert "Marton-Shields" in short["_entropy_note"]
