@@ -146,3 +146,27 @@ def test_symbolic_values_period_p_and_too_short() -> None:
     assert "statistical_complexity_bits" not in short
     assert "Marton-Shields" in short["_causal_note"]
     assert "Marton-Shields" in short["_entropy_note"]
+
+
+def test_demo_length_trial_gets_entropy_rate_and_causal_states() -> None:
+    # A 4 s pass (16 strides of the analytic walker at 300 Hz): the earlier rules
+    # wanted 400 and 800 symbols; read four times a delay (227 symbols) the sequence
+    # supports words of 3 (the rule's figures are in the notes): both are defined.
+    m = synthetic_walker(phases=WALK, duty=0.7, duration_s=4.0)
+    s = movement_summary(
+        m, frame_rate_hz=FS, marker_names=NAMES, roles=ROLES,
+        params={"n_surrogates": 0, "cutoff_hz": 30.0},
+    )  # fmt: skip
+    assert np.isfinite(s.score("entropy_rate_bits"))
+    assert np.isfinite(s.score("statistical_complexity_bits"))
+    note = next(n for n in s.notes if n.startswith("symbols:"))
+    assert "Marton-Shields" in note
+    coarse = movement_summary(
+        m, frame_rate_hz=FS, marker_names=NAMES, roles=ROLES,
+        params={"n_surrogates": 0, "cutoff_hz": 30.0, "symbols_per_delay": 1},
+    )  # fmt: skip
+    # One symbol a quarter stride: the joint up/down pattern of the two leading
+    # (quadrature) components cycles through four symbols, period 4, so C_mu = log2 4
+    # and h = 0 (period-p process, Crutchfield & Feldman 2003).
+    assert coarse.score("statistical_complexity_bits") == pytest.approx(2.0, abs=1e-9)
+    assert coarse.score("causal_entropy_rate_bits") == pytest.approx(0.0, abs=1e-9)
