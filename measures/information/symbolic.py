@@ -383,9 +383,10 @@ def supported_word_length(symbols: ArrayLike) -> int:
       observed in the sequence.
 
     Both are forms of the bound of Marton & Shields (1994): the empirical
-    distribution of overlapping w-blocks of an ergodic process converges (in
-    variational distance) when ``w <= log N / (h + eps)``, h the entropy rate,
-    and fails beyond ``log N / (h - eps)`` (statement from memory). With
+    distribution of overlapping w-blocks converges to the true one (in
+    variational distance, almost surely) when ``w <= log N / (h + eps)``, h the
+    entropy rate, for weak Bernoulli processes (i.i.d., aperiodic Markov chains
+    and functions of them; statement from memory). With
     ``h <= log k`` the first condition is the universal form of the bound. The
     second uses the words the data actually show: about ``2**(w h)`` typical
     words exist, so ``W(w)**2 <= N`` keeps w at or below ``log N / (2 h)``
