@@ -37,7 +37,11 @@ Shields 1994): the block entropy rate uses the longest supported word length
 w (at least 2, so that h = H(w) - H(w-1) conditions on one symbol or more),
 causal states histories of length w - 1 (at least 1; the machine is read off
 (L+1)-words) with the default family-wise level of
-:func:`measures.information.causal.causal_states`. A sequence too short for
+:func:`measures.information.causal.causal_states`. When the word counts
+saturate (W(d + 1) = W(d): a periodic sequence, the last d symbols fix the
+next) at a length the rule does not reach, both use the longer
+:func:`measures.information.causal.determining_history` (causal_states'
+own default rule), where every word is well supported. A sequence too short for
 w = 2 gives NaN with a note naming N and w.
 
 Surrogate z-scores: each complexity score is recomputed on
@@ -202,7 +206,9 @@ def symbolic_values(
     """Entropy rates, causal states and the two-part code of a symbol sequence."""
     n = int(symbols.size)
     k = max(2, int(np.unique(symbols).size))
-    w = symbolic.supported_word_length(symbols)
+    # Saturating word counts (the last d symbols fix the next) support longer words.
+    determined = causal.determining_history(symbols)
+    w = max(symbolic.supported_word_length(symbols), determined)
     # Histories of length L are read off (L+1)-words; causal_states refuses k**(L+1) > N.
     history = w - 1
     while history >= 1 and k ** (history + 1) > n:
@@ -224,7 +230,13 @@ def symbolic_values(
             "supported_word_length): no entropy rate"
         )
     model = math.nan
-    if history >= 1:
+    if determined > max(history, 0):
+        # The words saturate (a periodic stretch: the last d symbols fix the next) at a
+        # length the rule above does not reach; causal_states' own default takes it.
+        model = _or_nan(causal.causal_states, symbols)
+        if not isinstance(model, float):
+            values["_history_length"] = model.max_history
+    elif history >= 1:
         model = _or_nan(causal.causal_states, symbols, max_history=history)
     else:
         values["_causal_note"] = (

@@ -170,3 +170,20 @@ def test_demo_length_trial_gets_entropy_rate_and_causal_states() -> None:
     # and h = 0 (period-p process, Crutchfield & Feldman 2003).
     assert coarse.score("statistical_complexity_bits") == pytest.approx(2.0, abs=1e-9)
     assert coarse.score("causal_entropy_rate_bits") == pytest.approx(0.0, abs=1e-9)
+
+
+def test_symbolic_values_long_period_uses_the_determining_history() -> None:
+    # Period 16 in runs of 6, 2, 6, 2 over four symbols (4,800 symbols): k**w <= N
+    # stops w at 6, but the last 6 symbols fix the next one only from 7 on. The
+    # saturating word count (W(7) = W(6) = 16) sets both lengths to 7, and the
+    # period-p values follow: C_mu = log2 16 = 4 bits, h = 0 (Crutchfield &
+    # Feldman 2003). With histories of 5 CSSR explains 38 % (flagged, not reported).
+    from measures.defaults import MOVEMENT_DEFAULTS
+    from measures.movement.state import symbolic_values
+
+    x = np.tile([0] * 6 + [1] * 2 + [2] * 6 + [3] * 2, 300)
+    v = symbolic_values(x, 10.0, MOVEMENT_DEFAULTS)
+    assert v["_word_length"] == 7 and v["_history_length"] == 7
+    assert v["statistical_complexity_bits"] == pytest.approx(4.0, abs=1e-9)
+    assert v["causal_entropy_rate_bits"] == pytest.approx(0.0, abs=1e-9)
+    assert abs(v["entropy_rate_bits"]) < 1e-3
