@@ -93,6 +93,7 @@ MOVEMENT_DEFAULTS: dict[str, Any] = {
     "ordinal_delay_samples": None,  # None: the delay
     # symbolic dynamics
     "symbol_order": 2,  # ordinal order per channel (2: up/down)
+    "symbols_per_delay": 4,  # symbol readings per decorrelation delay (16 per stride)
     "entropy_method": "block",
     # sample entropy on the coarse series
     "sampen_m": 2,

@@ -82,7 +82,7 @@ from scipy.sparse.csgraph import connected_components
 from measures._validation import InsufficientDataError, InvalidParameterError
 from measures.information._homogeneity import homogeneity_pvalue
 
-__all__ = ["SYNCHRONISED_THRESHOLD", "CausalStateModel", "causal_states"]
+__all__ = ["SYNCHRONISED_THRESHOLD", "CausalStateModel", "causal_states", "determining_history"]
 
 #: Share of the predicted symbols a machine must explain to be ``reliable``.
 SYNCHRONISED_THRESHOLD = 0.95
@@ -280,6 +280,29 @@ def _determining_history(s: NDArray[np.int64], k: int, n: int) -> int:
         previous = words
         d += 1
     return 0
+
+
+def determining_history(symbols: ArrayLike) -> int:
+    """History length the default rule takes from saturating word counts (0 if none).
+
+    One more than the first d with W(d + 1) = W(d) (W(j) the distinct j-words
+    observed: the last d symbols then fix the next one, as in a periodic
+    sequence), provided ``50 * W(d + 1) <= N``; 0 when the counts do not
+    saturate within that support. :func:`causal_states` with
+    ``max_history=None`` uses at least this length (module notes).
+
+    Examples
+    --------
+    >>> determining_history([0, 0, 1] * 400)  # W(1) = 2, W(2) = 3, W(3) = 3
+    3
+    """
+    raw = np.asarray(symbols)
+    if raw.ndim != 1 or raw.size == 0:
+        raise InvalidParameterError("symbols", "determining_history", "a non-empty 1D array", raw)
+    alphabet, s = np.unique(raw, return_inverse=True)
+    if alphabet.size < 2:
+        return 0
+    return _determining_history(s.astype(np.int64).ravel(), int(alphabet.size), int(raw.size))
 
 
 def _choose_history(max_history: int | None, k: int, n: int, s: NDArray[np.int64]) -> int:

@@ -63,6 +63,7 @@ __all__ = [
     "ordinal_patterns",
     "quantile_symbols",
     "state_symbols",
+    "supported_word_length",
     "threshold_symbols",
     "tie_fraction",
 ]
@@ -370,6 +371,69 @@ def threshold_symbols(x: ArrayLike, *, thresholds: float | Sequence[float]) -> N
     if np.any(np.diff(cuts) <= 0):
         raise InvalidParameterError("thresholds", fn, "strictly increasing", thresholds)
     return np.searchsorted(cuts, arr, side="right").astype(np.int64)
+
+
+def supported_word_length(symbols: ArrayLike) -> int:
+    """Longest word length whose empirical distribution a sequence of N symbols supports.
+
+    The largest w with
+
+    * ``k**w <= N`` (k the number of distinct symbols, at least 2), and
+    * ``W(w)**2 <= N``, where W(w) is the number of distinct words of length w
+      observed in the sequence.
+
+    Both are forms of the bound of Marton & Shields (1994): the empirical
+    distribution of overlapping w-blocks converges to the true one (in
+    variational distance, almost surely) when ``w <= log N / (h + eps)``, h the
+    entropy rate, for weak Bernoulli processes (i.i.d., aperiodic Markov chains
+    and functions of them; statement from memory). With
+    ``h <= log k`` the first condition is the universal form of the bound. The
+    second uses the words the data actually show: about ``2**(w h)`` typical
+    words exist, so ``W(w)**2 <= N`` keeps w at or below ``log N / (2 h)``
+    (the margin eps = h) and every observed word is seen about sqrt(N) times
+    on average. A sequence of little entropy (a finely sampled rhythm, whose
+    words are few) therefore supports longer words than ``k**w`` alone would
+    allow; a fair coin of N symbols gets ``w = floor(log2 N / 2)``.
+
+    Parameters
+    ----------
+    symbols : array_like, shape (N,)
+        Any sortable labels.
+
+    Returns
+    -------
+    int
+        w >= 0; 0 when N < k**2 (k >= 2 distinct symbols), i.e. when even the
+        single-symbol distribution is not supported.
+
+    References
+    ----------
+    K. Marton & P. C. Shields (1994), "Entropy and the consistent estimation of
+    joint distributions", Ann. Probab. 22:960-977.
+
+    Examples
+    --------
+    >>> supported_word_length([0, 1, 2] * 300)  # W(w) = 3; 3**6 = 729 <= 900 < 3**7
+    6
+    """
+    fn = "supported_word_length"
+    raw = np.asarray(symbols)
+    if raw.ndim != 1 or raw.size == 0:
+        raise InvalidParameterError("symbols", fn, "a non-empty 1D sequence", raw)
+    _, dense = np.unique(raw, return_inverse=True)
+    dense = dense.astype(np.int64).ravel()
+    n = dense.size
+    k = max(int(dense.max()) + 1, 2)
+    w = 0
+    codes = np.zeros(n, dtype=np.int64)
+    # Word codes in base k grow one symbol at a time (k**(w+1) <= N < 2**62).
+    while k ** (w + 1) <= n:
+        m = n - w  # windows of length w + 1
+        codes = codes[:m] * k + dense[w:]
+        if np.unique(codes).size ** 2 > n:
+            break
+        w += 1
+    return w
 
 
 def joint_symbols(symbol_arrays: Sequence[ArrayLike]) -> NDArray[np.int64]:

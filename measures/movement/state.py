@@ -18,21 +18,39 @@ body reference markers): windowed PCA over all channels (Broomhead & King
    smallest r holding ``variance_fraction`` of the variance, clipped to
    ``[2, max_components]``.
 
-Symbols of the state (the default symbolisation): the state is read once per
-decorrelation delay (the first zero of the autocorrelation of its leading
-component, a quarter stride for an oscillating gait), and
-each of the leading ``symbol_channels`` components gives an ordinal pattern of
-order ``symbol_order`` (up/down for order 2); the joint pattern of those
-channels is the symbol (multichannel ordinal patterns, after Keller &
-Lauffer 2003; from memory). One symbol per delay makes the symbol rate a
-property of the movement, not of the frame rate.
+Symbols of the state (the default symbolisation): the state is read every
+``delay / symbols_per_delay`` frames (the delay is the first zero of the
+autocorrelation of its leading component, a quarter stride for an oscillating
+gait; default 4 readings per delay, 16 per stride), and each of the leading
+``symbol_channels`` components gives an ordinal pattern of order
+``symbol_order`` between consecutive readings (up/down for order 2); the
+joint pattern of those channels is the symbol (multichannel ordinal patterns,
+after Keller & Lauffer 2003; from memory). Tying the step to the delay makes
+the symbol rate a property of the movement, not of the frame rate (at a low
+frame rate the step is clipped to one frame, noted). Reading the state more
+than once per delay gives short trials enough symbols: a 4 s pass of five
+strides gives about 80, where one per delay gave 20.
+
+Word and history lengths follow the sample size
+(:func:`measures.information.symbolic.supported_word_length`, after Marton &
+Shields 1994): the block entropy rate uses the longest supported word length
+w (at least 2, so that h = H(w) - H(w-1) conditions on one symbol or more),
+causal states histories of length w - 1 (at least 1; the machine is read off
+(L+1)-words) with the default family-wise level of
+:func:`measures.information.causal.causal_states`. When the word counts
+saturate (W(d + 1) = W(d): a periodic sequence, the last d symbols fix the
+next) at a length the rule does not reach, both use the longer
+:func:`measures.information.causal.determining_history` (causal_states'
+own default rule), where every word is well supported. A sequence too short for
+w = 2 gives NaN with a note naming N and w.
 
 Surrogate z-scores: each complexity score is recomputed on
 ``n_surrogates`` multichannel IAAFT surrogates of the state (Schreiber &
 Schmitz 1996, 2000: same amplitude distribution per component, same auto-
 and cross-spectra). To bound the cost the data and its surrogates are both
-evaluated on the state decimated (anti-aliased) to about two points per
-delay, first ``surrogate_max_points`` points, with the exact recurrence
+evaluated on the state decimated (anti-aliased) to about
+``max(2, symbols_per_delay)`` points per delay (so symbols are read at the
+data's step), first ``surrogate_max_points`` points, with the exact recurrence
 threshold; the z-score compares like with like. A |z| below 2 says the
 score does not tell this movement apart from a linear Gaussian process with
 the same spectra.
@@ -141,11 +159,16 @@ def decimate(x: NDArray[np.float64], q: int) -> NDArray[np.float64]:
     return resample_poly(x, 1, q, axis=0) if q > 1 else x
 
 
+def symbol_step(delay: int, per_delay: int) -> int:
+    """Frames between symbol readings: ``delay / per_delay``, rounded, at least 1."""
+    return max(1, round(delay / max(1, int(per_delay))))
+
+
 def state_symbols(
-    state: NDArray[np.float64], delay: int, *, order: int, channels: int
+    state: NDArray[np.float64], delay: int, *, order: int, channels: int, per_delay: int = 1
 ) -> NDArray[np.int64]:
-    """Joint ordinal symbols of the leading components, one per ``delay`` frames."""
-    coarse = state[::delay, : max(1, min(channels, state.shape[1]))]
+    """Joint ordinal symbols of the leading components, read every ``symbol_step`` frames."""
+    coarse = state[:: symbol_step(delay, per_delay), : max(1, min(channels, state.shape[1]))]
     codes = [
         symbolic.ordinal_patterns(coarse[:, i], order=order, delay=1)
         for i in range(coarse.shape[1])
@@ -181,11 +204,45 @@ def symbolic_values(
     symbols: NDArray[np.int64], symbol_rate_hz: float, p: Mapping[str, Any]
 ) -> dict[str, float]:
     """Entropy rates, causal states and the two-part code of a symbol sequence."""
-    values = {
-        "entropy_rate_bits": _or_nan(entropy.entropy_rate, symbols, method=p["entropy_method"]),
+    n = int(symbols.size)
+    k = max(2, int(np.unique(symbols).size))
+    # Saturating word counts (the last d symbols fix the next) support longer words.
+    determined = causal.determining_history(symbols)
+    w = max(symbolic.supported_word_length(symbols), determined)
+    # Histories of length L are read off (L+1)-words; causal_states refuses k**(L+1) > N.
+    history = w - 1
+    while history >= 1 and k ** (history + 1) > n:
+        history -= 1
+    values: dict[str, Any] = {
         "lz76_entropy_rate_bits": _or_nan(entropy.entropy_rate, symbols, method="lz76"),
+        "_word_length": w,
+        "_history_length": history,
     }
-    model = _or_nan(causal.causal_states, symbols)
+    if p["entropy_method"] != "block":
+        values["entropy_rate_bits"] = _or_nan(
+            entropy.entropy_rate, symbols, method=p["entropy_method"]
+        )
+    elif w >= 2:
+        values["entropy_rate_bits"] = _or_nan(entropy.entropy_rate, symbols, max_length=w)
+    else:
+        values["_entropy_note"] = (
+            f"{n} symbols support words of length {w} (< 2; Marton-Shields rule, "
+            "supported_word_length): no entropy rate"
+        )
+    model = math.nan
+    if determined > max(history, 0):
+        # The words saturate (a periodic stretch: the last d symbols fix the next) at a
+        # length the rule above does not reach; causal_states' own default takes it.
+        model = _or_nan(causal.causal_states, symbols)
+        if not isinstance(model, float):
+            values["_history_length"] = model.max_history
+    elif history >= 1:
+        model = _or_nan(causal.causal_states, symbols, max_history=history)
+    else:
+        values["_causal_note"] = (
+            f"{n} symbols support histories of length {history} (< 1; Marton-Shields rule, "
+            "supported_word_length): no causal states"
+        )
     if not isinstance(model, float):
         if model.reliable:
             values["statistical_complexity_bits"] = model.statistical_complexity
@@ -238,11 +295,15 @@ def state_scores(
     plane = _or_nan(ordinal.complexity_entropy, lead, order=p["ordinal_order"], delay=delay)
     if isinstance(plane, tuple):
         values["permutation_entropy"], values["js_complexity"] = plane
+    per_delay = int(p["symbols_per_delay"])
     symbols = _or_nan(
-        state_symbols, state, delay, order=p["symbol_order"], channels=p["symbol_channels"]
-    )
+        state_symbols, state, delay, order=p["symbol_order"], channels=p["symbol_channels"],
+        per_delay=per_delay,
+    )  # fmt: skip
     if isinstance(symbols, np.ndarray):
-        values |= symbolic_values(symbols, frame_rate_hz / delay, p)
+        values |= symbolic_values(symbols, frame_rate_hz / symbol_step(delay, per_delay), p)
+        values["_n_symbols"] = symbols.size
+        values["_symbol_step"] = symbol_step(delay, per_delay)
     values["sample_entropy"] = _or_nan(
         sampen.sample_entropy, lead[::delay], m=p["sampen_m"], r=p["sampen_r"]
     )
@@ -272,7 +333,9 @@ def surrogate_z(
     n_sur = int(p["n_surrogates"])
     if n_sur < 2:
         return SurrogateZ({}, n_sur, 1, "surrogates switched off (n_surrogates < 2)")
-    q = max(1, delay // SURROGATE_POINTS_PER_DELAY)
+    # At least symbols_per_delay points per delay, so that surrogate symbols are read
+    # at the data's symbol step (the decimated delay divided by symbols_per_delay).
+    q = max(1, delay // max(SURROGATE_POINTS_PER_DELAY, int(p["symbols_per_delay"])))
     small = decimate(state, q)[: int(p["surrogate_max_points"])]
     d = max(1, round(delay / q))
     rate = frame_rate_hz / q

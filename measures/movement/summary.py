@@ -580,6 +580,16 @@ def _state_stage(
     short = "too few symbols for this estimate (or no causal-state model)"
     causal_note = values.pop("_causal_note", None)
     two_part_note = values.pop("_two_part_note", None)
+    entropy_note = values.pop("_entropy_note", None)
+    n_sym, step = values.pop("_n_symbols", None), values.pop("_symbol_step", None)
+    w, hist = values.pop("_word_length", None), values.pop("_history_length", None)
+    if n_sym is not None:
+        book.notes.append(
+            f"symbols: {n_sym}, one every {step} frames ({step * q / fs:.3g} s); supported "
+            f"word length {w}, causal-state history {hist} (Marton-Shields rule)"
+        )
+        if step == 1 and delay_q < int(p["symbols_per_delay"]):
+            book.notes.append("symbol step clipped to one frame (frame rate low for the delay)")
     if causal_note:
         book.notes.append(f"causal states: {causal_note}")
     book.fill(_STATE_UNITS, values, causal_note or short)
@@ -589,7 +599,10 @@ def _state_stage(
         z = sz.z.get(name, math.nan) if sz.z else None
         note = sz.note if np.isfinite(v) else short
         if not np.isfinite(v) and causal_note and name.startswith(("statistical", "causal")):
-            note = f"causal-state machine flagged: {causal_note}"
+            flagged = causal_note.startswith("machine")
+            note = f"causal-state machine flagged: {causal_note}" if flagged else causal_note
+        if not np.isfinite(v) and entropy_note and name == "entropy_rate_bits":
+            note = entropy_note
         if two_part_note and name.startswith(("effective", "total")):
             note = f"{two_part_note}; {note}"
         if name in ("rqa_det", "rqa_lam") and np.isfinite(v) and v == 0:

@@ -19,6 +19,7 @@ from measures import (
     ordinal_patterns,
     quantile_symbols,
     state_symbols,
+    supported_word_length,
     threshold_symbols,
 )
 
@@ -253,3 +254,36 @@ def test_state_symbols_rule_and_parameters(rng):
         state_symbols(x, method="kmeans")
     with pytest.raises(InvalidParameterError):
         state_symbols(x, n_components=3)
+
+
+# --- supported_word_length: the Marton & Shields (1994) rule --------------------------
+
+
+def test_supported_word_length_fair_coin(rng):
+    # A fair coin shows all 2**w words: W(w)**2 <= N gives w = floor(log2(N) / 2)
+    # (analytic; log2 10,000 = 13.3, so 2**6 = 64 words <= 100 < 2**7).
+    assert supported_word_length(rng.integers(0, 2, 10_000)) == 6
+
+
+def test_supported_word_length_golden_mean_counts_fibonacci_words():
+    # Binary words without "00" number F(w + 2) (Fibonacci; the golden mean process
+    # of Crutchfield & Feldman 2003). A long sequence showing every allowed word:
+    # W(w) = 2, 3, 5, 8, 13, 21, 34, 55, 89, 144 for w = 1..10; N = 10,000 gives
+    # W(9) = 89 <= 100 < W(10) = 144, and 2**9 <= N: w = 9.
+    rng = np.random.default_rng(3)
+    out, last = [], 1
+    while len(out) < 10_000:
+        last = 1 if last == 0 else int(rng.integers(0, 2))
+        out.append(last)
+    assert supported_word_length(out) == 9
+
+
+def test_supported_word_length_periodic_is_capped_by_the_alphabet():
+    # Period 3 over 3 symbols: W(w) = 3 for every w, so only k**w <= N binds
+    # (3**6 = 729 <= 900 < 3**7); period 2 over 2 symbols, N = 4: w = 2.
+    assert supported_word_length([0, 1, 2] * 300) == 6
+    assert supported_word_length([0, 1] * 2) == 2
+    # Too few symbols for single-symbol frequencies: 4 distinct in 15 (4**2 > 15).
+    assert supported_word_length([0, 1, 2, 3, 0] * 3) == 0
+    with pytest.raises(InvalidParameterError):
+        supported_word_length([])

@@ -104,3 +104,86 @@ def test_state_options_and_names(state) -> None:
     assert all(x.note for x in s.scores if not np.isfinite(x.value))
     if state == "single_foot":
         assert s.score("state_variance_explained") == 1.0
+
+
+# --- symbolic scores at demo length (measures.movement.state.symbolic_values) ----------
+
+
+def _golden_mean(n: int, seed: int) -> np.ndarray:
+    """Golden mean process: after a 0 always a 1, after a 1 a fair coin (no "00")."""
+    rng = np.random.default_rng(seed)
+    out, last = np.empty(n, dtype=np.int64), 1
+    for t in range(n):
+        last = 1 if last == 0 else int(rng.integers(0, 2))
+        out[t] = last
+    return out
+
+
+def test_symbolic_values_golden_mean_from_a_short_sequence() -> None:
+    # Crutchfield & Feldman (2003), Chaos 13:25: golden mean h = 2/3 bit/symbol,
+    # C_mu = H(2/3, 1/3) = 0.918 bit. 2,000 symbols, too few for the earlier
+    # 100-per-word rule beyond L = 4, reach words of 7 and histories of 6 here.
+    from measures.defaults import MOVEMENT_DEFAULTS
+    from measures.movement.state import symbolic_values
+
+    v = symbolic_values(_golden_mean(2000, 1), 10.0, MOVEMENT_DEFAULTS)
+    assert v["_word_length"] == 7 and v["_history_length"] == 6
+    assert abs(v["entropy_rate_bits"] - 2 / 3) < 0.05
+    assert abs(v["statistical_complexity_bits"] - 0.918296) < 0.05
+    assert abs(v["causal_entropy_rate_bits"] - 2 / 3) < 0.05
+
+
+def test_symbolic_values_period_p_and_too_short() -> None:
+    # Period p: C_mu = log2 p, h = 0 (Crutchfield & Feldman 2003); 80 symbols, the
+    # size of a demo pass, suffice. 10 symbols of 4 kinds do not (4**2 > 10): NaN and a note.
+    from measures.defaults import MOVEMENT_DEFAULTS
+    from measures.movement.state import symbolic_values
+
+    v = symbolic_values(np.tile([0, 1, 2, 3, 2], 16), 10.0, MOVEMENT_DEFAULTS)
+    assert abs(v["statistical_complexity_bits"] - np.log2(5)) < 1e-9
+    assert abs(v["entropy_rate_bits"]) < 0.05
+    short = symbolic_values(np.array([0, 1, 2, 3, 0, 1, 2, 3, 0, 1]), 10.0, MOVEMENT_DEFAULTS)
+    assert "statistical_complexity_bits" not in short
+    assert "Marton-Shields" in short["_causal_note"]
+    assert "Marton-Shields" in short["_entropy_note"]
+
+
+def test_demo_length_trial_gets_entropy_rate_and_causal_states() -> None:
+    # A 4 s pass (16 strides of the analytic walker at 300 Hz): the earlier rules
+    # wanted 400 and 800 symbols; read four times a delay (227 symbols) the sequence
+    # supports words of 3 (the rule's figures are in the notes): both are defined.
+    m = synthetic_walker(phases=WALK, duty=0.7, duration_s=4.0)
+    s = movement_summary(
+        m, frame_rate_hz=FS, marker_names=NAMES, roles=ROLES,
+        params={"n_surrogates": 0, "cutoff_hz": 30.0},
+    )  # fmt: skip
+    assert np.isfinite(s.score("entropy_rate_bits"))
+    assert np.isfinite(s.score("statistical_complexity_bits"))
+    note = next(n for n in s.notes if n.startswith("symbols:"))
+    assert "Marton-Shields" in note
+    coarse = movement_summary(
+        m, frame_rate_hz=FS, marker_names=NAMES, roles=ROLES,
+        params={"n_surrogates": 0, "cutoff_hz": 30.0, "symbols_per_delay": 1},
+    )  # fmt: skip
+    # One symbol a quarter stride: the joint up/down pattern of the two leading
+    # (quadrature) components cycles through four symbols, period 4, so C_mu = log2 4
+    # and h = 0 (period-p process, Crutchfield & Feldman 2003).
+    assert coarse.score("statistical_complexity_bits") == pytest.approx(2.0, abs=1e-9)
+    assert coarse.score("causal_entropy_rate_bits") == pytest.approx(0.0, abs=1e-9)
+
+
+def test_symbolic_values_long_period_uses_the_determining_history() -> None:
+    # Period 16 in runs of 6, 2, 6, 2 over four symbols (4,800 symbols): k**w <= N
+    # stops w at 6, but the last 6 symbols fix the next one only from 7 on. The
+    # saturating word count (W(7) = W(6) = 16) sets both lengths to 7, and the
+    # period-p values follow: C_mu = log2 16 = 4 bits, h = 0 (Crutchfield &
+    # Feldman 2003). With histories of 5 CSSR explains 38 % (flagged, not reported).
+    from measures.defaults import MOVEMENT_DEFAULTS
+    from measures.movement.state import symbolic_values
+
+    x = np.tile([0] * 6 + [1] * 2 + [2] * 6 + [3] * 2, 300)
+    v = symbolic_values(x, 10.0, MOVEMENT_DEFAULTS)
+    assert v["_word_length"] == 7 and v["_history_length"] == 7
+    assert v["statistical_complexity_bits"] == pytest.approx(4.0, abs=1e-9)
+    assert v["causal_entropy_rate_bits"] == pytest.approx(0.0, abs=1e-9)
+    assert abs(v["entropy_rate_bits"]) < 1e-3
