@@ -230,19 +230,33 @@ def areal_autocorrelation(
     fn = "areal_autocorrelation"
     arr, dx_f, dy_f, mask = check_grid(z, dx, dy, valid, fn)
     check_choice("detrend", detrend, fn, ("mean", "plane"))
-    zl = level(np.nan_to_num(arr), dx_f, dy_f, mask, detrend)
+    zl = level(arr if mask is None else np.nan_to_num(arr), dx_f, dy_f, mask, detrend)
     ny, nx = arr.shape
-    shape = (2 * ny, 2 * nx)
+    hy, hx = ny // 2, nx // 2
+    return np.arange(-hx, hx + 1) * dx_f, np.arange(-hy, hy + 1) * dy_f, _acf_levelled(zl, mask)
+
+
+def _acf_levelled(zl: NDArray[np.float64], mask: NDArray[np.bool_] | None) -> NDArray[np.float64]:
+    """The centred ACF of :func:`areal_autocorrelation` from levelled heights (holes 0)."""
+    ny, nx = zl.shape
+    hy, hx = ny // 2, nx // 2
+    # Padding: a circular correlation of length M holds the linear one at lag t
+    # plus its alias at t - M; for the kept lags |t| <= n // 2 the alias is empty
+    # once M >= n + n // 2, so 1.5 n (rounded up to a fast FFT size) is enough.
+    shape = (
+        sfft.next_fast_len(ny + hy + 1, real=False),
+        sfft.next_fast_len(nx + hx + 1, real=True),
+    )
     # float32 transforms: the ACF is read at thresholds like 0.2 of its peak, far
     # above float32's ~1e-6 relative FFT rounding. Separable transforms, cropped
-    # to the lags kept as soon as possible: the padded 2n x 2n grid never exists
-    # as a real array (rfft pads each row), and the inverse keeps only the rows
-    # it returns before its last pass (a 4096^2 scan: ~0.5 GiB, not 2 GiB).
+    # to the lags kept as soon as possible: the padded grid never exists as a
+    # real array (rfft pads each row), and the inverse keeps only the rows it
+    # returns before its last pass.
     spec = sfft.rfft(zl.astype(np.float32), n=shape[1], axis=1, workers=-1)
     spec = sfft.fft(spec, n=shape[0], axis=0, workers=-1, overwrite_x=True)
-    power = spec.real**2 + spec.imag**2
+    power = spec.real**2
+    power += spec.imag**2
     del spec
-    hy, hx = ny // 2, nx // 2
     rows = np.r_[shape[0] - hy : shape[0], 0 : hy + 1]
     cols = np.r_[shape[1] - hx : shape[1], 0 : hx + 1]
     half = sfft.ifft(power, axis=0, workers=-1)[rows]
@@ -260,8 +274,7 @@ def areal_autocorrelation(
         cnt = cnt[np.ix_(rows, cols)]
     var = num[hy, hx] / cnt[hy, hx]
     with np.errstate(invalid="ignore", divide="ignore"):
-        acf = np.where(cnt > 0.5, num / np.maximum(cnt, 0.5), np.nan) / var
-    return np.arange(-hx, hx + 1) * dx_f, np.arange(-hy, hy + 1) * dy_f, acf
+        return np.where(cnt > 0.5, num / np.maximum(cnt, 0.5), np.nan) / var
 
 
 def _decay_lengths(
@@ -361,6 +374,19 @@ def areal_parameters(
         band = _check_band(band_m, fn)
         arr = bandpass_surface(np.nan_to_num(arr), dx_f, dy_f, band_m=band, valid=mask)
     zl = level(np.nan_to_num(arr), dx_f, dy_f, mask, detrend)
+    return _areal_from_levelled(zl, dx_f, dy_f, mask, detrend, s, band)
+
+
+def _areal_from_levelled(
+    zl: NDArray[np.float64],
+    dx_f: float,
+    dy_f: float,
+    mask: NDArray[np.bool_] | None,
+    detrend: str,
+    s: float,
+    band: tuple[float | None, float | None] | None,
+) -> ArealParameters:
+    """:func:`areal_parameters` of heights already levelled (holes 0): no second levelling."""
     h = zl if mask is None else zl[mask]
     sq = float(np.sqrt(np.mean(h**2)))
     sa = float(np.mean(np.abs(h)))
@@ -369,13 +395,13 @@ def areal_parameters(
         sku = float(np.mean(h**4) / sq**4)
     # numpy's stubs cannot tell a 2-D input's gradient pair from a 1-D array
     gy, gx = cast("tuple[NDArray[np.float64], NDArray[np.float64]]", np.gradient(zl, dy_f, dx_f))
-    gmask = _gradient_mask(mask, arr.shape)
+    gmask = _gradient_mask(mask, zl.shape)
     g2 = (gx**2 + gy**2)[gmask]
     sdq = float(np.sqrt(np.mean(g2)))
     # sqrt(1 + g) - 1 written as g / (sqrt(1 + g) + 1): no cancellation on flat ground.
     sdr = float(np.mean(g2 / (np.sqrt(1.0 + g2) + 1.0)))
     del gx, gy, g2, gmask  # the ACF's padded transforms need the room on large scans
-    _, _, acf = areal_autocorrelation(zl, dx_f, dy_f, valid=mask)
+    acf = _acf_levelled(zl, mask)
     lengths, decayed = _decay_lengths(acf, dx_f, dy_f, s)
     if decayed.any() and sq > 0:
         sal = float(lengths[decayed].min())
