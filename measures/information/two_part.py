@@ -237,8 +237,22 @@ def _window_costs(
     # (window, context, symbol) keys; k**(m+1) * n_win stays far below 2**62
     # because of the context-size cap.
     key = (np.arange(n_win, dtype=np.int64)[:, None] * int(big_k) + codes) * k + symbols
-    uniq, cnt = np.unique(key.ravel(), return_counts=True)
-    grp, ginv = np.unique(uniq // k, return_inverse=True)
+    bound = n_win * int(big_k) * k
+    if bound <= max(2**22, 4 * key.size):
+        # Small key range: counting, not sorting (the same sorted keys and counts).
+        full = np.bincount(key.ravel(), minlength=bound)
+        uniq = np.flatnonzero(full)
+        cnt = full[uniq]
+        del full
+        g = uniq // k  # sorted, so groups are runs
+        first = np.empty(g.size, dtype=bool)
+        first[:1] = True
+        np.not_equal(g[1:], g[:-1], out=first[1:])
+        grp = g[first]
+        ginv = np.cumsum(first) - 1
+    else:
+        uniq, cnt = np.unique(key.ravel(), return_counts=True)
+        grp, ginv = np.unique(uniq // k, return_inverse=True)
     n_c = np.bincount(ginv, weights=cnt)
     j_c = np.bincount(ginv).astype(float)
     fitted_data = n_c * np.log2(n_c) - np.bincount(ginv, weights=cnt * np.log2(cnt))

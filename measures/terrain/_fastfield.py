@@ -349,6 +349,30 @@ def _phase_spectrum(
     return out
 
 
+def _irfft2(f: NDArray[np.complex64], shape: tuple[int, ...], workers: int) -> NDArray[np.float32]:
+    """Inverse real 2-D FFT that may overwrite ``f``.
+
+    ducc0's transform (when installed) works in place on the spectrum and
+    is 1.5-2x faster here than scipy's on a 4096^2 grid; scipy otherwise.
+    Both agree to float32 rounding (6e-8 relative).
+    """
+    try:
+        import ducc0
+    except ImportError:  # pragma: no cover - ducc0 is a declared dependency
+        return sfft.irfft2(f, s=shape, workers=workers, overwrite_x=True)
+    out = np.empty(shape, dtype=np.float32)
+    return ducc0.fft.c2r(  # type: ignore[no-any-return]
+        f,
+        axes=(0, 1),
+        lastsize=shape[1],
+        forward=False,
+        inorm=2,
+        out=out,
+        nthreads=workers,
+        allow_overwriting_input=True,
+    )
+
+
 def phase_surrogates(
     z: NDArray, seed: int, *, workers: int | None = None
 ) -> Callable[[int], NDArray[np.float32]]:
@@ -369,7 +393,7 @@ def phase_surrogates(
     def make(k: int) -> NDArray[np.float32]:
         rng = np.random.default_rng([base, int(k)])
         f = _phase_spectrum(amp, rng, shape[0], shape[1] % 2 == 0)
-        out = sfft.irfft2(f, s=shape, workers=workers or 1, overwrite_x=True)
+        out = _irfft2(f, shape, workers or 1)
         out += np.float32(mean)
         return out
 
