@@ -13,6 +13,7 @@ of :func:`prefix_entropies`; there is no second copy of this logic.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -148,3 +149,91 @@ def excess_from_conditionals(conditional: NDArray[np.float64]) -> float:
     (2003) are both this sum over the conditional-entropy profile.
     """
     return float(np.sum(conditional) - len(conditional) * conditional[-1])
+
+
+# Largest histogram the compiled 2-D path allocates per row chunk (bins).
+_KERNEL_MAX_BINS = 2**22
+
+
+def _site_kernel() -> Any:
+    """Compiled step of :func:`site_and_neighbour_entropies` (numba, built on first use)."""
+    from numba import njit, prange
+
+    @njit(cache=True, parallel=True)
+    def step(  # pragma: no cover - compiled
+        codes: NDArray[np.int64],
+        dense: NDArray[np.int64],
+        lo0: int,
+        lo1: int,
+        hi0: int,
+        hi1: int,
+        o0: int,
+        o1: int,
+        k: int,
+        site_mult: int,
+        n_nb: int,
+        n_joint: int,
+        n_chunks: int,
+    ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+        nb = np.zeros((n_chunks, n_nb), dtype=np.int64)
+        joint = np.zeros((n_chunks, n_joint), dtype=np.int64)
+        rows = hi0 - lo0
+        per = (rows + n_chunks - 1) // n_chunks
+        for c in prange(n_chunks):
+            for i in range(lo0 + c * per, min(hi0, lo0 + (c + 1) * per)):
+                for j in range(lo1, hi1):
+                    v = codes[i, j] * k + dense[i + o0, j + o1]
+                    codes[i, j] = v
+                    nb[c, v] += 1
+                    joint[c, dense[i, j] * site_mult + v] += 1
+        return nb.sum(axis=0), joint.sum(axis=0)
+
+    return step
+
+
+_STEP: Any = None
+
+
+def site_and_neighbour_entropies(
+    dense: NDArray[np.int64],
+    k: int,
+    offsets: Sequence[tuple[int, int]],
+    estimator: str,
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Both ``prefix_entropies`` of a 2-D field's entropy density in one pass per site.
+
+    Returns ``(joint, neighbours)``: ``prefix_entropies(dense, k, [(0, 0),
+    *offsets])`` and ``prefix_entropies(dense, k, offsets)``. The word of the
+    site and its first j neighbours is the site's symbol times ``k**j`` plus
+    the neighbours' word, over the same anchors (the site itself crops
+    nothing), so one compiled pass per added neighbour updates the codes in
+    place and counts both words. The counts, hence the entropies, are those
+    of the two calls, bit for bit; large alphabets take the two calls.
+    """
+    global _STEP
+    n_off = len(offsets)
+    if dense.ndim != 2 or n_off == 0 or float(k) ** (n_off + 1) > _KERNEL_MAX_BINS:
+        joint, _ = prefix_entropies(dense, k, [(0, 0), *offsets], estimator)
+        nbs, _ = prefix_entropies(dense, k, offsets, estimator) if n_off else (np.array([]), 0)
+        return joint, nbs
+    if _STEP is None:
+        _STEP = _site_kernel()
+    dense = np.ascontiguousarray(dense, dtype=np.int64)
+    ny, nx = dense.shape
+    joint = np.full(n_off + 1, np.nan)
+    nbs = np.full(n_off, np.nan)
+    joint[0] = entropy_of_counts(_counts(dense, k), estimator)
+    codes = np.zeros_like(dense)
+    lo0, lo1, hi0, hi1 = 0, 0, ny, nx
+    chunks = max(1, min(8, ny))
+    for j, (o0, o1) in enumerate(offsets):
+        n0, n1 = max(lo0, -o0), max(lo1, -o1)
+        m0, m1 = min(hi0, ny - o0), min(hi1, nx - o1)
+        if m0 <= n0 or m1 <= n1:
+            break
+        lo0, lo1, hi0, hi1 = n0, n1, m0, m1
+        mult = k ** (j + 1)
+        nb, jt = _STEP(codes, dense, lo0, lo1, hi0, hi1, o0, o1, k, mult, mult, mult * k, chunks)
+        nbs[j] = entropy_of_counts(nb[nb > 0], estimator)
+        joint[j + 1] = entropy_of_counts(jt[jt > 0], estimator)
+    return joint, nbs
