@@ -385,22 +385,33 @@ def _areal_from_levelled(
     detrend: str,
     s: float,
     band: tuple[float | None, float | None] | None,
+    gradient_sums: tuple[float, float] | None = None,
 ) -> ArealParameters:
-    """:func:`areal_parameters` of heights already levelled (holes 0): no second levelling."""
+    """:func:`areal_parameters` of heights already levelled (holes 0): no second levelling.
+
+    ``gradient_sums``: (sum |grad z|^2, sum (sqrt(1 + |grad z|^2) - 1)) over
+    every cell of a hole-free grid, when a compiled pass made them already.
+    """
     h = zl if mask is None else zl[mask]
     sq = float(np.sqrt(np.mean(h**2)))
     sa = float(np.mean(np.abs(h)))
     with np.errstate(invalid="ignore", divide="ignore"):
         ssk = float(np.mean(h**3) / sq**3)
         sku = float(np.mean(h**4) / sq**4)
-    # numpy's stubs cannot tell a 2-D input's gradient pair from a 1-D array
-    gy, gx = cast("tuple[NDArray[np.float64], NDArray[np.float64]]", np.gradient(zl, dy_f, dx_f))
-    gmask = _gradient_mask(mask, zl.shape)
-    g2 = (gx**2 + gy**2)[gmask]
-    sdq = float(np.sqrt(np.mean(g2)))
-    # sqrt(1 + g) - 1 written as g / (sqrt(1 + g) + 1): no cancellation on flat ground.
-    sdr = float(np.mean(g2 / (np.sqrt(1.0 + g2) + 1.0)))
-    del gx, gy, g2, gmask  # the ACF's padded transforms need the room on large scans
+    if gradient_sums is not None and mask is None:
+        sdq = float(np.sqrt(gradient_sums[0] / zl.size))
+        sdr = float(gradient_sums[1] / zl.size)
+    else:
+        # numpy's stubs cannot tell a 2-D input's gradient pair from a 1-D array
+        pair = np.gradient(zl, dy_f, dx_f)
+        gy, gx = cast("tuple[NDArray[np.float64], NDArray[np.float64]]", pair)
+        del pair
+        gmask = _gradient_mask(mask, zl.shape)
+        g2 = (gx**2 + gy**2)[gmask]
+        sdq = float(np.sqrt(np.mean(g2)))
+        # sqrt(1 + g) - 1 written as g / (sqrt(1 + g) + 1): no cancellation on flat ground.
+        sdr = float(np.mean(g2 / (np.sqrt(1.0 + g2) + 1.0)))
+        del gx, gy, g2, gmask  # the ACF's padded transforms need the room on large scans
     acf = _acf_levelled(zl, mask)
     lengths, decayed = _decay_lengths(acf, dx_f, dy_f, s)
     if decayed.any() and sq > 0:

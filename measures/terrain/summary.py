@@ -29,7 +29,7 @@ from measures._validation import (
 )
 from measures.defaults import TERRAIN_DEFAULTS
 from measures.information.symbolic import MIN_WINDOWS_PER_PATTERN
-from measures.terrain._fastfield import ordinal_counts, phase_surrogates
+from measures.terrain._fastfield import gradient_histograms, ordinal_counts, phase_surrogates
 from measures.terrain._surface import check_grid, fill_holes, hole_scale_cells, inpaint_holes, level
 from measures.terrain.areal import _areal_from_levelled, _check_band, bandpass_surface
 from measures.terrain.fractal import HurstResult, _hurst_all
@@ -177,6 +177,32 @@ def gradient_entropy(
         int(slope.size),
         int(steep.sum()),
     )
+
+
+def _gradient_entropy_full(
+    z: NDArray[np.float64], dx: float, dy: float, p: Mapping[str, Any]
+) -> tuple[GradientEntropy, tuple[float, float]]:
+    """:func:`gradient_entropy` of a hole-free grid in one compiled pass, plus Sdq/Sdr sums."""
+    fn = "gradient_entropy"
+    sb = check_positive_float("slope_bin_deg", p["slope_bin_deg"], fn)
+    ab = check_positive_float("aspect_bin_deg", p["aspect_bin_deg"], fn)
+    floor = check_positive_float("slope_floor_deg", p["slope_floor_deg"], fn, allow_zero=True)
+    slope_edges = np.arange(0.0, 90.0 + sb, sb)
+    aspect_edges = np.arange(0.0, 360.0 + ab, ab)
+    s_counts, a_counts, n_steep, g2_sum, sdr_sum = gradient_histograms(
+        z, dx, dy, slope_edges, aspect_edges, floor
+    )
+    ge = GradientEntropy(
+        _entropy_bits(s_counts),
+        _entropy_bits(a_counts),
+        s_counts,
+        slope_edges,
+        a_counts,
+        aspect_edges,
+        int(z.size),
+        n_steep,
+    )
+    return ge, (g2_sum, sdr_sum)
 
 
 def _downsample(z: NDArray[np.float64], factor: int) -> NDArray[np.float64]:
@@ -654,7 +680,15 @@ def terrain_summary(
     zl = level(arr if mask is None else np.nan_to_num(arr), dx_f, dy_f, mask, p["detrend"])
     zb = zl if band is None else bandpass_surface(zl, dx_f, dy_f, band_m=band, valid=mask)
     za = zl if band is None else level(zb, dx_f, dy_f, mask, p["detrend"])
-    ap = _areal_from_levelled(za, dx_f, dy_f, mask, p["detrend"], acf_s, None)
+    # Hole-free grids: slope and aspect histograms (and, without a band, the
+    # Sdq/Sdr sums of the same gradients) in one compiled pass.
+    ge: GradientEntropy | None = None
+    sums = None
+    if mask is None:
+        ge, sums = _gradient_entropy_full(zb, dx_f, dy_f, p)
+    ap = _areal_from_levelled(
+        za, dx_f, dy_f, mask, p["detrend"], acf_s, None, sums if band is None else None
+    )
     del za
     scores = [
         Score("hole_fraction", hole_fraction, "1"),
@@ -712,7 +746,7 @@ def terrain_summary(
         ]
     hs, psd_fit = _hurst_scores(zl, dx_f, dy_f, mask, band, p, notes, hole_floor, hurst_spectrum)
     scores += hs
-    ge = gradient_entropy(
+    ge = ge or gradient_entropy(
         zb,
         dx_f,
         dy_f,
