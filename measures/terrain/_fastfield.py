@@ -495,3 +495,42 @@ def gradient_histograms(
         arr, float(dy), float(dx), slope_edges, aspect_edges, float(floor), chunks
     )
     return s, a, round(float(sums[2])), float(sums[0]), float(sums[1])
+
+
+@njit(cache=True, parallel=True)
+def _moment_rows(z: NDArray[np.float64]) -> NDArray[np.float64]:  # pragma: no cover - compiled
+    ny, nx = z.shape
+    out = np.empty((ny, 6))
+    for i in prange(ny):
+        s1 = s2 = s3 = s4 = 0.0
+        hi, lo = -np.inf, np.inf
+        for j in range(nx):
+            v = z[i, j]
+            v2 = v**2
+            s1 += abs(v)
+            s2 += v2
+            s3 += v**3
+            s4 += v**4
+            hi = max(hi, v)
+            lo = min(lo, v)
+        out[i, 0], out[i, 1], out[i, 2], out[i, 3], out[i, 4], out[i, 5] = s1, s2, s3, s4, hi, lo
+    return out
+
+
+def height_moments(z: NDArray[np.float64]) -> tuple[float, float, float, float, float, float]:
+    """Means of |z|, z^2, z^3, z^4 and the max and min of a grid, one pass.
+
+    Row sums in order, then numpy's pairwise sum over rows: the means agree
+    with ``np.mean(z**p)`` to rounding (~1e-15 relative).
+    """
+    rows = _moment_rows(np.ascontiguousarray(z, dtype=np.float64))
+    n = z.size
+    s = rows[:, :4].sum(axis=0) / n
+    return (
+        float(s[0]),
+        float(s[1]),
+        float(s[2]),
+        float(s[3]),
+        float(rows[:, 4].max()),
+        float(rows[:, 5].min()),
+    )

@@ -393,11 +393,24 @@ def _areal_from_levelled(
     every cell of a hole-free grid, when a compiled pass made them already.
     """
     h = zl if mask is None else zl[mask]
-    sq = float(np.sqrt(np.mean(h**2)))
-    sa = float(np.mean(np.abs(h)))
+    if mask is None and gradient_sums is not None:
+        # The compiled path (terrain_summary): one pass, no power temporaries.
+        from measures.terrain._fastfield import height_moments
+
+        m1, m2, m3, m4, h_max, h_min = height_moments(zl)
+    else:
+        m1, m2, m3, m4 = (
+            float(np.mean(np.abs(h))),
+            float(np.mean(h**2)),
+            float(np.mean(h**3)),
+            float(np.mean(h**4)),
+        )
+        h_max, h_min = float(h.max()), float(h.min())
+    sq = float(np.sqrt(m2))
+    sa = m1
     with np.errstate(invalid="ignore", divide="ignore"):
-        ssk = float(np.mean(h**3) / sq**3)
-        sku = float(np.mean(h**4) / sq**4)
+        ssk = float(m3 / sq**3) if sq > 0 else float(np.float64(m3) / np.float64(sq) ** 3)
+        sku = float(m4 / sq**4) if sq > 0 else float(np.float64(m4) / np.float64(sq) ** 4)
     if gradient_sums is not None and mask is None:
         sdq = float(np.sqrt(gradient_sums[0] / zl.size))
         sdr = float(gradient_sums[1] / zl.size)
@@ -419,7 +432,7 @@ def _areal_from_levelled(
         str_ = float(sal / lengths.max()) if lengths.max() > 0 else float("nan")
     else:
         sal, str_ = float("nan"), float("nan")
-    sp, sv = float(h.max()), float(-h.min())
+    sp, sv = h_max, -h_min
     return ArealParameters(
         Sa=sa,
         Sq=sq,
