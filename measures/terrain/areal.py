@@ -7,6 +7,7 @@ is x (spacing ``dx``). All results are SI: heights in m, Sdr as a fraction
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from typing import cast
 
@@ -236,38 +237,88 @@ def areal_autocorrelation(
     return np.arange(-hx, hx + 1) * dx_f, np.arange(-hy, hy + 1) * dy_f, _acf_levelled(zl, mask)
 
 
+def _acf_numerator_inplace(
+    zl: NDArray[np.float64],
+    shape: tuple[int, int],
+    rows: NDArray[np.int_],
+    cols: NDArray[np.int_],
+) -> NDArray[np.float64]:
+    """sum z(r) z(r + t) at the kept lags: ducc0's transforms, in place on one array.
+
+    The same separable float32 transforms as the scipy fallback, with the
+    padded spectrum transformed, squared and transformed back in its own
+    memory (one padded complex array instead of three).
+    """
+    import ducc0
+
+    ny, nx = zl.shape
+    threads = min(2, os.cpu_count() or 1)
+    spec = np.zeros((shape[0], shape[1] // 2 + 1), dtype=np.complex64)
+    padded = np.zeros((ny, shape[1]), dtype=np.float32)
+    padded[:, :nx] = zl
+    ducc0.fft.r2c(padded, axes=(1,), out=spec[:ny], nthreads=threads)
+    del padded
+    ducc0.fft.c2c(spec, axes=(0,), out=spec, nthreads=threads)
+    re, im = spec.real, spec.imag
+    np.multiply(re, re, out=re)
+    np.multiply(im, im, out=im)
+    re += im
+    im[...] = 0.0
+    ducc0.fft.c2c(spec, axes=(0,), forward=False, inorm=2, out=spec, nthreads=threads)
+    half = spec[rows]
+    del spec, re, im
+    out = ducc0.fft.c2r(
+        half,
+        axes=(1,),
+        lastsize=shape[1],
+        forward=False,
+        inorm=2,
+        nthreads=threads,
+        allow_overwriting_input=True,
+    )
+    return np.asarray(out[:, cols], dtype=np.float64)
+
+
 def _acf_levelled(zl: NDArray[np.float64], mask: NDArray[np.bool_] | None) -> NDArray[np.float64]:
     """The centred ACF of :func:`areal_autocorrelation` from levelled heights (holes 0)."""
     ny, nx = zl.shape
     hy, hx = ny // 2, nx // 2
     # Padding: a circular correlation of length M holds the linear one at lag t
-    # plus its alias at t - M; for the kept lags |t| <= n // 2 the alias is empty
-    # once M >= n + n // 2, so 1.5 n (rounded up to a fast FFT size) is enough.
+    # plus its alias at t - M (the linear one lives on |t| <= n - 1); for the kept
+    # lags |t| <= n // 2 the alias is empty once M >= n + n // 2, so 1.5 n
+    # (rounded up to a fast FFT size) is enough.
     shape = (
-        sfft.next_fast_len(ny + hy + 1, real=False),
-        sfft.next_fast_len(nx + hx + 1, real=True),
+        sfft.next_fast_len(ny + hy, real=False),
+        sfft.next_fast_len(nx + hx, real=True),
     )
     # float32 transforms: the ACF is read at thresholds like 0.2 of its peak, far
     # above float32's ~1e-6 relative FFT rounding. Separable transforms, cropped
-    # to the lags kept as soon as possible: the padded grid never exists as a
-    # real array (rfft pads each row), and the inverse keeps only the rows it
-    # returns before its last pass.
-    spec = sfft.rfft(zl.astype(np.float32), n=shape[1], axis=1, workers=-1)
-    spec = sfft.fft(spec, n=shape[0], axis=0, workers=-1, overwrite_x=True)
-    power = spec.real**2
-    power += spec.imag**2
-    del spec
+    # to the lags kept as soon as possible: only the row-padded real grid and
+    # one padded spectrum exist, and the inverse keeps only the rows it returns
+    # before its last pass.
     rows = np.r_[shape[0] - hy : shape[0], 0 : hy + 1]
     cols = np.r_[shape[1] - hx : shape[1], 0 : hx + 1]
-    half = sfft.ifft(power, axis=0, workers=-1)[rows]
-    del power
-    num = sfft.irfft(half, n=shape[1], axis=1, workers=-1)[:, cols].astype(np.float64)
-    del half
+    try:
+        num = _acf_numerator_inplace(zl, shape, rows, cols)
+    except ImportError:  # pragma: no cover - ducc0 is a declared dependency
+        spec = sfft.rfft(zl.astype(np.float32), n=shape[1], axis=1, workers=-1)
+        spec = sfft.fft(spec, n=shape[0], axis=0, workers=-1, overwrite_x=True)
+        power = spec.real**2
+        power += spec.imag**2
+        del spec
+        half = sfft.ifft(power, axis=0, workers=-1)[rows]
+        del power
+        num = sfft.irfft(half, n=shape[1], axis=1, workers=-1)[:, cols].astype(np.float64)
+        del half
     if mask is None:
         # Full grid: the number of pairs at lag (ty, tx) is (ny - |ty|)(nx - |tx|),
-        # exactly what the transform of the all-ones mask gives, without two FFTs.
+        # exactly what the transform of the all-ones mask gives, without two FFTs;
+        # every kept lag has pairs, so the division is done in place.
         ty, tx = np.abs(np.arange(-hy, hy + 1)), np.abs(np.arange(-hx, hx + 1))
-        cnt = np.outer(ny - ty, nx - tx).astype(np.float64)
+        num /= (ny - ty).astype(np.float64)[:, None]
+        num /= (nx - tx).astype(np.float64)[None, :]
+        num /= num[hy, hx]
+        return num
     else:
         w = mask.astype(np.float64)
         cnt = sfft.irfft2(np.abs(sfft.rfft2(w, shape, workers=-1)) ** 2, shape, workers=-1)
@@ -296,7 +347,9 @@ def _decay_lengths(
     rr = radii[None, :]
     cols = hx + rr * c[:, None] / dx
     rows = hy + rr * sn[:, None] / dy
-    vals = ndimage.map_coordinates(np.nan_to_num(acf, nan=1.0), [rows, cols], order=1)
+    # NaN lags (no pairs) read as 1, i.e. not decayed; no copy when there are none.
+    src = np.nan_to_num(acf, nan=1.0) if np.isnan(acf).any() else acf
+    vals = ndimage.map_coordinates(src, [rows, cols], order=1)
     vals = np.where(rr <= rmax[:, None], vals, np.inf)
     below = vals <= s
     decayed = cast("NDArray[np.bool_]", below.any(axis=1))  # stubs: bool | array
