@@ -42,7 +42,8 @@ def dense_symbols(
         # instead of a full sort.
         lo, hi = int(arr.min()), int(arr.max())
         if hi - lo <= 4 * arr.size + 1024:
-            shifted = arr.astype(np.int64)
+            # No copy of int64 labels from 0 (callers only read the dense labels).
+            shifted = arr.astype(np.int64, copy=lo != 0)
             if lo:
                 shifted -= lo
             present = np.bincount(shifted.ravel(), minlength=hi - lo + 1) > 0

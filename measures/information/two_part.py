@@ -405,8 +405,7 @@ def two_part_code(
     lo = [max([0] + [-o[d] for o in offsets]) for d in range(dense.ndim)]
     hi = [wshape[d] - max([0] + [o[d] for o in offsets]) for d in range(dense.ndim)]
     anchor = (slice(None), *(slice(a, b) for a, b in zip(lo, hi, strict=True)))
-    sym = wins[anchor].reshape(n_win, -1)
-    n_sites = sym.shape[1]
+    n_sites = int(np.prod([b - a for a, b in zip(lo, hi, strict=True)]))
     n_edge = w_size - n_sites
 
     results = []
@@ -418,8 +417,9 @@ def two_part_code(
         offs = np.array(offsets, dtype=np.int64).reshape(len(offsets), 2)
         for m in range(cap + 1):
             full = count(wins, offs[:m], lo[0], lo[1], hi[0], hi[1], k, k**m)
-            results.append(_window_costs(sym, sym, n_win, k, m, n_sites, n_edge, full))
+            results.append(_window_costs(full, full, n_win, k, m, n_sites, n_edge, full))
     else:
+        sym = wins[anchor].reshape(n_win, -1)
         codes = np.zeros_like(sym)
         for m in range(cap + 1):
             if m > 0:
