@@ -185,6 +185,68 @@ def _tied_bits(
     )
 
 
+@njit(cache=True, nogil=True)
+def _rows_22(  # pragma: no cover - compiled
+    x: NDArray[np.floating[Any]],
+    raw: NDArray[np.floating[Any]],
+    same: bool,
+    use_key: bool,
+    s: np.uint64,
+    i0: int,
+    i1: int,
+    hist: NDArray[np.int64],
+) -> int:
+    """Windows with top rows i0 .. i1 - 1 into ``hist`` (4 x 64 bins); returns the tied count.
+
+    Two passes per row: the first computes every window's comparison bits
+    and tie flag without branches (the compiler vectorises it), the second
+    histograms them (four interleaved histograms, so runs of one pattern on
+    smooth ground do not serialise on one counter) and redoes the rare tied
+    windows by the tie rule. ``same``: ``raw`` is ``x`` (not read twice).
+    """
+    nx = x.shape[1]
+    ox = nx - 1
+    buf = np.empty(ox, dtype=np.uint8)
+    n_tie = 0
+    for i in range(i0, i1):
+        a0, a1 = x[i], x[i + 1]
+        if same:
+            for j in range(ox):
+                v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
+                code = (
+                    (v0 <= v1) * 1
+                    + (v0 <= v2) * 2
+                    + (v0 <= v3) * 4
+                    + (v1 <= v2) * 8
+                    + (v1 <= v3) * 16
+                    + (v2 <= v3) * 32
+                )
+                tie = (v0 == v1) | (v0 == v2) | (v0 == v3) | (v1 == v2) | (v1 == v3) | (v2 == v3)
+                buf[j] = code + 64 * tie
+        else:
+            q0, q1 = raw[i], raw[i + 1]
+            for j in range(ox):
+                v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
+                r0, r1, r2, r3 = q0[j], q0[j + 1], q1[j], q1[j + 1]
+                code = (
+                    (v0 <= v1) * 1
+                    + (v0 <= v2) * 2
+                    + (v0 <= v3) * 4
+                    + (v1 <= v2) * 8
+                    + (v1 <= v3) * 16
+                    + (v2 <= v3) * 32
+                )
+                tie = (r0 == r1) | (r0 == r2) | (r0 == r3) | (r1 == r2) | (r1 == r3) | (r2 == r3)
+                buf[j] = code + 64 * tie
+        for j in range(ox):
+            code = buf[j]
+            if code >= 64:
+                n_tie += 1
+                code = _tied_bits(x, raw, i, j, nx, use_key, s)
+            hist[(j & 3) * 64 + code] += 1
+    return n_tie
+
+
 @njit(cache=True, parallel=True)
 def _ordinal_kernel_22(  # pragma: no cover - compiled
     x: NDArray[np.floating[Any]],
@@ -194,65 +256,32 @@ def _ordinal_kernel_22(  # pragma: no cover - compiled
     seed: int,
     n_chunks: int,
 ) -> tuple[NDArray[np.int64], np.int64]:
-    """The 2 x 2 case of ``_ordinal_kernel``: a 6-bit comparison vector per window.
-
-    Two passes per row: the first computes every window's comparison bits
-    and tie flag without branches (the compiler vectorises it), the second
-    histograms them (four interleaved histograms, so runs of one pattern on
-    smooth ground do not serialise on one counter) and redoes the rare tied
-    windows by the tie rule. ``same``: ``raw`` is ``x`` (not read twice).
-    """
-    ny, nx = x.shape
-    oy, ox = ny - 1, nx - 1
+    """The 2 x 2 case of ``_ordinal_kernel``: a 6-bit comparison vector per window."""
+    oy = x.shape[0] - 1
     hist = np.zeros((n_chunks, 4 * 64 + 64), dtype=np.int64)  # padded rows: no false sharing
     ties = np.zeros(n_chunks * 8, dtype=np.int64)
     rows_per = (oy + n_chunks - 1) // n_chunks
     s = np.uint64(seed) * _GOLDEN
     for c in prange(n_chunks):
-        buf = np.empty(ox, dtype=np.uint8)
-        n_tie = 0
-        for i in range(c * rows_per, min(oy, (c + 1) * rows_per)):
-            a0, a1 = x[i], x[i + 1]
-            if same:
-                for j in range(ox):
-                    v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
-                    code = (
-                        (v0 <= v1) * 1
-                        + (v0 <= v2) * 2
-                        + (v0 <= v3) * 4
-                        + (v1 <= v2) * 8
-                        + (v1 <= v3) * 16
-                        + (v2 <= v3) * 32
-                    )
-                    tie = (
-                        (v0 == v1) | (v0 == v2) | (v0 == v3) | (v1 == v2) | (v1 == v3) | (v2 == v3)
-                    )
-                    buf[j] = code + 64 * tie
-            else:
-                q0, q1 = raw[i], raw[i + 1]
-                for j in range(ox):
-                    v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
-                    r0, r1, r2, r3 = q0[j], q0[j + 1], q1[j], q1[j + 1]
-                    code = (
-                        (v0 <= v1) * 1
-                        + (v0 <= v2) * 2
-                        + (v0 <= v3) * 4
-                        + (v1 <= v2) * 8
-                        + (v1 <= v3) * 16
-                        + (v2 <= v3) * 32
-                    )
-                    tie = (
-                        (r0 == r1) | (r0 == r2) | (r0 == r3) | (r1 == r2) | (r1 == r3) | (r2 == r3)
-                    )
-                    buf[j] = code + 64 * tie
-            for j in range(ox):
-                code = buf[j]
-                if code >= 64:
-                    n_tie += 1
-                    code = _tied_bits(x, raw, i, j, nx, use_key, s)
-                hist[c, (j & 3) * 64 + code] += 1
-        ties[c * 8] = n_tie
+        i0, i1 = c * rows_per, min(oy, (c + 1) * rows_per)
+        ties[c * 8] = _rows_22(x, raw, same, use_key, s, i0, i1, hist[c])
     return hist, ties.sum()
+
+
+@njit(cache=True, nogil=True)
+def _ordinal_kernel_22_serial(  # pragma: no cover - compiled
+    x: NDArray[np.floating[Any]],
+    raw: NDArray[np.floating[Any]],
+    same: bool,
+    use_key: bool,
+    seed: int,
+    n_chunks: int,
+) -> tuple[NDArray[np.int64], np.int64]:
+    """``_ordinal_kernel_22`` on the calling thread, without the GIL (one surrogate per thread)."""
+    hist = np.zeros((1, 4 * 64 + 64), dtype=np.int64)
+    s = np.uint64(seed) * _GOLDEN
+    n_tie = _rows_22(x, raw, same, use_key, s, 0, x.shape[0] - 1, hist[0])
+    return hist, np.int64(n_tie)
 
 
 def ordinal_counts(
@@ -262,6 +291,7 @@ def ordinal_counts(
     ties: str = "stable",
     seed: int = 0,
     raw: NDArray | None = None,
+    serial: bool = False,
 ) -> tuple[NDArray[np.int64], int]:
     """Histogram over all D! patterns of ``order = (dx, dy)`` windows, and the tied-window count.
 
@@ -281,7 +311,8 @@ def ordinal_counts(
     if (wx, wy) == (2, 2):
         ref = ref.astype(arr.dtype, copy=False)
         same = raw is None
-        hist, n_ties = _ordinal_kernel_22(
+        kernel = _ordinal_kernel_22_serial if serial else _ordinal_kernel_22
+        hist, n_ties = kernel(
             arr, np.ascontiguousarray(ref), same, ties == "random", int(seed) & 0x7FFFFFFF, chunks
         )
         by_bits = hist[:, : 4 * 64].reshape(-1, 64).sum(axis=0)
@@ -314,18 +345,50 @@ def _phasors(  # pragma: no cover - compiled
     sin_lo: NDArray[np.float64],
 ) -> None:
     """out = amp * exp(2 pi i u), u uniform float32 in [0, 1) (multiples of 2^-24)."""
-    ny, nx = u.shape
-    for i in prange(ny):
-        for j in range(nx):
-            n = np.int64(u[i, j] * np.float32(16777216.0))
-            hi, lo = n >> 12, n & 4095
-            ca, sa, cb, sb = cos_hi[hi], sin_hi[hi], cos_lo[lo], sin_lo[lo]
-            a = amp[i, j]
-            out[i, j] = complex(a * (ca * cb - sa * sb), a * (sa * cb + ca * sb))
+    for i in prange(u.shape[0]):
+        _phasor_row(u, amp, out, cos_hi, sin_hi, cos_lo, sin_lo, i)
+
+
+@njit(cache=True, nogil=True)
+def _phasors_serial(  # pragma: no cover - compiled
+    u: NDArray[np.float32],
+    amp: NDArray[np.float32],
+    out: NDArray[np.complex64],
+    cos_hi: NDArray[np.float64],
+    sin_hi: NDArray[np.float64],
+    cos_lo: NDArray[np.float64],
+    sin_lo: NDArray[np.float64],
+) -> None:
+    """``_phasors`` on the calling thread, without the GIL."""
+    for i in range(u.shape[0]):
+        _phasor_row(u, amp, out, cos_hi, sin_hi, cos_lo, sin_lo, i)
+
+
+@njit(cache=True, nogil=True)
+def _phasor_row(  # pragma: no cover - compiled
+    u: NDArray[np.float32],
+    amp: NDArray[np.float32],
+    out: NDArray[np.complex64],
+    cos_hi: NDArray[np.float64],
+    sin_hi: NDArray[np.float64],
+    cos_lo: NDArray[np.float64],
+    sin_lo: NDArray[np.float64],
+    i: int,
+) -> None:
+    for j in range(u.shape[1]):
+        n = np.int64(u[i, j] * np.float32(16777216.0))
+        hi, lo = n >> 12, n & 4095
+        ca, sa, cb, sb = cos_hi[hi], sin_hi[hi], cos_lo[lo], sin_lo[lo]
+        a = amp[i, j]
+        out[i, j] = complex(a * (ca * cb - sa * sb), a * (sa * cb + ca * sb))
 
 
 def _phase_spectrum(
-    amp: NDArray[np.float32], rng: np.random.Generator, ny: int, nx_even: bool
+    amp: NDArray[np.float32],
+    rng: np.random.Generator,
+    ny: int,
+    nx_even: bool,
+    serial: bool = False,
 ) -> NDArray[np.complex64]:
     """amp * exp(i phi) with phi uniform, Hermitian on the real columns.
 
@@ -334,7 +397,7 @@ def _phase_spectrum(
     """
     u = rng.random(amp.shape, dtype=np.float32)
     out = np.empty(amp.shape, dtype=np.complex64)
-    _phasors(u, amp, out, _COS_HI, _SIN_HI, _COS_LO, _SIN_LO)
+    (_phasors_serial if serial else _phasors)(u, amp, out, _COS_HI, _SIN_HI, _COS_LO, _SIN_LO)
     # Columns kx = 0 (and Nyquist for even nx) are transforms of real lines:
     # their -ky mode is the conjugate of +ky, and the self-mirrored modes are real.
     half = np.arange(1, (ny + 1) // 2)
@@ -375,7 +438,7 @@ def _irfft2(f: NDArray[np.complex64], shape: tuple[int, ...], workers: int) -> N
 
 def phase_surrogates(
     z: NDArray, seed: int, *, workers: int | None = None
-) -> Callable[[int], NDArray[np.float32]]:
+) -> Callable[..., NDArray[np.float32]]:
     """A function k -> k-th surrogate of ``z`` (float32, same mean, same amplitude spectrum).
 
     The surrogates are fixed by ``seed`` and ``k`` alone, so they can be made
@@ -390,10 +453,11 @@ def phase_surrogates(
     del spec
     base = int(seed) & 0xFFFFFFFF
 
-    def make(k: int) -> NDArray[np.float32]:
+    def make(k: int, serial: bool = False) -> NDArray[np.float32]:
+        # serial: on the calling thread only (the caller runs several at once).
         rng = np.random.default_rng([base, int(k)])
-        f = _phase_spectrum(amp, rng, shape[0], shape[1] % 2 == 0)
-        out = _irfft2(f, shape, workers or 1)
+        f = _phase_spectrum(amp, rng, shape[0], shape[1] % 2 == 0, serial)
+        out = _irfft2(f, shape, 1 if serial else (workers or 1))
         out += np.float32(mean)
         return out
 

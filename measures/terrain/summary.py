@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Mapping
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any, cast
 
@@ -437,10 +438,11 @@ def _ordinal_hc(
     ties: str,
     seed: int,
     raw: NDArray[np.floating[Any]] | None = None,
+    serial: bool = False,
 ) -> tuple[float, float, float, int, int]:
     from measures.information.ordinal import jensen_shannon_complexity
 
-    counts, n_ties = ordinal_counts(x, order, ties=ties, seed=seed, raw=raw)
+    counts, n_ties = ordinal_counts(x, order, ties=ties, seed=seed, raw=raw, serial=serial)
     n = int(counts.sum())
     h, c = jensen_shannon_complexity(counts / n)
     return float(h), float(c), n_ties / n, n, counts.size
@@ -484,9 +486,23 @@ def _ordinal_scores(
     zs: dict[str, float | None] = dict.fromkeys(_ORDINAL_SCORES)
     if wanted and p["n_surrogates"] > 0:
         make = phase_surrogates(zb, seed, workers=_WORKERS)
-        sur = np.array(
-            [_ordinal_hc(make(k), order, ties, seed + k + 1)[:2] for k in range(p["n_surrogates"])]
-        )
+
+        def one(k: int) -> tuple[float, float]:
+            # On a thread of its own: every step releases the GIL (numpy's
+            # generator, compiled kernels, the FFT); surrogate k and its tie
+            # seed depend on k only, so the order they finish in changes nothing.
+            x = make(k, serial=threaded)
+            h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded)[:2]
+            return h_k, c_k
+
+        n_sur = int(p["n_surrogates"])
+        # Only the 2 x 2 kernel has a single-thread variant; the generic one is parallel.
+        threaded = _WORKERS > 1 and n_sur > 1 and order == (2, 2)
+        if threaded:
+            with ThreadPoolExecutor(_WORKERS) as pool:
+                sur = np.array(list(pool.map(one, range(n_sur))))
+        else:
+            sur = np.array([one(k) for k in range(n_sur)])
         zs["permutation_entropy_2d"] = _zscore(h, sur[:, 0])
         zs["js_complexity_2d"] = _zscore(c, sur[:, 1])
     out = [
