@@ -13,6 +13,7 @@ of :func:`prefix_entropies`; there is no second copy of this logic.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -41,8 +42,14 @@ def dense_symbols(
         # instead of a full sort.
         lo, hi = int(arr.min()), int(arr.max())
         if hi - lo <= 4 * arr.size + 1024:
-            shifted = arr.astype(np.int64) - lo
+            # No copy of int64 labels from 0 (callers only read the dense labels).
+            shifted = arr.astype(np.int64, copy=lo != 0)
+            if lo:
+                shifted -= lo
             present = np.bincount(shifted.ravel(), minlength=hi - lo + 1) > 0
+            if present.all():
+                # Already dense (lo .. hi all present): the labels are the values - lo.
+                return shifted, int(present.size)
             table = np.cumsum(present) - 1
             return table[shifted].astype(np.int64), int(present.sum())
     elif arr.dtype.kind == "f":
@@ -148,3 +155,116 @@ def excess_from_conditionals(conditional: NDArray[np.float64]) -> float:
     (2003) are both this sum over the conditional-entropy profile.
     """
     return float(np.sum(conditional) - len(conditional) * conditional[-1])
+
+
+# Largest histogram the compiled 2-D path allocates per row chunk (bins).
+_KERNEL_MAX_BINS = 2**22
+
+
+def _site_kernel() -> Any:
+    """Compiled counting of :func:`site_and_neighbour_entropies` (numba, built on first use)."""
+    from numba import njit, prange
+
+    @njit(cache=True, parallel=True)
+    def count(  # pragma: no cover - compiled
+        dense: NDArray[np.uint8],
+        k: int,
+        offs: NDArray[np.int64],
+        box: NDArray[np.int64],
+        nb_base: NDArray[np.int64],
+        jt_base: NDArray[np.int64],
+        mult: NDArray[np.int64],
+        n_nb: int,
+        n_jt: int,
+        n_chunks: int,
+    ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+        # Site-major: each anchor builds its word one neighbour at a time while it
+        # lies in that prefix's anchor box (boxes shrink as neighbours are added),
+        # and counts the neighbour word and the site-plus-neighbour word.
+        n_steps = offs.shape[0]
+        nb = np.zeros((n_chunks, n_nb), dtype=np.int64)
+        jt = np.zeros((n_chunks, n_jt), dtype=np.int64)
+        lo0, hi0 = box[0, 0], box[0, 2]
+        per = (hi0 - lo0 + n_chunks - 1) // n_chunks
+        for c in prange(n_chunks):
+            for i in range(lo0 + c * per, min(hi0, lo0 + (c + 1) * per)):
+                for j in range(box[0, 1], box[0, 3]):
+                    site = dense[i, j]
+                    code = 0
+                    for s in range(n_steps):
+                        if i < box[s, 0] or i >= box[s, 2] or j < box[s, 1] or j >= box[s, 3]:
+                            break
+                        code = code * k + dense[i + offs[s, 0], j + offs[s, 1]]
+                        nb[c, nb_base[s] + code] += 1
+                        jt[c, jt_base[s] + site * mult[s] + code] += 1
+        return nb.sum(axis=0), jt.sum(axis=0)
+
+    return count
+
+
+_COUNT: Any = None
+
+
+def site_and_neighbour_entropies(
+    dense: NDArray[np.int64],
+    k: int,
+    offsets: Sequence[tuple[int, int]],
+    estimator: str,
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Both ``prefix_entropies`` of a 2-D field's entropy density in one compiled pass.
+
+    Returns ``(joint, neighbours)``: ``prefix_entropies(dense, k, [(0, 0),
+    *offsets])`` and ``prefix_entropies(dense, k, offsets)``. The word of the
+    site and its first j neighbours is the site's symbol times ``k**j`` plus
+    the neighbours' word, over the same anchors (the site itself crops
+    nothing), so one pass over the sites builds every word and counts both.
+    The counts, hence the entropies, are those of the two calls, bit for bit;
+    large alphabets or templates take the two calls.
+    """
+    global _COUNT
+    n_off = len(offsets)
+    bins = sum(k ** (j + 1) + k ** (j + 2) for j in range(n_off))
+    if dense.ndim != 2 or n_off == 0 or k > 255 or bins > _KERNEL_MAX_BINS:
+        joint, _ = prefix_entropies(dense, k, [(0, 0), *offsets], estimator)
+        nbs, _ = prefix_entropies(dense, k, offsets, estimator) if n_off else (np.array([]), 0)
+        return joint, nbs
+    if _COUNT is None:
+        _COUNT = _site_kernel()
+    ny, nx = dense.shape
+    joint = np.full(n_off + 1, np.nan)
+    nbs = np.full(n_off, np.nan)
+    joint[0] = entropy_of_counts(_counts(dense, k), estimator)
+    # Anchor box of each prefix (rows lo, cols lo, rows hi, cols hi), as prefix_entropies crops.
+    boxes = []
+    lo0, lo1, hi0, hi1 = 0, 0, ny, nx
+    for o0, o1 in offsets:
+        n0, n1 = max(lo0, -o0), max(lo1, -o1)
+        m0, m1 = min(hi0, ny - o0), min(hi1, nx - o1)
+        if m0 <= n0 or m1 <= n1:
+            break
+        lo0, lo1, hi0, hi1 = n0, n1, m0, m1
+        boxes.append((lo0, lo1, hi0, hi1))
+    steps = len(boxes)
+    if steps == 0:
+        return joint, nbs
+    size_nb = np.array([k ** (j + 1) for j in range(steps)], dtype=np.int64)
+    nb_base = np.concatenate([[0], np.cumsum(size_nb)[:-1]]).astype(np.int64)
+    jt_base = np.concatenate([[0], np.cumsum(size_nb * k)[:-1]]).astype(np.int64)
+    nb, jt = _COUNT(
+        np.ascontiguousarray(dense, dtype=np.uint8),
+        k,
+        np.array(offsets[:steps], dtype=np.int64).reshape(steps, 2),
+        np.array(boxes, dtype=np.int64),
+        nb_base,
+        jt_base,
+        size_nb,
+        int(size_nb.sum()),
+        int((size_nb * k).sum()),
+        max(1, min(8, boxes[0][2] - boxes[0][0])),
+    )
+    for j in range(steps):
+        a = nb[nb_base[j] : nb_base[j] + size_nb[j]]
+        b = jt[jt_base[j] : jt_base[j] + size_nb[j] * k]
+        nbs[j] = entropy_of_counts(a[a > 0], estimator)
+        joint[j + 1] = entropy_of_counts(b[b > 0], estimator)
+    return joint, nbs

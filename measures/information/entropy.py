@@ -30,6 +30,7 @@ from measures.information._counting import (
     dense_symbols,
     excess_from_conditionals,
     prefix_entropies,
+    site_and_neighbour_entropies,
 )
 
 __all__ = [
@@ -566,10 +567,11 @@ def entropy_density_2d(
             )
         rule = "given"
     offsets = causal_neighbourhood(size)
-    joint, _ = prefix_entropies(dense, k, [(0, 0), *offsets], estimator)
+    # Site and neighbour words counted in one pass (same counts as two
+    # prefix_entropies calls).
+    joint, neighbours = site_and_neighbour_entropies(dense, k, offsets, estimator)
     conditional = joint.copy()
     if size:
-        neighbours, _ = prefix_entropies(dense, k, offsets, estimator)
         conditional[1:] = joint[1:] - neighbours
     conditional = np.maximum(conditional, 0.0)
     return EntropyDensity2D(

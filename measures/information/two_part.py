@@ -70,6 +70,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -231,14 +232,35 @@ def _window_costs(
     m: int,
     n_sites: int,
     n_edge: int,
+    full: NDArray[np.int64] | None = None,
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
-    """Model and data bits per window for contexts ``codes`` (see module notes)."""
+    """Model and data bits per window for contexts ``codes`` (see module notes).
+
+    ``full``: the counts of every (window, context, symbol) key, if already
+    made (``_context_kernel``); ``codes`` and ``symbols`` are then not read.
+    """
     big_k = float(k) ** m
-    # (window, context, symbol) keys; k**(m+1) * n_win stays far below 2**62
-    # because of the context-size cap.
-    key = (np.arange(n_win, dtype=np.int64)[:, None] * int(big_k) + codes) * k + symbols
-    uniq, cnt = np.unique(key.ravel(), return_counts=True)
-    grp, ginv = np.unique(uniq // k, return_inverse=True)
+    if full is None:
+        # (window, context, symbol) keys; k**(m+1) * n_win stays far below 2**62
+        # because of the context-size cap.
+        key = (np.arange(n_win, dtype=np.int64)[:, None] * int(big_k) + codes) * k + symbols
+        bound = n_win * int(big_k) * k
+        if bound <= max(2**22, 4 * key.size):
+            full = np.bincount(key.ravel(), minlength=bound)
+    if full is not None:
+        # Small key range: counting, not sorting (the same sorted keys and counts).
+        uniq = np.flatnonzero(full)
+        cnt = full[uniq]
+        del full
+        g = uniq // k  # sorted, so groups are runs
+        first = np.empty(g.size, dtype=bool)
+        first[:1] = True
+        np.not_equal(g[1:], g[:-1], out=first[1:])
+        grp = g[first]
+        ginv = np.cumsum(first) - 1
+    else:
+        uniq, cnt = np.unique(key.ravel(), return_counts=True)
+        grp, ginv = np.unique(uniq // k, return_inverse=True)
     n_c = np.bincount(ginv, weights=cnt)
     j_c = np.bincount(ginv).astype(float)
     fitted_data = n_c * np.log2(n_c) - np.bincount(ginv, weights=cnt * np.log2(cnt))
@@ -259,6 +281,47 @@ def _window_costs(
     inner = np.bincount(win, weights=data, minlength=n_win).astype(np.float64, copy=False)
     edge = n_edge * math.log2(k)
     return model, inner + edge, inner
+
+
+# Largest (window, context, symbol) key range counted by the compiled 2-D path.
+_KERNEL_MAX_KEYS = 2**24
+_CONTEXT: Any = None
+
+
+def _context_kernel() -> Any:
+    """Compiled (window, context, symbol) counting for 2-D windows (built on first use)."""
+    global _CONTEXT
+    if _CONTEXT is None:
+        from numba import njit, prange
+
+        @njit(cache=True, parallel=True)
+        def count(  # pragma: no cover - compiled
+            wins: NDArray[np.int64],
+            offs: NDArray[np.int64],
+            lo0: int,
+            lo1: int,
+            hi0: int,
+            hi1: int,
+            k: int,
+            n_ctx: int,
+        ) -> NDArray[np.int64]:
+            # Key (w * n_ctx + context) * k + symbol, the context's digits in
+            # template order (the first offset most significant), as the codes.
+            n_win = wins.shape[0]
+            m = offs.shape[0]
+            full = np.zeros(n_win * n_ctx * k, dtype=np.int64)
+            for w in prange(n_win):  # each window owns its slice of the counts
+                base = w * n_ctx
+                for i in range(lo0, hi0):
+                    for j in range(lo1, hi1):
+                        code = 0
+                        for s in range(m):
+                            code = code * k + wins[w, i + offs[s, 0], j + offs[s, 1]]
+                        full[(base + code) * k + wins[w, i, j]] += 1
+            return full
+
+        _CONTEXT = count
+    return _CONTEXT
 
 
 def two_part_code(
@@ -342,21 +405,31 @@ def two_part_code(
     lo = [max([0] + [-o[d] for o in offsets]) for d in range(dense.ndim)]
     hi = [wshape[d] - max([0] + [o[d] for o in offsets]) for d in range(dense.ndim)]
     anchor = (slice(None), *(slice(a, b) for a, b in zip(lo, hi, strict=True)))
-    sym = wins[anchor].reshape(n_win, -1)
-    n_sites = sym.shape[1]
+    n_sites = int(np.prod([b - a for a, b in zip(lo, hi, strict=True)]))
     n_edge = w_size - n_sites
 
-    codes = np.zeros_like(sym)
     results = []
-    for m in range(cap + 1):
-        if m > 0:
-            o = offsets[m - 1]
-            shifted = (
-                slice(None),
-                *(slice(a + d, b + d) for a, b, d in zip(lo, hi, o, strict=True)),
-            )
-            codes = codes * k + wins[shifted].reshape(n_win, -1)
-        results.append(_window_costs(codes, sym, n_win, k, m, n_sites, n_edge))
+    if dense.ndim == 2 and n_win * float(k) ** (cap + 1) <= _KERNEL_MAX_KEYS:
+        # Fields: every (window, context, symbol) count straight from the
+        # windows, one compiled pass per context size (no code or key arrays);
+        # the same counts as the codes below.
+        count = _context_kernel()
+        offs = np.array(offsets, dtype=np.int64).reshape(len(offsets), 2)
+        for m in range(cap + 1):
+            full = count(wins, offs[:m], lo[0], lo[1], hi[0], hi[1], k, k**m)
+            results.append(_window_costs(full, full, n_win, k, m, n_sites, n_edge, full))
+    else:
+        sym = wins[anchor].reshape(n_win, -1)
+        codes = np.zeros_like(sym)
+        for m in range(cap + 1):
+            if m > 0:
+                o = offsets[m - 1]
+                shifted = (
+                    slice(None),
+                    *(slice(a + d, b + d) for a, b, d in zip(lo, hi, o, strict=True)),
+                )
+                codes = codes * k + wins[shifted].reshape(n_win, -1)
+            results.append(_window_costs(codes, sym, n_win, k, m, n_sites, n_edge))
     lengths = np.array([float(np.sum(mod + dat)) for mod, dat, _ in results])
     best = int(np.argmin(lengths))
     model, data, inner = results[best]

@@ -132,62 +132,156 @@ def _below(
     return vp <= vq, False
 
 
+def _lehmer_table() -> NDArray[np.int64]:
+    """Code of the 2 x 2 pattern for each 6-bit vector of pairwise comparisons.
+
+    Bit order: (0,1), (0,2), (0,3), (1,2), (1,3), (2,3); a set bit says the
+    earlier cell of the pair ranks below the later one. The code is the
+    Lehmer code of the window's ordinal pattern as in ``_ordinal_kernel``
+    (identical for all D = 4 windows). Bit vectors that no order produces
+    (possible only when tie keys and values disagree) get the code the rank
+    arithmetic gives them, as before; codes >= 24 are not counted.
+    """
+    weight = (6, 2, 1, 1)
+    out = np.empty(64, dtype=np.int64)
+    for v in range(64):
+        b01, b02, b03, b12, b13, b23 = ((v >> s) & 1 for s in range(6))
+        k1 = 1 - b01
+        k2 = (1 - b02) + (1 - b12)
+        k3 = (1 - b03) + (1 - b13) + (1 - b23)
+        rk1 = b01 + (1 - b12) + (1 - b13)
+        rk2 = b02 + b12 + (1 - b23)
+        rk3 = b03 + b13 + b23
+        out[v] = k1 * weight[min(rk1, 3)] + k2 * weight[min(rk2, 3)] + k3 * weight[min(rk3, 3)]
+    return out
+
+
+_LEHMER_22 = _lehmer_table()
+
+
 @njit(cache=True, inline="always")
-def _digit_weight(rank: int | np.integer[Any] | np.bool_) -> int:
-    # (D - 1 - rank)! for D = 4
-    if rank == 0:
-        return 6
-    if rank == 1:
-        return 2
-    return 1
+def _tied_bits(
+    x: NDArray[np.floating[Any]],
+    raw: NDArray[np.floating[Any]],
+    i: int,
+    j: int,
+    nx: int,
+    use_key: bool,
+    s: np.uint64,
+) -> int:
+    """The 6 comparison bits of a window holding a tie (equal raw heights)."""
+    c0 = i * nx + j
+    c2 = c0 + nx
+    v0, v1, v2, v3 = x[i, j], x[i, j + 1], x[i + 1, j], x[i + 1, j + 1]
+    r0, r1, r2, r3 = raw[i, j], raw[i, j + 1], raw[i + 1, j], raw[i + 1, j + 1]
+    b01 = _below(v0, v1, r0, r1, c0, c0 + 1, use_key, s)[0]
+    b02 = _below(v0, v2, r0, r2, c0, c2, use_key, s)[0]
+    b03 = _below(v0, v3, r0, r3, c0, c2 + 1, use_key, s)[0]
+    b12 = _below(v1, v2, r1, r2, c0 + 1, c2, use_key, s)[0]
+    b13 = _below(v1, v3, r1, r3, c0 + 1, c2 + 1, use_key, s)[0]
+    b23 = _below(v2, v3, r2, r3, c2, c2 + 1, use_key, s)[0]
+    return (int(b01) | (int(b02) << 1) | (int(b03) << 2) | (int(b12) << 3) | (int(b13) << 4)) | (
+        int(b23) << 5
+    )
+
+
+@njit(cache=True, nogil=True)
+def _rows_22(  # pragma: no cover - compiled
+    x: NDArray[np.floating[Any]],
+    raw: NDArray[np.floating[Any]],
+    same: bool,
+    use_key: bool,
+    s: np.uint64,
+    i0: int,
+    i1: int,
+    hist: NDArray[np.int64],
+) -> int:
+    """Windows with top rows i0 .. i1 - 1 into ``hist`` (4 x 64 bins); returns the tied count.
+
+    Two passes per row: the first computes every window's comparison bits
+    and tie flag without branches (the compiler vectorises it), the second
+    histograms them (four interleaved histograms, so runs of one pattern on
+    smooth ground do not serialise on one counter) and redoes the rare tied
+    windows by the tie rule. ``same``: ``raw`` is ``x`` (not read twice).
+    """
+    nx = x.shape[1]
+    ox = nx - 1
+    buf = np.empty(ox, dtype=np.uint8)
+    n_tie = 0
+    for i in range(i0, i1):
+        a0, a1 = x[i], x[i + 1]
+        if same:
+            for j in range(ox):
+                v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
+                code = (
+                    (v0 <= v1) * 1
+                    + (v0 <= v2) * 2
+                    + (v0 <= v3) * 4
+                    + (v1 <= v2) * 8
+                    + (v1 <= v3) * 16
+                    + (v2 <= v3) * 32
+                )
+                tie = (v0 == v1) | (v0 == v2) | (v0 == v3) | (v1 == v2) | (v1 == v3) | (v2 == v3)
+                buf[j] = code + 64 * tie
+        else:
+            q0, q1 = raw[i], raw[i + 1]
+            for j in range(ox):
+                v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
+                r0, r1, r2, r3 = q0[j], q0[j + 1], q1[j], q1[j + 1]
+                code = (
+                    (v0 <= v1) * 1
+                    + (v0 <= v2) * 2
+                    + (v0 <= v3) * 4
+                    + (v1 <= v2) * 8
+                    + (v1 <= v3) * 16
+                    + (v2 <= v3) * 32
+                )
+                tie = (r0 == r1) | (r0 == r2) | (r0 == r3) | (r1 == r2) | (r1 == r3) | (r2 == r3)
+                buf[j] = code + 64 * tie
+        for j in range(ox):
+            code = buf[j]
+            if code >= 64:
+                n_tie += 1
+                code = _tied_bits(x, raw, i, j, nx, use_key, s)
+            hist[(j & 3) * 64 + code] += 1
+    return n_tie
 
 
 @njit(cache=True, parallel=True)
 def _ordinal_kernel_22(  # pragma: no cover - compiled
     x: NDArray[np.floating[Any]],
     raw: NDArray[np.floating[Any]],
+    same: bool,
     use_key: bool,
     seed: int,
     n_chunks: int,
 ) -> tuple[NDArray[np.int64], np.int64]:
-    """The 2 x 2 case of ``_ordinal_kernel`` written out (6 comparisons, no arrays)."""
-    ny, nx = x.shape
-    oy, ox = ny - 1, nx - 1
-    counts = np.zeros((n_chunks, 24 * 8), dtype=np.int64)  # padded rows: no false sharing
+    """The 2 x 2 case of ``_ordinal_kernel``: a 6-bit comparison vector per window."""
+    oy = x.shape[0] - 1
+    hist = np.zeros((n_chunks, 4 * 64 + 64), dtype=np.int64)  # padded rows: no false sharing
     ties = np.zeros(n_chunks * 8, dtype=np.int64)
     rows_per = (oy + n_chunks - 1) // n_chunks
     s = np.uint64(seed) * _GOLDEN
     for c in prange(n_chunks):
-        n_tie = 0
-        for i in range(c * rows_per, min(oy, (c + 1) * rows_per)):
-            c0 = i * nx
-            c2 = c0 + nx
-            for j in range(ox):
-                v0, v1, v2, v3 = x[i, j], x[i, j + 1], x[i + 1, j], x[i + 1, j + 1]
-                r0, r1, r2, r3 = raw[i, j], raw[i, j + 1], raw[i + 1, j], raw[i + 1, j + 1]
-                tied_0 = (r0 == r1) | (r0 == r2) | (r0 == r3)
-                tied = tied_0 | (r1 == r2) | (r1 == r3) | (r2 == r3)
-                if tied:
-                    n_tie += 1
-                    b01 = _below(v0, v1, r0, r1, c0 + j, c0 + j + 1, use_key, s)[0]
-                    b02 = _below(v0, v2, r0, r2, c0 + j, c2 + j, use_key, s)[0]
-                    b03 = _below(v0, v3, r0, r3, c0 + j, c2 + j + 1, use_key, s)[0]
-                    b12 = _below(v1, v2, r1, r2, c0 + j + 1, c2 + j, use_key, s)[0]
-                    b13 = _below(v1, v3, r1, r3, c0 + j + 1, c2 + j + 1, use_key, s)[0]
-                    b23 = _below(v2, v3, r2, r3, c2 + j, c2 + j + 1, use_key, s)[0]
-                else:  # the common case on measured ground: plain comparisons
-                    b01, b02, b03 = v0 <= v1, v0 <= v2, v0 <= v3
-                    b12, b13, b23 = v1 <= v2, v1 <= v3, v2 <= v3
-                k1 = 1 - b01
-                k2 = (1 - b02) + (1 - b12)
-                k3 = (1 - b03) + (1 - b13) + (1 - b23)
-                rk1 = b01 + (1 - b12) + (1 - b13)
-                rk2 = b02 + b12 + (1 - b23)
-                rk3 = b03 + b13 + b23
-                code = k1 * _digit_weight(rk1) + k2 * _digit_weight(rk2) + k3 * _digit_weight(rk3)
-                counts[c, code] += 1
-        ties[c * 8] = n_tie
-    return counts[:, :24].sum(axis=0), ties.sum()
+        i0, i1 = c * rows_per, min(oy, (c + 1) * rows_per)
+        ties[c * 8] = _rows_22(x, raw, same, use_key, s, i0, i1, hist[c])
+    return hist, ties.sum()
+
+
+@njit(cache=True, nogil=True)
+def _ordinal_kernel_22_serial(  # pragma: no cover - compiled
+    x: NDArray[np.floating[Any]],
+    raw: NDArray[np.floating[Any]],
+    same: bool,
+    use_key: bool,
+    seed: int,
+    n_chunks: int,
+) -> tuple[NDArray[np.int64], np.int64]:
+    """``_ordinal_kernel_22`` on the calling thread, without the GIL (one surrogate per thread)."""
+    hist = np.zeros((1, 4 * 64 + 64), dtype=np.int64)
+    s = np.uint64(seed) * _GOLDEN
+    n_tie = _rows_22(x, raw, same, use_key, s, 0, x.shape[0] - 1, hist[0])
+    return hist, np.int64(n_tie)
 
 
 def ordinal_counts(
@@ -197,6 +291,7 @@ def ordinal_counts(
     ties: str = "stable",
     seed: int = 0,
     raw: NDArray | None = None,
+    serial: bool = False,
 ) -> tuple[NDArray[np.int64], int]:
     """Histogram over all D! patterns of ``order = (dx, dy)`` windows, and the tied-window count.
 
@@ -215,46 +310,135 @@ def ordinal_counts(
     chunks = max(1, min(arr.shape[0], 4 * (os.cpu_count() or 1)))
     if (wx, wy) == (2, 2):
         ref = ref.astype(arr.dtype, copy=False)
-        counts, n_ties = _ordinal_kernel_22(
-            arr, np.ascontiguousarray(ref), ties == "random", int(seed) & 0x7FFFFFFF, chunks
+        same = raw is None
+        kernel = _ordinal_kernel_22_serial if serial else _ordinal_kernel_22
+        hist, n_ties = kernel(
+            arr, np.ascontiguousarray(ref), same, ties == "random", int(seed) & 0x7FFFFFFF, chunks
         )
-        return counts, int(n_ties)
+        by_bits = hist[:, : 4 * 64].reshape(-1, 64).sum(axis=0)
+        counts = np.bincount(
+            _LEHMER_22[_LEHMER_22 < 24], weights=by_bits[_LEHMER_22 < 24], minlength=24
+        )
+        return np.rint(counts).astype(np.int64), int(n_ties)
     counts, n_ties = _ordinal_kernel(
         arr, ref, wy, wx, ties == "random", int(seed) & 0x7FFFFFFF, chunks
     )
     return counts, int(n_ties)
 
 
+# Phases 2 pi n / 2^24 (numpy's float32 uniforms are n / 2^24): cos and sin from
+# two 4096-entry tables, cos(a + b) = cos a cos b - sin a sin b in float64, so each
+# unit phasor is exact to float32 rounding without a transcendental call per mode.
+_TURN = np.arange(4096, dtype=np.float64) * (2.0 * math.pi / 4096.0)
+_COS_HI, _SIN_HI = np.cos(_TURN), np.sin(_TURN)
+_COS_LO, _SIN_LO = np.cos(_TURN / 4096.0), np.sin(_TURN / 4096.0)
+
+
+@njit(cache=True, parallel=True)
+def _phasors(  # pragma: no cover - compiled
+    u: NDArray[np.float32],
+    amp: NDArray[np.float32],
+    out: NDArray[np.complex64],
+    cos_hi: NDArray[np.float64],
+    sin_hi: NDArray[np.float64],
+    cos_lo: NDArray[np.float64],
+    sin_lo: NDArray[np.float64],
+) -> None:
+    """out = amp * exp(2 pi i u), u uniform float32 in [0, 1) (multiples of 2^-24)."""
+    for i in prange(u.shape[0]):
+        _phasor_row(u, amp, out, cos_hi, sin_hi, cos_lo, sin_lo, i)
+
+
+@njit(cache=True, nogil=True)
+def _phasors_serial(  # pragma: no cover - compiled
+    u: NDArray[np.float32],
+    amp: NDArray[np.float32],
+    out: NDArray[np.complex64],
+    cos_hi: NDArray[np.float64],
+    sin_hi: NDArray[np.float64],
+    cos_lo: NDArray[np.float64],
+    sin_lo: NDArray[np.float64],
+) -> None:
+    """``_phasors`` on the calling thread, without the GIL."""
+    for i in range(u.shape[0]):
+        _phasor_row(u, amp, out, cos_hi, sin_hi, cos_lo, sin_lo, i)
+
+
+@njit(cache=True, nogil=True)
+def _phasor_row(  # pragma: no cover - compiled
+    u: NDArray[np.float32],
+    amp: NDArray[np.float32],
+    out: NDArray[np.complex64],
+    cos_hi: NDArray[np.float64],
+    sin_hi: NDArray[np.float64],
+    cos_lo: NDArray[np.float64],
+    sin_lo: NDArray[np.float64],
+    i: int,
+) -> None:
+    for j in range(u.shape[1]):
+        n = np.int64(u[i, j] * np.float32(16777216.0))
+        hi, lo = n >> 12, n & 4095
+        ca, sa, cb, sb = cos_hi[hi], sin_hi[hi], cos_lo[lo], sin_lo[lo]
+        a = amp[i, j]
+        out[i, j] = complex(a * (ca * cb - sa * sb), a * (sa * cb + ca * sb))
+
+
 def _phase_spectrum(
-    amp: NDArray[np.float32], rng: np.random.Generator, ny: int, nx_even: bool
+    amp: NDArray[np.float32],
+    rng: np.random.Generator,
+    ny: int,
+    nx_even: bool,
+    serial: bool = False,
 ) -> NDArray[np.complex64]:
     """amp * exp(i phi) with phi uniform, Hermitian on the real columns.
 
-    numpy's float32 generator and SIMD cos/sin: 4x faster here than a fused
-    numba loop with a hash per mode.
+    The uniforms are numpy's float32 stream of ``rng`` (the same surrogates
+    whatever the speed-up); the phasors come from a table (``_phasors``).
     """
-    phi = rng.random(amp.shape, dtype=np.float32)
-    phi *= np.float32(2.0 * math.pi)
+    u = rng.random(amp.shape, dtype=np.float32)
     out = np.empty(amp.shape, dtype=np.complex64)
-    np.cos(phi, out=out.real)
-    np.sin(phi, out=out.imag)
-    out *= amp
+    (_phasors_serial if serial else _phasors)(u, amp, out, _COS_HI, _SIN_HI, _COS_LO, _SIN_LO)
     # Columns kx = 0 (and Nyquist for even nx) are transforms of real lines:
     # their -ky mode is the conjugate of +ky, and the self-mirrored modes are real.
     half = np.arange(1, (ny + 1) // 2)
+    two_pi = np.float32(2.0 * math.pi)
     for col in (0, amp.shape[1] - 1) if nx_even else (0,):
         v = out[:, col]
         v[ny - half] = np.conj(v[half])
         selves = [0, ny // 2] if ny % 2 == 0 else [0]
         for r in selves:
-            v[r] = amp[r, col] * (1.0 if phi[r, col] < math.pi else -1.0)
+            v[r] = amp[r, col] * (1.0 if u[r, col] * two_pi < math.pi else -1.0)
     out[0, 0] = 0.0
     return out
 
 
+def _irfft2(f: NDArray[np.complex64], shape: tuple[int, ...], workers: int) -> NDArray[np.float32]:
+    """Inverse real 2-D FFT that may overwrite ``f``.
+
+    ducc0's transform (when installed) works in place on the spectrum and
+    is 1.5-2x faster here than scipy's on a 4096^2 grid; scipy otherwise.
+    Both agree to float32 rounding (6e-8 relative).
+    """
+    try:
+        import ducc0
+    except ImportError:  # pragma: no cover - ducc0 is a declared dependency
+        return sfft.irfft2(f, s=shape, workers=workers, overwrite_x=True)
+    out = np.empty(shape, dtype=np.float32)
+    return ducc0.fft.c2r(  # type: ignore[no-any-return]
+        f,
+        axes=(0, 1),
+        lastsize=shape[1],
+        forward=False,
+        inorm=2,
+        out=out,
+        nthreads=workers,
+        allow_overwriting_input=True,
+    )
+
+
 def phase_surrogates(
     z: NDArray, seed: int, *, workers: int | None = None
-) -> Callable[[int], NDArray[np.float32]]:
+) -> Callable[..., NDArray[np.float32]]:
     """A function k -> k-th surrogate of ``z`` (float32, same mean, same amplitude spectrum).
 
     The surrogates are fixed by ``seed`` and ``k`` alone, so they can be made
@@ -269,11 +453,148 @@ def phase_surrogates(
     del spec
     base = int(seed) & 0xFFFFFFFF
 
-    def make(k: int) -> NDArray[np.float32]:
+    def make(k: int, serial: bool = False) -> NDArray[np.float32]:
+        # serial: on the calling thread only (the caller runs several at once).
         rng = np.random.default_rng([base, int(k)])
-        f = _phase_spectrum(amp, rng, shape[0], shape[1] % 2 == 0)
-        out = sfft.irfft2(f, s=shape, workers=workers or 1, overwrite_x=True)
+        f = _phase_spectrum(amp, rng, shape[0], shape[1] % 2 == 0, serial)
+        out = _irfft2(f, shape, 1 if serial else (workers or 1))
         out += np.float32(mean)
         return out
 
     return make
+
+
+@njit(cache=True, inline="always")
+def _bin_of(v: float, edges: NDArray[np.float64]) -> int:
+    """np.histogram's bin of v for sorted edges (last bin closed), -1 outside."""
+    n = edges.size
+    if v < edges[0] or v > edges[n - 1]:
+        return -1
+    lo, hi = 0, n - 1  # edges[lo] <= v, and v < edges[hi] unless v is the last edge
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if edges[mid] <= v:
+            lo = mid
+        else:
+            hi = mid
+    return min(lo, n - 2)
+
+
+@njit(cache=True, parallel=True)
+def _gradient_kernel(  # pragma: no cover - compiled
+    z: NDArray[np.float64],
+    dy: float,
+    dx: float,
+    slope_edges: NDArray[np.float64],
+    aspect_edges: NDArray[np.float64],
+    floor: float,
+    n_chunks: int,
+) -> tuple[NDArray[np.int64], NDArray[np.int64], NDArray[np.float64]]:
+    ny, nx = z.shape
+    s_cnt = np.zeros((n_chunks, slope_edges.size + 7), dtype=np.int64)
+    a_cnt = np.zeros((n_chunks, aspect_edges.size + 7), dtype=np.int64)
+    sums = np.zeros((n_chunks, 8))
+    to_deg = 180.0 / math.pi
+    top = slope_edges[slope_edges.size - 1]
+    per = (ny + n_chunks - 1) // n_chunks
+    for c in prange(n_chunks):
+        g2_sum = 0.0
+        sdr_sum = 0.0
+        for i in range(c * per, min(ny, (c + 1) * per)):
+            for j in range(nx):
+                # numpy.gradient: central inside, one-sided first order at the edges
+                if i == 0:
+                    gy = (z[1, j] - z[0, j]) / dy
+                elif i == ny - 1:
+                    gy = (z[ny - 1, j] - z[ny - 2, j]) / dy
+                else:
+                    gy = (z[i + 1, j] - z[i - 1, j]) / (2.0 * dy)
+                if j == 0:
+                    gx = (z[i, 1] - z[i, 0]) / dx
+                elif j == nx - 1:
+                    gx = (z[i, nx - 1] - z[i, nx - 2]) / dx
+                else:
+                    gx = (z[i, j + 1] - z[i, j - 1]) / (2.0 * dx)
+                g2 = gx**2 + gy**2
+                g2_sum += g2
+                sdr_sum += g2 / (math.sqrt(1.0 + g2) + 1.0)
+                slope = math.atan(math.hypot(gx, gy)) * to_deg
+                b = _bin_of(min(slope, top), slope_edges)
+                if b >= 0:
+                    s_cnt[c, b] += 1
+                if slope > floor:
+                    aspect = (math.atan2(gy, gx) * to_deg + 180.0) % 360.0
+                    b = _bin_of(aspect, aspect_edges)
+                    if b >= 0:
+                        a_cnt[c, b] += 1
+                    sums[c, 2] += 1.0
+        sums[c, 0] = g2_sum
+        sums[c, 1] = sdr_sum
+    return (
+        s_cnt.sum(axis=0)[: slope_edges.size - 1],
+        a_cnt.sum(axis=0)[: aspect_edges.size - 1],
+        sums.sum(axis=0)[:3],
+    )
+
+
+def gradient_histograms(
+    z: NDArray[np.float64],
+    dx: float,
+    dy: float,
+    slope_edges: NDArray[np.float64],
+    aspect_edges: NDArray[np.float64],
+    floor: float,
+) -> tuple[NDArray[np.int64], NDArray[np.int64], int, float, float]:
+    """Slope and aspect histograms and gradient sums of a hole-free grid, one pass.
+
+    What ``gradient_entropy`` histograms (numpy.gradient's differences,
+    slope in degrees, aspect counter-clockwise from +x where the slope
+    exceeds ``floor``, np.histogram's bins), plus sum |grad z|^2 and
+    sum (sqrt(1 + |grad z|^2) - 1) for Sdq and Sdr, without a grid-sized
+    temporary. Returns (slope counts, aspect counts, steep cells, sums).
+    """
+    arr = np.ascontiguousarray(z, dtype=np.float64)
+    chunks = max(1, min(arr.shape[0], 4 * (os.cpu_count() or 1)))
+    s, a, sums = _gradient_kernel(
+        arr, float(dy), float(dx), slope_edges, aspect_edges, float(floor), chunks
+    )
+    return s, a, round(float(sums[2])), float(sums[0]), float(sums[1])
+
+
+@njit(cache=True, parallel=True)
+def _moment_rows(z: NDArray[np.float64]) -> NDArray[np.float64]:  # pragma: no cover - compiled
+    ny, nx = z.shape
+    out = np.empty((ny, 6))
+    for i in prange(ny):
+        s1 = s2 = s3 = s4 = 0.0
+        hi, lo = -np.inf, np.inf
+        for j in range(nx):
+            v = z[i, j]
+            v2 = v**2
+            s1 += abs(v)
+            s2 += v2
+            s3 += v**3
+            s4 += v**4
+            hi = max(hi, v)
+            lo = min(lo, v)
+        out[i, 0], out[i, 1], out[i, 2], out[i, 3], out[i, 4], out[i, 5] = s1, s2, s3, s4, hi, lo
+    return out
+
+
+def height_moments(z: NDArray[np.float64]) -> tuple[float, float, float, float, float, float]:
+    """Means of |z|, z^2, z^3, z^4 and the max and min of a grid, one pass.
+
+    Row sums in order, then numpy's pairwise sum over rows: the means agree
+    with ``np.mean(z**p)`` to rounding (~1e-15 relative).
+    """
+    rows = _moment_rows(np.ascontiguousarray(z, dtype=np.float64))
+    n = z.size
+    s = rows[:, :4].sum(axis=0) / n
+    return (
+        float(s[0]),
+        float(s[1]),
+        float(s[2]),
+        float(s[3]),
+        float(rows[:, 4].max()),
+        float(rows[:, 5].min()),
+    )

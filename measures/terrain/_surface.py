@@ -81,6 +81,19 @@ def level(
 
     Holes are set to 0 after levelling so that they carry no height.
     """
+    if valid is None and z.ndim == 2 and detrend == "plane":
+        # Full regular grid: centred x and y are orthogonal, so the least-squares
+        # plane separates into two 1-D projections (no n x 3 design matrix).
+        # Written in place on one output array (the same operations, in the
+        # same order, as the general expression below would do).
+        xc = np.arange(z.shape[1]) - (z.shape[1] - 1) / 2
+        yc = np.arange(z.shape[0]) - (z.shape[0] - 1) / 2
+        bx = (z.mean(axis=0) @ xc) / (xc @ xc)
+        by = (z.mean(axis=1) @ yc) / (yc @ yc)
+        out = z - z.mean()
+        out -= bx * xc[None, :]
+        out -= by * yc[:, None]
+        return out
     w = np.ones(z.shape, dtype=bool) if valid is None else valid
     zz = np.where(w, z, 0.0)
     if detrend == "none":

@@ -7,6 +7,7 @@ is x (spacing ``dx``). All results are SI: heights in m, Sdr as a fraction
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from typing import cast
 
@@ -230,38 +231,101 @@ def areal_autocorrelation(
     fn = "areal_autocorrelation"
     arr, dx_f, dy_f, mask = check_grid(z, dx, dy, valid, fn)
     check_choice("detrend", detrend, fn, ("mean", "plane"))
-    zl = level(np.nan_to_num(arr), dx_f, dy_f, mask, detrend)
+    zl = level(arr if mask is None else np.nan_to_num(arr), dx_f, dy_f, mask, detrend)
     ny, nx = arr.shape
-    shape = (2 * ny, 2 * nx)
+    hy, hx = ny // 2, nx // 2
+    return np.arange(-hx, hx + 1) * dx_f, np.arange(-hy, hy + 1) * dy_f, _acf_levelled(zl, mask)
+
+
+def _acf_numerator_inplace(
+    zl: NDArray[np.float64],
+    shape: tuple[int, int],
+    rows: NDArray[np.int_],
+    cols: NDArray[np.int_],
+) -> NDArray[np.float64]:
+    """sum z(r) z(r + t) at the kept lags: ducc0's transforms, in place on one array.
+
+    The same separable float32 transforms as the scipy fallback, with the
+    padded spectrum transformed, squared and transformed back in its own
+    memory (one padded complex array instead of three).
+    """
+    import ducc0
+
+    ny, nx = zl.shape
+    threads = min(2, os.cpu_count() or 1)
+    spec = np.zeros((shape[0], shape[1] // 2 + 1), dtype=np.complex64)
+    padded = np.zeros((ny, shape[1]), dtype=np.float32)
+    padded[:, :nx] = zl
+    ducc0.fft.r2c(padded, axes=(1,), out=spec[:ny], nthreads=threads)
+    del padded
+    ducc0.fft.c2c(spec, axes=(0,), out=spec, nthreads=threads)
+    re, im = spec.real, spec.imag
+    np.multiply(re, re, out=re)
+    np.multiply(im, im, out=im)
+    re += im
+    im[...] = 0.0
+    ducc0.fft.c2c(spec, axes=(0,), forward=False, inorm=2, out=spec, nthreads=threads)
+    half = spec[rows]
+    del spec, re, im
+    out = ducc0.fft.c2r(
+        half,
+        axes=(1,),
+        lastsize=shape[1],
+        forward=False,
+        inorm=2,
+        nthreads=threads,
+        allow_overwriting_input=True,
+    )
+    return np.asarray(out[:, cols], dtype=np.float64)
+
+
+def _acf_levelled(zl: NDArray[np.float64], mask: NDArray[np.bool_] | None) -> NDArray[np.float64]:
+    """The centred ACF of :func:`areal_autocorrelation` from levelled heights (holes 0)."""
+    ny, nx = zl.shape
+    hy, hx = ny // 2, nx // 2
+    # Padding: a circular correlation of length M holds the linear one at lag t
+    # plus its alias at t - M (the linear one lives on |t| <= n - 1); for the kept
+    # lags |t| <= n // 2 the alias is empty once M >= n + n // 2, so 1.5 n
+    # (rounded up to a fast FFT size) is enough.
+    shape = (
+        sfft.next_fast_len(ny + hy, real=False),
+        sfft.next_fast_len(nx + hx, real=True),
+    )
     # float32 transforms: the ACF is read at thresholds like 0.2 of its peak, far
     # above float32's ~1e-6 relative FFT rounding. Separable transforms, cropped
-    # to the lags kept as soon as possible: the padded 2n x 2n grid never exists
-    # as a real array (rfft pads each row), and the inverse keeps only the rows
-    # it returns before its last pass (a 4096^2 scan: ~0.5 GiB, not 2 GiB).
-    spec = sfft.rfft(zl.astype(np.float32), n=shape[1], axis=1, workers=-1)
-    spec = sfft.fft(spec, n=shape[0], axis=0, workers=-1, overwrite_x=True)
-    power = spec.real**2 + spec.imag**2
-    del spec
-    hy, hx = ny // 2, nx // 2
+    # to the lags kept as soon as possible: only the row-padded real grid and
+    # one padded spectrum exist, and the inverse keeps only the rows it returns
+    # before its last pass.
     rows = np.r_[shape[0] - hy : shape[0], 0 : hy + 1]
     cols = np.r_[shape[1] - hx : shape[1], 0 : hx + 1]
-    half = sfft.ifft(power, axis=0, workers=-1)[rows]
-    del power
-    num = sfft.irfft(half, n=shape[1], axis=1, workers=-1)[:, cols].astype(np.float64)
-    del half
+    try:
+        num = _acf_numerator_inplace(zl, shape, rows, cols)
+    except ImportError:  # pragma: no cover - ducc0 is a declared dependency
+        spec = sfft.rfft(zl.astype(np.float32), n=shape[1], axis=1, workers=-1)
+        spec = sfft.fft(spec, n=shape[0], axis=0, workers=-1, overwrite_x=True)
+        power = spec.real**2
+        power += spec.imag**2
+        del spec
+        half = sfft.ifft(power, axis=0, workers=-1)[rows]
+        del power
+        num = sfft.irfft(half, n=shape[1], axis=1, workers=-1)[:, cols].astype(np.float64)
+        del half
     if mask is None:
         # Full grid: the number of pairs at lag (ty, tx) is (ny - |ty|)(nx - |tx|),
-        # exactly what the transform of the all-ones mask gives, without two FFTs.
+        # exactly what the transform of the all-ones mask gives, without two FFTs;
+        # every kept lag has pairs, so the division is done in place.
         ty, tx = np.abs(np.arange(-hy, hy + 1)), np.abs(np.arange(-hx, hx + 1))
-        cnt = np.outer(ny - ty, nx - tx).astype(np.float64)
+        num /= (ny - ty).astype(np.float64)[:, None]
+        num /= (nx - tx).astype(np.float64)[None, :]
+        num /= num[hy, hx]
+        return num
     else:
         w = mask.astype(np.float64)
         cnt = sfft.irfft2(np.abs(sfft.rfft2(w, shape, workers=-1)) ** 2, shape, workers=-1)
         cnt = cnt[np.ix_(rows, cols)]
     var = num[hy, hx] / cnt[hy, hx]
     with np.errstate(invalid="ignore", divide="ignore"):
-        acf = np.where(cnt > 0.5, num / np.maximum(cnt, 0.5), np.nan) / var
-    return np.arange(-hx, hx + 1) * dx_f, np.arange(-hy, hy + 1) * dy_f, acf
+        return np.where(cnt > 0.5, num / np.maximum(cnt, 0.5), np.nan) / var
 
 
 def _decay_lengths(
@@ -283,7 +347,9 @@ def _decay_lengths(
     rr = radii[None, :]
     cols = hx + rr * c[:, None] / dx
     rows = hy + rr * sn[:, None] / dy
-    vals = ndimage.map_coordinates(np.nan_to_num(acf, nan=1.0), [rows, cols], order=1)
+    # NaN lags (no pairs) read as 1, i.e. not decayed; no copy when there are none.
+    src = np.nan_to_num(acf, nan=1.0) if np.isnan(acf).any() else acf
+    vals = ndimage.map_coordinates(src, [rows, cols], order=1)
     vals = np.where(rr <= rmax[:, None], vals, np.inf)
     below = vals <= s
     decayed = cast("NDArray[np.bool_]", below.any(axis=1))  # stubs: bool | array
@@ -361,28 +427,65 @@ def areal_parameters(
         band = _check_band(band_m, fn)
         arr = bandpass_surface(np.nan_to_num(arr), dx_f, dy_f, band_m=band, valid=mask)
     zl = level(np.nan_to_num(arr), dx_f, dy_f, mask, detrend)
+    return _areal_from_levelled(zl, dx_f, dy_f, mask, detrend, s, band)
+
+
+def _areal_from_levelled(
+    zl: NDArray[np.float64],
+    dx_f: float,
+    dy_f: float,
+    mask: NDArray[np.bool_] | None,
+    detrend: str,
+    s: float,
+    band: tuple[float | None, float | None] | None,
+    gradient_sums: tuple[float, float] | None = None,
+) -> ArealParameters:
+    """:func:`areal_parameters` of heights already levelled (holes 0): no second levelling.
+
+    ``gradient_sums``: (sum |grad z|^2, sum (sqrt(1 + |grad z|^2) - 1)) over
+    every cell of a hole-free grid, when a compiled pass made them already.
+    """
     h = zl if mask is None else zl[mask]
-    sq = float(np.sqrt(np.mean(h**2)))
-    sa = float(np.mean(np.abs(h)))
+    if mask is None and gradient_sums is not None:
+        # The compiled path (terrain_summary): one pass, no power temporaries.
+        from measures.terrain._fastfield import height_moments
+
+        m1, m2, m3, m4, h_max, h_min = height_moments(zl)
+    else:
+        m1, m2, m3, m4 = (
+            float(np.mean(np.abs(h))),
+            float(np.mean(h**2)),
+            float(np.mean(h**3)),
+            float(np.mean(h**4)),
+        )
+        h_max, h_min = float(h.max()), float(h.min())
+    sq = float(np.sqrt(m2))
+    sa = m1
     with np.errstate(invalid="ignore", divide="ignore"):
-        ssk = float(np.mean(h**3) / sq**3)
-        sku = float(np.mean(h**4) / sq**4)
-    # numpy's stubs cannot tell a 2-D input's gradient pair from a 1-D array
-    gy, gx = cast("tuple[NDArray[np.float64], NDArray[np.float64]]", np.gradient(zl, dy_f, dx_f))
-    gmask = _gradient_mask(mask, arr.shape)
-    g2 = (gx**2 + gy**2)[gmask]
-    sdq = float(np.sqrt(np.mean(g2)))
-    # sqrt(1 + g) - 1 written as g / (sqrt(1 + g) + 1): no cancellation on flat ground.
-    sdr = float(np.mean(g2 / (np.sqrt(1.0 + g2) + 1.0)))
-    del gx, gy, g2, gmask  # the ACF's padded transforms need the room on large scans
-    _, _, acf = areal_autocorrelation(zl, dx_f, dy_f, valid=mask)
+        ssk = float(m3 / sq**3) if sq > 0 else float(np.float64(m3) / np.float64(sq) ** 3)
+        sku = float(m4 / sq**4) if sq > 0 else float(np.float64(m4) / np.float64(sq) ** 4)
+    if gradient_sums is not None and mask is None:
+        sdq = float(np.sqrt(gradient_sums[0] / zl.size))
+        sdr = float(gradient_sums[1] / zl.size)
+    else:
+        # numpy's stubs cannot tell a 2-D input's gradient pair from a 1-D array
+        pair = np.gradient(zl, dy_f, dx_f)
+        gy, gx = cast("tuple[NDArray[np.float64], NDArray[np.float64]]", pair)
+        del pair
+        gmask = _gradient_mask(mask, zl.shape)
+        g2 = (gx**2 + gy**2)[gmask]
+        sdq = float(np.sqrt(np.mean(g2)))
+        # sqrt(1 + g) - 1 written as g / (sqrt(1 + g) + 1): no cancellation on flat ground.
+        sdr = float(np.mean(g2 / (np.sqrt(1.0 + g2) + 1.0)))
+        del gx, gy, g2, gmask  # the ACF's padded transforms need the room on large scans
+    acf = _acf_levelled(zl, mask)
     lengths, decayed = _decay_lengths(acf, dx_f, dy_f, s)
     if decayed.any() and sq > 0:
         sal = float(lengths[decayed].min())
         str_ = float(sal / lengths.max()) if lengths.max() > 0 else float("nan")
     else:
         sal, str_ = float("nan"), float("nan")
-    sp, sv = float(h.max()), float(-h.min())
+    sp, sv = h_max, -h_min
     return ArealParameters(
         Sa=sa,
         Sq=sq,

@@ -12,10 +12,13 @@ wavelength and a lag of the same length as the same scale, common practice).
 
 from __future__ import annotations
 
+import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import cast
 
 import numpy as np
+from numba import njit, prange
 from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike, NDArray
 
@@ -302,6 +305,81 @@ def _increments(
     return np.vstack(out)
 
 
+@njit(cache=True, parallel=True, fastmath=True)
+def _line_increments(  # pragma: no cover - compiled
+    lines: NDArray[np.float64], lags: NDArray[np.int64]
+) -> NDArray[np.float64]:
+    """(n_lines, n_lags, 2): mean |dz| and mean dz^2 per line and lag, one pass each."""
+    n_lines, n = lines.shape
+    out = np.empty((n_lines, lags.size, 2))
+    for r in prange(n_lines):
+        line = lines[r]
+        for li in range(lags.size):
+            h = lags[li]
+            s1 = 0.0
+            s2 = 0.0
+            for j in range(n - h):
+                d = line[j + h] - line[j]
+                s1 += abs(d)
+                s2 += d * d
+            out[r, li, 0] = s1 / (n - h)
+            out[r, li, 1] = s2 / (n - h)
+    return out
+
+
+def _increments_both(
+    arr: NDArray[np.float64], lags: NDArray[np.int_]
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """``_increments`` for p = 1 and p = 2 at once (2-D grid without holes).
+
+    The same transects (rows, then columns, at most ``_MAX_TRANSECTS`` each);
+    sums in another order than numpy's, so values agree to rounding (~1e-15).
+    """
+    sr = max(1, -(-arr.shape[0] // _MAX_TRANSECTS))
+    sc = max(1, -(-arr.shape[1] // _MAX_TRANSECTS))
+    lg = np.asarray(lags, dtype=np.int64)
+    rows = _line_increments(np.ascontiguousarray(arr[::sr]), lg)
+    cols = _line_increments(np.ascontiguousarray(arr.T[::sc]), lg)
+    both = np.concatenate([rows, cols])
+    return both[:, :, 0], both[:, :, 1]
+
+
+@njit(cache=True, parallel=True)
+def _box_counts_kernel(  # pragma: no cover - compiled
+    arr: NDArray[np.float64], amin: float, scale: float, sizes: NDArray[np.int64]
+) -> NDArray[np.float64]:
+    ny, nx = arr.shape
+    out = np.zeros(sizes.size)
+    for si in range(sizes.size):
+        s = sizes[si]
+        nby, nbx = (ny - s - 1) // s + 1, (nx - s - 1) // s + 1
+        per_row = np.zeros(nby)
+        for bi in prange(nby):
+            acc = 0.0
+            for bj in range(nbx):
+                hi = -np.inf
+                lo = np.inf
+                for r in range(bi * s, bi * s + s + 1):
+                    for c in range(bj * s, bj * s + s + 1):
+                        v = (arr[r, c] - amin) * scale
+                        hi = max(hi, v)
+                        lo = min(lo, v)
+                acc += max(math.ceil((hi - lo) / s), 1.0)
+            per_row[bi] = acc
+        out[si] = per_row.sum()
+    return out
+
+
+def _box_counts_2d(arr: NDArray[np.float64], sizes: NDArray[np.int_]) -> NDArray[np.float64]:
+    """``_box_counts`` of a 2-D grid in one compiled pass per box size (same counts)."""
+    amin = float(arr.min())
+    span = float(arr.max() - amin)
+    scale = (max(arr.shape) - 1) / span
+    return _box_counts_kernel(
+        np.ascontiguousarray(arr), amin, scale, np.asarray(sizes, dtype=np.int64)
+    )
+
+
 def _structure_fit(
     arr: NDArray[np.float64],
     dx: float,
@@ -309,15 +387,20 @@ def _structure_fit(
     mask: NDArray[np.bool_] | None,
     band: tuple[float, float] | None,
     p: int,
+    increments: NDArray[np.float64] | None = None,
 ) -> _Fit:
-    """Transect increment estimator, median over rows and columns (Gneiting et al. 2012)."""
+    """Transect increment estimator, median over rows and columns (Gneiting et al. 2012).
+
+    ``increments``: the (n_lines, n_lags) means of ``_increments`` if already
+    computed (``_increments_both`` makes p = 1 and 2 in one pass).
+    """
     step = dx if arr.ndim == 1 else min(dx, dy)
     lags = _lags_px(band, step, min(arr.shape), 1 / 16)
     if lags.size < 3:
         raise InsufficientDataError("band", "hurst_exponent", "a band spanning >= 3 lags", band)
     # With dx != dy the column lags are in other units, but a log-log slope does not
     # depend on the unit of the lag, so the per-transect estimates stay valid.
-    v = _increments(arr, mask, lags, p)
+    v = _increments(arr, mask, lags, p) if increments is None else increments
     good = np.all(np.isfinite(v) & (v > 0), axis=1)
     if not good.any():
         raise InsufficientDataError("z", "hurst_exponent", "a surface that is not flat", arr)
@@ -355,6 +438,7 @@ def _boxcount_fit(
     dx: float,
     mask: NDArray[np.bool_] | None,
     band: tuple[float, float] | None,
+    fast: bool = False,
 ) -> _Fit:
     if mask is not None:
         arr = fill_holes(arr, mask)
@@ -364,7 +448,7 @@ def _boxcount_fit(
     if len(sizes) < 3:
         raise InsufficientDataError("band", "hurst_exponent", "a band of >= 3 box sizes", band)
     size_arr = np.array(sizes)
-    counts = _box_counts(arr, size_arr)
+    counts = _box_counts_2d(arr, size_arr) if fast and arr.ndim == 2 else _box_counts(arr, size_arr)
     # int sizes times a float spacing are float64 (the stubs only say floating)
     x = cast("NDArray[np.float64]", size_arr * dx)
     slope, icpt, r2 = _fit(x, counts)
@@ -373,8 +457,8 @@ def _boxcount_fit(
     return h, (float(x[0]), float(x[-1])), r2, slope, icpt, x, counts
 
 
-def _psd_fit(
-    arr: NDArray[np.float64],
+def _psd_fit_nd(
+    ndim: int,
     band: tuple[float, float],
     q: NDArray[np.float64],
     c: NDArray[np.float64],
@@ -383,9 +467,45 @@ def _psd_fit(
     if sel.sum() < 3:
         raise InsufficientDataError("band", "hurst_exponent", "a band holding >= 3 PSD bins", band)
     slope, icpt, r2 = _fit(q[sel], c[sel])
-    h = _psd_slope_to_hurst(slope, arr.ndim)
+    h = _psd_slope_to_hurst(slope, ndim)
     qs = q[sel]
     return h, (float(2 * np.pi / qs[-1]), float(2 * np.pi / qs[0])), r2, slope, icpt, qs, c[sel]
+
+
+def _psd_from_spectrum(
+    q: NDArray[np.float64],
+    c: NDArray[np.float64],
+    ndim: int,
+    shape: tuple[int, ...],
+    dx_f: float,
+    dy_f: float,
+    mask: NDArray[np.bool_] | None,
+    fit_band: tuple[float, float] | None,
+) -> tuple[_Fit, bool]:
+    """The PSD estimate from a log-binned spectrum: (fit, power law found)."""
+    fn = "hurst_exponent"
+    found = True
+    if ndim == 2 and mask is not None:
+        floor = 4.0 * hole_scale_cells(mask) * max(dx_f, dy_f)
+        keep = q <= 2 * np.pi / floor if floor > 0 else np.ones(q.size, bool)
+        q, c = q[keep], c[keep]
+        if fit_band is not None and fit_band[0] < floor:
+            if fit_band[1] < 2.0 * floor:
+                raise InsufficientDataError(
+                    "band",
+                    fn,
+                    f"a band reaching beyond twice the hole scale ({floor:.3g} m)",
+                    fit_band,
+                )
+            fit_band = (floor, fit_band[1])
+    if fit_band is None:
+        auto = _band_from_spectrum(q, c, ndim, 0.98, 0.8, 0.4, (0.0, 1.0))
+        found = auto.found
+        n = max(shape) if ndim == 2 else shape[0]
+        step = max(dx_f, dy_f) if ndim == 2 else dx_f
+        fit_band = auto.band_m if found else (4 * step, n * step / 4)
+    assert fit_band is not None  # a found band always has band_m
+    return _psd_fit_nd(ndim, fit_band, q, c), found
 
 
 def hurst_exponent(
@@ -483,27 +603,7 @@ def hurst_exponent(
     found = True
     if method == "psd":
         q, c = _spectrum(filled, dx_f, dy_f, spec_mask)
-        if arr.ndim == 2 and mask is not None:
-            floor = 4.0 * hole_scale_cells(mask) * max(dx_f, dy_f)
-            keep = q <= 2 * np.pi / floor if floor > 0 else np.ones(q.size, bool)
-            q, c = q[keep], c[keep]
-            if fit_band is not None and fit_band[0] < floor:
-                if fit_band[1] < 2.0 * floor:
-                    raise InsufficientDataError(
-                        "band",
-                        fn,
-                        f"a band reaching beyond twice the hole scale ({floor:.3g} m)",
-                        fit_band,
-                    )
-                fit_band = (floor, fit_band[1])
-        if fit_band is None:
-            auto = _band_from_spectrum(q, c, arr.ndim, 0.98, 0.8, 0.4, (0.0, 1.0))
-            found = auto.found
-            n = max(arr.shape) if arr.ndim == 2 else arr.size
-            step = max(dx_f, dy_f) if arr.ndim == 2 else dx_f
-            fit_band = auto.band_m if found else (4 * step, n * step / 4)
-        assert fit_band is not None  # a found band always has band_m
-        res = _psd_fit(filled, fit_band, q, c)
+        res, found = _psd_from_spectrum(q, c, arr.ndim, arr.shape, dx_f, dy_f, mask, fit_band)
     elif method == "boxcount":
         zl = level(filled, dx_f, dy_f, spec_mask, "plane")
         res = _boxcount_fit(zl, dx_f, spec_mask, fit_band)
@@ -513,3 +613,66 @@ def hurst_exponent(
     h, used, r2, slope, icpt, x, y = res
     dim = (3.0 if arr.ndim == 2 else 2.0) - h
     return HurstResult(h, dim, used, r2, method, slope, int(x.size), found, x, y, icpt)
+
+
+def _result(res: _Fit, method: str, ndim: int, found: bool = True) -> HurstResult:
+    h, used, r2, slope, icpt, x, y = res
+    dim = (3.0 if ndim == 2 else 2.0) - h
+    return HurstResult(h, dim, used, r2, method, slope, int(x.size), found, x, y, icpt)
+
+
+def _hurst_all(
+    zl: NDArray[np.float64],
+    dx: float,
+    dy: float,
+    mask: NDArray[np.bool_] | None,
+    methods: Sequence[str],
+    fit_band: tuple[float, float] | None,
+    min_valid_fraction: float,
+    spectrum: tuple[NDArray[np.float64], NDArray[np.float64]] | None,
+) -> dict[str, HurstResult | ValueError]:
+    """:func:`hurst_exponent` of a levelled grid for several methods, sharing the work.
+
+    ``zl``: levelled heights, holes 0 (as ``terrain_summary`` makes them);
+    ``spectrum``: the radial PSD (q, C) of the hole-filled grid, if already
+    made. What each method computes is that of :func:`hurst_exponent`; the
+    variogram and madogram read one pass of increments (compiled) and box
+    counting a compiled block pass. A full grid is not levelled a second time
+    (that would move heights by rounding only). Each value is a result or the
+    error :func:`hurst_exponent` would raise.
+    """
+    fn = "hurst_exponent"
+    out: dict[str, HurstResult | ValueError] = {}
+    frac = 1.0 if mask is None else float(mask.mean())
+    if frac < min_valid_fraction:
+        err = InsufficientDataError(
+            "valid", fn, f"at least {min_valid_fraction:.0%} valid cells", f"{frac:.1%} valid"
+        )
+        return dict.fromkeys(methods, err)
+    inpainted = zl if mask is None else inpaint_holes(zl, mask)
+    increments: dict[int, NDArray[np.float64]] = {}
+    structure = [m for m in methods if m in ("variogram", "madogram")]
+    zs = zl
+    if structure and mask is not None:
+        zs = level(fill_holes(zl, mask), dx, dy, mask, "plane")
+    for m in methods:
+        try:
+            if m == "psd":
+                q, c = spectrum if spectrum is not None else _spectrum(inpainted, dx, dy, None)
+                res, found = _psd_from_spectrum(q, c, 2, zl.shape, dx, dy, mask, fit_band)
+                out[m] = _result(res, m, 2, found)
+            elif m == "boxcount":
+                zb = inpainted if mask is None else level(inpainted, dx, dy, None, "plane")
+                out[m] = _result(_boxcount_fit(zb, dx, None, fit_band, fast=True), m, 2)
+            else:
+                p = 2 if m == "variogram" else 1
+                if mask is None and not increments:
+                    step = min(dx, dy)
+                    lags = _lags_px(fit_band, step, min(zl.shape), 1 / 16)
+                    if lags.size >= 3:
+                        increments[1], increments[2] = _increments_both(zs, lags)
+                fit = _structure_fit(zs, dx, dy, mask, fit_band, p, increments.get(p))
+                out[m] = _result(fit, m, 2)
+        except ValueError as err:
+            out[m] = err
+    return out

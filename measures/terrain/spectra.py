@@ -258,10 +258,42 @@ def radial_psd(
     fn = "radial_psd"
     zl, dx_f, dy_f = _prepared(z, dx, dy, valid, taper, detrend, fn)
     bpd = check_positive_int("bins_per_decade", bins_per_decade, fn)
+    spec = _half_spectrum(zl, dx_f, dy_f, taper)
+    return _radial_from_half(spec, zl.shape, dx_f, dy_f, bpd, taper, detrend)
+
+
+def _half_spectrum(
+    zl: NDArray[np.float64], dx: float, dy: float, taper: str
+) -> NDArray[np.float64]:
+    """C(q) on the rfft half-plane of a prepared (filled, levelled) heightmap.
+
+    The separable taper is applied by rows then columns, without the 2-D
+    taper array (values equal ``_tapered_2d``'s to rounding).
+    """
     ny, nx = zl.shape
-    zw, wpow = _tapered_2d(zl, taper)
+    wy, wx = _taper(ny, taper), _taper(nx, taper)
+    zw = zl * wy[:, None]
+    zw *= wx[None, :]
+    wpow = float(np.mean(wy**2) * np.mean(wx**2))
     half = sfft.rfft2(zw, workers=-1)
-    spec = (half.real**2 + half.imag**2) * (dx_f * dy_f / (nx * ny) / wpow)
+    del zw
+    spec = half.real**2
+    spec += half.imag**2
+    spec *= dx * dy / (nx * ny) / wpow
+    return spec
+
+
+def _radial_from_half(
+    spec: NDArray[np.float64],
+    shape: tuple[int, ...],
+    dx_f: float,
+    dy_f: float,
+    bpd: int,
+    taper: str,
+    detrend: str,
+) -> RadialPSD:
+    """The annulus averages of :func:`radial_psd` from a half-plane spectrum."""
+    ny, nx = shape
     qx = sfft.rfftfreq(nx, dx_f) * 2 * np.pi
     qy = sfft.fftfreq(ny, dy_f) * 2 * np.pi
     qabs = np.sqrt(qy[:, None] ** 2 + qx[None, :] ** 2)
@@ -295,6 +327,39 @@ def radial_psd(
         taper=taper,
         detrend=detrend,
     )
+
+
+def _moments_from_half(
+    spec: NDArray[np.float64], shape: tuple[int, ...], dx: float, dy: float
+) -> tuple[float, PSDAnisotropy]:
+    """rms slope and anisotropy of the full-plane PSD from its rfft half-plane.
+
+    Each interior column stands for itself and its mirror mode (-kx, -ky),
+    whose labels follow numpy's fftfreq (the Nyquist row and column keep
+    their negative label), so the sums equal those over ``surface_psd``'s
+    full plane (up to summation order).
+    """
+    ny, nx = shape
+    # fftfreq's labels: for even nx the Nyquist column is -pi/dx, as on the full plane.
+    qx = sfft.fftfreq(nx, dx)[: spec.shape[1]] * 2 * np.pi
+    qy = sfft.fftfreq(ny, dy) * 2 * np.pi
+    qy_m = qy[(ny - np.arange(ny)) % ny]  # label of the mirror row
+    inner = np.ones(spec.shape[1], dtype=bool)
+    inner[0] = False
+    if nx % 2 == 0:
+        inner[-1] = False
+    col = spec.sum(axis=0)  # sum over rows of C: for the qx^2 moment
+    m_xx = float(np.sum(qx**2 * col) + np.sum(qx[inner] ** 2 * col[inner]))
+    row_all = spec.sum(axis=1)
+    row_in = spec[:, inner].sum(axis=1)
+    m_yy = float(np.sum(qy**2 * row_all) + np.sum(qy_m**2 * row_in))
+    qc = spec @ qx  # per row: sum over columns of qx C
+    qc_in = spec[:, inner] @ qx[inner]
+    m_xy = float(np.sum(qy * qc) - np.sum(qy_m * qc_in))
+    norm = (2 * np.pi / (nx * dx)) * (2 * np.pi / (ny * dy)) / (2 * np.pi) ** 2
+    mxx, myy, mxy = m_xx * norm, m_yy * norm, m_xy * norm
+    rms_slope = float(np.sqrt(mxx + myy))
+    return rms_slope, _anisotropy(mxx, mxy, myy)
 
 
 def profile_psd(
@@ -430,6 +495,10 @@ def psd_anisotropy(psd: SurfacePSD) -> PSDAnisotropy:
     mxx = float(np.sum(psd.qx[None, :] ** 2 * psd.psd) * norm)
     myy = float(np.sum(psd.qy[:, None] ** 2 * psd.psd) * norm)
     mxy = float(np.sum(psd.qx[None, :] * psd.qy[:, None] * psd.psd) * norm)
+    return _anisotropy(mxx, mxy, myy)
+
+
+def _anisotropy(mxx: float, mxy: float, myy: float) -> PSDAnisotropy:
     vals, vecs = np.linalg.eigh(np.array([[mxx, mxy], [mxy, myy]]))
     ratio = float(np.sqrt(max(vals[0], 0.0) / vals[1])) if vals[1] > 0 else float("nan")
     lead = vecs[:, 1]

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Mapping
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any, cast
 
@@ -29,11 +30,19 @@ from measures._validation import (
 )
 from measures.defaults import TERRAIN_DEFAULTS
 from measures.information.symbolic import MIN_WINDOWS_PER_PATTERN
-from measures.terrain._fastfield import ordinal_counts, phase_surrogates
+from measures.terrain._fastfield import gradient_histograms, ordinal_counts, phase_surrogates
 from measures.terrain._surface import check_grid, fill_holes, hole_scale_cells, inpaint_holes, level
-from measures.terrain.areal import _check_band, areal_parameters, bandpass_surface
-from measures.terrain.fractal import HurstResult, hurst_exponent
-from measures.terrain.spectra import psd_anisotropy, radial_psd, rms_slope_from_psd, surface_psd
+from measures.terrain.areal import _areal_from_levelled, _check_band, bandpass_surface
+from measures.terrain.fractal import HurstResult, _hurst_all
+from measures.terrain.spectra import (
+    RadialPSD,
+    _half_spectrum,
+    _moments_from_half,
+    _radial_from_half,
+    psd_anisotropy,
+    rms_slope_from_psd,
+    surface_psd,
+)
 
 __all__ = [
     "TERRAIN_DEFAULTS",
@@ -171,6 +180,32 @@ def gradient_entropy(
     )
 
 
+def _gradient_entropy_full(
+    z: NDArray[np.float64], dx: float, dy: float, p: Mapping[str, Any]
+) -> tuple[GradientEntropy, tuple[float, float]]:
+    """:func:`gradient_entropy` of a hole-free grid in one compiled pass, plus Sdq/Sdr sums."""
+    fn = "gradient_entropy"
+    sb = check_positive_float("slope_bin_deg", p["slope_bin_deg"], fn)
+    ab = check_positive_float("aspect_bin_deg", p["aspect_bin_deg"], fn)
+    floor = check_positive_float("slope_floor_deg", p["slope_floor_deg"], fn, allow_zero=True)
+    slope_edges = np.arange(0.0, 90.0 + sb, sb)
+    aspect_edges = np.arange(0.0, 360.0 + ab, ab)
+    s_counts, a_counts, n_steep, g2_sum, sdr_sum = gradient_histograms(
+        z, dx, dy, slope_edges, aspect_edges, floor
+    )
+    ge = GradientEntropy(
+        _entropy_bits(s_counts),
+        _entropy_bits(a_counts),
+        s_counts,
+        slope_edges,
+        a_counts,
+        aspect_edges,
+        int(z.size),
+        n_steep,
+    )
+    return ge, (g2_sum, sdr_sum)
+
+
 def _downsample(z: NDArray[np.float64], factor: int) -> NDArray[np.float64]:
     if factor <= 1:
         return z
@@ -213,7 +248,8 @@ def hillshade(
     if max_px is not None:
         mp = check_positive_int("max_px", max_px, fn, minimum=2)
         factor = int(np.ceil(max(arr.shape) / mp))
-    small = _downsample(fill_holes(np.nan_to_num(arr), mask), factor)
+    # A full grid is only read (block means): no filled copy.
+    small = _downsample(arr if mask is None else fill_holes(np.nan_to_num(arr), mask), factor)
     gy, gx = np.gradient(small * vertical_exaggeration, dy_f * factor, dx_f * factor)
     az, alt = np.radians(azimuth_deg), np.radians(altitude_deg)
     light = np.array([np.cos(alt) * np.cos(az), np.cos(alt) * np.sin(az), np.sin(alt)])
@@ -315,8 +351,13 @@ def _hurst_scores(
     p: Mapping[str, Any],
     notes: list[str],
     hole_floor: float,
+    spectrum: tuple[NDArray[np.float64], NDArray[np.float64]] | None = None,
 ) -> tuple[list[Score], HurstResult | None]:
-    """Hurst/fractal-dimension scores for each method, each with its band and fit quality."""
+    """Hurst/fractal-dimension scores for each method, each with its band and fit quality.
+
+    ``spectrum``: the radial PSD (q, C) of the filled, levelled grid at 10 bins
+    per decade (what ``hurst_exponent(method="psd")`` computes), if made already.
+    """
     scores: list[Score] = []
     psd_fit: HurstResult | None = None
     step = max(dx, dy)
@@ -326,31 +367,30 @@ def _hurst_scores(
         + (f"{fit_band[0]:.3g}-{fit_band[1]:.3g} m" if fit_band else "per method")
         + f" ({why})"
     )
+    band_error: ValueError | None = None
+    if fit_band is not None and not fit_band[1] > 1.5 * fit_band[0]:
+        band_error = InsufficientDataError(
+            "band_m", "terrain_summary", "a band at least 1.5 wide (hi / lo)", fit_band
+        )
+    results: dict[str, HurstResult | ValueError] = {}
+    if band_error is None:
+        results = _hurst_all(
+            zl, dx, dy, mask, p["hurst_methods"], fit_band, p["min_valid_fraction"], spectrum
+        )
     for m in p["hurst_methods"]:
         names = (f"hurst_{m}", f"fractal_dimension_{m}", f"hurst_{m}_r2")
         bands = (f"hurst_{m}_band_lo_m", f"hurst_{m}_band_hi_m")
         extra = ("psd_slope", "psd_band_lo_m", "psd_band_hi_m") if m == "psd" else ()
-        try:
-            if fit_band is not None and not fit_band[1] > 1.5 * fit_band[0]:
-                raise InsufficientDataError(
-                    "band_m", "terrain_summary", "a band at least 1.5 wide (hi / lo)", fit_band
-                )
-            r = hurst_exponent(
-                zl,
-                dx,
-                dy=dy,
-                method=m,
-                band=fit_band,
-                valid=mask,
-                min_valid_fraction=p["min_valid_fraction"],
-            )
-        except ValueError as err:
+        got = band_error if band_error is not None else results[m]
+        if isinstance(got, ValueError):
+            err = got
             reason = f"hurst {m}: not estimated ({err})"
             notes.append(reason)
             scores += [_nan(n, "1", reason) for n in names]
             scores += [_nan(n, "m", reason) for n in bands]
             scores += [_nan(n, "1" if n == "psd_slope" else "m", reason) for n in extra]
             continue
+        r = got
         band_note = f"fitted on {r.band[0]:.3g}-{r.band[1]:.3g} m, R^2 {r.r2:.3f}"
         if not r.power_law_found:
             band_note += "; no self-affine band found, fallback band"
@@ -398,10 +438,11 @@ def _ordinal_hc(
     ties: str,
     seed: int,
     raw: NDArray[np.floating[Any]] | None = None,
+    serial: bool = False,
 ) -> tuple[float, float, float, int, int]:
     from measures.information.ordinal import jensen_shannon_complexity
 
-    counts, n_ties = ordinal_counts(x, order, ties=ties, seed=seed, raw=raw)
+    counts, n_ties = ordinal_counts(x, order, ties=ties, seed=seed, raw=raw, serial=serial)
     n = int(counts.sum())
     h, c = jensen_shannon_complexity(counts / n)
     return float(h), float(c), n_ties / n, n, counts.size
@@ -445,9 +486,23 @@ def _ordinal_scores(
     zs: dict[str, float | None] = dict.fromkeys(_ORDINAL_SCORES)
     if wanted and p["n_surrogates"] > 0:
         make = phase_surrogates(zb, seed, workers=_WORKERS)
-        sur = np.array(
-            [_ordinal_hc(make(k), order, ties, seed + k + 1)[:2] for k in range(p["n_surrogates"])]
-        )
+
+        def one(k: int) -> tuple[float, float]:
+            # On a thread of its own: every step releases the GIL (numpy's
+            # generator, compiled kernels, the FFT); surrogate k and its tie
+            # seed depend on k only, so the order they finish in changes nothing.
+            x = make(k, serial=threaded)
+            h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded)[:2]
+            return h_k, c_k
+
+        n_sur = int(p["n_surrogates"])
+        # Only the 2 x 2 kernel has a single-thread variant; the generic one is parallel.
+        threaded = _WORKERS > 1 and n_sur > 1 and order == (2, 2)
+        if threaded:
+            with ThreadPoolExecutor(_WORKERS) as pool:
+                sur = np.array(list(pool.map(one, range(n_sur))))
+        else:
+            sur = np.array([one(k) for k in range(n_sur)])
         zs["permutation_entropy_2d"] = _zscore(h, sur[:, 0])
         zs["js_complexity_2d"] = _zscore(c, sur[:, 1])
     out = [
@@ -633,11 +688,24 @@ def terrain_summary(
             f"holes and wavelengths above {hole_floor:.3g} m; information scores use the "
             "interpolated surface"
         )
-    zl = level(np.nan_to_num(arr), dx_f, dy_f, mask, p["detrend"])
+    # Levelled once: every measure below reads zl (or its band-passed zb) and is
+    # not levelled again where that would move heights by rounding only.
+    check_choice("detrend", p["detrend"], "areal_parameters", ("mean", "plane"))
+    acf_s = check_positive_float("acf_threshold", p["acf_threshold"], "areal_parameters")
+    bpd = check_positive_int("bins_per_decade", p["psd_bins_per_decade"], "radial_psd")
+    zl = level(arr if mask is None else np.nan_to_num(arr), dx_f, dy_f, mask, p["detrend"])
     zb = zl if band is None else bandpass_surface(zl, dx_f, dy_f, band_m=band, valid=mask)
-    ap = areal_parameters(
-        zb, dx_f, dy_f, valid=mask, detrend=p["detrend"], acf_threshold=p["acf_threshold"]
+    za = zl if band is None else level(zb, dx_f, dy_f, mask, p["detrend"])
+    # Hole-free grids: slope and aspect histograms (and, without a band, the
+    # Sdq/Sdr sums of the same gradients) in one compiled pass.
+    ge: GradientEntropy | None = None
+    sums = None
+    if mask is None:
+        ge, sums = _gradient_entropy_full(zb, dx_f, dy_f, p)
+    ap = _areal_from_levelled(
+        za, dx_f, dy_f, mask, p["detrend"], acf_s, None, sums if band is None else None
     )
+    del za
     scores = [
         Score("hole_fraction", hole_fraction, "1"),
         Score("sq_m", ap.Sq, "m"),
@@ -654,15 +722,33 @@ def terrain_summary(
     ]
     if ap.str_is_upper_bound:
         notes.append("str: the ACF did not decay to s in every direction; Str is an upper bound")
+    radial: RadialPSD | None = None
+    hurst_spectrum = None
     if spectral_ok:
-        sp2 = surface_psd(zb, dx_f, dy_f, valid=mask)
-        an = psd_anisotropy(sp2)
+        # One periodogram of the filled, levelled, windowed grid serves the radial
+        # PSD (plotted and fitted for H) and, without a band, the surface moments.
+        prepared = zl if mask is None else level(inpaint_holes(zl, mask), dx_f, dy_f, None, "plane")
+        half = _half_spectrum(prepared, dx_f, dy_f, "hann")
+        del prepared
+        radial = _radial_from_half(half, zl.shape, dx_f, dy_f, bpd, "hann", "plane")
+        r10 = (
+            radial
+            if bpd == 10
+            else _radial_from_half(half, zl.shape, dx_f, dy_f, 10, "hann", "plane")
+        )
+        hurst_spectrum = (r10.q, r10.psd)
+        if band is None:
+            rms_slope, an = _moments_from_half(half, zl.shape, dx_f, dy_f)
+        else:
+            sp2 = surface_psd(zb, dx_f, dy_f, valid=mask)
+            rms_slope, an = rms_slope_from_psd(sp2), psd_anisotropy(sp2)
+            del sp2
+        del half
         scores += [
-            Score("rms_slope_psd", rms_slope_from_psd(sp2), "1"),
+            Score("rms_slope_psd", rms_slope, "1"),
             Score("psd_anisotropy_ratio", an.ratio, "1"),
             Score("lay_direction_deg", float(np.degrees(an.lay_direction_rad)), "deg"),
         ]
-        del sp2
     else:
         reason = (
             f"only {1 - hole_fraction:.1%} of cells hold data, below the "
@@ -674,9 +760,9 @@ def terrain_summary(
             _nan("psd_anisotropy_ratio", "1", reason),
             _nan("lay_direction_deg", "deg", reason),
         ]
-    hs, psd_fit = _hurst_scores(zl, dx_f, dy_f, mask, band, p, notes, hole_floor)
+    hs, psd_fit = _hurst_scores(zl, dx_f, dy_f, mask, band, p, notes, hole_floor, hurst_spectrum)
     scores += hs
-    ge = gradient_entropy(
+    ge = ge or gradient_entropy(
         zb,
         dx_f,
         dy_f,
@@ -703,9 +789,8 @@ def terrain_summary(
     scores += _ordinal_scores(zi, p, notes, raw)
     scores += _field_scores(zi, p, notes)
     del zi
-    if spectral_ok:
-        rp = radial_psd(zl, dx_f, dy_f, valid=mask, bins_per_decade=p["psd_bins_per_decade"])
-        radial_q, radial_c = rp.q, rp.psd
+    if radial is not None:
+        radial_q, radial_c = radial.q, radial.psd
     else:
         radial_q = radial_c = np.array([])
     if psd_fit is not None:
