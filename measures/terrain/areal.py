@@ -317,7 +317,9 @@ def _acf_levelled(zl: NDArray[np.float64], mask: NDArray[np.bool_] | None) -> ND
         ty, tx = np.abs(np.arange(-hy, hy + 1)), np.abs(np.arange(-hx, hx + 1))
         num /= (ny - ty).astype(np.float64)[:, None]
         num /= (nx - tx).astype(np.float64)[None, :]
-        num /= num[hy, hx]
+        # A flat grid has zero variance: its ACF is undefined (NaN), as on the masked path.
+        with np.errstate(invalid="ignore", divide="ignore"):
+            num /= num[hy, hx]
         return num
     else:
         w = mask.astype(np.float64)
