@@ -329,6 +329,20 @@ def _figure_sections(
     return parts
 
 
+def _interval(value: Any, low: Any, high: Any) -> str:
+    """``value [low, high]`` with enough significant digits that the interval's ends differ
+    (a measure near 1 with a spread of 1e-5 read "1 [1, 1]" at three digits)."""
+    import math
+
+    nums = [v for v in (value, low, high) if isinstance(v, int | float) and math.isfinite(v)]
+    if len(nums) < 3 or high == low:
+        return f"{_fmt(value)} [{_fmt(low)}, {_fmt(high)}]"
+    scale = max(abs(v) for v in nums)
+    digits = 3 if scale == 0 else max(3, 2 + math.ceil(math.log10(scale / abs(high - low))))
+    digits = min(digits, 12)
+    return f"{value:.{digits}g} [{low:.{digits}g}, {high:.{digits}g}]"
+
+
 def _expected_section(
     session: Any, study: StudyData, correspondence: Mapping[str, Any], n_measures: int = 3
 ) -> str:
@@ -366,10 +380,9 @@ def _expected_section(
             notes.add(f"{arena.name}: {err}")
             continue
         for r in out["rows"]:
-            pred = f"{_fmt(r['predicted'])} [{_fmt(r['pi_low'])}, {_fmt(r['pi_high'])}]"
-            base = (
-                f"{_fmt(r.get('baseline_predicted'))} [{_fmt(r.get('baseline_pi_low'))}, "
-                f"{_fmt(r.get('baseline_pi_high'))}]"
+            pred = _interval(r.get("predicted"), r.get("pi_low"), r.get("pi_high"))
+            base = _interval(
+                r.get("baseline_predicted"), r.get("baseline_pi_low"), r.get("baseline_pi_high")
             )
             lines.append(
                 f"<tr><td>{_e(arena.name)}</td><td>{_e(out.get('terrain_measure'))}</td>"
