@@ -41,6 +41,9 @@ import statsmodels.api as sm
 from scipy import stats
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # the checkout's packages
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))  # simulated studies
+
+from _testing import crossed_study
 
 from measures import held_out_arena_mean, leave_one_arena_out, not_estimable_reason
 
@@ -54,17 +57,10 @@ SCENARIOS = {
 
 
 def _study(rng, n_arenas, n_subjects, trials, slope, arena_sd):
-    terrain = np.sort(rng.uniform(0.0, 2.0, n_arenas))
-    arena = np.repeat(np.arange(n_arenas), n_subjects * trials)
-    subject = np.tile(np.repeat(np.arange(n_subjects), trials), n_arenas)
-    y = (
-        1.0
-        + slope * terrain[arena]
-        + rng.normal(0, arena_sd, n_arenas)[arena]
-        + rng.normal(0, 1.0, n_subjects)[subject]
-        + rng.normal(0, 0.4, arena.size)
-    )
-    return terrain, y, arena, subject
+    return crossed_study(
+        rng, n_arenas=n_arenas, n_subjects=n_subjects, trials=trials, slope=slope,
+        arena_sd=arena_sd, noise_sd=0.4,
+    )  # fmt: skip
 
 
 def _reference_loo(terrain, y, arena, subject) -> None:

@@ -25,3 +25,33 @@ def assert_allclose(
 ) -> None:
     """Assert ``actual`` equals ``desired`` within ``rtol``/``atol`` (numpy semantics)."""
     np.testing.assert_allclose(actual, desired, rtol=rtol, atol=atol, err_msg=err_msg)
+
+
+def crossed_study(
+    rng: np.random.Generator,
+    *,
+    n_arenas: int,
+    n_subjects: int,
+    trials: int,
+    slope: float,
+    arena_sd: float,
+    noise_sd: float,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """A simulated crossed study (every subject on every arena, ``trials`` per cell):
+    y = 1 + slope * terrain + arena offset + subject offset (sd 1) + trial noise.
+
+    Returns (terrain per arena, y per trial, arena index, subject index). Simulated data
+    for checking statistical properties (coverage, calibration), used by the tests and
+    ``bench/bench_prediction.py``.
+    """
+    terrain = np.sort(rng.uniform(0.0, 2.0, n_arenas))
+    arena = np.repeat(np.arange(n_arenas), n_subjects * trials)
+    subject = np.tile(np.repeat(np.arange(n_subjects), trials), n_arenas)
+    y = (
+        1.0
+        + slope * terrain[arena]
+        + rng.normal(0, arena_sd, n_arenas)[arena]
+        + rng.normal(0, 1.0, n_subjects)[subject]
+        + rng.normal(0, noise_sd, arena.size)
+    )
+    return terrain, y, arena, subject

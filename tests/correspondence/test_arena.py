@@ -12,11 +12,12 @@ from __future__ import annotations
 
 import itertools
 import math
+from functools import partial
 
 import numpy as np
 import pytest
 import statsmodels.api as sm
-from _testing import assert_allclose
+from _testing import assert_allclose, crossed_study
 from scipy import stats
 
 from measures import (
@@ -29,20 +30,10 @@ from measures import (
     spearman_test,
 )
 
-
-def _crossed(rng, *, n_arenas=8, n_subjects=4, trials=2, slope=0.0, arena_sd=0.5):
-    """y = 1 + slope * terrain + arena offset + subject offset + noise (crossed, balanced)."""
-    terrain = np.sort(rng.uniform(0.0, 2.0, n_arenas))
-    arena = np.repeat(np.arange(n_arenas), n_subjects * trials)
-    subject = np.tile(np.repeat(np.arange(n_subjects), trials), n_arenas)
-    y = (
-        1.0
-        + slope * terrain[arena]
-        + rng.normal(0, arena_sd, n_arenas)[arena]
-        + rng.normal(0, 1.0, n_subjects)[subject]
-        + rng.normal(0, 0.5, arena.size)
-    )
-    return terrain, y, arena, subject
+#: y = 1 + slope * terrain + arena offset + subject offset + noise (crossed, balanced).
+_crossed = partial(
+    crossed_study, n_arenas=8, n_subjects=4, trials=2, slope=0.0, arena_sd=0.5, noise_sd=0.5
+)
 
 
 def test_arena_slope_matches_statsmodels_ols(rng):

@@ -9,28 +9,19 @@ assessment after Stone (1974).
 from __future__ import annotations
 
 import math
+from functools import partial
 
 import numpy as np
 import pytest
 import statsmodels.api as sm
-from _testing import assert_allclose
+from _testing import assert_allclose, crossed_study
 from scipy import stats
 
 from measures import leave_one_arena_out, predict_arena_movement
 
-
-def _crossed(rng, *, n_arenas=9, n_subjects=4, trials=2, slope=0.8, arena_sd=0.3):
-    terrain = np.sort(rng.uniform(0.0, 2.0, n_arenas))
-    arena = np.repeat(np.arange(n_arenas), n_subjects * trials)
-    subject = np.tile(np.repeat(np.arange(n_subjects), trials), n_arenas)
-    y = (
-        1.0
-        + slope * terrain[arena]
-        + rng.normal(0, arena_sd, n_arenas)[arena]
-        + rng.normal(0, 1.0, n_subjects)[subject]
-        + rng.normal(0, 0.4, arena.size)
-    )
-    return terrain, y, arena, subject
+_crossed = partial(
+    crossed_study, n_arenas=9, n_subjects=4, trials=2, slope=0.8, arena_sd=0.3, noise_sd=0.4
+)
 
 
 def test_prediction_interval_matches_statsmodels(rng):
