@@ -218,6 +218,13 @@ def plan_uploads(
     return planned
 
 
+def _is_id(value: Any) -> bool:
+    """A record id as the metadata may give it: an int, or a string of digits."""
+    if isinstance(value, bool):
+        return False
+    return isinstance(value, int) or (isinstance(value, str) and value.strip().isdigit())
+
+
 def _server_meta(kind: str, meta: dict[str, Any]) -> tuple[dict[str, Any], str]:
     """The ``meta`` JSON the server expects, or a problem when a required id is missing."""
     keys = SCAN_META_KEYS if kind == "scan" else TRIAL_META_KEYS
@@ -225,10 +232,22 @@ def _server_meta(kind: str, meta: dict[str, Any]) -> tuple[dict[str, Any], str]:
     arena = meta.get("arena", meta.get("arena_id"))
     if arena is None:
         return out, "no arena id: give --arena or 'arena' in gaitscape.json or a sidecar"
+    if not _is_id(arena):  # a name here gave a bare "HTTP 422" from the resume check
+        return (
+            out,
+            f"'arena' must be an arena id (a whole number), got {arena!r}: "
+            "`gaitscape arena list` shows the ids",
+        )
     if kind == "trial":
         subject = meta.get("subject", meta.get("subject_id"))
         if subject is None:
             return out, "no subject id: give --subject or 'subject' in the metadata"
+        if not _is_id(subject):
+            return (
+                out,
+                f"'subject' must be a subject id (a whole number), got {subject!r}: "
+                "`gaitscape subject list` shows the ids",
+            )
         out.update(arena_id=arena, subject_id=subject)
     else:
         out["arena"] = arena  # goes in the URL, removed before sending

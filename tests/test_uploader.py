@@ -375,3 +375,16 @@ def test_one_overall_progress_line_for_the_whole_run(tmp_path, capsys) -> None:
     bar.close()
     assert all(t.startswith("upload: ") and t.endswith("\n") for t in lines)
     assert "3/3 MiB (100 %)" in lines[-1]
+
+
+def test_a_name_where_an_id_belongs_is_refused_before_sending():
+    # Metadata names records by id; a name used to reach the server's resume check, whose
+    # HEAD answer has no body, and came back as a bare "HTTP 422".
+    from service.uploader import _server_meta
+
+    _, problem = _server_meta("scan", {"arena": "volcano-field", "units": "m"})
+    assert "'arena' must be an arena id" in problem and "gaitscape arena list" in problem
+    _, problem = _server_meta("trial", {"arena": "3", "subject": "biped", "units": "mm"})
+    assert "'subject' must be a subject id" in problem
+    meta, problem = _server_meta("trial", {"arena": "3", "subject": 4, "units": "mm"})
+    assert problem == "" and meta["arena_id"] == "3" and meta["subject_id"] == 4
