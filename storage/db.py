@@ -131,13 +131,44 @@ def _stored_revision(engine: Engine) -> str | None:
     return str(rows[0][0]) if len(rows) == 1 else None
 
 
-def upgrade(engine: Engine, revision: str = "head") -> None:
+def _create_at_head(engine: Engine) -> bool:
+    """Build an empty database from the models and record the head revision.
+
+    Returns False (and writes nothing) when the database holds any table: only a store
+    that has never been migrated may skip the migrations. ``tests/test_migrations.py``
+    checks that this schema and the migrated one are the same, table by table (columns,
+    types, nullability, keys, indexes, unique and check constraints).
+    """
+    from storage.models import Base
+
+    with engine.begin() as connection:
+        if inspect(connection).get_table_names():
+            return False
+        Base.metadata.create_all(connection)
+        connection.execute(
+            text("CREATE TABLE alembic_version (version_num VARCHAR(32) NOT NULL, "
+                 "CONSTRAINT alembic_version_pkc PRIMARY KEY (version_num))")
+        )  # fmt: skip
+        connection.execute(
+            text("INSERT INTO alembic_version (version_num) VALUES (:v)"), {"v": head_revision()}
+        )
+    return True
+
+
+def upgrade(engine: Engine, revision: str = "head", *, migrate_empty: bool = False) -> None:
     """Bring the database schema up to ``revision`` (Alembic, on the engine's connection).
 
-    A database already at the head revision is left alone without loading Alembic.
+    A database already at the head revision is left alone without loading Alembic, and an
+    empty one is built from the models at the head revision (importing and running every
+    migration costs a new server about half a second before it answers). Pass
+    ``migrate_empty=True`` to run the migrations on an empty database all the same.
     """
-    if revision == "head" and _stored_revision(engine) == head_revision():
-        return
+    if revision == "head":
+        stored = _stored_revision(engine)
+        if stored == head_revision():
+            return
+        if stored is None and not migrate_empty and _create_at_head(engine):
+            return
     from alembic import command
 
     cfg = alembic_config(engine)

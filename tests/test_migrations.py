@@ -11,7 +11,14 @@ from alembic.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from sqlalchemy import inspect
 
-from storage.db import alembic_config, current_revision, make_engine, sqlite_url, upgrade
+from storage.db import (
+    alembic_config,
+    current_revision,
+    head_revision,
+    make_engine,
+    sqlite_url,
+    upgrade,
+)
 from storage.models import Base
 
 
@@ -24,7 +31,7 @@ def _diff(engine):
 def test_upgrade_head_on_empty_db_equals_models(tmp_path):
     engine = make_engine(sqlite_url(tmp_path))
     assert current_revision(engine) is None
-    upgrade(engine)
+    upgrade(engine, migrate_empty=True)  # every migration, as an old store gets them
     heads = ScriptDirectory.from_config(alembic_config()).get_heads()
     assert len(heads) == 1  # one line of revisions: a second head means a missing merge
     assert current_revision(engine) == heads[0]
@@ -35,11 +42,80 @@ def test_upgrade_head_on_empty_db_equals_models(tmp_path):
     engine.dispose()
 
 
+def _schema(engine):
+    """Every table's columns, keys, indexes and constraints, as the database reports them."""
+    insp = inspect(engine)
+    out = {}
+    for table in sorted(insp.get_table_names()):
+        out[table] = {
+            # By name: ALTER TABLE ... ADD COLUMN appends, the models list a column where it
+            # reads best; nothing in gaitscape selects by position.
+            "columns": sorted(
+                (c["name"], str(c["type"]), c["nullable"], str(c.get("default")))
+                for c in insp.get_columns(table)
+            ),
+            "pk": insp.get_pk_constraint(table)["constrained_columns"],
+            "fks": sorted(
+                (
+                    tuple(f["constrained_columns"]),
+                    f["referred_table"],
+                    tuple(f["referred_columns"]),
+                    str(f.get("options")),
+                )
+                for f in insp.get_foreign_keys(table)
+            ),
+            "indexes": sorted(
+                (i["name"], tuple(i["column_names"]), bool(i["unique"]))
+                for i in insp.get_indexes(table)
+            ),
+            "unique": sorted(
+                (u["name"], tuple(u["column_names"])) for u in insp.get_unique_constraints(table)
+            ),
+            "checks": sorted(
+                (c["name"], " ".join(c["sqltext"].split()))
+                for c in insp.get_check_constraints(table)
+            ),
+        }
+    return out
+
+
+def test_new_store_built_from_models_equals_the_migrated_one(tmp_path):
+    # A new, empty store skips the migrations (start-up time) and is built from the models:
+    # it must be exactly what the migrations build, down to check constraints and index
+    # names, which compare_metadata does not look at.
+    created = make_engine(sqlite_url(tmp_path / "created"))
+    migrated = make_engine(sqlite_url(tmp_path / "migrated"))
+    upgrade(created)
+    upgrade(migrated, migrate_empty=True)
+    assert current_revision(created) == current_revision(migrated) == head_revision()
+    a, b = _schema(created), _schema(migrated)
+    assert set(a) == set(b)
+    for table in a:
+        assert a[table] == b[table], table
+    assert any(v["checks"] for v in a.values())  # the comparison saw constraints
+    upgrade(created)  # at head now: nothing to do
+    created.dispose()
+    migrated.dispose()
+
+
+def test_a_store_with_tables_but_no_revision_is_not_rebuilt(tmp_path):
+    # Tables without Alembic's record are not "empty": the models must not be laid over them.
+    from sqlalchemy import text
+
+    engine = make_engine(sqlite_url(tmp_path))
+    with engine.begin() as conn:
+        conn.execute(text("CREATE TABLE stray (x INTEGER)"))
+    upgrade(engine)  # the migrations run (and succeed beside the stray table)
+    assert current_revision(engine) == head_revision()
+    assert "stray" in inspect(engine).get_table_names()
+    engine.dispose()
+
+
 @pytest.mark.postgres
 @pytest.mark.skipif(not os.environ.get("GAITSCAPE_TEST_POSTGRES_URL"), reason="no PostgreSQL")
 def test_upgrade_head_on_postgres_equals_models():
     engine = make_engine(os.environ["GAITSCAPE_TEST_POSTGRES_URL"])
-    upgrade(engine)
+    upgrade(engine, migrate_empty=True)
     assert _diff(engine) == []
 
 
