@@ -98,7 +98,7 @@ def test_clip_at_30_hz_scores_its_stride(real_lab: RealLab, name: str) -> None:
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("rate_hz", [60.0, 120.0, 250.0])
+@pytest.mark.parametrize("rate_hz", [60.0, 120.0, 250.0, 300.0])
 @pytest.mark.parametrize("name", ["walk", "run"])
 def test_clip_resampled_scores_the_same_stride(
     real_lab: RealLab, name: str, rate_hz: float
