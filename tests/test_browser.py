@@ -187,6 +187,11 @@ def test_study_selector_limits_lists_and_correspondence(live) -> None:
     assert "study=three%20trays" in report.value.url
     _shot(page, "correspondence-study")
 
+    # The scan page's expected-movement panel fits on the chosen study, like the other pages.
+    with page.expect_request(lambda r: "/expected-movement?" in r.url) as expected:
+        page.goto(f"{base}/ui/scans/{store['scans'][0]}")
+    assert "study=three%20trays" in expected.value.url
+
     page.goto(base + "/ui/arenas")
     expect(page.locator("#content table tbody tr")).to_have_count(3)
     with page.expect_request(lambda r: "/v1/arenas?" in r.url and "study=" not in r.url):

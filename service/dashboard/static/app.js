@@ -306,7 +306,8 @@ async function trialPage(id) {
 // The movement an arena's ground predicts (the arena left out of the fit), as the report shows it.
 async function expectedPanel(node, arenaId) {
   try {
-    const out = await api("/v1/arenas/" + arenaId + "/expected-movement?recipe=default");
+    // The study chosen in the header, as every other page uses it (all arenas when none).
+    const out = await api("/v1/arenas/" + arenaId + "/expected-movement?recipe=default" + (study() ? "&" + studyParam() : ""));
     const cols = [
       { label: "movement measure", get: r => r.movement_measure },
       { label: "predicted [95 % PI]", get: r => r.predicted === null ? "n/a" : fmt(r.predicted) + " [" + fmt(r.pi_low) + ", " + fmt(r.pi_high) + "]" },
