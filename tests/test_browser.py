@@ -144,6 +144,13 @@ def test_login_and_every_page(live) -> None:
     page.wait_for_selector("#scores table")
     assert "sq_m" in page.inner_text("#scores")
     page.wait_for_selector("#surface.js-plotly-plot", timeout=30_000)
+    # A tray is drawn in millimetres; the unit follows the extent (a field site in metres,
+    # a terrain model in kilometres), the same on every axis and on the colour bar.
+    assert "height (mm)" in page.inner_text("#surface")
+    units = page.evaluate(
+        "[lengthUnit([0, 0.3], [0, 0.2]), lengthUnit([0, 870], [0, 610]), lengthUnit([0, 12e3])]"
+    )
+    assert units == [[1000, "mm"], [1, "m"], [0.001, "km"]]
     _shot(page, "scan")
 
     page.goto(base + "/ui/jobs")

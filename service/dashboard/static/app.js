@@ -182,6 +182,16 @@ function siValue(v, unit) {
   return [fmt(v), plain];
 }
 
+// One length unit for a whole scene (the axes share a scale): millimetres for a tray or a
+// runway, metres for a field site, kilometres for a terrain model, chosen by the extent.
+function lengthUnit(...coords) {
+  let lo = Infinity, hi = -Infinity;
+  for (const c of coords) for (const v of c) if (v !== null && isFinite(v)) { lo = Math.min(lo, v); hi = Math.max(hi, v); }
+  const extent = hi - lo;
+  if (!(extent < 5)) return extent >= 5000 ? [1e-3, "km"] : [1, "m"];
+  return [1000, "mm"];
+}
+
 // hash -> "name@version", fetched once (one promise, so parallel callers share it).
 let recipeLabels = null;
 function recipeLabel(hash) {
@@ -344,11 +354,12 @@ async function scanPage(id) {
   document.getElementById("scores").replaceChildren(await scoreTable(scores));
   try {
     const hm = await api("/v1/dashboard/scans/" + id + "/heightmap");
-    const mm = v => v === null ? null : v * 1000;
-    await Plotly.newPlot(plot, [{ type: "surface", x: hm.x_m.map(mm), y: hm.y_m.map(mm), z: hm.z_m.map(r => r.map(mm)), colorscale: "Cividis",
-      colorbar: { title: { text: "height (mm)" } } }],
-      { margin: { l: 0, r: 0, t: 10, b: 0 }, scene: { aspectmode: "data", xaxis: { title: { text: "x (mm)" } },
-        yaxis: { title: { text: "y (mm)" } }, zaxis: { title: { text: "z (mm)" } } } }, { responsive: true, displaylogo: false });
+    const [f, u] = lengthUnit(hm.x_m, hm.y_m);
+    const scale = v => v === null ? null : v * f;
+    await Plotly.newPlot(plot, [{ type: "surface", x: hm.x_m.map(scale), y: hm.y_m.map(scale), z: hm.z_m.map(r => r.map(scale)), colorscale: "Cividis",
+      colorbar: { title: { text: "height (" + u + ")" } } }],
+      { margin: { l: 0, r: 0, t: 10, b: 0 }, scene: { aspectmode: "data", xaxis: { title: { text: "x (" + u + ")" } },
+        yaxis: { title: { text: "y (" + u + ")" } }, zaxis: { title: { text: "z (" + u + ")" } } } }, { responsive: true, displaylogo: false });
   } catch (err) {
     plot.replaceChildren(el("p", { text: "No heightmap yet: " + err.message }));
   }
