@@ -37,7 +37,7 @@ from service.pipeline import (
     scan_flow,
 )
 from service.pipeline.recipes import default_parameters
-from service.pipeline.tasks import blas_threads
+from service.pipeline.tasks import blas_threads, numba_threads
 from storage import repo
 from storage.artifacts import ArtifactStore
 from storage.db import make_engine, make_sessionmaker, sqlite_url, upgrade
@@ -416,6 +416,11 @@ def test_run_until_idle_reports_progress_and_has_no_deadline_by_default(
 
 def test_blas_is_pinned_to_one_thread_in_local_workers(pool: Any) -> None:
     assert pool.submit(blas_threads).result(timeout=120) == 1
+
+
+def test_numba_is_pinned_to_one_thread_in_local_workers(pool: Any) -> None:
+    # One job per core already: a parallel kernel's extra threads would only spin.
+    assert pool.submit(numba_threads).result(timeout=120) == 1
 
 
 def test_expired_lease_of_a_dead_runner_is_claimed_again(lab: Store, pool: Any) -> None:

@@ -63,7 +63,9 @@ class LocalPool:
             return self._pool.submit(fn, *args, **kwargs)
 
     def capacity(self) -> int:
-        return self.workers
+        # Two stages per worker: the next one waits in the pool's queue while the runner
+        # thread collects and stores the last, so a worker never idles between jobs.
+        return 2 * self.workers
 
     def worker_pids(self) -> list[int]:
         """Process ids of the live workers (for operators and tests)."""

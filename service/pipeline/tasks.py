@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 import os
+import sys
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
 from typing import Any
@@ -48,16 +49,21 @@ def code_version() -> str:
 
 
 def warm_up() -> None:
-    """Prepare a worker process: one BLAS thread, heavy modules imported once.
+    """Prepare a worker process: one BLAS thread, one numba thread, heavy modules imported once.
 
     The pool already runs one job per core; a multithreaded BLAS inside each
     worker would oversubscribe the cores (an 826 x 75 SVD went from 2 ms to
-    seconds that way), so each worker keeps BLAS to a single thread.
+    seconds that way), so each worker keeps BLAS to a single thread. The same
+    holds for numba's parallel kernels (RQA): with one OpenMP thread per core in
+    every worker, threads waiting at the end of each parallel region spin on
+    cores the other worker needs (demo trials took 2.6x the CPU time and 2.5x
+    the wall time on a loaded 2-core machine).
     """
     global _warm
     # A BLAS loaded later (scipy ships its own OpenBLAS, loaded on first use of
     # scipy.linalg) reads these at load time; threadpoolctl reaches those already loaded.
-    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    # numba reads NUMBA_NUM_THREADS when it is first imported (after this, in a worker).
+    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS", "NUMBA_NUM_THREADS"):
         os.environ[var] = "1"
     import scipy.linalg  # noqa: F401
     from threadpoolctl import threadpool_limits
@@ -66,6 +72,8 @@ def warm_up() -> None:
     import storage.readers  # noqa: F401
 
     threadpool_limits(limits=1, user_api="blas")
+    if "numba" in sys.modules:  # imported before us (a Dask worker): limit its launches
+        sys.modules["numba"].set_num_threads(1)
     _warm = True
 
 
@@ -86,6 +94,13 @@ def blas_threads() -> int:
 
     counts = [int(i["num_threads"]) for i in threadpool_info() if i.get("user_api") == "blas"]
     return max(counts, default=1)
+
+
+def numba_threads() -> int:
+    """Threads numba's parallel kernels use in this process (for tests)."""
+    import numba
+
+    return int(numba.get_num_threads())
 
 
 def _verify(path: str, sha256: str) -> None:
