@@ -13,6 +13,7 @@ import inspect
 import os
 import pickle
 import pkgutil
+import threading
 import time
 from concurrent.futures.process import BrokenProcessPool
 from datetime import timedelta
@@ -421,6 +422,49 @@ def test_blas_is_pinned_to_one_thread_in_local_workers(pool: Any) -> None:
 def test_numba_is_pinned_to_one_thread_in_local_workers(pool: Any) -> None:
     # One job per core already: a parallel kernel's extra threads would only spin.
     assert pool.submit(numba_threads).result(timeout=120) == 1
+
+
+@pytest.mark.slow  # two workers import the scoring stack and compile a kernel (~5 s)
+def test_a_local_pool_started_early_has_every_worker_up_and_prepared() -> None:
+    pool = LocalPool(2)
+    try:
+        pids = [f.result(timeout=300) for f in pool.start()]
+        # One spawn per call while no worker is idle: both workers exist before any job.
+        assert len(pool.worker_pids()) == 2
+        assert set(pids) <= set(pool.worker_pids())
+        assert pool.submit(numba_threads).result(timeout=120) == 1
+    finally:
+        pool.close()
+
+
+def test_warm_builds_the_executor_once_from_any_thread(lab: Store) -> None:
+    built: list[Any] = []
+
+    class Starting:
+        started = 0
+
+        def start(self) -> None:
+            self.started += 1
+
+        def capacity(self) -> int:
+            return 1
+
+        def close(self) -> None:
+            pass
+
+    def make() -> Starting:
+        time.sleep(0.2)  # a slow build (a Dask client connecting) widens any race
+        built.append(Starting())
+        return built[-1]
+
+    runner = lab.runner(make)
+    threads = [threading.Thread(target=runner.warm) for _ in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert len(built) == 1 and built[0].started == 4
+    runner.stop()
 
 
 def test_expired_lease_of_a_dead_runner_is_claimed_again(lab: Store, pool: Any) -> None:

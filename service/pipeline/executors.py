@@ -13,11 +13,11 @@ import logging
 import multiprocessing
 import time
 from collections.abc import Callable
-from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures import Future, ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Protocol
 
-from service.pipeline.tasks import run_pinned, warm_up
+from service.pipeline.tasks import prepare, run_pinned, warm_up
 
 __all__ = ["DaskPool", "Executor", "LocalPool", "make_executor"]
 
@@ -48,6 +48,18 @@ class LocalPool:
             mp_context=multiprocessing.get_context("spawn"),
             initializer=warm_up,
         )
+
+    def start(self) -> list[Future[int]]:
+        """Start every worker now and let each do its one-time costs (``tasks.prepare``).
+
+        Otherwise workers start with the first job and pay their imports and the LZ76
+        compile inside it. One ``prepare`` call per worker: the pool spawns a process for
+        each call while none is idle, so each new worker takes one (a fast worker may take
+        two; the other then prepares with its first job, as without ``start``).
+        """
+        if self._pool is None:
+            self._pool = self._new_pool()
+        return [self._pool.submit(prepare) for _ in range(self.workers)]
 
     def submit(self, fn: Callable[..., Any], /, *args: Any, **kwargs: Any) -> Any:
         if self._pool is None:

@@ -8,6 +8,7 @@ artifact store must be on a file system every worker sees at the same path.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import sys
@@ -26,6 +27,7 @@ __all__ = [
     "code_version",
     "heightmap_task",
     "movement_task",
+    "prepare",
     "run_pinned",
     "terrain_task",
     "warm_up",
@@ -75,6 +77,38 @@ def warm_up() -> None:
     if "numba" in sys.modules:  # imported before us (a Dask worker): limit its launches
         sys.modules["numba"].set_num_threads(1)
     _warm = True
+
+
+#: What scan and trial jobs import on first use (``measures`` itself imports lazily).
+_SCORING_MODULES = (
+    "measures.correspondence.local",
+    "measures.movement.bodyframe",
+    "measures.movement.summary",
+    "measures.terrain.pointcloud",
+    "measures.terrain.summary",
+)
+
+
+def prepare() -> int:
+    """Do a worker's one-time costs before its first job: import what scoring uses and
+    compile the one kernel numba does not cache (LZ76), on a few symbols.
+
+    About 3-4 CPU-s a worker that the first trial would otherwise pay; a pool started
+    early (``LocalPool.start``, the demo) does it while its inputs are still being made.
+    Returns the process id (which worker ran it).
+    """
+    if not _warm:
+        warm_up()
+    import importlib
+
+    from measures import lz76_complexity
+
+    for name in _SCORING_MODULES:
+        importlib.import_module(name)
+    with contextlib.suppress(ImportError):  # the reader says so when a C3D file comes
+        import ezc3d  # noqa: F401  # the C3D reader's library, for trial jobs
+    lz76_complexity(np.array([0, 1, 1, 0, 1, 0, 0, 1], dtype=np.int64))
+    return os.getpid()
 
 
 def run_pinned(fn: Any, /, *args: Any, **kwargs: Any) -> Any:
