@@ -1,7 +1,7 @@
 """Benchmark: the full ``gaitscape demo`` with wall and CPU time per phase.
 
 The machine may be shared, so wall time alone says little: a sampler thread reads the CPU
-time of this process and of every child (the pool workers) four times a second, and each
+time of this process and of every child (the pool workers) twice a second, and each
 phase is reported with its wall time, its CPU-seconds (main process and workers apart) and
 the load average before and after. Reference: the same phases' CPU-seconds, which do not
 grow with other people's load the way wall time does (CPU / wall near the core count means
@@ -54,10 +54,16 @@ def main() -> None:
     samples: list[tuple[float, float, float]] = []
     stop = threading.Event()
 
+    threads: dict[int, tuple[str, float]] = {}  # native id -> (name, CPU-s last seen)
+
     def sample() -> None:
         while not stop.is_set():
             samples.append((time.monotonic(), *_cpu(proc, seen)))
-            stop.wait(0.25)
+            names = {t.native_id: t.name for t in threading.enumerate()}
+            for t in proc.threads():
+                name = names.get(t.id) or threads.get(t.id, ("(native)", 0.0))[0]
+                threads[t.id] = (name, t.user_time + t.system_time)
+            stop.wait(0.5)
 
     load0 = os.getloadavg()
     t0 = time.monotonic()
@@ -99,6 +105,13 @@ def main() -> None:
         print(f"{name:16s} {wall:8.1f} {m1 - m0:11.1f} {w1 - w0:13.1f} {cpu / wall:9.2f}")
     m, w = at(t0 + total)
     print(f"{'total':16s} {total:8.1f} {m:11.1f} {w:13.1f} {(m + w) / total:9.2f}")
+    by_name: dict[str, float] = {}
+    for name, cpu in threads.values():
+        key = name.split("-")[0] if name.startswith("AnyIO") else name
+        by_name[key] = by_name.get(key, 0.0) + cpu
+    print("main-process CPU-s by thread (sampled, a thread's last reading):")
+    for name, cpu in sorted(by_name.items(), key=lambda kv: -kv[1])[:8]:
+        print(f"  {name:40s} {cpu:6.1f}")
     if result.failed_uploads or result.failed_jobs:
         print("FAILED:", result.failed_uploads + result.failed_jobs)
 
