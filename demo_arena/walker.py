@@ -92,6 +92,27 @@ def _fine_structure(z: NDArray, dx_m: float) -> NDArray:
     return z - gaussian_filter(z, sigma=max(0.004 / dx_m, 1.0), mode="nearest")
 
 
+_GROUND_CACHE: list[tuple[float, NDArray, tuple[float, float, NDArray]]] = []
+
+
+def _ground_terms(z: NDArray, dx_m: float) -> tuple[float, float, NDArray]:
+    """RMS slope along travel, irregularity at the foot's scale and the roughness map.
+
+    They depend on the ground alone; the demo walks every tray eight times, so the last
+    ground's terms are kept (with a copy of it, compared in full: a caller may change
+    its array in place between walks).
+    """
+    for cached_dx, cached_z, terms in _GROUND_CACHE:
+        if cached_dx == dx_m and cached_z.shape == z.shape and np.array_equal(cached_z, z):
+            return terms
+    ground_rough = float(np.std(np.diff(z, axis=1))) / dx_m  # RMS slope along travel
+    fine = _fine_structure(z, dx_m)
+    tray_irregularity = float(fine.std() / (z.std() + 1e-9))
+    terms = (ground_rough, tray_irregularity, _roughness_map(z, dx_m))
+    _GROUND_CACHE[:] = [(dx_m, np.array(z, copy=True), terms)]
+    return terms
+
+
 def _height(z: NDArray, dx_m: float, x: float, y: float) -> float:
     i = min(max(round(y / dx_m), 0), z.shape[0] - 1)
     j = min(max(round(x / dx_m), 0), z.shape[1] - 1)
@@ -150,9 +171,7 @@ def walk_over(
     rng_ground = np.random.default_rng([seed, 1])
     n = round(duration_s * frame_rate_hz)
     dt = 1.0 / frame_rate_hz
-    ground_rough = float(np.std(np.diff(z, axis=1))) / dx_m  # RMS slope along travel
-    fine = _fine_structure(z, dx_m)
-    tray_irregularity = float(fine.std() / (z.std() + 1e-9))
+    ground_rough, tray_irregularity, rough_map = _ground_terms(z, dx_m)
     stumble = 0.15 * min(max(tray_irregularity - 0.35, 0.0) / 0.2, 1.0)
     # Rough ground slows the animal (the demo's built-in confound, see issue on covariates).
     speed = subject.preferred_speed_m_s / (1.0 + 1.5 * ground_rough) * rng.uniform(0.9, 1.1)
@@ -174,7 +193,6 @@ def walk_over(
     # have left them, so the noise and gaps drawn after the loop are the same too.
     ground_draws = _Draws(rng_ground) if stumble else None
     draws = _Draws(rng)
-    rough_map = _roughness_map(z, dx_m)
     ny, nx = z.shape
     z_at, rough_at = z.item, rough_map.item  # plain floats, no numpy scalars in the loop
 
