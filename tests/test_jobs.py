@@ -437,6 +437,25 @@ def test_a_local_pool_started_early_has_every_worker_up_and_prepared() -> None:
         pool.close()
 
 
+def test_a_local_pool_holds_two_stages_per_worker_and_reports_one_slot(
+    lab: Store, pool: Any
+) -> None:
+    for seed in (31, 32, 33):
+        lab.enqueue("scan", lab.add_heightmap(seed=seed, shape_m=(0.016, 0.016)))
+
+    def slow_flow(ctx):
+        yield Compute(sleep_then, (0, 1.0))
+
+    runner = lab.runner(pool, flows={"scan": slow_flow})
+    runner._step()  # one pass claims what may be in flight
+    with lab.sessionmaker() as s:
+        counts = repo.job_counts(session=s, kind="score")
+    # One worker: the second stage waits in the pool's queue, the third job in the database.
+    assert (counts["running"], counts["queued"]) == (2, 1)
+    assert pool.capacity() == 1  # what /v1/status reports as compute slots
+    runner.run_until_idle(120)
+
+
 def test_warm_builds_the_executor_once_from_any_thread(lab: Store) -> None:
     built: list[Any] = []
 

@@ -75,8 +75,15 @@ class LocalPool:
             return self._pool.submit(fn, *args, **kwargs)
 
     def capacity(self) -> int:
-        # Two stages per worker: the next one waits in the pool's queue while the runner
-        # thread collects and stores the last, so a worker never idles between jobs.
+        """Compute slots: one per worker (what ``/v1/status`` reports)."""
+        return self.workers
+
+    def max_in_flight(self) -> int:
+        """Stages the runner may have submitted at once: two per worker.
+
+        The next stage waits in the pool's queue while the runner thread collects and
+        stores the last one, so a worker does not idle between jobs.
+        """
         return 2 * self.workers
 
     def worker_pids(self) -> list[int]:

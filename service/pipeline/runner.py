@@ -223,7 +223,7 @@ class JobRunner:
         while (
             not self._stop.is_set()
             and not self._suspects  # isolate the suspects first; new work waits
-            and len(self._active) < self.executor.capacity()
+            and len(self._active) < self._in_flight_limit()
         ):
             with self.sessionmaker() as session:
                 job = repo.claim_job(session=session, lease_s=self.lease_s, kinds=[SCORE_JOB_KIND])
@@ -232,6 +232,12 @@ class JobRunner:
             claimed = True
             self._begin(job)
         return claimed
+
+    def _in_flight_limit(self) -> int:
+        """Jobs to hold at once: the executor's ``max_in_flight()`` if it queues ahead of its
+        workers (``LocalPool``), else its ``capacity()``."""
+        ahead = getattr(self.executor, "max_in_flight", None)
+        return int(ahead() if callable(ahead) else self.executor.capacity())
 
     def _begin(self, job: Any) -> None:
         ctx = None
