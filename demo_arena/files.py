@@ -25,17 +25,22 @@ def write_sidecar(path: Path, meta: dict[str, Any]) -> Path:
     return side
 
 
-def write_ply(path: Path, points: NDArray[np.float64]) -> None:
-    """Binary little-endian PLY with float64 x, y, z (metres)."""
+def write_ply(path: Path, points: NDArray[np.float64], *, double: bool = False) -> None:
+    """Binary little-endian PLY of x, y, z (metres): float32, or float64 with ``double``.
+
+    float32 is what lab scanners commonly write: at the demo's 1.2 m extent it keeps
+    0.1 um, three orders below the 0.2 mm scanner noise, in half the bytes.
+    """
+    kind, dtype = ("double", "<f8") if double else ("float", "<f4")
     header = (
         "ply\nformat binary_little_endian 1.0\n"
         f"comment {INVENTED}\ncomment units m\n"
         f"element vertex {len(points)}\n"
-        "property double x\nproperty double y\nproperty double z\nend_header\n"
+        f"property {kind} x\nproperty {kind} y\nproperty {kind} z\nend_header\n"
     )
     with open(path, "wb") as fh:
         fh.write(header.encode("ascii"))
-        fh.write(np.ascontiguousarray(points, dtype="<f8").tobytes())
+        fh.write(np.ascontiguousarray(points, dtype=dtype).tobytes())
 
 
 def write_heightmap_npy(path: Path, z: NDArray[np.float64]) -> None:
@@ -65,7 +70,11 @@ def write_csv_wide(
     n = markers.shape[0]
     cols = ["time"] + [f"{m}_{a}" for m in names for a in "xyz"]
     data = np.column_stack([np.arange(n) / frame_rate_hz, markers.reshape(n, -1) * 1000.0])
+    # One printf-style format per row over plain floats (a per-value generator over numpy
+    # scalars took seconds for the demo's trials); the text is the same: 4 decimals, "NaN".
+    row = ",".join(["%.4f"] * len(cols))
+    body = "\n".join(row % tuple(r) for r in data.tolist()).replace("nan", "NaN")
     with open(path, "w", encoding="utf-8") as fh:
         fh.write(",".join(cols) + "\n")
-        for row in data:
-            fh.write(",".join("NaN" if np.isnan(v) else f"{v:.4f}" for v in row) + "\n")
+        if n:
+            fh.write(body + "\n")

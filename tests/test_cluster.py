@@ -8,7 +8,7 @@ import pytest
 from test_jobs import ROLES, Store
 
 from service.pipeline import DaskPool
-from service.pipeline.tasks import blas_threads
+from service.pipeline.tasks import blas_threads, numba_threads
 
 distributed = pytest.importorskip("distributed")
 
@@ -31,6 +31,7 @@ def test_scan_jobs_run_on_a_local_dask_cluster(tmp_path: Path) -> None:
         assert pool.capacity() == 2
         # Dask workers have no pool initializer: the first task pins BLAS to one thread.
         assert pool.submit(blas_threads).result(timeout=120) == 1
+        assert pool.submit(numba_threads).result(timeout=120) == 1
         lab.runner(pool).run_until_idle(300)
     for job_id, scan_id in zip(jobs, scans, strict=True):
         assert lab.job(job_id).state == "done"

@@ -13,6 +13,7 @@ import inspect
 import os
 import pickle
 import pkgutil
+import threading
 import time
 from concurrent.futures.process import BrokenProcessPool
 from datetime import timedelta
@@ -37,7 +38,7 @@ from service.pipeline import (
     scan_flow,
 )
 from service.pipeline.recipes import default_parameters
-from service.pipeline.tasks import blas_threads
+from service.pipeline.tasks import blas_threads, numba_threads
 from storage import repo
 from storage.artifacts import ArtifactStore
 from storage.db import make_engine, make_sessionmaker, sqlite_url, upgrade
@@ -416,6 +417,73 @@ def test_run_until_idle_reports_progress_and_has_no_deadline_by_default(
 
 def test_blas_is_pinned_to_one_thread_in_local_workers(pool: Any) -> None:
     assert pool.submit(blas_threads).result(timeout=120) == 1
+
+
+def test_numba_is_pinned_to_one_thread_in_local_workers(pool: Any) -> None:
+    # One job per core already: a parallel kernel's extra threads would only spin.
+    assert pool.submit(numba_threads).result(timeout=120) == 1
+
+
+@pytest.mark.slow  # two workers import the scoring stack and compile a kernel (~5 s)
+def test_a_local_pool_started_early_has_every_worker_up_and_prepared() -> None:
+    pool = LocalPool(2)
+    try:
+        pids = [f.result(timeout=300) for f in pool.start()]
+        # One spawn per call while no worker is idle: both workers exist before any job.
+        assert len(pool.worker_pids()) == 2
+        assert set(pids) <= set(pool.worker_pids())
+        assert pool.submit(numba_threads).result(timeout=120) == 1
+    finally:
+        pool.close()
+
+
+def test_a_local_pool_holds_two_stages_per_worker_and_reports_one_slot(
+    lab: Store, pool: Any
+) -> None:
+    for seed in (31, 32, 33):
+        lab.enqueue("scan", lab.add_heightmap(seed=seed, shape_m=(0.016, 0.016)))
+
+    def slow_flow(ctx):
+        yield Compute(sleep_then, (0, 1.0))
+
+    runner = lab.runner(pool, flows={"scan": slow_flow})
+    runner._step()  # one pass claims what may be in flight
+    with lab.sessionmaker() as s:
+        counts = repo.job_counts(session=s, kind="score")
+    # One worker: the second stage waits in the pool's queue, the third job in the database.
+    assert (counts["running"], counts["queued"]) == (2, 1)
+    assert pool.capacity() == 1  # what /v1/status reports as compute slots
+    runner.run_until_idle(120)
+
+
+def test_warm_builds_the_executor_once_from_any_thread(lab: Store) -> None:
+    built: list[Any] = []
+
+    class Starting:
+        started = 0
+
+        def start(self) -> None:
+            self.started += 1
+
+        def capacity(self) -> int:
+            return 1
+
+        def close(self) -> None:
+            pass
+
+    def make() -> Starting:
+        time.sleep(0.2)  # a slow build (a Dask client connecting) widens any race
+        built.append(Starting())
+        return built[-1]
+
+    runner = lab.runner(make)
+    threads = [threading.Thread(target=runner.warm) for _ in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert len(built) == 1 and built[0].started == 4
+    runner.stop()
 
 
 def test_expired_lease_of_a_dead_runner_is_claimed_again(lab: Store, pool: Any) -> None:

@@ -13,11 +13,11 @@ import logging
 import multiprocessing
 import time
 from collections.abc import Callable
-from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures import Future, ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Protocol
 
-from service.pipeline.tasks import run_pinned, warm_up
+from service.pipeline.tasks import prepare, run_pinned, warm_up
 
 __all__ = ["DaskPool", "Executor", "LocalPool", "make_executor"]
 
@@ -49,6 +49,18 @@ class LocalPool:
             initializer=warm_up,
         )
 
+    def start(self) -> list[Future[int]]:
+        """Start every worker now and let each do its one-time costs (``tasks.prepare``).
+
+        Otherwise workers start with the first job and pay their imports and the LZ76
+        compile inside it. One ``prepare`` call per worker: the pool spawns a process for
+        each call while none is idle, so each new worker takes one (a fast worker may take
+        two; the other then prepares with its first job, as without ``start``).
+        """
+        if self._pool is None:
+            self._pool = self._new_pool()
+        return [self._pool.submit(prepare) for _ in range(self.workers)]
+
     def submit(self, fn: Callable[..., Any], /, *args: Any, **kwargs: Any) -> Any:
         if self._pool is None:
             self._pool = self._new_pool()
@@ -63,7 +75,16 @@ class LocalPool:
             return self._pool.submit(fn, *args, **kwargs)
 
     def capacity(self) -> int:
+        """Compute slots: one per worker (what ``/v1/status`` reports)."""
         return self.workers
+
+    def max_in_flight(self) -> int:
+        """Stages the runner may have submitted at once: two per worker.
+
+        The next stage waits in the pool's queue while the runner thread collects and
+        stores the last one, so a worker does not idle between jobs.
+        """
+        return 2 * self.workers
 
     def worker_pids(self) -> list[int]:
         """Process ids of the live workers (for operators and tests)."""

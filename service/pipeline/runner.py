@@ -117,6 +117,7 @@ class JobRunner:
         self.store = store
         self._executor_arg = executor
         self._executor: Any = None
+        self._executor_lock = threading.Lock()
         self.flows = dict(flows)
         self.lease_s = float(lease_s)
         self.poll_s = float(poll_s)
@@ -132,10 +133,24 @@ class JobRunner:
     # -- lifecycle ---------------------------------------------------------------------------
     @property
     def executor(self) -> Any:
-        if self._executor is None:  # built lazily: a Dask client connects here, off the loop
-            arg = self._executor_arg
-            self._executor = arg() if callable(arg) and not hasattr(arg, "submit") else arg
+        if self._executor is None:
+            # Built lazily (a Dask client connects here, off the loop), once: warm() may ask
+            # from another thread while the runner thread does.
+            with self._executor_lock:
+                if self._executor is None:
+                    arg = self._executor_arg
+                    self._executor = arg() if callable(arg) and not hasattr(arg, "submit") else arg
         return self._executor
+
+    def warm(self) -> None:
+        """Start the executor's workers now, before any job, where it can (``LocalPool``).
+
+        For a caller that knows jobs are coming (the demo, while it generates its files):
+        the workers' imports and one-time compiles then overlap that work.
+        """
+        start = getattr(self.executor, "start", None)
+        if callable(start):
+            start()
 
     def start(self) -> None:
         self._thread = threading.Thread(target=self._loop, name="gaitscape-jobs", daemon=True)
@@ -208,7 +223,7 @@ class JobRunner:
         while (
             not self._stop.is_set()
             and not self._suspects  # isolate the suspects first; new work waits
-            and len(self._active) < self.executor.capacity()
+            and len(self._active) < self._in_flight_limit()
         ):
             with self.sessionmaker() as session:
                 job = repo.claim_job(session=session, lease_s=self.lease_s, kinds=[SCORE_JOB_KIND])
@@ -217,6 +232,12 @@ class JobRunner:
             claimed = True
             self._begin(job)
         return claimed
+
+    def _in_flight_limit(self) -> int:
+        """Jobs to hold at once: the executor's ``max_in_flight()`` if it queues ahead of its
+        workers (``LocalPool``), else its ``capacity()``."""
+        ahead = getattr(self.executor, "max_in_flight", None)
+        return int(ahead() if callable(ahead) else self.executor.capacity())
 
     def _begin(self, job: Any) -> None:
         ctx = None

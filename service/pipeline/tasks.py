@@ -8,8 +8,10 @@ artifact store must be on a file system every worker sees at the same path.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
+import sys
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
 from typing import Any
@@ -25,6 +27,7 @@ __all__ = [
     "code_version",
     "heightmap_task",
     "movement_task",
+    "prepare",
     "run_pinned",
     "terrain_task",
     "warm_up",
@@ -48,16 +51,21 @@ def code_version() -> str:
 
 
 def warm_up() -> None:
-    """Prepare a worker process: one BLAS thread, heavy modules imported once.
+    """Prepare a worker process: one BLAS thread, one numba thread, heavy modules imported once.
 
     The pool already runs one job per core; a multithreaded BLAS inside each
     worker would oversubscribe the cores (an 826 x 75 SVD went from 2 ms to
-    seconds that way), so each worker keeps BLAS to a single thread.
+    seconds that way), so each worker keeps BLAS to a single thread. The same
+    holds for numba's parallel kernels (RQA): with one OpenMP thread per core in
+    every worker, threads waiting at the end of each parallel region spin on
+    cores the other worker needs (demo trials took 2.6x the CPU time and 2.5x
+    the wall time on a loaded 2-core machine).
     """
     global _warm
     # A BLAS loaded later (scipy ships its own OpenBLAS, loaded on first use of
     # scipy.linalg) reads these at load time; threadpoolctl reaches those already loaded.
-    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    # numba reads NUMBA_NUM_THREADS when it is first imported (after this, in a worker).
+    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS", "NUMBA_NUM_THREADS"):
         os.environ[var] = "1"
     import scipy.linalg  # noqa: F401
     from threadpoolctl import threadpool_limits
@@ -66,7 +74,41 @@ def warm_up() -> None:
     import storage.readers  # noqa: F401
 
     threadpool_limits(limits=1, user_api="blas")
+    if "numba" in sys.modules:  # imported before us (a Dask worker): limit its launches
+        sys.modules["numba"].set_num_threads(1)
     _warm = True
+
+
+#: What scan and trial jobs import on first use (``measures`` itself imports lazily).
+_SCORING_MODULES = (
+    "measures.correspondence.local",
+    "measures.movement.bodyframe",
+    "measures.movement.summary",
+    "measures.terrain.pointcloud",
+    "measures.terrain.summary",
+)
+
+
+def prepare() -> int:
+    """Do a worker's one-time costs before its first job: import what scoring uses and
+    compile the one kernel numba does not cache (LZ76), on a few symbols.
+
+    About 3-4 CPU-s a worker that the first trial would otherwise pay; a pool started
+    early (``LocalPool.start``, the demo) does it while its inputs are still being made.
+    Returns the process id (which worker ran it).
+    """
+    if not _warm:
+        warm_up()
+    import importlib
+
+    from measures import lz76_complexity
+
+    for name in _SCORING_MODULES:
+        importlib.import_module(name)
+    with contextlib.suppress(ImportError):  # the reader says so when a C3D file comes
+        import ezc3d  # noqa: F401  # the C3D reader's library, for trial jobs
+    lz76_complexity(np.array([0, 1, 1, 0, 1, 0, 0, 1], dtype=np.int64))
+    return os.getpid()
 
 
 def run_pinned(fn: Any, /, *args: Any, **kwargs: Any) -> Any:
@@ -86,6 +128,13 @@ def blas_threads() -> int:
 
     counts = [int(i["num_threads"]) for i in threadpool_info() if i.get("user_api") == "blas"]
     return max(counts, default=1)
+
+
+def numba_threads() -> int:
+    """Threads numba's parallel kernels use in this process (for tests)."""
+    import numba
+
+    return int(numba.get_num_threads())
 
 
 def _verify(path: str, sha256: str) -> None:
