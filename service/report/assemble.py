@@ -349,7 +349,7 @@ def _expected_section(
     session: Any, study: StudyData, correspondence: Mapping[str, Any], n_measures: int = 3
 ) -> str:
     """Expected movement per arena, each predicted from the other arenas of the study."""
-    from service.analysis.expected import expected_movement
+    from service.analysis.expected import expected_movement, expected_tables
     from storage.errors import StorageError
 
     movement = []
@@ -372,11 +372,17 @@ def _expected_section(
         "</tr></thead><tbody>"
     ]
     notes: set[str] = set()
+    # One read of the study tables for every arena (they do not depend on the arena).
+    tables = expected_tables(
+        session=session, recipe_hash=study.recipe_hash, movement_measures=movement,
+        study=study.study_name,
+    )  # fmt: skip
     for arena in study.arenas:
         try:
             out = expected_movement(
-                session=session, recipe=study.recipe_name, arena_id=arena.id,
-                movement_measures=movement, study=study.study_name,
+                session=session, recipe=study.recipe_name, version=study.recipe_version,
+                arena_id=arena.id, movement_measures=movement, study=study.study_name,
+                tables=tables,
             )  # fmt: skip
         except (StorageError, ValueError) as err:  # no scored scan, too few arenas
             notes.add(f"{arena.name}: {err}")
