@@ -29,7 +29,7 @@ from matplotlib import colormaps
 from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
-from matplotlib.ticker import LogFormatterSciNotation
+from matplotlib.ticker import LogFormatterSciNotation, LogLocator
 
 from service.report.panels import MovementPanel, TerrainPanel
 
@@ -78,8 +78,36 @@ class _PlainLogFormatter(LogFormatterSciNotation):
         return out + exponent.removesuffix("}").translate(_SUPERSCRIPT) if power else out
 
 
-def _plain_log_labels(axis: Any) -> None:
-    # As matplotlib's log scale sets them: every major tick, minor ticks when decades are few.
+class _InViewLogLocator(LogLocator):
+    """matplotlib's log locator, returning only the ticks inside the view.
+
+    The stock locator adds a decade or more on each side, and the axis builds a full tick
+    (two lines, two labels) for each before dropping it from the drawing; on the spectra's
+    eight-decade axes that was a third of their ticks. The test is the one the axis applies
+    when it drops them (in log space, within 1e-10 of the span), so the drawn ticks are
+    the same.
+    """
+
+    def __call__(self) -> Any:
+        locs = np.asarray(super().__call__(), dtype=float)
+        if self.axis is None or locs.size == 0:
+            return locs
+        vmin, vmax = sorted(self.axis.get_view_interval())
+        if not vmin > 0:
+            return locs
+        lo, hi = math.log10(vmin), math.log10(vmax)
+        tol = 1e-10 * (hi - lo)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = np.log10(locs)
+        return locs[(t >= lo - tol) & (t <= hi + tol)]
+
+
+def _plain_log_axis(axis: Any) -> None:
+    """Locators and formatters of a log axis as matplotlib's log scale sets them (every
+    decade labelled; minor ticks, labelled only when decades are few), trimmed to the view
+    and with plain-text labels."""
+    axis.set_major_locator(_InViewLogLocator(10.0))
+    axis.set_minor_locator(_InViewLogLocator(10.0, subs=None))
     axis.set_major_formatter(_PlainLogFormatter())
     axis.set_minor_formatter(_PlainLogFormatter(labelOnlyBase=False))
 
@@ -240,7 +268,7 @@ def terrain_figure(panels: list[TerrainPanel], colours: dict[int, Any]) -> tuple
     )
     ax_slope.set_xlim(0, min(90.0, top + 2))
     for axis in (ax_psd.xaxis, ax_psd.yaxis, ax_slope.yaxis):
-        _plain_log_labels(axis)
+        _plain_log_axis(axis)
     return thumbs, png_data_uri(fig)
 
 
