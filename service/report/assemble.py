@@ -19,7 +19,14 @@ from service.report.panels import movement_panels, terrain_panels
 from service.report.study import StudyData, load_study
 from service.report.view import correspondence_view, strongest
 
-__all__ = ["MIN_TRIAL_S", "REPORT_CSP", "build_report", "design_warnings", "strongest_pairs"]
+__all__ = [
+    "MIN_TRIAL_S",
+    "REPORT_CSP",
+    "build_report",
+    "design_warnings",
+    "long_lived_frozen",
+    "strongest_pairs",
+]
 
 # A trial shorter than this holds only a few strides at the demo animal's ~1-3 Hz stride
 # frequency: entropy and recurrence estimates from it are rough (common practice).
@@ -450,14 +457,15 @@ def _measures_section(correspondence: Mapping[str, Any]) -> str:
 
 
 @contextmanager
-def _long_lived_frozen() -> Iterator[None]:
+def long_lived_frozen() -> Iterator[None]:
     """Collections during the block skip the objects that existed before it.
 
     Drawing makes tens of thousands of short-lived matplotlib objects, so the collector
     runs hundreds of times per report; a full collection would walk every long-lived
     object of the process (about 300,000 in the server: SQLAlchemy, numba, scipy), which
     cost about a sixth of the report's time. Frozen objects go back to the oldest
-    generation afterwards, so nothing is kept alive by this.
+    generation afterwards, so nothing is kept alive by this. Nested or concurrent blocks
+    are harmless: the first to leave unfreezes, and the others run with a normal collector.
     """
     gc.freeze()
     try:
@@ -476,7 +484,7 @@ def build_report(
 ) -> str:
     """The report for ``recipe`` as one HTML string (no external resources); without
     ``study`` data it is loaded for the study the correspondence names (if any)."""
-    with _long_lived_frozen():
+    with long_lived_frozen():
         return _build_report(session, store, correspondence, recipe, study)
 
 
