@@ -43,7 +43,7 @@ from service.analysis.tables import (
 from storage import repo
 from storage.errors import BadInput
 
-__all__ = ["EXPECTED_FIELDS", "expected_csv", "expected_movement"]
+__all__ = ["EXPECTED_FIELDS", "expected_csv", "expected_movement", "expected_tables"]
 
 #: Row fields (the first five are the contract), in CSV column order.
 EXPECTED_FIELDS = (
@@ -94,6 +94,25 @@ def _default_terrain_measure(study_arenas: Any, names: Sequence[str]) -> str | N
     return best
 
 
+def expected_tables(
+    *,
+    session: Session,
+    recipe_hash: str,
+    movement_measures: Sequence[str] = (),
+    study: str | None = None,
+    scans: str = "latest",
+) -> StudyTables:
+    """The study tables :func:`expected_movement` fits from (the same for every arena)."""
+    return load_study(
+        session=session,
+        recipe_hash=recipe_hash,
+        selection=Selection(
+            terrain_measures=("all",), movement_measures=tuple(movement_measures),
+            scans=scans, study=study,
+        ),
+    )  # fmt: skip
+
+
 def expected_movement(
     *,
     session: Session,
@@ -105,18 +124,20 @@ def expected_movement(
     study: str | None = None,
     scans: str = "latest",
     level: float = 0.95,
+    tables: StudyTables | None = None,
 ) -> dict[str, Any]:
-    """The movement the arena's ground predicts, as a JSON-ready dict (NaN as None)."""
+    """The movement the arena's ground predicts, as a JSON-ready dict (NaN as None).
+
+    ``tables``: the study tables of :func:`expected_tables` for the same recipe, measures,
+    study and scan rule, when the caller predicts several arenas (read, never modified).
+    """
     prof = repo.get_recipe(session=session, name=recipe, version=version)
     arena = repo.get_arena(session=session, arena_id=arena_id)
-    tables = load_study(
-        session=session,
-        recipe_hash=prof.hash,
-        selection=Selection(
-            terrain_measures=("all",), movement_measures=tuple(movement_measures),
-            scans=scans, study=study,
-        ),
-    )  # fmt: skip
+    if tables is None:
+        tables = expected_tables(
+            session=session, recipe_hash=prof.hash, movement_measures=movement_measures,
+            study=study, scans=scans,
+        )  # fmt: skip
     own, own_scans = _own_terrain(session, prof.hash, arena_id, tables, scans)
     if not own:
         raise BadInput(f"arena {arena_id} has no scored scan under recipe {prof.name!r}")

@@ -64,22 +64,23 @@ def render_report(
     subjects, trials and scans only (membership rule: ``storage.repo.studies``), and the
     summary names it. NotFound for an unknown study.
     """
-    if correspondence is None:
-        from service.report.cache import shared_correspondence
-
-        correspondence = shared_correspondence(
-            session=session,
-            recipe=recipe,
-            version=version,
-            study=study,
-            n_permutations=n_permutations,
-            n_boot=n_boot,
-            seed=seed,
-        )
-    from service.report.assemble import build_report
+    from service.report.assemble import build_report, long_lived_frozen
     from service.report.study import load_study
 
-    data = load_study(session=session, recipe=recipe, study=study)
-    return build_report(
-        session=session, store=store, correspondence=correspondence, recipe=recipe, study=data
-    )
+    with long_lived_frozen():
+        if correspondence is None:
+            from service.report.cache import shared_correspondence
+
+            correspondence = shared_correspondence(
+                session=session,
+                recipe=recipe,
+                version=version,
+                study=study,
+                n_permutations=n_permutations,
+                n_boot=n_boot,
+                seed=seed,
+            )
+        data = load_study(session=session, recipe=recipe, study=study)
+        return build_report(
+            session=session, store=store, correspondence=correspondence, recipe=recipe, study=data
+        )

@@ -28,6 +28,8 @@ import numpy as np
 from matplotlib import colormaps
 from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.ticker import LogFormatterSciNotation, LogLocator
 
 from service.report.panels import MovementPanel, TerrainPanel
 
@@ -53,7 +55,61 @@ _STYLE: dict[RcKeyType, float] = {
     "axes.titlesize": 9,
     "axes.labelsize": 9,
     "legend.fontsize": 7.5,
+    # A fixed title height: matplotlib otherwise measures every axes' tick labels at draw
+    # time to lift the title over top-side ticks, which no figure here has.
+    "axes.titley": 1.0,
 }
+
+
+_SUPERSCRIPT = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
+
+
+class _PlainLogFormatter(LogFormatterSciNotation):
+    """Log-axis tick labels as plain text with Unicode superscripts (10\u207b\u00b3): the
+    default mathtext labels were parsed afresh in every report."""
+
+    def __call__(self, x: float, pos: int | None = None) -> str:
+        text = str(super().__call__(x, pos))
+        if not text:
+            return text
+        text = text.removeprefix("$\\mathdefault{").removesuffix("}$")
+        mantissa, power, exponent = text.partition("^{")
+        out = mantissa.replace("\\times", "\u00d7").replace("-", "\u2212")
+        return out + exponent.removesuffix("}").translate(_SUPERSCRIPT) if power else out
+
+
+class _InViewLogLocator(LogLocator):
+    """matplotlib's log locator, returning only the ticks inside the view.
+
+    The stock locator adds a decade or more on each side, and the axis builds a full tick
+    (two lines, two labels) for each before dropping it from the drawing; on the spectra's
+    eight-decade axes that was a third of their ticks. The test is the one the axis applies
+    when it drops them (in log space, within 1e-10 of the span), so the drawn ticks are
+    the same.
+    """
+
+    def __call__(self) -> Any:
+        locs = np.asarray(super().__call__(), dtype=float)
+        if self.axis is None or locs.size == 0:
+            return locs
+        vmin, vmax = sorted(self.axis.get_view_interval())
+        if not vmin > 0:
+            return locs
+        lo, hi = math.log10(vmin), math.log10(vmax)
+        tol = 1e-10 * (hi - lo)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = np.log10(locs)
+        return locs[(t >= lo - tol) & (t <= hi + tol)]
+
+
+def _plain_log_axis(axis: Any) -> None:
+    """Locators and formatters of a log axis as matplotlib's log scale sets them (every
+    decade labelled; minor ticks, labelled only when decades are few), trimmed to the view
+    and with plain-text labels."""
+    axis.set_major_locator(_InViewLogLocator(10.0))
+    axis.set_minor_locator(_InViewLogLocator(10.0, subs=None))
+    axis.set_major_formatter(_PlainLogFormatter())
+    axis.set_minor_formatter(_PlainLogFormatter(labelOnlyBase=False))
 
 
 def unit_label(unit: str | None) -> str:
@@ -77,10 +133,20 @@ def axis_label(measure: str, unit: str | None) -> str:
 
 
 def png_data_uri(fig: Figure) -> str:
+    """Draw ``fig`` once with Agg and return it as an opaque RGB PNG data URI."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from PIL import Image
+
+    # No bbox_inches="tight": every figure sets its margins, and "tight" draws twice.
+    # The figure is drawn at DPI from the start (_figure), so this is savefig's one draw;
+    # the PNG is then written by Pillow directly, as RGB (the figures are opaque white)
+    # at zlib level 1: as small as matplotlib's level-6 RGBA files here, in half the time.
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()  # type: ignore[no-untyped-call]  # matplotlib's stub leaves it untyped
+    rgba = canvas.buffer_rgba()  # type: ignore[no-untyped-call]
+    rgb = Image.frombuffer("RGBA", canvas.get_width_height(), rgba).convert("RGB")
     buf = io.BytesIO()
-    # No bbox_inches="tight": the constrained layout already fits the figure, and "tight"
-    # draws every figure twice (half the report's time).
-    fig.savefig(buf, format="png", dpi=DPI)
+    rgb.save(buf, format="png", compress_level=1)
     return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
@@ -90,7 +156,7 @@ def _figure(width: float, height: float) -> Figure:
     matplotlib.rcParams.update(_STYLE)
     # No layout engine: constrained layout measured every tick label of every axes and took
     # two thirds of the report's time. Each figure sets its margins in inches (_margins).
-    return Figure(figsize=(width, height))
+    return Figure(figsize=(width, height), dpi=DPI)
 
 
 def _margins(
@@ -201,6 +267,8 @@ def terrain_figure(panels: list[TerrainPanel], colours: dict[int, Any]) -> tuple
         default=90.0,
     )
     ax_slope.set_xlim(0, min(90.0, top + 2))
+    for axis in (ax_psd.xaxis, ax_psd.yaxis, ax_slope.yaxis):
+        _plain_log_axis(axis)
     return thumbs, png_data_uri(fig)
 
 
@@ -329,55 +397,106 @@ def main_result_figure(pairs: list[dict[str, Any]], colours: dict[int, Any]) -> 
     n = len(pairs)
     cols = min(2, n)
     rows = math.ceil(n / cols)
-    fig = _figure(5.2 * cols, 3.9 * rows)
+    fig = _figure(5.2 * cols, 3.9 * rows + 0.25)
     fig.subplots_adjust(
-        **_margins(fig, left=0.8, right=0.2, bottom=0.5, top=0.45, cols=cols, rows=rows,
+        **_margins(fig, left=0.8, right=0.2, bottom=0.5, top=0.7, cols=cols, rows=rows,
                    wgap=1.0, hgap=0.95)
     )  # fmt: skip
     for k, pair in enumerate(pairs):
         ax = fig.add_subplot(rows, cols, k + 1)
-        for s in pair["subjects"]:
-            pts = np.asarray(s["points"], dtype=float)
-            ax.plot(pts[:, 0], pts[:, 1], color="0.55", lw=0.8, alpha=0.45, zorder=1)
+        # One collection per kind of mark, not one artist per subject or arena: the same
+        # pixels, a fraction of the artists to set up and draw.
+        subjects = [np.asarray(s["points"], dtype=float) for s in pair["subjects"]]
+        ax.add_collection(
+            LineCollection(subjects, colors="0.55", linewidths=0.8, alpha=0.45, zorder=1,
+                           capstyle="projecting"),
+            autolim=False,
+        )  # fmt: skip
         if pair.get("fit_band"):
             band = np.asarray(pair["fit_band"], dtype=float)
             ax.fill_between(band[:, 0], band[:, 1], band[:, 2], color="0.85", lw=0, zorder=0)
         if pair["fit_line"]:
             line = np.asarray(pair["fit_line"], dtype=float)
             ax.plot(line[:, 0], line[:, 1], color="black", lw=1.4, zorder=2)
-        for a in pair["arenas"]:
-            c = colours.get(a["arena_id"], "grey")
+        arenas = pair["arenas"]
+        arena_colours = [colours.get(a["arena_id"], "grey") for a in arenas]
+        bars, bar_colours = [], []
+        for a, c in zip(arenas, arena_colours, strict=True):
             lo, hi = _float(a["y_low"]), _float(a["y_high"])
             if np.isfinite(lo) and np.isfinite(hi):
-                ax.plot([a["x"], a["x"]], [lo, hi], color=c, lw=2.0, zorder=3)
-            ax.scatter(
-                a["x"], a["y"], s=55, color=c, edgecolor="black", lw=0.8, marker="D", zorder=4
-            )
-            ha = "left" if a["label_x"] >= a["x"] else "right"
-            props = {"arrowstyle": "-", "color": "0.4", "lw": 0.6} if a["leader"] else None
-            ax.annotate(
-                a["name"],
-                (a["x"], a["y"]),
-                xytext=(a["label_x"], a["label_y"]),
-                textcoords="data",
-                fontsize=7,
-                ha=ha,
-                va="center",
-                arrowprops=props,
-                zorder=5,
-            )
+                bars.append([(a["x"], lo), (a["x"], hi)])
+                bar_colours.append(c)
+        ax.add_collection(
+            LineCollection(bars, colors=bar_colours, linewidths=2.0, zorder=3,
+                           capstyle="projecting"),
+            autolim=False,
+        )  # fmt: skip
+        ax.scatter(
+            [a["x"] for a in arenas],
+            [a["y"] for a in arenas],
+            s=55,
+            color=arena_colours,
+            edgecolor="black",
+            lw=0.8,
+            marker="D",
+            zorder=4,
+        )
+        for a in arenas:
+            _name_label(ax, a["name"], (a["x"], a["y"]), (a["label_x"], a["label_y"]), a["leader"])
         ax.set_xlim(*pair["x_range"])
         ax.set_ylim(*pair["y_range"])
         ax.set_xlabel(pair["x_label"])
         ax.set_ylabel(pair["y_label"])
         ax.set_title(_wrap(pair["title"], 75), fontsize=7.5)
         ax.ticklabel_format(axis="both", style="plain", useOffset=False)  # no "+1" offsets
-    ax = fig.axes[0]
-    ax.plot([], [], color="0.55", lw=0.8, alpha=0.6, label="subjects (mean per arena)")
-    ax.plot([], [], color="black", lw=1.4, label="arena-level fit")
-    ax.errorbar([], [], yerr=[], fmt="D", color="grey", label="arena mean, 95 % interval")
-    ax.legend(loc="best", frameon=False, fontsize=7)
+    # One legend for all panels, above them: inside a panel it hid arena names, and
+    # matplotlib's search for the emptiest corner cost a tenth of this figure.
+    handles = [
+        Line2D([], [], color="0.55", lw=0.8, alpha=0.6, label="subjects (mean per arena)"),
+        Line2D([], [], color="black", lw=1.4, label="arena-level fit"),
+        Line2D([], [], color="grey", marker="D", lw=2.0, markeredgecolor="black",
+               markersize=6, label="arena mean, 95 % interval"),
+    ]  # fmt: skip
+    fig.legend(
+        handles=handles,
+        loc="upper center",
+        bbox_to_anchor=(0.5, 1.0),
+        ncol=3,
+        frameon=False,
+        fontsize=7.5,
+    )
     return png_data_uri(fig)
+
+
+def _name_label(
+    ax: Any, name: str, point: tuple[float, float], spot: tuple[float, float], leader: bool
+) -> None:
+    """An arena name at ``spot``; with ``leader``, a thin line from the name's near end to
+    the point (a plain line: matplotlib's arrow clipped at the text box cost a quarter of
+    the main-result figure)."""
+    left = spot[0] >= point[0]
+    props = None
+    if leader:
+        props = {
+            "arrowstyle": "-",
+            "color": "0.4",
+            "lw": 0.6,
+            "relpos": (0.0, 0.5) if left else (1.0, 0.5),
+            "patchA": None,
+            "shrinkA": 3,
+            "shrinkB": 2,
+        }
+    ax.annotate(
+        name,
+        point,
+        xytext=spot,
+        textcoords="data",
+        fontsize=7,
+        ha="left" if left else "right",
+        va="center",
+        arrowprops=props,
+        zorder=5,
+    )
 
 
 def complexity_entropy_figure(
@@ -396,34 +515,33 @@ def complexity_entropy_figure(
     if bounds:
         ax.plot([], [], color="0.35", lw=0.9, label=f"C max (M = {bounds[0].n_patterns})")
         ax.plot([], [], color="0.35", lw=0.9, ls=":", label="C min")
-    for arena_id, h, c in trials:
-        ax.scatter(h, c, s=16, color=colours.get(arena_id, "grey"), alpha=0.8, lw=0)
+    if trials:
+        ax.scatter(
+            [h for _, h, _ in trials],
+            [c for *_, c in trials],
+            s=16,
+            color=[colours.get(arena_id, "grey") for arena_id, *_ in trials],
+            alpha=0.8,
+            lw=0,
+        )
     from service.report.view import place_labels
 
     top = max([c for *_, c in arenas] + [c for *_, c in trials] + [0.05]) * 1.15
     spots = place_labels([(h, c) for _, _, h, c in arenas], (0.0, 1.0), (0.0, top))
-    for (arena_id, name, h, c), (lx, ly, leader) in zip(arenas, spots, strict=True):
+    if arenas:
         ax.scatter(
-            h,
-            c,
+            [h for _, _, h, _ in arenas],
+            [c for *_, c in arenas],
             s=80,
             marker="s",
-            color=colours.get(arena_id, "grey"),
+            color=[colours.get(arena_id, "grey") for arena_id, *_ in arenas],
             edgecolor="black",
             lw=0.8,
             zorder=3,
         )
-        # Names pushed apart where squares crowd, with a leader line back to the square.
-        ax.annotate(
-            name,
-            (h, c),
-            xytext=(lx, ly),
-            textcoords="data",
-            fontsize=7,
-            ha="left" if lx >= h else "right",
-            va="center",
-            arrowprops={"arrowstyle": "-", "color": "0.4", "lw": 0.6} if leader else None,
-        )
+    # Names pushed apart where squares crowd, with a leader line back to the square.
+    for (_, name, h, c), (lx, ly, leader) in zip(arenas, spots, strict=True):
+        _name_label(ax, name, (h, c), (lx, ly), leader)
     ax.scatter([], [], s=16, color="grey", label="trials (whole-body state, leading component)")
     ax.scatter([], [], s=60, marker="s", color="grey", edgecolor="black", label="arenas (surface)")
     ax.set_xlim(0, 1.0)

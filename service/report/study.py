@@ -115,12 +115,14 @@ def load_study(*, session: Any, recipe: str | None = None, study: str | None = N
     by_id = {t.id: t for t in trials}
     # Every stored trial score (quality-control ones too, for the warnings), with the
     # correspondence table's values on top so figures and table agree.
-    stored = _scores_by_target(session, "trial", prof.hash)
+    stored = {kind: _scores_by_target(session, kind, prof.hash) for kind in ("scan", "trial")}
     movement = []
     for rec in tables.trials.to_dict("records"):
         t = by_id[int(rec["trial_id"])]
         duration = (t.n_frames or 0) / t.frame_rate_hz if t.frame_rate_hz else float("nan")
-        values = {s.measure: float("nan") if s.value is None else s.value for s in stored[t.id]}
+        values = {
+            s.measure: float("nan") if s.value is None else s.value for s in stored["trial"][t.id]
+        }
         values.update({m: float(rec[m]) for m in tables.movement_measures})
         movement.append(TrialScores(t.id, t.arena_id, t.subject_id, duration, values))
     units: dict[str, str] = {}
@@ -128,7 +130,7 @@ def load_study(*, session: Any, recipe: str | None = None, study: str | None = N
     scan_scores: dict[int, dict[str, float]] = {}
     members = {"scan": {s.id for s in scans}, "trial": set(by_id)}
     for kind in ("scan", "trial"):
-        for target, rows in _scores_by_target(session, kind, prof.hash).items():
+        for target, rows in stored[kind].items():
             if sid is not None and target not in members[kind]:
                 continue
             if kind == "scan":
