@@ -65,3 +65,30 @@ def test_log_axis_draws_matplotlibs_ticks_with_plain_labels(limits) -> None:
     lo, hi = limits
     built = np.concatenate([ax.yaxis.get_majorticklocs(), ax.yaxis.get_minorticklocs()])
     assert np.all((built >= lo * (1 - 1e-9)) & (built <= hi * (1 + 1e-9)))
+
+
+def _panel(classes: list[int]):
+    from service.report.panels import MovementPanel
+
+    t = np.linspace(0.0, 2.0 * np.pi, 50)
+    return MovementPanel(
+        trial_id=1, arena_name="a", subject_label="s", recurrence=np.eye(8), duration_s=1.0,
+        ssa_pair=np.column_stack([np.cos(t), np.sin(t)]) * 1e-3,
+        class_sequence=np.asarray(classes), frame_rate_hz=50.0,
+    )  # fmt: skip
+
+
+def _height_px(uri: str) -> int:
+    return Image.open(io.BytesIO(base64.b64decode(uri.split(",", 1)[1]))).size[1]
+
+
+def test_step_cycle_strips_only_when_the_classes_differ() -> None:
+    # One class on every stride says nothing a sentence would not (the report says it);
+    # two classes anywhere bring the strips back, one row a trial.
+    one = [_panel([0, 0, 0]), _panel([0, 0])]
+    two = [_panel([0, 1, 0]), _panel([0, 0])]
+    assert not figures.classes_vary(one)
+    assert figures.classes_vary(two)
+    assert _height_px(figures.movement_figure(two)) - _height_px(
+        figures.movement_figure(one)
+    ) == round(0.9 * figures.DPI)

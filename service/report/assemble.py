@@ -270,14 +270,20 @@ def _figure_sections(
     parts.append('</section><section id="movement"><h2>Movement</h2>')
     mpanels = movement_panels(study, session=session, store=store, rank_by=TERRAIN_ROUGHNESS_KEY)
     if mpanels:
+        strips = figures.classes_vary(mpanels)
         parts.append(
             _img(
                 figures.movement_figure(mpanels),
                 "recurrence plots and SSA portraits",
                 "A trial on the smoothest and one on the roughest arena: recurrence plot "
                 "of the whole-body state (multichannel SSA of every role marker in the body "
-                "frame; block-averaged), the state's two leading components, and the "
-                "step-cycle class of each stride.",
+                "frame; block-averaged), the state's two leading components"
+                + (
+                    ", and the step-cycle class of each stride."
+                    if strips
+                    else ". Every stride of these trials falls in one step-cycle class "
+                    "(the silhouette rule found no split), so no class strip is drawn."
+                ),
             )
         )
     else:

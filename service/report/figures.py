@@ -273,15 +273,26 @@ def terrain_figure(panels: list[TerrainPanel], colours: dict[int, Any]) -> tuple
 
 
 # -- movement ---------------------------------------------------------------------------------
+def classes_vary(panels: list[MovementPanel]) -> bool:
+    """Whether any shown trial has strides in more than one step-cycle class.
+
+    A strip of identical class numbers says nothing a sentence would not: the report draws
+    the strips only when the classes differ somewhere, and says so otherwise.
+    """
+    return any(np.unique(np.asarray(p.class_sequence)).size > 1 for p in panels)
+
+
 def movement_figure(panels: list[MovementPanel]) -> str:
-    """Recurrence plots, SSA phase portraits and step-cycle class strips."""
+    """Recurrence plots, SSA phase portraits and (when they vary) step-cycle class strips."""
     n = len(panels)
-    fig = _figure(9.5, 3.1 * n + 0.9)
+    strips = classes_vary(panels)
+    rows = n + 1 if strips else n
+    fig = _figure(9.5, 3.1 * n + (0.9 if strips else 0.0))
     grid = fig.add_gridspec(
-        n + 1,
+        rows,
         2,
-        height_ratios=[3.1] * n + [0.9],
-        **_margins(fig, left=0.7, right=0.1, bottom=0.5, top=0.3, cols=2, rows=n + 1,
+        height_ratios=[3.1] * n + ([0.9] if strips else []),
+        **_margins(fig, left=0.7, right=0.1, bottom=0.5, top=0.3, cols=2, rows=rows,
                    wgap=1.6, hgap=0.7),
     )  # fmt: skip
     for row, p in enumerate(panels):
@@ -316,6 +327,8 @@ def movement_figure(panels: list[MovementPanel]) -> str:
         ax2.set_xlabel("state component 1 (mm, projected)")
         ax2.set_ylabel("state component 2 (mm, projected)")
         ax2.set_title("Whole-body state, two leading components")
+    if not strips:
+        return png_data_uri(fig)
     ax = fig.add_subplot(grid[n, :])
     n_max = 1
     for row, p in enumerate(panels):
