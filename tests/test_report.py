@@ -323,6 +323,10 @@ def test_report_limited_to_a_study(small_store: dict) -> None:
     assert "tray-3" not in html and "tray-2" in html  # the fourth arena is not in the study
     # 3 arenas: the smallest two-sided permutation p is 2/3! = 0.333 (Good 2005, ch. 3).
     assert "Only 3 arenas" in html
+    # Every member arena is left out of its own prediction: said once, naming them all.
+    expected = html.split('<section id="expected">')[1].split("</section>")[0]
+    assert expected.count("belongs to the study") == 1
+    assert "Each of tray-0, tray-1, tray-2 belongs to the study" in expected
 
     app = create_app(small_store["settings"])
     with app.state.sessionmaker() as session:

@@ -385,6 +385,7 @@ def _expected_section(
         "</tr></thead><tbody>"
     ]
     notes: set[str] = set()
+    left_out: list[str] = []
     # One read of the study tables for every arena (they do not depend on the arena).
     tables = expected_tables(
         session=session, recipe_hash=study.recipe_hash, movement_measures=movement,
@@ -410,8 +411,19 @@ def _expected_section(
                 f"<td>{_e(r['movement_measure'])}</td><td>{pred}</td><td>{base}</td>"
                 f"<td>{_e(r.get('note') or '')}</td></tr>"
             )
-        notes.update(str(w) for w in out.get("warnings", []))
+        for w in (str(w) for w in out.get("warnings", [])):
+            # The same sentence for every member arena reads as seven warnings: one line
+            # names them all; the other notes say which arena they are about.
+            if w.startswith(f"Arena {arena.name!r} belongs to the study"):
+                left_out.append(arena.name)
+            else:
+                notes.add(w if arena.name in w else f"{arena.name}: {w}")
     lines.append("</tbody></table>")
+    if left_out:
+        notes.add(
+            f"Each of {', '.join(left_out)} belongs to the study and is left out of the fit "
+            "that predicts it."
+        )
     if notes:
         items = "".join(f"<li>{_e(n)}</li>" for n in sorted(notes))
         lines.append(f'<ul class="notes">{items}</ul>')
