@@ -370,6 +370,8 @@ def _expected_section(
         if row["movement_measure"] not in movement:
             movement.append(row["movement_measure"])
     movement = movement[:n_measures]
+    # The scan rule of the correspondence shown above, so both read one scan per arena.
+    rule = str(correspondence.get("scans") or cv.SCAN_POLICY)
     head = (
         '<section id="expected"><h2>Expected movement</h2>'
         "<p>Each arena's movement predicted from its ground by the arena-level fit of the "
@@ -389,14 +391,14 @@ def _expected_section(
     # One read of the study tables for every arena (they do not depend on the arena).
     tables = expected_tables(
         session=session, recipe_hash=study.recipe_hash, movement_measures=movement,
-        study=study.study_name,
+        study=study.study_name, scans=rule,
     )  # fmt: skip
     for arena in study.arenas:
         try:
             out = expected_movement(
                 session=session, recipe=study.recipe_name, version=study.recipe_version,
                 arena_id=arena.id, movement_measures=movement, study=study.study_name,
-                tables=tables,
+                scans=rule, tables=tables,
             )  # fmt: skip
         except (StorageError, ValueError) as err:  # no scored scan, too few arenas
             notes.add(f"{arena.name}: {err}")
