@@ -113,12 +113,6 @@ def _ground_terms(z: NDArray, dx_m: float) -> tuple[float, float, NDArray]:
     return terms
 
 
-def _height(z: NDArray, dx_m: float, x: float, y: float) -> float:
-    i = min(max(round(y / dx_m), 0), z.shape[0] - 1)
-    j = min(max(round(x / dx_m), 0), z.shape[1] - 1)
-    return float(z[i, j])
-
-
 class _Draws:
     """Standard normals from ``rng`` in buffered blocks, consumed in order.
 
