@@ -159,6 +159,47 @@ class CausalStateModel:
     _lookup_long: tuple[NDArray[np.int64], NDArray[np.int64]] = field(repr=False)
     _lookup_short: tuple[NDArray[np.int64], NDArray[np.int64]] = field(repr=False)
 
+    @property
+    def effective_history(self) -> int:
+        """Fewest past symbols that fix the state: the smallest j such that every
+        recurrent history's state is a function of its last j symbols (at most
+        ``max_history``; 0 for a one-state machine)."""
+        if self.n_states <= 1:
+            return 0
+        hist = [(h, i) for i, st in enumerate(self.states) for h in st if h]
+        for j in range(1, self.max_history + 1):
+            seen: dict[tuple[int, ...], int] = {}
+            if all(seen.setdefault(h[-j:], i) == i for h, i in hist if len(h) >= j):
+                return j
+        return self.max_history
+
+    @property
+    def history_ceiling_bits(self) -> float:
+        """log2 of the number of distinct last-j words of the recurrent histories,
+        j = :attr:`effective_history`.
+
+        A machine whose states are fixed by the last j symbols is a Markov chain
+        of order j on the symbols and has at most that many states, so
+        ``statistical_complexity <= history_ceiling_bits``. At the ceiling every
+        j-word is a state of its own, evenly occupied: C_mu is then the entropy
+        of the last j symbols, set by j and the alphabet (at j = 1, log2 of the
+        alphabet for evenly used symbols), not by structure the histories resolved.
+        """
+        j = self.effective_history
+        if j == 0:
+            return 0.0
+        words = {h[-j:] for st in self.states for h in st if len(h) >= j}
+        return float(np.log2(len(words)))
+
+    @property
+    def deterministic(self) -> bool:
+        """True when every state emits one symbol only (h_mu = 0: a periodic machine).
+
+        Longer histories cannot split such states (the next symbol is already
+        certain), so the machine cannot be a coarse version of a larger one.
+        """
+        return bool(np.all((self.emission_probabilities > 0).sum(axis=1) <= 1))
+
     def state_sequence(self, symbols: ArrayLike) -> NDArray[np.int64]:
         """State after each symbol of ``symbols`` (the state predicting the next one).
 
