@@ -82,7 +82,13 @@ from scipy.sparse.csgraph import connected_components
 from measures._validation import InsufficientDataError, InvalidParameterError
 from measures.information._homogeneity import homogeneity_pvalue
 
-__all__ = ["SYNCHRONISED_THRESHOLD", "CausalStateModel", "causal_states", "determining_history"]
+__all__ = [
+    "SYNCHRONISED_THRESHOLD",
+    "CausalStateModel",
+    "causal_states",
+    "determining_history",
+    "longer_histories_supported",
+]
 
 #: Share of the predicted symbols a machine must explain to be ``reliable``.
 SYNCHRONISED_THRESHOLD = 0.95
@@ -344,6 +350,32 @@ def determining_history(symbols: ArrayLike) -> int:
     if alphabet.size < 2:
         return 0
     return _determining_history(s.astype(np.int64).ravel(), int(alphabet.size), int(raw.size))
+
+
+def longer_histories_supported(model: CausalStateModel, symbols: ArrayLike) -> bool:
+    """Whether CSSR tested histories longer than the machine's effective history with support.
+
+    True when ``model.max_history > j`` (j = ``model.effective_history``) and
+    ``50 * W(j + 2) <= N``: every observed (history of j + 1 symbols, next symbol)
+    cell has about 50 counts, the support rule of the default history length and
+    of :func:`determining_history`. Then the merges of those longer histories into
+    the j-symbol states are evidence that the longer past adds nothing; otherwise
+    the homogeneity tests had too few counts to split them, and the states are
+    only as fine as j.
+
+    Examples
+    --------
+    >>> rhythm = np.tile(np.repeat([0, 1, 2, 3], 4), 5)  # 80 symbols, period 16
+    >>> longer_histories_supported(causal_states(rhythm, max_history=2), rhythm)
+    False
+    """
+    raw = np.asarray(symbols)
+    alphabet, s = np.unique(raw, return_inverse=True)
+    j = model.effective_history
+    if model.max_history <= j or alphabet.size < 2:
+        return False
+    words = _distinct_words(s.astype(np.int64).ravel(), int(alphabet.size), j + 2)
+    return bool(_CELL_COUNT * words <= raw.size)
 
 
 def _choose_history(max_history: int | None, k: int, n: int, s: NDArray[np.int64]) -> int:

@@ -198,6 +198,27 @@ def test_symbolic_values_withholds_a_history_bound_complexity() -> None:
         assert abs(g["statistical_complexity_bits"] - 0.918296) < 0.05
 
 
+def _cyclic_chain(n: int, seed: int) -> np.ndarray:
+    """Four symbols on a cycle: stay with probability 3/4, else step to the next."""
+    steps = (np.random.default_rng(seed).random(n) < 0.25).astype(np.int64)
+    return np.cumsum(steps) % 4
+
+
+def test_symbolic_values_reports_a_ceiling_value_that_longer_histories_confirm() -> None:
+    # A first-order Markov chain with four distinct rows and a uniform stationary law:
+    # its causal states are the four symbols, C_mu = log2 4 = 2 bits and
+    # h = H(1/4, 3/4) = 0.811 bit (analytic; Crutchfield & Feldman 2003). With 20,000
+    # symbols the longer histories are tested with ~50 counts a cell and merge into the
+    # four states: C at the ceiling is then measured, and reported.
+    from measures.defaults import MOVEMENT_DEFAULTS
+    from measures.movement.state import symbolic_values
+
+    long = symbolic_values(_cyclic_chain(20_000, 4), 10.0, MOVEMENT_DEFAULTS)
+    assert long["_history_length"] >= 2
+    assert long["statistical_complexity_bits"] == pytest.approx(2.0, abs=0.01)
+    assert long["causal_entropy_rate_bits"] == pytest.approx(0.811278, abs=0.02)
+
+
 def test_symbolic_values_long_period_uses_the_determining_history() -> None:
     # Period 16 in runs of 6, 2, 6, 2 over four symbols (4,800 symbols): k**w <= N
     # stops w at 6, but the last 6 symbols fix the next one only from 7 on. The
