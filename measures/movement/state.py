@@ -315,10 +315,14 @@ def history_bound_note(
     if causal.longer_histories_supported(model, symbols):
         return ""
     j = model.effective_history
+    longer = (
+        f"{model.n_symbols} symbols support no longer history"
+        if model.max_history <= j
+        else f"histories up to {model.max_history} had too few counts to split them"
+    )
     return (
-        f"history-bound: the causal states are fixed by the last {j} symbol(s) (histories "
-        f"of up to {model.max_history} tested on {model.n_symbols} symbols, too few counts "
-        f"to split by longer ones) and every {j}-word is a state of its own, so "
+        f"history-bound: the causal states are fixed by the last {j} symbol(s) ({longer}) "
+        f"and every {j}-word is a state of its own, so "
         f"C = {c:.3f} bits sits at its ceiling log2 {round(2**ceiling)} = {ceiling:.3f} bits, "
         "set by the history length and the alphabet, not measured; the statistical "
         f"complexity is at least {c:.3f} bits (lower bound, not reported as a score)"
