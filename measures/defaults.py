@@ -95,6 +95,9 @@ MOVEMENT_DEFAULTS: dict[str, Any] = {
     "symbol_order": 2,  # ordinal order per channel (2: up/down)
     "symbols_per_delay": 4,  # symbol readings per decorrelation delay (16 per stride)
     "entropy_method": "block",
+    # C_mu at >= this share of log2(distinct L-histories), from a machine that is not
+    # periodic, is set by the history length: withheld (NaN), the lower bound in the note
+    "causal_ceiling_fraction": 0.99,
     # sample entropy on the coarse series
     "sampen_m": 2,
     "sampen_r": 0.2,

@@ -82,7 +82,13 @@ from scipy.sparse.csgraph import connected_components
 from measures._validation import InsufficientDataError, InvalidParameterError
 from measures.information._homogeneity import homogeneity_pvalue
 
-__all__ = ["SYNCHRONISED_THRESHOLD", "CausalStateModel", "causal_states", "determining_history"]
+__all__ = [
+    "SYNCHRONISED_THRESHOLD",
+    "CausalStateModel",
+    "causal_states",
+    "determining_history",
+    "longer_histories_supported",
+]
 
 #: Share of the predicted symbols a machine must explain to be ``reliable``.
 SYNCHRONISED_THRESHOLD = 0.95
@@ -158,6 +164,47 @@ class CausalStateModel:
     # significant) used to synchronise the machine on a sequence.
     _lookup_long: tuple[NDArray[np.int64], NDArray[np.int64]] = field(repr=False)
     _lookup_short: tuple[NDArray[np.int64], NDArray[np.int64]] = field(repr=False)
+
+    @property
+    def effective_history(self) -> int:
+        """Fewest past symbols that fix the state: the smallest j such that every
+        recurrent history's state is a function of its last j symbols (at most
+        ``max_history``; 0 for a one-state machine)."""
+        if self.n_states <= 1:
+            return 0
+        hist = [(h, i) for i, st in enumerate(self.states) for h in st if h]
+        for j in range(1, self.max_history + 1):
+            seen: dict[tuple[int, ...], int] = {}
+            if all(seen.setdefault(h[-j:], i) == i for h, i in hist if len(h) >= j):
+                return j
+        return self.max_history
+
+    @property
+    def history_ceiling_bits(self) -> float:
+        """log2 of the number of distinct last-j words of the recurrent histories,
+        j = :attr:`effective_history`.
+
+        A machine whose states are fixed by the last j symbols is a Markov chain
+        of order j on the symbols and has at most that many states, so
+        ``statistical_complexity <= history_ceiling_bits``. At the ceiling every
+        j-word is a state of its own, evenly occupied: C_mu is then the entropy
+        of the last j symbols, set by j and the alphabet (at j = 1, log2 of the
+        alphabet for evenly used symbols), not by structure the histories resolved.
+        """
+        j = self.effective_history
+        if j == 0:
+            return 0.0
+        words = {h[-j:] for st in self.states for h in st if len(h) >= j}
+        return float(np.log2(len(words)))
+
+    @property
+    def deterministic(self) -> bool:
+        """True when every state emits one symbol only (h_mu = 0: a periodic machine).
+
+        Longer histories cannot split such states (the next symbol is already
+        certain), so the machine cannot be a coarse version of a larger one.
+        """
+        return bool(np.all((self.emission_probabilities > 0).sum(axis=1) <= 1))
 
     def state_sequence(self, symbols: ArrayLike) -> NDArray[np.int64]:
         """State after each symbol of ``symbols`` (the state predicting the next one).
@@ -303,6 +350,32 @@ def determining_history(symbols: ArrayLike) -> int:
     if alphabet.size < 2:
         return 0
     return _determining_history(s.astype(np.int64).ravel(), int(alphabet.size), int(raw.size))
+
+
+def longer_histories_supported(model: CausalStateModel, symbols: ArrayLike) -> bool:
+    """Whether CSSR tested histories longer than the machine's effective history with support.
+
+    True when ``model.max_history > j`` (j = ``model.effective_history``) and
+    ``50 * W(j + 2) <= N``: every observed (history of j + 1 symbols, next symbol)
+    cell has about 50 counts, the support rule of the default history length and
+    of :func:`determining_history`. Then the merges of those longer histories into
+    the j-symbol states are evidence that the longer past adds nothing; otherwise
+    the homogeneity tests had too few counts to split them, and the states are
+    only as fine as j.
+
+    Examples
+    --------
+    >>> rhythm = np.tile(np.repeat([0, 1, 2, 3], 4), 5)  # 80 symbols, period 16
+    >>> longer_histories_supported(causal_states(rhythm, max_history=2), rhythm)
+    False
+    """
+    raw = np.asarray(symbols)
+    alphabet, s = np.unique(raw, return_inverse=True)
+    j = model.effective_history
+    if model.max_history <= j or alphabet.size < 2:
+        return False
+    words = _distinct_words(s.astype(np.int64).ravel(), int(alphabet.size), j + 2)
+    return bool(_CELL_COUNT * words <= raw.size)
 
 
 def _choose_history(max_history: int | None, k: int, n: int, s: NDArray[np.int64]) -> int:

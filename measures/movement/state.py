@@ -44,6 +44,18 @@ next) at a length the rule does not reach, both use the longer
 own default rule), where every word is well supported. A sequence too short for
 w = 2 gives NaN with a note naming N and w.
 
+Statistical complexity is withheld when the history length set it
+(:func:`history_bound_note`): if the reconstructed states are fixed by the last
+j symbols and every j-word is a state of its own (C_mu within
+``causal_ceiling_fraction`` of log2 of their number), C_mu is only the entropy
+of the last j symbols and a lower bound of the process's; it goes into the
+note and the score is NaN (periodic machines, whose states cannot split, are
+exempt, and so are machines whose longer histories were tested with about 50 counts
+per cell and merged into the j-symbol states). On demo-length passes (55-155
+symbols, histories of 1-2) this is the usual case: the four joint up/down
+symbols, read 16 times a stride, are their own states and C = log2 4 on every
+trial.
+
 Surrogate z-scores: each complexity score is recomputed on
 ``n_surrogates`` multichannel IAAFT surrogates of the state (Schreiber &
 Schmitz 1996, 2000: same amplitude distribution per component, same auto-
@@ -71,7 +83,7 @@ from measures._validation import InsufficientDataError
 from measures.dynamics import embedding, recurrence
 from measures.information import causal, entropy, ordinal, sampen, surrogates, symbolic, two_part
 
-__all__ = ["WholeBodyState", "state_scores", "whole_body_state"]
+__all__ = ["WholeBodyState", "history_bound_note", "state_scores", "whole_body_state"]
 
 
 @dataclass(frozen=True)
@@ -245,9 +257,13 @@ def symbolic_values(
         )
     if not isinstance(model, float):
         if model.reliable:
-            values["statistical_complexity_bits"] = model.statistical_complexity
             values["causal_entropy_rate_bits"] = model.entropy_rate
             values["causal_states_n"] = model.n_states
+            bound = history_bound_note(model, symbols, float(p["causal_ceiling_fraction"]))
+            if bound:
+                values["_causal_note"] = bound
+            else:
+                values["statistical_complexity_bits"] = model.statistical_complexity
         else:
             # A machine that explains too little of the sequence is never reported as if
             # it were right (Shalizi & Klinkner 2004 reconstruct a synchronised machine).
@@ -267,6 +283,50 @@ def symbolic_values(
         if not code.comparable:
             values["_two_part_note"] = code.note
     return values
+
+
+def history_bound_note(
+    model: causal.CausalStateModel, symbols: NDArray[np.int64], ceiling_fraction: float
+) -> str:
+    """Why C_mu is withheld when the history length, not the data, set it ("" if not).
+
+    A machine whose states are fixed by the last j symbols
+    (``model.effective_history``) has at most as many states as distinct j-words
+    (``model.history_ceiling_bits``). When its C_mu reaches ``ceiling_fraction``
+    of that ceiling every j-word is a state of its own, evenly occupied, and
+    C_mu is the entropy of the last j symbols. It is withheld unless
+
+    * every state's next symbol is certain (a periodic machine: its states
+      cannot split, the value is exact), or
+    * histories longer than j were tested with support
+      (:func:`measures.information.causal.longer_histories_supported`: about 50
+      counts per observed cell) and merged into the j-symbol states.
+
+    Otherwise longer or better-supported histories could split those states,
+    and splitting can only raise the entropy of the state distribution
+    (refinement), so the value is a lower bound of the process's C_mu set by j
+    and the alphabet: a finely read rhythm with one-symbol states gives log2 k
+    on every short trial, whatever the movement.
+    """
+    ceiling = model.history_ceiling_bits
+    c = model.statistical_complexity
+    if model.deterministic or ceiling <= 0 or c < ceiling_fraction * ceiling:
+        return ""
+    if causal.longer_histories_supported(model, symbols):
+        return ""
+    j = model.effective_history
+    longer = (
+        f"{model.n_symbols} symbols support no longer history"
+        if model.max_history <= j
+        else f"histories up to {model.max_history} had too few counts to split them"
+    )
+    return (
+        f"history-bound: the causal states are fixed by the last {j} symbol(s) ({longer}) "
+        f"and every {j}-word is a state of its own, so "
+        f"C = {c:.3f} bits sits at its ceiling log2 {round(2**ceiling)} = {ceiling:.3f} bits, "
+        "set by the history length and the alphabet, not measured; the statistical "
+        f"complexity is at least {c:.3f} bits (lower bound, not reported as a score)"
+    )
 
 
 def _rqa_values(

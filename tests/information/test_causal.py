@@ -312,3 +312,49 @@ def test_correct_machines_explain_almost_everything(rng):
     ):
         m = causal_states(x)
         assert m.reliable and m.synchronised_fraction > 0.999
+
+
+def _rhythm(n_strides: int) -> np.ndarray:
+    """Four symbols in runs of four: a period-16 sequence, C_mu = log2 16 = 4 bits, h = 0."""
+    return np.tile(np.repeat([0, 1, 2, 3], 4), n_strides)
+
+
+def test_history_ceiling_of_a_finely_read_rhythm_is_a_lower_bound():
+    # Period-p process (Crutchfield & Feldman 2003, Chaos 13:25): C_mu = log2 16 = 4 bits.
+    # With one-symbol histories the states can be no finer than the four symbols: the
+    # estimate sits at the ceiling log2 4 = 2 bits, below the true 4, and the machine is
+    # not periodic (a run can end or go on), so longer histories could split it.
+    short = causal_states(_rhythm(5), max_history=1)
+    assert short.effective_history == 1
+    assert short.history_ceiling_bits == pytest.approx(2.0)
+    assert short.statistical_complexity == pytest.approx(2.0, abs=0.01)
+    assert short.statistical_complexity < math.log2(16)
+    assert not short.deterministic
+    # With enough symbols the default rule resolves the period: 16 states, exact.
+    full = causal_states(_rhythm(100))
+    assert full.deterministic and full.effective_history == 4
+    assert_allclose(full.statistical_complexity, math.log2(16), atol=1e-9)
+    assert_allclose(full.history_ceiling_bits, math.log2(16), atol=1e-9)
+
+
+def test_golden_mean_sits_below_its_ceiling():
+    # Golden mean (CHECKS A4): two states fixed by the last symbol, C_mu = 0.918 < log2 2.
+    m = causal_states(simulate(GOLDEN_MEAN, 5000, seed=3))
+    assert m.effective_history == 1
+    assert m.history_ceiling_bits == pytest.approx(1.0)
+    assert_allclose(m.statistical_complexity, H_GOLDEN, atol=0.02)
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    st.lists(st.integers(0, 2), min_size=150, max_size=300),
+    st.integers(1, 2),
+)
+def test_complexity_never_exceeds_the_history_ceiling(symbols, history):
+    # C_mu is the entropy of at most 2**ceiling states (property; no published value).
+    s = np.asarray(symbols)
+    if np.unique(s).size ** (history + 1) > s.size:
+        return
+    m = causal_states(s, max_history=history)
+    assert m.statistical_complexity <= m.history_ceiling_bits + 1e-9
+    assert 0 <= m.effective_history <= m.max_history

@@ -151,14 +151,20 @@ def test_symbolic_values_period_p_and_too_short() -> None:
 def test_demo_length_trial_gets_entropy_rate_and_causal_states() -> None:
     # A 4 s pass (16 strides of the analytic walker at 300 Hz): the earlier rules
     # wanted 400 and 800 symbols; read four times a delay (227 symbols) the sequence
-    # supports words of 3 (the rule's figures are in the notes): both are defined.
+    # supports words of 3 (the rule's figures are in the notes). The entropy rate and
+    # the causal machine are defined; its states are the four symbols themselves, so
+    # C = log2 4 is at the ceiling of one-symbol states, below the walker's true
+    # log2 16 (period 16, Crutchfield & Feldman 2003): withheld, bound in the note.
     m = synthetic_walker(phases=WALK, duty=0.7, duration_s=4.0)
     s = movement_summary(
         m, frame_rate_hz=FS, marker_names=NAMES, roles=ROLES,
         params={"n_surrogates": 0, "cutoff_hz": 30.0},
     )  # fmt: skip
     assert np.isfinite(s.score("entropy_rate_bits"))
-    assert np.isfinite(s.score("statistical_complexity_bits"))
+    assert np.isfinite(s.score("causal_entropy_rate_bits"))
+    assert s.score("causal_states_n") == 4
+    assert np.isnan(s.score("statistical_complexity_bits"))
+    assert s.note("statistical_complexity_bits").startswith("history-bound")
     note = next(n for n in s.notes if n.startswith("symbols:"))
     assert "Marton-Shields" in note
     coarse = movement_summary(
@@ -170,6 +176,47 @@ def test_demo_length_trial_gets_entropy_rate_and_causal_states() -> None:
     # and h = 0 (period-p process, Crutchfield & Feldman 2003).
     assert coarse.score("statistical_complexity_bits") == pytest.approx(2.0, abs=1e-9)
     assert coarse.score("causal_entropy_rate_bits") == pytest.approx(0.0, abs=1e-9)
+
+
+def test_symbolic_values_withholds_a_history_bound_complexity() -> None:
+    # 80 symbols of four symbols in runs of four (period 16: C_mu = 4 bits, h = 0,
+    # Crutchfield & Feldman 2003) support histories of one symbol: the states are the
+    # four symbols, C = 2 bits = log2 4 at its ceiling, a lower bound of the true 4.
+    # Withheld, with the bound in the note; the causal entropy rate stays. The golden
+    # mean at the same length (C_mu = 0.918 bit, below its ceiling of 1) is reported.
+    from measures.defaults import MOVEMENT_DEFAULTS
+    from measures.movement.state import symbolic_values
+
+    v = symbolic_values(np.tile(np.repeat([0, 1, 2, 3], 4), 5), 10.0, MOVEMENT_DEFAULTS)
+    assert v["_history_length"] == 1 and v["causal_states_n"] == 4
+    assert "statistical_complexity_bits" not in v
+    assert v["_causal_note"].startswith("history-bound")
+    assert "ceiling log2 4 = 2.000 bits" in v["_causal_note"]
+    assert np.isfinite(v["causal_entropy_rate_bits"])
+    for seed in range(3):
+        g = symbolic_values(_golden_mean(100, seed), 10.0, MOVEMENT_DEFAULTS)
+        assert abs(g["statistical_complexity_bits"] - 0.918296) < 0.05
+
+
+def _cyclic_chain(n: int, seed: int) -> np.ndarray:
+    """Four symbols on a cycle: stay with probability 3/4, else step to the next."""
+    steps = (np.random.default_rng(seed).random(n) < 0.25).astype(np.int64)
+    return np.cumsum(steps) % 4
+
+
+def test_symbolic_values_reports_a_ceiling_value_that_longer_histories_confirm() -> None:
+    # A first-order Markov chain with four distinct rows and a uniform stationary law:
+    # its causal states are the four symbols, C_mu = log2 4 = 2 bits and
+    # h = H(1/4, 3/4) = 0.811 bit (analytic; Crutchfield & Feldman 2003). With 20,000
+    # symbols the longer histories are tested with ~50 counts a cell and merge into the
+    # four states: C at the ceiling is then measured, and reported.
+    from measures.defaults import MOVEMENT_DEFAULTS
+    from measures.movement.state import symbolic_values
+
+    long = symbolic_values(_cyclic_chain(20_000, 4), 10.0, MOVEMENT_DEFAULTS)
+    assert long["_history_length"] >= 2
+    assert long["statistical_complexity_bits"] == pytest.approx(2.0, abs=0.01)
+    assert long["causal_entropy_rate_bits"] == pytest.approx(0.811278, abs=0.02)
 
 
 def test_symbolic_values_long_period_uses_the_determining_history() -> None:
