@@ -505,7 +505,8 @@ def main() -> None:
             "and causal-state history w - 1 from the sample size (supported_word_length, "
             "after Marton & Shields 1994: k**w <= N and W(w)**2 <= N). Short trials get "
             "short histories: on a demo pass (about 80 symbols) causal states resolve little "
-            "more than the four symbols, so statistical complexity stays near 2 bits.",
+            "more than the four symbols, so statistical complexity sits at its ceiling "
+            "(log2 4) and is withheld (NaN with the bound in its note).",
             "Effects are second group minus first (run minus walk; scree minus ripples).",
         ],
         "wall_time_s": total,
