@@ -147,6 +147,41 @@ def test_gradient_entropies_match_gradient_entropy(case):
     np.testing.assert_array_equal(s.slope_counts, ge.slope_counts)
 
 
+def _edge_grids():
+    x = np.arange(48.0)
+    rough = self_affine_surface(96, 0.7, seed=3, rms_m=2.0)
+    return [
+        np.zeros((40, 40)),  # slope 0 on the first edge, atan2(0, 0): aspect 180 on an edge
+        np.add.outer(x, x),  # 45 degrees of aspect steps, slope atan(sqrt 2)
+        np.add.outer(0 * x, x),  # slope exactly 45 degrees (an edge), aspect 180 (an edge)
+        np.add.outer(-x, 0 * x),  # aspect 90 (an edge)
+        np.add.outer(x * math.tan(math.radians(2.0)), 0 * x),  # slope at the 2-degree floor
+        np.round(rough),  # quantised: many equal gradients, many exactly on edges
+        rough * 1e3,  # nearly vertical: slopes close to 90 degrees (the top edge)
+    ]
+
+
+@pytest.mark.parametrize("k", range(7))
+@pytest.mark.parametrize("bins", [(1.0, 10.0, 2.0), (0.7, 7.5, 0.0), (5.0, 45.0, 30.0)])
+def test_compiled_gradient_histograms_match_gradient_entropy_on_edges(k, bins):
+    # The compiled pass bins a fast arctangent and redoes cells within 1e-6 degrees
+    # of an edge or the floor exactly: its counts must be gradient_entropy's, also
+    # where many cells sit exactly on bin edges.
+    from measures.terrain.summary import _gradient_entropy_full
+
+    z = _edge_grids()[k]
+    sb, ab, floor = bins
+    p = {"slope_bin_deg": sb, "aspect_bin_deg": ab, "slope_floor_deg": floor}
+    for dx, dy in [(1.0, 1.0), (0.5, 2.0)]:
+        ref = gradient_entropy(
+            z, dx, dy, slope_bin_deg=sb, aspect_bin_deg=ab, slope_floor_deg=floor
+        )
+        got, _ = _gradient_entropy_full(z, dx, dy, p)
+        np.testing.assert_array_equal(got.slope_counts, ref.slope_counts)
+        np.testing.assert_array_equal(got.aspect_counts, ref.aspect_counts)
+        assert got.n_aspect_cells == ref.n_aspect_cells
+
+
 def test_ordinal_scores_match_ordpy(case):
     z, s, _ = case
     if np.isnan(z).any():
