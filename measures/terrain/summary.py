@@ -12,7 +12,7 @@ edges would bend the very power law being fitted.
 from __future__ import annotations
 
 import os
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any, cast
@@ -453,10 +453,14 @@ def _ordinal_scores(
     p: Mapping[str, Any],
     notes: list[str],
     raw: NDArray[np.float64] | None = None,
+    beside: Callable[[], None] | None = None,
 ) -> list[Score]:
     """Permutation entropy and JS complexity of the whole field (fused kernel), with surrogates.
 
     ``raw``: the measured heights (ties are their equalities; see ordinal_counts).
+    ``beside``: called once the surrogates run on single-thread kernels only
+    (no numba parallel kernel of this function runs after it), to start other
+    work beside them; not called otherwise.
     """
     order = (int(p["ordinal_order"][0]), int(p["ordinal_order"][1]))
     ties, seed = p["ordinal_ties"], int(p["surrogate_seed"])
@@ -499,6 +503,8 @@ def _ordinal_scores(
         # Only the 2 x 2 kernel has a single-thread variant; the generic one is parallel.
         threaded = _WORKERS > 1 and n_sur > 1 and order == (2, 2)
         if threaded:
+            if beside is not None and _concurrent_parallel_ok():
+                beside()
             with ThreadPoolExecutor(_WORKERS) as pool:
                 sur = np.array(list(pool.map(one, range(n_sur))))
         else:
@@ -511,6 +517,32 @@ def _ordinal_scores(
         Score("permutation_entropy_2d_tie_fraction", tie_frac, "1", note=tie_note),
     ]
     return [s if s.name in wanted or s.surrogate_z is None else _without_z(s) for s in out]
+
+
+def _concurrent_parallel_ok() -> bool:
+    """Whether numba's threading layer lets another thread launch parallel kernels."""
+    import numba
+
+    try:
+        # "workqueue" is not thread-safe; "omp" and "tbb" are (numba's documentation).
+        return numba.threading_layer() in ("omp", "tbb")
+    except ValueError:  # no parallel kernel has run yet
+        return False
+
+
+def _field_scores_one_thread(
+    zb: NDArray[np.float64], p: Mapping[str, Any], notes: list[str]
+) -> list[Score]:
+    """:func:`_field_scores` with one numba thread (beside the ordinal surrogates).
+
+    ``set_num_threads`` is per thread: the setting ends with the side thread.
+    Counts are integers and the chunking does not depend on the thread
+    count, so the scores are those of the parallel run.
+    """
+    import numba
+
+    numba.set_num_threads(1)
+    return _field_scores(zb, p, notes)
 
 
 def _without_z(s: Score) -> Score:
@@ -786,8 +818,19 @@ def terrain_summary(
     raw = None
     if band_m is None:
         raw = arr if mask is None else np.where(mask, arr, np.nan)
-    scores += _ordinal_scores(zi, p, notes, raw)
-    scores += _field_scores(zi, p, notes)
+    # The symbol-field scores may run beside the ordinal surrogates (on a side
+    # thread with one numba thread, while the surrogates' single-thread kernels
+    # fill the cores); otherwise after them. The same numbers either way.
+    field_notes: list[str] = []
+    with ThreadPoolExecutor(1) as side:
+        field_job: list[Any] = []
+
+        def start_fields(z: NDArray[np.float64] = zi) -> None:
+            field_job.append(side.submit(_field_scores_one_thread, z, p, field_notes))
+
+        scores += _ordinal_scores(zi, p, notes, raw, start_fields)
+        scores += field_job[0].result() if field_job else _field_scores(zi, p, field_notes)
+    notes += field_notes
     del zi
     if radial is not None:
         radial_q, radial_c = radial.q, radial.psd
