@@ -168,12 +168,14 @@ def _tied_bits(
     nx: int,
     use_key: bool,
     s: np.uint64,
+    off: Any,
 ) -> int:
     """The 6 comparison bits of a window holding a tie (equal raw heights)."""
     c0 = i * nx + j
     c2 = c0 + nx
-    v0, v1, v2, v3 = x[i, j], x[i, j + 1], x[i + 1, j], x[i + 1, j + 1]
-    r0, r1, r2, r3 = raw[i, j], raw[i, j + 1], raw[i + 1, j], raw[i + 1, j + 1]
+    v0, v1, v2, v3 = x[i, j] + off, x[i, j + 1] + off, x[i + 1, j] + off, x[i + 1, j + 1] + off
+    r0, r1 = raw[i, j] + off, raw[i, j + 1] + off
+    r2, r3 = raw[i + 1, j] + off, raw[i + 1, j + 1] + off
     b01 = _below(v0, v1, r0, r1, c0, c0 + 1, use_key, s)[0]
     b02 = _below(v0, v2, r0, r2, c0, c2, use_key, s)[0]
     b03 = _below(v0, v3, r0, r3, c0, c2 + 1, use_key, s)[0]
@@ -195,8 +197,12 @@ def _rows_22(  # pragma: no cover - compiled
     i0: int,
     i1: int,
     hist: NDArray[np.int64],
+    off: Any,
 ) -> int:
     """Windows with top rows i0 .. i1 - 1 into ``hist`` (4 x 64 bins); returns the tied count.
+
+    ``off`` (of x's dtype) is added to every value of x and raw before any
+    comparison, with x's rounding: the counts of ``x + off`` without that array.
 
     Two passes per row: the first computes every window's comparison bits
     and tie flag without branches (the compiler vectorises it), the second
@@ -212,7 +218,7 @@ def _rows_22(  # pragma: no cover - compiled
         a0, a1 = x[i], x[i + 1]
         if same:
             for j in range(ox):
-                v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
+                v0, v1, v2, v3 = a0[j] + off, a0[j + 1] + off, a1[j] + off, a1[j + 1] + off
                 code = (
                     (v0 <= v1) * 1
                     + (v0 <= v2) * 2
@@ -226,8 +232,9 @@ def _rows_22(  # pragma: no cover - compiled
         else:
             q0, q1 = raw[i], raw[i + 1]
             for j in range(ox):
-                v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
-                r0, r1, r2, r3 = q0[j], q0[j + 1], q1[j], q1[j + 1]
+                v0, v1, v2, v3 = a0[j] + off, a0[j + 1] + off, a1[j] + off, a1[j + 1] + off
+                r0, r1 = q0[j] + off, q0[j + 1] + off
+                r2, r3 = q1[j] + off, q1[j + 1] + off
                 code = (
                     (v0 <= v1) * 1
                     + (v0 <= v2) * 2
@@ -242,7 +249,7 @@ def _rows_22(  # pragma: no cover - compiled
             code = buf[j]
             if code >= 64:
                 n_tie += 1
-                code = _tied_bits(x, raw, i, j, nx, use_key, s)
+                code = _tied_bits(x, raw, i, j, nx, use_key, s, off)
             hist[(j & 3) * 64 + code] += 1
     return n_tie
 
@@ -255,6 +262,7 @@ def _ordinal_kernel_22(  # pragma: no cover - compiled
     use_key: bool,
     seed: int,
     n_chunks: int,
+    off: Any,
 ) -> tuple[NDArray[np.int64], np.int64]:
     """The 2 x 2 case of ``_ordinal_kernel``: a 6-bit comparison vector per window."""
     oy = x.shape[0] - 1
@@ -264,7 +272,7 @@ def _ordinal_kernel_22(  # pragma: no cover - compiled
     s = np.uint64(seed) * _GOLDEN
     for c in prange(n_chunks):
         i0, i1 = c * rows_per, min(oy, (c + 1) * rows_per)
-        ties[c * 8] = _rows_22(x, raw, same, use_key, s, i0, i1, hist[c])
+        ties[c * 8] = _rows_22(x, raw, same, use_key, s, i0, i1, hist[c], off)
     return hist, ties.sum()
 
 
@@ -276,11 +284,12 @@ def _ordinal_kernel_22_serial(  # pragma: no cover - compiled
     use_key: bool,
     seed: int,
     n_chunks: int,
+    off: Any,
 ) -> tuple[NDArray[np.int64], np.int64]:
     """``_ordinal_kernel_22`` on the calling thread, without the GIL (one surrogate per thread)."""
     hist = np.zeros((1, 4 * 64 + 64), dtype=np.int64)
     s = np.uint64(seed) * _GOLDEN
-    n_tie = _rows_22(x, raw, same, use_key, s, 0, x.shape[0] - 1, hist[0])
+    n_tie = _rows_22(x, raw, same, use_key, s, 0, x.shape[0] - 1, hist[0], off)
     return hist, np.int64(n_tie)
 
 
@@ -292,8 +301,12 @@ def ordinal_counts(
     seed: int = 0,
     raw: NDArray | None = None,
     serial: bool = False,
+    offset: float = 0.0,
 ) -> tuple[NDArray[np.int64], int]:
     """Histogram over all D! patterns of ``order = (dx, dy)`` windows, and the tied-window count.
+
+    ``offset``: the counts are those of ``x + offset`` computed in x's dtype
+    (as ``x += offset`` would round), without writing that array (2 x 2 only).
 
     ``raw``: the heights as measured, when ``x`` is a levelled copy. Ties are
     equalities of the measured heights: subtracting a plane from quantised
@@ -308,12 +321,21 @@ def ordinal_counts(
     if ref.shape != arr.shape:
         raise ValueError("raw must have the shape of x")
     chunks = max(1, min(arr.shape[0], 4 * (os.cpu_count() or 1)))
+    if offset and (wx, wy) != (2, 2):
+        arr = arr + arr.dtype.type(offset)
+        ref = arr if raw is None else ref + arr.dtype.type(offset)
     if (wx, wy) == (2, 2):
         ref = ref.astype(arr.dtype, copy=False)
         same = raw is None
         kernel = _ordinal_kernel_22_serial if serial else _ordinal_kernel_22
         hist, n_ties = kernel(
-            arr, np.ascontiguousarray(ref), same, ties == "random", int(seed) & 0x7FFFFFFF, chunks
+            arr,
+            np.ascontiguousarray(ref),
+            same,
+            ties == "random",
+            int(seed) & 0x7FFFFFFF,
+            chunks,
+            arr.dtype.type(offset),
         )
         by_bits = hist[:, : 4 * 64].reshape(-1, 64).sum(axis=0)
         counts = np.bincount(
@@ -453,14 +475,17 @@ def phase_surrogates(
     del spec
     base = int(seed) & 0xFFFFFFFF
 
-    def make(k: int, serial: bool = False) -> NDArray[np.float32]:
+    def make(k: int, serial: bool = False, centred: bool = False) -> NDArray[np.float32]:
         # serial: on the calling thread only (the caller runs several at once).
+        # centred: without the mean (``make.mean``, added as float32 by the caller).
         rng = np.random.default_rng([base, int(k)])
         f = _phase_spectrum(amp, rng, shape[0], shape[1] % 2 == 0, serial)
         out = _irfft2(f, shape, 1 if serial else (workers or 1))
-        out += np.float32(mean)
+        if not centred:
+            out += np.float32(mean)
         return out
 
+    make.mean = np.float32(mean)  # type: ignore[attr-defined]
     return make
 
 

@@ -439,10 +439,13 @@ def _ordinal_hc(
     seed: int,
     raw: NDArray[np.floating[Any]] | None = None,
     serial: bool = False,
+    offset: float = 0.0,
 ) -> tuple[float, float, float, int, int]:
     from measures.information.ordinal import jensen_shannon_complexity
 
-    counts, n_ties = ordinal_counts(x, order, ties=ties, seed=seed, raw=raw, serial=serial)
+    counts, n_ties = ordinal_counts(
+        x, order, ties=ties, seed=seed, raw=raw, serial=serial, offset=offset
+    )
     n = int(counts.sum())
     h, c = jensen_shannon_complexity(counts / n)
     return float(h), float(c), n_ties / n, n, counts.size
@@ -495,8 +498,11 @@ def _ordinal_scores(
             # On a thread of its own: every step releases the GIL (numpy's
             # generator, compiled kernels, the FFT); surrogate k and its tie
             # seed depend on k only, so the order they finish in changes nothing.
-            x = make(k, serial=threaded)
-            h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded)[:2]
+            # The mean is added inside the counting pass (same float32 sums).
+            x = make(k, serial=threaded, centred=True)
+            h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded, offset=make.mean)[
+                :2
+            ]
             return h_k, c_k
 
         n_sur = int(p["n_surrogates"])

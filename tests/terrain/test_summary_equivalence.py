@@ -300,3 +300,22 @@ def test_surrogate_z_scores_match_plainly_built_surrogates(case):
         got = s.score(name).surrogate_z
         assert got is not None, name
         assert abs(got - ref) <= 0.05 + 2e-3 * abs(ref), (name, got, ref)
+
+
+@pytest.mark.parametrize("ties", ["random", "stable"])
+@pytest.mark.parametrize("serial", [False, True])
+def test_ordinal_counts_with_offset_equal_counts_of_the_shifted_field(ties, serial):
+    # The surrogates' mean is added inside the counting pass: the counts must be
+    # those of the float32 field with the mean added (x += mean), ties included.
+    # A coarse field plus a large offset makes float32 rounding create new ties.
+    from measures.terrain._fastfield import ordinal_counts
+
+    rng = np.random.default_rng(5)
+    x = (np.round(rng.standard_normal((120, 90)) * 50) / 7).astype(np.float32)
+    for off in (np.float32(0.37), np.float32(3.1e6)):
+        shifted = x + off
+        ref = ordinal_counts(shifted, (2, 2), ties=ties, seed=3, serial=serial)
+        got = ordinal_counts(x, (2, 2), ties=ties, seed=3, serial=serial, offset=off)
+        np.testing.assert_array_equal(got[0], ref[0])
+        assert got[1] == ref[1]
+    assert ordinal_counts(x, (2, 2), offset=np.float32(3.1e6))[1] > ordinal_counts(x, (2, 2))[1]
