@@ -499,7 +499,7 @@ def _ordinal_scores(
             # generator, compiled kernels, the FFT); surrogate k and its tie
             # seed depend on k only, so the order they finish in changes nothing.
             # The mean is added inside the counting pass (same float32 sums).
-            x = make(k, serial=threaded, centred=True)
+            x = make(k, serial=threaded, centred=True, reuse=True)
             h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded, offset=make.mean)[
                 :2
             ]
