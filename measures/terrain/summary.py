@@ -13,9 +13,8 @@ from __future__ import annotations
 
 import os
 import threading
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Callable, Mapping
 from concurrent.futures import ThreadPoolExecutor
-from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any, cast
 
@@ -470,6 +469,11 @@ class _SurrogateLane:
         self._lock = threading.Lock()
         self.results: list[tuple[float, float]] = [(np.nan, np.nan)] * n
 
+    @property
+    def exhausted(self) -> bool:
+        """Every surrogate has been taken (the last ones may still be running)."""
+        return self._next >= self._n
+
     def cancel(self) -> None:
         """Take no further surrogates (the one in progress finishes)."""
         with self._lock:
@@ -490,7 +494,7 @@ class _OrdinalScores:
 
     The observed value is computed on construction; with the 2 x 2 kernel
     and two cores the surrogates start at once on a background thread
-    (``lane_running``), and the caller's thread joins them in :meth:`finish`.
+    (``lane``), and the caller's thread joins them in :meth:`finish`.
     ``raw``: the measured heights (ties are their equalities; see ordinal_counts).
     """
 
@@ -501,7 +505,7 @@ class _OrdinalScores:
         notes: list[str],
         raw: NDArray[np.float64] | None = None,
     ) -> None:
-        self.lane_running = False
+        self.lane: _SurrogateLane | None = None
         self._early: list[Score] | None = None
         self._lane: _SurrogateLane | None = None
         self._pool: ThreadPoolExecutor | None = None
@@ -554,7 +558,7 @@ class _OrdinalScores:
             self._lane = _SurrogateLane(one, n_sur)
             self._pool = ThreadPoolExecutor(1)
             self._future = self._pool.submit(self._lane.run)
-            self.lane_running = True
+            self.lane = self._lane
         else:
             self._sequential = lambda: [one(k) for k in range(n_sur)]
 
@@ -592,27 +596,42 @@ class _OrdinalScores:
         ]
 
 
-@contextmanager
-def _numba_threads(n: int | None) -> Iterator[None]:
-    """numba's thread count for this thread's parallel kernels (None: unchanged).
+class _LaneThreads:
+    """numba's thread count for this thread's parallel kernels beside a surrogate lane.
 
-    While the ordinal surrogates run on a background thread, the summary's
-    other stages run on one numba thread, so the two lanes share the two
-    cores without oversubscription. Every parallel kernel they call writes
-    per-chunk or per-row results with chunks fixed by the input, so its
-    output does not depend on the thread count.
+    While the ordinal surrogates run on their background thread, the
+    summary's other stages run on one numba thread, so the two lanes share
+    the two cores without oversubscription; :meth:`refresh` (between stages)
+    gives them every thread back once the lane has no surrogate left to
+    take. Every parallel kernel they call writes per-chunk or per-row
+    results with chunks fixed by the input, so its output does not depend
+    on the thread count.
     """
-    if n is None:
-        yield
-        return
-    import numba
 
-    prev = numba.get_num_threads()
-    numba.set_num_threads(min(n, prev))
-    try:
-        yield
-    finally:
-        numba.set_num_threads(prev)
+    def __init__(self, lane: _SurrogateLane | None) -> None:
+        self._lane = lane
+        self._prev: int | None = None
+
+    def __enter__(self) -> _LaneThreads:
+        if self._lane is not None:
+            import numba
+
+            self._prev = numba.get_num_threads()
+            numba.set_num_threads(1)
+            self.refresh()
+        return self
+
+    def refresh(self) -> None:
+        if self._prev is not None and self._lane is not None and self._lane.exhausted:
+            import numba
+
+            numba.set_num_threads(self._prev)
+
+    def __exit__(self, *exc: object) -> None:
+        if self._prev is not None:
+            import numba
+
+            numba.set_num_threads(self._prev)
 
 
 def _without_z(s: Score) -> Score:
@@ -807,18 +826,19 @@ def terrain_summary(
     # The ordinal surrogates (the largest part) start now on a background lane
     # of single-thread kernels; the stages below run beside them on one numba
     # thread, then this thread joins the surrogates left. The same numbers as
-    # one stage after the other (see _SurrogateLane, _numba_threads).
+    # one stage after the other (see _SurrogateLane, _LaneThreads).
     ord_notes: list[str] = []
     ordinal = _OrdinalScores(zi, p, ord_notes, raw)
     field_notes: list[str] = []
     try:
-        with _numba_threads(1 if ordinal.lane_running else None):
+        with _LaneThreads(ordinal.lane) as lanes:
             # Hole-free grids: slope and aspect histograms (and, without a band, the
             # Sdq/Sdr sums of the same gradients) in one compiled pass.
             ge: GradientEntropy | None = None
             sums = None
             if mask is None:
                 ge, sums = _gradient_entropy_full(zb, dx_f, dy_f, p)
+            lanes.refresh()
             ap = _areal_from_levelled(
                 za, dx_f, dy_f, mask, p["detrend"], acf_s, None, sums if band is None else None
             )
@@ -843,6 +863,7 @@ def terrain_summary(
                 )
             radial: RadialPSD | None = None
             hurst_spectrum = None
+            lanes.refresh()
             if spectral_ok:
                 # One periodogram of the filled, levelled, windowed grid serves the radial
                 # PSD (plotted and fitted for H) and, without a band, the surface moments.
@@ -883,6 +904,7 @@ def terrain_summary(
                     _nan("psd_anisotropy_ratio", "1", reason),
                     _nan("lay_direction_deg", "deg", reason),
                 ]
+            lanes.refresh()
             hs, psd_fit = _hurst_scores(
                 zl, dx_f, dy_f, mask, band, p, notes, hole_floor, hurst_spectrum
             )
@@ -907,6 +929,7 @@ def terrain_summary(
                     else "no cell steeper than the floor",
                 ),
             ]
+            lanes.refresh()
             field_scores = _field_scores(zi, p, field_notes)
     except BaseException:
         ordinal.cancel()  # the background lane stops after its current surrogate
