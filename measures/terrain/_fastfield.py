@@ -742,3 +742,38 @@ def height_moments(z: NDArray[np.float64]) -> tuple[float, float, float, float, 
         float(rows[:, 4].max()),
         float(rows[:, 5].min()),
     )
+
+
+@njit(cache=True, parallel=True)
+def power_inplace(spec: NDArray[np.complex64]) -> None:  # pragma: no cover - compiled
+    """spec = |spec|^2 + 0i in place, rounded as numpy's re*re + im*im in spec's dtype."""
+    for i in prange(spec.shape[0]):
+        row = spec[i]
+        for j in range(row.size):
+            re, im = row[j].real, row[j].imag
+            re2 = re * re
+            im2 = im * im
+            row[j] = re2 + im2
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def acf_full_normalised(  # pragma: no cover - compiled
+    num: NDArray[np.float32], cols: NDArray[np.int64], ny: int, nx: int
+) -> NDArray[np.float64]:
+    """Centred ACF of a full grid from the kept rows of its circular correlation.
+
+    ``num[:, cols]`` in float64, divided by the pairs per row lag (ny - |ty|),
+    then per column lag (nx - |tx|), then by the zero lag so divided: the
+    three in-place divisions of the numpy path, in the same order (same
+    bits), in one pass; a flat grid gives NaN (0 / 0).
+    """
+    hy, hx = ny // 2, nx // 2
+    out = np.empty((num.shape[0], cols.size))
+    zero = np.float64(num[hy, cols[hx]]) / np.float64(ny) / np.float64(nx)
+    for i in prange(num.shape[0]):
+        dy = np.float64(ny - abs(i - hy))
+        for j in range(cols.size):
+            v = np.float64(num[i, cols[j]]) / dy
+            v = v / np.float64(nx - abs(j - hx))
+            out[i, j] = v / zero
+    return out

@@ -319,3 +319,31 @@ def test_ordinal_counts_with_offset_equal_counts_of_the_shifted_field(ties, seri
         np.testing.assert_array_equal(got[0], ref[0])
         assert got[1] == ref[1]
     assert ordinal_counts(x, (2, 2), offset=np.float32(3.1e6))[1] > ordinal_counts(x, (2, 2))[1]
+
+
+@pytest.mark.parametrize("shape", [(64, 64), (61, 90), (90, 61)])
+def test_compiled_acf_steps_equal_the_numpy_steps(shape):
+    # The ACF's power spectrum and its full-grid normalisation are compiled
+    # passes: they must give numpy's re*re + im*im and its three in-place
+    # divisions bit for bit (flat grid: NaN).
+    from measures.terrain._fastfield import acf_full_normalised, power_inplace
+
+    rng = np.random.default_rng(shape[1])
+    spec = (rng.standard_normal(shape) + 1j * rng.standard_normal(shape)).astype(np.complex64)
+    ref = spec.real**2
+    ref += spec.imag**2
+    got = spec.copy()
+    power_inplace(got)
+    np.testing.assert_array_equal(got.real, ref)
+    assert not got.imag.any()
+    ny, nx = shape[0] - 7, (shape[1] - 3) // 2 * 2 - 1
+    hy, hx = ny // 2, nx // 2
+    num = rng.standard_normal((2 * hy + 1, shape[1])).astype(np.float32)
+    cols = np.r_[shape[1] - hx : shape[1], 0 : hx + 1]
+    ref = np.asarray(num[:, cols], dtype=np.float64)
+    ref /= (ny - np.abs(np.arange(-hy, hy + 1))).astype(np.float64)[:, None]
+    ref /= (nx - np.abs(np.arange(-hx, hx + 1))).astype(np.float64)[None, :]
+    ref /= ref[hy, hx]
+    np.testing.assert_array_equal(acf_full_normalised(num, cols, ny, nx), ref)
+    num[hy, cols[hx]] = 0.0
+    assert np.isnan(acf_full_normalised(num * 0, cols, ny, nx)).all()
