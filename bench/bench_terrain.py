@@ -23,8 +23,13 @@ import statistics
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
+
+# The checkout's packages, not an installed copy (the script's folder is bench/,
+# so the checkout root is not on sys.path by itself).
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 
 def _median_time(fn, repeats):
