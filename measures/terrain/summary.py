@@ -541,12 +541,14 @@ class _OrdinalScores:
         self._wanted = [n for n in _ORDINAL_SCORES if n in p["surrogate_scores"]]
         if not (self._wanted and p["n_surrogates"] > 0):
             return
-        make = phase_surrogates(zb, seed, workers=_WORKERS)
         n_sur = int(p["n_surrogates"])
         # Only the 2 x 2 kernel has a single-thread variant; the generic one is parallel.
         threaded = _WORKERS > 1 and n_sur > 1 and order == (2, 2)
+        made: list[Callable[..., NDArray[np.float32]]] = []
+        self._made = made
 
         def one(k: int) -> tuple[float, float]:
+            make = made[0]
             # The mean is added inside the counting pass (same float32 sums).
             x = make(k, serial=threaded, centred=True, reuse=threaded)
             h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded, offset=make.mean)[
@@ -555,11 +557,23 @@ class _OrdinalScores:
             return h_k, c_k
 
         if threaded:
-            self._lane = _SurrogateLane(one, n_sur)
+            lane = _SurrogateLane(one, n_sur)
+            self._ready = threading.Event()
+
+            def background() -> None:
+                # The amplitude spectrum too (an FFT of the grid) is made here,
+                # so the caller's stages start at once.
+                try:
+                    made.append(phase_surrogates(zb, seed, workers=_WORKERS))
+                finally:
+                    self._ready.set()
+                lane.run()
+
+            self._lane = self.lane = lane
             self._pool = ThreadPoolExecutor(1)
-            self._future = self._pool.submit(self._lane.run)
-            self.lane = self._lane
+            self._future = self._pool.submit(background)
         else:
+            made.append(phase_surrogates(zb, seed, workers=_WORKERS))
             self._sequential = lambda: [one(k) for k in range(n_sur)]
 
     def cancel(self) -> None:
@@ -576,7 +590,9 @@ class _OrdinalScores:
         sur = None
         if self._lane is not None and self._pool is not None:
             try:
-                self._lane.run()
+                self._ready.wait()
+                if self._made:  # else the set-up failed: result() raises its error
+                    self._lane.run()
                 self._future.result()
             finally:
                 self._pool.shutdown()
