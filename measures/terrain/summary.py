@@ -16,6 +16,7 @@ import threading
 from collections.abc import Callable, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
+from functools import partial
 from typing import Any, cast
 
 import numpy as np
@@ -468,6 +469,35 @@ class _SurrogateLane:
         self._next = 0
         self._lock = threading.Lock()
         self.results: list[tuple[float, float]] = [(np.nan, np.nan)] * n
+        # One more task, run once by whichever thread takes it first: the
+        # background thread after the surrogates, the caller's when its own
+        # stages are done (whichever lane is free first), on one numba thread
+        # beside the other lane (see _LaneThreads).
+        self._extra: Callable[[], Any] | None = None
+        self.extra_result: Any = None
+        self.extra_taken = False
+
+    def offer(self, task: Callable[[], Any]) -> None:
+        self._extra = task
+
+    def run_extra(self, one_numba_thread: bool) -> bool:
+        """Run the extra task here if nobody has taken it; True if it ran here."""
+        with self._lock:
+            if self._extra is None or self.extra_taken:
+                return False
+            self.extra_taken = True
+        if not one_numba_thread:
+            self.extra_result = self._extra()
+            return True
+        import numba
+
+        prev = numba.get_num_threads()
+        numba.set_num_threads(1)
+        try:
+            self.extra_result = self._extra()
+        finally:
+            numba.set_num_threads(prev)
+        return True
 
     @property
     def exhausted(self) -> bool:
@@ -475,9 +505,10 @@ class _SurrogateLane:
         return self._next >= self._n
 
     def cancel(self) -> None:
-        """Take no further surrogates (the one in progress finishes)."""
+        """Take no further surrogates or the extra task (the one in progress finishes)."""
         with self._lock:
             self._next = self._n
+            self.extra_taken = True
 
     def run(self) -> None:
         while True:
@@ -568,6 +599,7 @@ class _OrdinalScores:
                 finally:
                     self._ready.set()
                 lane.run()
+                lane.run_extra(one_numba_thread=True)
 
             self._lane = self.lane = lane
             self._pool = ThreadPoolExecutor(1)
@@ -648,6 +680,17 @@ class _LaneThreads:
             import numba
 
             numba.set_num_threads(self._prev)
+
+
+def _concurrent_parallel_ok() -> bool:
+    """Whether numba's threading layer lets two threads launch parallel kernels at once."""
+    import numba
+
+    try:
+        # "workqueue" is not thread-safe; "omp" and "tbb" are (numba's documentation).
+        return numba.threading_layer() in ("omp", "tbb")
+    except ValueError:  # no parallel kernel has run yet
+        return False
 
 
 def _without_z(s: Score) -> Score:
@@ -846,6 +889,13 @@ def terrain_summary(
     ord_notes: list[str] = []
     ordinal = _OrdinalScores(zi, p, ord_notes, raw)
     field_notes: list[str] = []
+    # The symbol-field scores go to whichever lane is free first; the background
+    # lane may take them only where numba lets two threads launch parallel
+    # kernels at once.
+    shared_fields = ordinal.lane is not None and _concurrent_parallel_ok()
+    if shared_fields and ordinal.lane is not None:
+        ordinal.lane.offer(partial(_field_scores, zi, p, field_notes))
+    field_scores: list[Score] = []
     try:
         with _LaneThreads(ordinal.lane) as lanes:
             # Hole-free grids: slope and aspect histograms (and, without a band, the
@@ -946,11 +996,16 @@ def terrain_summary(
                 ),
             ]
             lanes.refresh()
-            field_scores = _field_scores(zi, p, field_notes)
+            if not shared_fields:
+                field_scores = _field_scores(zi, p, field_notes)
+            elif ordinal.lane is not None:
+                ordinal.lane.run_extra(one_numba_thread=not ordinal.lane.exhausted)
     except BaseException:
         ordinal.cancel()  # the background lane stops after its current surrogate
         raise
     scores += ordinal.finish()
+    if shared_fields and ordinal.lane is not None:
+        field_scores = ordinal.lane.extra_result
     scores += field_scores
     notes += ord_notes + field_notes
     del zi
