@@ -347,3 +347,26 @@ def test_compiled_acf_steps_equal_the_numpy_steps(shape):
     np.testing.assert_array_equal(acf_full_normalised(num, cols, ny, nx), ref)
     num[hy, cols[hx]] = 0.0
     assert np.isnan(acf_full_normalised(num * 0, cols, ny, nx)).all()
+
+
+def test_two_lanes_give_the_sequential_summary(monkeypatch):
+    # The ordinal surrogates run on a background lane beside the other stages
+    # (one numba thread each), and the symbol-field scores go to whichever lane
+    # is free first. Scores, z-scores and notes must be those of the plain
+    # one-stage-after-the-other run on one worker, bit for bit; only the
+    # symbol-field z-scores may move, by float32 rounding, because their tile
+    # surrogates' inverse FFT runs on 2 threads instead of 1.
+    import measures.terrain.summary as summary
+
+    z = _surface(192)
+    lanes = terrain_summary(z, DX, params={"n_surrogates": 5})
+    monkeypatch.setattr(summary, "_WORKERS", 1)
+    plain = terrain_summary(z, DX, params={"n_surrogates": 5})
+    assert lanes.notes == plain.notes
+    assert [s.name for s in lanes.scores] == [s.name for s in plain.scores]
+    for a, b in zip(lanes.scores, plain.scores, strict=True):
+        assert a.value == b.value or (math.isnan(a.value) and math.isnan(b.value)), a.name
+        if a.name.startswith(("permutation", "js_")) or a.surrogate_z is None:
+            assert a.surrogate_z == b.surrogate_z, a.name
+        else:
+            assert abs(a.surrogate_z - b.surrogate_z) <= 1e-4 * (1 + abs(b.surrogate_z)), a.name
