@@ -185,9 +185,23 @@ def _site_kernel() -> Any:
         jt = np.zeros((n_chunks, n_jt), dtype=np.int64)
         lo0, hi0 = box[0, 0], box[0, 2]
         per = (hi0 - lo0 + n_chunks - 1) // n_chunks
+        last_s = n_steps - 1
+        top = jt_base[last_s]
         for c in prange(n_chunks):
             for i in range(lo0 + c * per, min(hi0, lo0 + (c + 1) * per)):
+                # Sites inside the last (smallest) box reach every prefix: their
+                # words are built without the per-step box test (boxes are nested).
+                j_in0, j_in1 = box[0, 1], box[0, 1]
+                if box[last_s, 0] <= i < box[last_s, 2]:
+                    j_in0, j_in1 = box[last_s, 1], box[last_s, 3]
+                for j in range(j_in0, j_in1):
+                    code = 0
+                    for s in range(n_steps):
+                        code = code * k + dense[i + offs[s, 0], j + offs[s, 1]]
+                    jt[c, top + dense[i, j] * mult[last_s] + code] += 1
                 for j in range(box[0, 1], box[0, 3]):
+                    if j_in0 <= j < j_in1:
+                        continue
                     site = dense[i, j]
                     code = 0
                     last = 0
