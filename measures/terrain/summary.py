@@ -580,11 +580,10 @@ class _OrdinalScores:
 
         def one(k: int) -> tuple[float, float]:
             make = made[0]
+            mean = make.mean  # type: ignore[attr-defined]  # set by phase_surrogates
             # The mean is added inside the counting pass (same float32 sums).
             x = make(k, serial=threaded, centred=True, reuse=threaded)
-            h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded, offset=make.mean)[
-                :2
-            ]
+            h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded, offset=mean)[:2]
             return h_k, c_k
 
         if threaded:
