@@ -171,33 +171,47 @@ def _site_kernel() -> Any:
         k: int,
         offs: NDArray[np.int64],
         box: NDArray[np.int64],
-        nb_base: NDArray[np.int64],
         jt_base: NDArray[np.int64],
         mult: NDArray[np.int64],
-        n_nb: int,
         n_jt: int,
         n_chunks: int,
-    ) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+    ) -> NDArray[np.int64]:
         # Site-major: each anchor builds its word one neighbour at a time while it
-        # lies in that prefix's anchor box (boxes shrink as neighbours are added),
-        # and counts the neighbour word and the site-plus-neighbour word.
+        # lies in that prefix's anchor box (boxes shrink as neighbours are added)
+        # and counts only its longest site-plus-neighbour word; the shorter words
+        # and the neighbour words are marginals of these (see the caller), so one
+        # increment per site instead of two per prefix.
         n_steps = offs.shape[0]
-        nb = np.zeros((n_chunks, n_nb), dtype=np.int64)
         jt = np.zeros((n_chunks, n_jt), dtype=np.int64)
         lo0, hi0 = box[0, 0], box[0, 2]
         per = (hi0 - lo0 + n_chunks - 1) // n_chunks
+        last_s = n_steps - 1
+        top = jt_base[last_s]
         for c in prange(n_chunks):
             for i in range(lo0 + c * per, min(hi0, lo0 + (c + 1) * per)):
+                # Sites inside the last (smallest) box reach every prefix: their
+                # words are built without the per-step box test (boxes are nested).
+                j_in0, j_in1 = box[0, 1], box[0, 1]
+                if box[last_s, 0] <= i < box[last_s, 2]:
+                    j_in0, j_in1 = box[last_s, 1], box[last_s, 3]
+                for j in range(j_in0, j_in1):
+                    code = 0
+                    for s in range(n_steps):
+                        code = code * k + dense[i + offs[s, 0], j + offs[s, 1]]
+                    jt[c, top + dense[i, j] * mult[last_s] + code] += 1
                 for j in range(box[0, 1], box[0, 3]):
+                    if j_in0 <= j < j_in1:
+                        continue
                     site = dense[i, j]
                     code = 0
+                    last = 0
                     for s in range(n_steps):
                         if i < box[s, 0] or i >= box[s, 2] or j < box[s, 1] or j >= box[s, 3]:
                             break
                         code = code * k + dense[i + offs[s, 0], j + offs[s, 1]]
-                        nb[c, nb_base[s] + code] += 1
-                        jt[c, jt_base[s] + site * mult[s] + code] += 1
-        return nb.sum(axis=0), jt.sum(axis=0)
+                        last = s
+                    jt[c, jt_base[last] + site * mult[last] + code] += 1
+        return jt.sum(axis=0)
 
     return count
 
@@ -248,23 +262,29 @@ def site_and_neighbour_entropies(
     if steps == 0:
         return joint, nbs
     size_nb = np.array([k ** (j + 1) for j in range(steps)], dtype=np.int64)
-    nb_base = np.concatenate([[0], np.cumsum(size_nb)[:-1]]).astype(np.int64)
     jt_base = np.concatenate([[0], np.cumsum(size_nb * k)[:-1]]).astype(np.int64)
-    nb, jt = _COUNT(
+    ends = _COUNT(
         np.ascontiguousarray(dense, dtype=np.uint8),
         k,
         np.array(offsets[:steps], dtype=np.int64).reshape(steps, 2),
         np.array(boxes, dtype=np.int64),
-        nb_base,
         jt_base,
         size_nb,
-        int(size_nb.sum()),
         int((size_nb * k).sum()),
         max(1, min(8, boxes[0][2] - boxes[0][0])),
     )
-    for j in range(steps):
-        a = nb[nb_base[j] : nb_base[j] + size_nb[j]]
-        b = jt[jt_base[j] : jt_base[j] + size_nb[j] * k]
+    # Words ending at prefix j, plus the marginal of prefix j + 1's words over
+    # their last neighbour (the word at j + 1 is the word at j times k plus that
+    # neighbour's symbol, over a subset of j's anchors): every anchor of prefix
+    # j once. The neighbour words are the marginals over the site's symbol (the
+    # site crops nothing, so both share the anchors). Integer sums: exact.
+    longer = None
+    for j in range(steps - 1, -1, -1):
+        b = ends[jt_base[j] : jt_base[j] + size_nb[j] * k]
+        if longer is not None:
+            b = b + longer.reshape(-1, k).sum(axis=1)
+        longer = b
+        a = b.reshape(k, -1).sum(axis=0)
         nbs[j] = entropy_of_counts(a[a > 0], estimator)
         joint[j + 1] = entropy_of_counts(b[b > 0], estimator)
     return joint, nbs

@@ -334,7 +334,14 @@ def quantile_symbols(x: ArrayLike, *, n_bins: int) -> NDArray[np.int64]:
     arr = as_float_array("x", x, fn, ndim=(1, 2))
     k = check_positive_int("n_bins", n_bins, fn, minimum=2)
     edges = np.quantile(arr, np.arange(1, k) / k)
-    return np.searchsorted(edges, arr, side="right").astype(np.int64)
+    if k > 8 or np.any(np.diff(edges) < 0):
+        return np.searchsorted(edges, arr, side="right").astype(np.int64, copy=False)
+    # The number of edges <= x (searchsorted's side="right" on sorted edges), by
+    # one comparison per edge: about twice as fast for a few bins, same symbols.
+    out = np.zeros(arr.shape, dtype=np.int64)
+    for e in edges:
+        out += arr >= e
+    return out
 
 
 def threshold_symbols(x: ArrayLike, *, thresholds: float | Sequence[float]) -> NDArray[np.int64]:

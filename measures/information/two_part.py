@@ -193,10 +193,10 @@ def _fits(offsets: tuple[tuple[int, ...], ...], shape: tuple[int, ...]) -> bool:
     return True
 
 
-def _windows(
+def _window_shape(
     dense: NDArray[np.int64], window: int | tuple[int, int] | None
-) -> tuple[NDArray[np.int64], tuple[int, ...], bool]:
-    """Cut the input into full windows, shape (n_win, *window_shape)."""
+) -> tuple[int, tuple[int, ...], bool]:
+    """(number of full windows, window shape, comparable) of the input."""
     if dense.ndim == 1:
         w = TWO_PART_WINDOW if window is None else window
         if isinstance(w, tuple):
@@ -206,8 +206,7 @@ def _windows(
         w = check_positive_int("window", w, _FUNC, minimum=8)
         comparable = dense.size >= w
         w = min(w, dense.size)
-        n_win = dense.size // w
-        return dense[: n_win * w].reshape(n_win, w), (w,), comparable
+        return dense.size // w, (w,), comparable
     if window is None or isinstance(window, (int, np.integer)):
         side = math.isqrt(TWO_PART_WINDOW if window is None else int(window))
         shape: tuple[int, ...] = (side, side)
@@ -219,9 +218,17 @@ def _windows(
         check_positive_int("window", v, _FUNC, minimum=3)
     comparable = dense.shape[0] >= shape[0] and dense.shape[1] >= shape[1]
     shape = (min(shape[0], dense.shape[0]), min(shape[1], dense.shape[1]))
+    return (dense.shape[0] // shape[0]) * (dense.shape[1] // shape[1]), shape, comparable
+
+
+def _windows(dense: NDArray[np.int64], shape: tuple[int, ...]) -> NDArray[np.int64]:
+    """Cut the input into full windows of ``shape``, shape (n_win, *shape)."""
+    if dense.ndim == 1:
+        n_win = dense.size // shape[0]
+        return dense[: n_win * shape[0]].reshape(n_win, shape[0])
     ny, nx = dense.shape[0] // shape[0], dense.shape[1] // shape[1]
     tiles = dense[: ny * shape[0], : nx * shape[1]].reshape(ny, shape[0], nx, shape[1])
-    return tiles.transpose(0, 2, 1, 3).reshape(ny * nx, *shape), shape, comparable
+    return tiles.transpose(0, 2, 1, 3).reshape(ny * nx, *shape)
 
 
 def _window_costs(
@@ -296,7 +303,11 @@ def _context_kernel() -> Any:
 
         @njit(cache=True, parallel=True)
         def count(  # pragma: no cover - compiled
-            wins: NDArray[np.int64],
+            dense: NDArray[np.uint8],
+            wy: int,
+            wx: int,
+            n_wx: int,
+            n_win: int,
             offs: NDArray[np.int64],
             lo0: int,
             lo1: int,
@@ -307,17 +318,19 @@ def _context_kernel() -> Any:
         ) -> NDArray[np.int64]:
             # Key (w * n_ctx + context) * k + symbol, the context's digits in
             # template order (the first offset most significant), as the codes.
-            n_win = wins.shape[0]
+            # Window w is the tile (w // n_wx, w % n_wx) of the field, read in
+            # place (no copy of the tiles).
             m = offs.shape[0]
             full = np.zeros(n_win * n_ctx * k, dtype=np.int64)
             for w in prange(n_win):  # each window owns its slice of the counts
                 base = w * n_ctx
-                for i in range(lo0, hi0):
-                    for j in range(lo1, hi1):
+                r0, c0 = (w // n_wx) * wy, (w % n_wx) * wx
+                for i in range(r0 + lo0, r0 + hi0):
+                    for j in range(c0 + lo1, c0 + hi1):
                         code = 0
                         for s in range(m):
-                            code = code * k + wins[w, i + offs[s, 0], j + offs[s, 1]]
-                        full[(base + code) * k + wins[w, i, j]] += 1
+                            code = code * k + dense[i + offs[s, 0], j + offs[s, 1]]
+                        full[(base + code) * k + dense[i, j]] += 1
             return full
 
         _CONTEXT = count
@@ -387,8 +400,8 @@ def two_part_code(
     if dense.size < 8:
         raise InsufficientDataError("symbols", _FUNC, "at least 8 sites", dense)
 
-    wins, wshape, comparable = _windows(dense, window)
-    n_win, w_size = wins.shape[0], int(np.prod(wshape))
+    n_win, wshape, comparable = _window_shape(dense, window)
+    w_size = int(np.prod(wshape))
     base = max(k, 2)
     cap = 0
     while (
@@ -409,16 +422,35 @@ def two_part_code(
     n_edge = w_size - n_sites
 
     results = []
-    if dense.ndim == 2 and n_win * float(k) ** (cap + 1) <= _KERNEL_MAX_KEYS:
-        # Fields: every (window, context, symbol) count straight from the
-        # windows, one compiled pass per context size (no code or key arrays);
-        # the same counts as the codes below.
+    if dense.ndim == 2 and n_win * float(k) ** (cap + 1) <= _KERNEL_MAX_KEYS and k <= 255:
+        # Fields: every (window, context, symbol) count of the largest context
+        # straight from the field in one compiled pass (no tile copy, no code or
+        # key arrays). A smaller context is a prefix of the largest (its digits
+        # come first) over the same anchors, so its counts are sums of the
+        # largest context's over the trailing digits: exact, the same counts as
+        # the codes below.
         count = _context_kernel()
         offs = np.array(offsets, dtype=np.int64).reshape(len(offsets), 2)
+        n_wx = dense.shape[1] // wshape[1]
+        top = count(
+            np.ascontiguousarray(dense, dtype=np.uint8),
+            wshape[0],
+            wshape[1],
+            n_wx,
+            n_win,
+            offs,
+            lo[0],
+            lo[1],
+            hi[0],
+            hi[1],
+            k,
+            k**cap,
+        ).reshape(n_win, k**cap, k)
         for m in range(cap + 1):
-            full = count(wins, offs[:m], lo[0], lo[1], hi[0], hi[1], k, k**m)
+            full = top.reshape(n_win, k**m, k ** (cap - m), k).sum(axis=2).ravel()
             results.append(_window_costs(full, full, n_win, k, m, n_sites, n_edge, full))
     else:
+        wins = _windows(dense, wshape)
         sym = wins[anchor].reshape(n_win, -1)
         codes = np.zeros_like(sym)
         for m in range(cap + 1):

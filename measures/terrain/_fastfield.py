@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import math
 import os
+import threading
 from collections.abc import Callable
 from typing import Any
 
@@ -168,12 +169,14 @@ def _tied_bits(
     nx: int,
     use_key: bool,
     s: np.uint64,
+    off: Any,
 ) -> int:
     """The 6 comparison bits of a window holding a tie (equal raw heights)."""
     c0 = i * nx + j
     c2 = c0 + nx
-    v0, v1, v2, v3 = x[i, j], x[i, j + 1], x[i + 1, j], x[i + 1, j + 1]
-    r0, r1, r2, r3 = raw[i, j], raw[i, j + 1], raw[i + 1, j], raw[i + 1, j + 1]
+    v0, v1, v2, v3 = x[i, j] + off, x[i, j + 1] + off, x[i + 1, j] + off, x[i + 1, j + 1] + off
+    r0, r1 = raw[i, j] + off, raw[i, j + 1] + off
+    r2, r3 = raw[i + 1, j] + off, raw[i + 1, j + 1] + off
     b01 = _below(v0, v1, r0, r1, c0, c0 + 1, use_key, s)[0]
     b02 = _below(v0, v2, r0, r2, c0, c2, use_key, s)[0]
     b03 = _below(v0, v3, r0, r3, c0, c2 + 1, use_key, s)[0]
@@ -195,8 +198,12 @@ def _rows_22(  # pragma: no cover - compiled
     i0: int,
     i1: int,
     hist: NDArray[np.int64],
+    off: Any,
 ) -> int:
     """Windows with top rows i0 .. i1 - 1 into ``hist`` (4 x 64 bins); returns the tied count.
+
+    ``off`` (of x's dtype) is added to every value of x and raw before any
+    comparison, with x's rounding: the counts of ``x + off`` without that array.
 
     Two passes per row: the first computes every window's comparison bits
     and tie flag without branches (the compiler vectorises it), the second
@@ -212,7 +219,7 @@ def _rows_22(  # pragma: no cover - compiled
         a0, a1 = x[i], x[i + 1]
         if same:
             for j in range(ox):
-                v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
+                v0, v1, v2, v3 = a0[j] + off, a0[j + 1] + off, a1[j] + off, a1[j + 1] + off
                 code = (
                     (v0 <= v1) * 1
                     + (v0 <= v2) * 2
@@ -226,8 +233,9 @@ def _rows_22(  # pragma: no cover - compiled
         else:
             q0, q1 = raw[i], raw[i + 1]
             for j in range(ox):
-                v0, v1, v2, v3 = a0[j], a0[j + 1], a1[j], a1[j + 1]
-                r0, r1, r2, r3 = q0[j], q0[j + 1], q1[j], q1[j + 1]
+                v0, v1, v2, v3 = a0[j] + off, a0[j + 1] + off, a1[j] + off, a1[j + 1] + off
+                r0, r1 = q0[j] + off, q0[j + 1] + off
+                r2, r3 = q1[j] + off, q1[j + 1] + off
                 code = (
                     (v0 <= v1) * 1
                     + (v0 <= v2) * 2
@@ -242,7 +250,7 @@ def _rows_22(  # pragma: no cover - compiled
             code = buf[j]
             if code >= 64:
                 n_tie += 1
-                code = _tied_bits(x, raw, i, j, nx, use_key, s)
+                code = _tied_bits(x, raw, i, j, nx, use_key, s, off)
             hist[(j & 3) * 64 + code] += 1
     return n_tie
 
@@ -255,6 +263,7 @@ def _ordinal_kernel_22(  # pragma: no cover - compiled
     use_key: bool,
     seed: int,
     n_chunks: int,
+    off: Any,
 ) -> tuple[NDArray[np.int64], np.int64]:
     """The 2 x 2 case of ``_ordinal_kernel``: a 6-bit comparison vector per window."""
     oy = x.shape[0] - 1
@@ -264,7 +273,7 @@ def _ordinal_kernel_22(  # pragma: no cover - compiled
     s = np.uint64(seed) * _GOLDEN
     for c in prange(n_chunks):
         i0, i1 = c * rows_per, min(oy, (c + 1) * rows_per)
-        ties[c * 8] = _rows_22(x, raw, same, use_key, s, i0, i1, hist[c])
+        ties[c * 8] = _rows_22(x, raw, same, use_key, s, i0, i1, hist[c], off)
     return hist, ties.sum()
 
 
@@ -276,11 +285,12 @@ def _ordinal_kernel_22_serial(  # pragma: no cover - compiled
     use_key: bool,
     seed: int,
     n_chunks: int,
+    off: Any,
 ) -> tuple[NDArray[np.int64], np.int64]:
     """``_ordinal_kernel_22`` on the calling thread, without the GIL (one surrogate per thread)."""
     hist = np.zeros((1, 4 * 64 + 64), dtype=np.int64)
     s = np.uint64(seed) * _GOLDEN
-    n_tie = _rows_22(x, raw, same, use_key, s, 0, x.shape[0] - 1, hist[0])
+    n_tie = _rows_22(x, raw, same, use_key, s, 0, x.shape[0] - 1, hist[0], off)
     return hist, np.int64(n_tie)
 
 
@@ -292,8 +302,12 @@ def ordinal_counts(
     seed: int = 0,
     raw: NDArray | None = None,
     serial: bool = False,
+    offset: float = 0.0,
 ) -> tuple[NDArray[np.int64], int]:
     """Histogram over all D! patterns of ``order = (dx, dy)`` windows, and the tied-window count.
+
+    ``offset``: the counts are those of ``x + offset`` computed in x's dtype
+    (as ``x += offset`` would round), without writing that array (2 x 2 only).
 
     ``raw``: the heights as measured, when ``x`` is a levelled copy. Ties are
     equalities of the measured heights: subtracting a plane from quantised
@@ -308,12 +322,21 @@ def ordinal_counts(
     if ref.shape != arr.shape:
         raise ValueError("raw must have the shape of x")
     chunks = max(1, min(arr.shape[0], 4 * (os.cpu_count() or 1)))
+    if offset and (wx, wy) != (2, 2):
+        arr = arr + arr.dtype.type(offset)
+        ref = arr if raw is None else ref + arr.dtype.type(offset)
     if (wx, wy) == (2, 2):
         ref = ref.astype(arr.dtype, copy=False)
         same = raw is None
         kernel = _ordinal_kernel_22_serial if serial else _ordinal_kernel_22
         hist, n_ties = kernel(
-            arr, np.ascontiguousarray(ref), same, ties == "random", int(seed) & 0x7FFFFFFF, chunks
+            arr,
+            np.ascontiguousarray(ref),
+            same,
+            ties == "random",
+            int(seed) & 0x7FFFFFFF,
+            chunks,
+            arr.dtype.type(offset),
         )
         by_bits = hist[:, : 4 * 64].reshape(-1, 64).sum(axis=0)
         counts = np.bincount(
@@ -389,14 +412,23 @@ def _phase_spectrum(
     ny: int,
     nx_even: bool,
     serial: bool = False,
+    bufs: dict[str, Any] | None = None,
 ) -> NDArray[np.complex64]:
     """amp * exp(i phi) with phi uniform, Hermitian on the real columns.
 
     The uniforms are numpy's float32 stream of ``rng`` (the same surrogates
     whatever the speed-up); the phasors come from a table (``_phasors``).
+    ``bufs``: arrays to reuse ("u", "spec"), kept there for the next call.
     """
-    u = rng.random(amp.shape, dtype=np.float32)
-    out = np.empty(amp.shape, dtype=np.complex64)
+    if bufs is None:
+        u = rng.random(amp.shape, dtype=np.float32)
+        out = np.empty(amp.shape, dtype=np.complex64)
+    else:
+        # Reused between surrogates: a fresh 4096^2 array costs its page faults
+        # (the kernel zeroes every page) each time.
+        u = bufs.setdefault("u", np.empty(amp.shape, dtype=np.float32))
+        rng.random(amp.shape, dtype=np.float32, out=u)
+        out = bufs.setdefault("spec", np.empty(amp.shape, dtype=np.complex64))
     (_phasors_serial if serial else _phasors)(u, amp, out, _COS_HI, _SIN_HI, _COS_LO, _SIN_LO)
     # Columns kx = 0 (and Nyquist for even nx) are transforms of real lines:
     # their -ky mode is the conjugate of +ky, and the self-mirrored modes are real.
@@ -412,8 +444,13 @@ def _phase_spectrum(
     return out
 
 
-def _irfft2(f: NDArray[np.complex64], shape: tuple[int, ...], workers: int) -> NDArray[np.float32]:
-    """Inverse real 2-D FFT that may overwrite ``f``.
+def _irfft2(
+    f: NDArray[np.complex64],
+    shape: tuple[int, ...],
+    workers: int,
+    out: NDArray[np.float32] | None = None,
+) -> NDArray[np.float32]:
+    """Inverse real 2-D FFT that may overwrite ``f`` (into ``out`` when given).
 
     ducc0's transform (when installed) works in place on the spectrum and
     is 1.5-2x faster here than scipy's on a 4096^2 grid; scipy otherwise.
@@ -423,7 +460,8 @@ def _irfft2(f: NDArray[np.complex64], shape: tuple[int, ...], workers: int) -> N
         import ducc0
     except ImportError:  # pragma: no cover - ducc0 is a declared dependency
         return sfft.irfft2(f, s=shape, workers=workers, overwrite_x=True)
-    out = np.empty(shape, dtype=np.float32)
+    if out is None:
+        out = np.empty(shape, dtype=np.float32)
     return ducc0.fft.c2r(  # type: ignore[no-any-return]
         f,
         axes=(0, 1),
@@ -453,14 +491,31 @@ def phase_surrogates(
     del spec
     base = int(seed) & 0xFFFFFFFF
 
-    def make(k: int, serial: bool = False) -> NDArray[np.float32]:
+    local = threading.local()
+
+    def make(
+        k: int, serial: bool = False, centred: bool = False, reuse: bool = False
+    ) -> NDArray[np.float32]:
         # serial: on the calling thread only (the caller runs several at once).
+        # centred: without the mean (``make.mean``, added as float32 by the caller).
+        # reuse: the result lives in this thread's buffers, overwritten by its
+        # next reuse call (for callers that are done with a surrogate by then).
         rng = np.random.default_rng([base, int(k)])
-        f = _phase_spectrum(amp, rng, shape[0], shape[1] % 2 == 0, serial)
-        out = _irfft2(f, shape, 1 if serial else (workers or 1))
-        out += np.float32(mean)
+        bufs = None
+        if reuse:
+            bufs = getattr(local, "bufs", None)
+            if bufs is None:
+                bufs = local.bufs = {}
+        f = _phase_spectrum(amp, rng, shape[0], shape[1] % 2 == 0, serial, bufs)
+        dest = None
+        if bufs is not None:
+            dest = bufs.setdefault("out", np.empty(shape, dtype=np.float32))
+        out = _irfft2(f, shape, 1 if serial else (workers or 1), dest)
+        if not centred:
+            out += np.float32(mean)
         return out
 
+    make.mean = np.float32(mean)  # type: ignore[attr-defined]
     return make
 
 
@@ -480,6 +535,60 @@ def _bin_of(v: float, edges: NDArray[np.float64]) -> int:
     return min(lo, n - 2)
 
 
+# Fast arctangent for the histogram passes: argument reduction to |y| <=
+# tan(15 deg) (atan x = pi/6 + atan((x - 1/sqrt 3) / (1 + x/sqrt 3))) and the
+# odd Taylor series to y**15; the first omitted term, y**17 / 17 <= 1.2e-11 rad,
+# bounds the error (plus rounding, ~1e-16). Branch-free, so rows vectorise.
+_TAN15 = 0.2679491924311227
+_INV_SQRT3 = 0.5773502691896258
+# A cell whose fast slope or aspect lies within this many degrees of a bin edge
+# (or of the slope floor) is redone with the exact formula (1e-6 deg is ~1e5
+# times the fast arctangent's error bound), so the counts are those of the
+# exact formula (atan, hypot, atan2 from libm) cell for cell.
+_EDGE_TOL_DEG = 1e-6
+
+
+@njit(cache=True, inline="always")
+def _atan01(x: float) -> float:
+    """atan(x) for x in [0, 1], error <= 2e-11 rad."""
+    big = x > _TAN15
+    y = (x - _INV_SQRT3) / (1.0 + x * _INV_SQRT3) if big else x
+    y2 = y * y
+    p = -1.0 / 15.0
+    p = p * y2 + 1.0 / 13.0
+    p = p * y2 - 1.0 / 11.0
+    p = p * y2 + 1.0 / 9.0
+    p = p * y2 - 1.0 / 7.0
+    p = p * y2 + 1.0 / 5.0
+    p = p * y2 - 1.0 / 3.0
+    p = p * y2 + 1.0
+    return p * y + (math.pi / 6.0 if big else 0.0)
+
+
+@njit(cache=True, inline="always")
+def _exact_slope_aspect(gx: float, gy: float) -> tuple[float, float]:
+    """Slope and aspect (degrees) as ``gradient_entropy`` computes them."""
+    to_deg = 180.0 / math.pi
+    slope = math.atan(math.hypot(gx, gy)) * to_deg
+    aspect = (math.atan2(gy, gx) * to_deg + 180.0) % 360.0
+    return slope, aspect
+
+
+@njit(cache=True, inline="always")
+def _sure_bin(v: float, edges: NDArray[np.float64], width: float) -> int:
+    """Bin of v when every value within _EDGE_TOL_DEG of v has it; else -2."""
+    if math.isnan(v):
+        return -2
+    n = edges.size
+    g = v / width
+    if g < 0.0 or g >= n - 1:
+        return -2
+    b = int(g)
+    if edges[b] + _EDGE_TOL_DEG <= v and v < edges[b + 1] - _EDGE_TOL_DEG:
+        return b
+    return -2
+
+
 @njit(cache=True, parallel=True)
 def _gradient_kernel(  # pragma: no cover - compiled
     z: NDArray[np.float64],
@@ -489,51 +598,86 @@ def _gradient_kernel(  # pragma: no cover - compiled
     aspect_edges: NDArray[np.float64],
     floor: float,
     n_chunks: int,
-) -> tuple[NDArray[np.int64], NDArray[np.int64], NDArray[np.float64]]:
+) -> tuple[NDArray[np.int64], NDArray[np.int64], NDArray[np.float64], np.int64]:
     ny, nx = z.shape
     s_cnt = np.zeros((n_chunks, slope_edges.size + 7), dtype=np.int64)
     a_cnt = np.zeros((n_chunks, aspect_edges.size + 7), dtype=np.int64)
     sums = np.zeros((n_chunks, 8))
     to_deg = 180.0 / math.pi
+    half_pi = 0.5 * math.pi
     top = slope_edges[slope_edges.size - 1]
+    s_w = slope_edges[1] - slope_edges[0]
+    a_w = aspect_edges[1] - aspect_edges[0]
     per = (ny + n_chunks - 1) // n_chunks
     for c in prange(n_chunks):
+        gxs = np.empty(nx)
+        gys = np.empty(nx)
+        g2s = np.empty(nx)
+        sdrs = np.empty(nx)
+        sl = np.empty(nx)
+        asp = np.empty(nx)
         g2_sum = 0.0
         sdr_sum = 0.0
+        n_exact = 0
         for i in range(c * per, min(ny, (c + 1) * per)):
+            # numpy.gradient: central inside, one-sided first order at the edges
+            i0, i1 = max(i - 1, 0), min(i + 1, ny - 1)
+            hy_c = 2.0 * dy if i1 - i0 == 2 else dy
             for j in range(nx):
-                # numpy.gradient: central inside, one-sided first order at the edges
-                if i == 0:
-                    gy = (z[1, j] - z[0, j]) / dy
-                elif i == ny - 1:
-                    gy = (z[ny - 1, j] - z[ny - 2, j]) / dy
-                else:
-                    gy = (z[i + 1, j] - z[i - 1, j]) / (2.0 * dy)
-                if j == 0:
-                    gx = (z[i, 1] - z[i, 0]) / dx
-                elif j == nx - 1:
-                    gx = (z[i, nx - 1] - z[i, nx - 2]) / dx
-                else:
-                    gx = (z[i, j + 1] - z[i, j - 1]) / (2.0 * dx)
-                g2 = gx**2 + gy**2
-                g2_sum += g2
-                sdr_sum += g2 / (math.sqrt(1.0 + g2) + 1.0)
-                slope = math.atan(math.hypot(gx, gy)) * to_deg
-                b = _bin_of(min(slope, top), slope_edges)
+                gys[j] = (z[i1, j] - z[i0, j]) / hy_c
+            gxs[0] = (z[i, 1] - z[i, 0]) / dx
+            for j in range(1, nx - 1):
+                gxs[j] = (z[i, j + 1] - z[i, j - 1]) / (2.0 * dx)
+            gxs[nx - 1] = (z[i, nx - 1] - z[i, nx - 2]) / dx
+            # Pass 1, branch-free (vectorised): |grad|^2, the Sdr term, fast slope and aspect.
+            for j in range(nx):
+                gx, gy = gxs[j], gys[j]
+                g2 = gx * gx + gy * gy
+                g2s[j] = g2
+                sdrs[j] = g2 / (math.sqrt(1.0 + g2) + 1.0)
+                g = math.sqrt(g2)
+                inv = g > 1.0
+                a = _atan01(1.0 / g if inv else g)
+                sl[j] = (half_pi - a if inv else a) * to_deg
+                ax, ay = abs(gx), abs(gy)
+                hi, lo = max(ax, ay), min(ax, ay)
+                t = _atan01(lo / hi if hi > 0.0 else 0.0)
+                t = half_pi - t if ay > ax else t
+                t = math.pi - t if gx < 0.0 else t
+                t = -t if gy < 0.0 else t
+                asp[j] = t * to_deg + 180.0
+            # Pass 2, in row order as before (the sums are bit-identical): bins.
+            for j in range(nx):
+                g2_sum += g2s[j]
+                sdr_sum += sdrs[j]
+                v = sl[j]
+                b = _sure_bin(min(v, top), slope_edges, s_w)
+                sure_floor = abs(v - floor) > _EDGE_TOL_DEG
+                steep = v > floor
+                ab = -1
+                if steep:
+                    ab = _sure_bin(asp[j], aspect_edges, a_w)
+                if b == -2 or not sure_floor or ab == -2:
+                    n_exact += 1
+                    slope, aspect = _exact_slope_aspect(gxs[j], gys[j])
+                    b = _bin_of(min(slope, top), slope_edges)
+                    steep = slope > floor
+                    if steep:
+                        ab = _bin_of(aspect, aspect_edges)
                 if b >= 0:
                     s_cnt[c, b] += 1
-                if slope > floor:
-                    aspect = (math.atan2(gy, gx) * to_deg + 180.0) % 360.0
-                    b = _bin_of(aspect, aspect_edges)
-                    if b >= 0:
-                        a_cnt[c, b] += 1
+                if steep:
+                    if ab >= 0:
+                        a_cnt[c, ab] += 1
                     sums[c, 2] += 1.0
         sums[c, 0] = g2_sum
         sums[c, 1] = sdr_sum
+        sums[c, 3] = n_exact
     return (
         s_cnt.sum(axis=0)[: slope_edges.size - 1],
         a_cnt.sum(axis=0)[: aspect_edges.size - 1],
         sums.sum(axis=0)[:3],
+        np.int64(sums[:, 3].sum()),
     )
 
 
@@ -555,7 +699,7 @@ def gradient_histograms(
     """
     arr = np.ascontiguousarray(z, dtype=np.float64)
     chunks = max(1, min(arr.shape[0], 4 * (os.cpu_count() or 1)))
-    s, a, sums = _gradient_kernel(
+    s, a, sums, _ = _gradient_kernel(
         arr, float(dy), float(dx), slope_edges, aspect_edges, float(floor), chunks
     )
     return s, a, round(float(sums[2])), float(sums[0]), float(sums[1])
@@ -598,3 +742,38 @@ def height_moments(z: NDArray[np.float64]) -> tuple[float, float, float, float, 
         float(rows[:, 4].max()),
         float(rows[:, 5].min()),
     )
+
+
+@njit(cache=True, parallel=True)
+def power_inplace(spec: NDArray[np.complex64]) -> None:  # pragma: no cover - compiled
+    """spec = |spec|^2 + 0i in place, rounded as numpy's re*re + im*im in spec's dtype."""
+    for i in prange(spec.shape[0]):
+        row = spec[i]
+        for j in range(row.size):
+            re, im = row[j].real, row[j].imag
+            re2 = re * re
+            im2 = im * im
+            row[j] = re2 + im2
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def acf_full_normalised(  # pragma: no cover - compiled
+    num: NDArray[np.float32], cols: NDArray[np.int64], ny: int, nx: int
+) -> NDArray[np.float64]:
+    """Centred ACF of a full grid from the kept rows of its circular correlation.
+
+    ``num[:, cols]`` in float64, divided by the pairs per row lag (ny - |ty|),
+    then per column lag (nx - |tx|), then by the zero lag so divided: the
+    three in-place divisions of the numpy path, in the same order (same
+    bits), in one pass; a flat grid gives NaN (0 / 0).
+    """
+    hy, hx = ny // 2, nx // 2
+    out = np.empty((num.shape[0], cols.size))
+    zero = np.float64(num[hy, cols[hx]]) / np.float64(ny) / np.float64(nx)
+    for i in prange(num.shape[0]):
+        dy = np.float64(ny - abs(i - hy))
+        for j in range(cols.size):
+            v = np.float64(num[i, cols[j]]) / dy
+            v = v / np.float64(nx - abs(j - hx))
+            out[i, j] = v / zero
+    return out

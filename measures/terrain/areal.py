@@ -242,14 +242,18 @@ def _acf_numerator_inplace(
     shape: tuple[int, int],
     rows: NDArray[np.int_],
     cols: NDArray[np.int_],
+    normalise_full: bool = False,
 ) -> NDArray[np.float64]:
     """sum z(r) z(r + t) at the kept lags: ducc0's transforms, in place on one array.
 
     The same separable float32 transforms as the scipy fallback, with the
     padded spectrum transformed, squared and transformed back in its own
-    memory (one padded complex array instead of three).
+    memory (one padded complex array instead of three). ``normalise_full``:
+    return the full grid's normalised ACF instead (``acf_full_normalised``).
     """
     import ducc0
+
+    from measures.terrain._fastfield import acf_full_normalised, power_inplace
 
     ny, nx = zl.shape
     threads = min(2, os.cpu_count() or 1)
@@ -259,14 +263,10 @@ def _acf_numerator_inplace(
     ducc0.fft.r2c(padded, axes=(1,), out=spec[:ny], nthreads=threads)
     del padded
     ducc0.fft.c2c(spec, axes=(0,), out=spec, nthreads=threads)
-    re, im = spec.real, spec.imag
-    np.multiply(re, re, out=re)
-    np.multiply(im, im, out=im)
-    re += im
-    im[...] = 0.0
+    power_inplace(spec)  # one compiled pass (numpy's re*re + im*im, same rounding)
     ducc0.fft.c2c(spec, axes=(0,), forward=False, inorm=2, out=spec, nthreads=threads)
     half = spec[rows]
-    del spec, re, im
+    del spec
     out = ducc0.fft.c2r(
         half,
         axes=(1,),
@@ -276,6 +276,8 @@ def _acf_numerator_inplace(
         nthreads=threads,
         allow_overwriting_input=True,
     )
+    if normalise_full:
+        return acf_full_normalised(out, np.asarray(cols, dtype=np.int64), ny, nx)
     return np.asarray(out[:, cols], dtype=np.float64)
 
 
@@ -299,7 +301,9 @@ def _acf_levelled(zl: NDArray[np.float64], mask: NDArray[np.bool_] | None) -> ND
     rows = np.r_[shape[0] - hy : shape[0], 0 : hy + 1]
     cols = np.r_[shape[1] - hx : shape[1], 0 : hx + 1]
     try:
-        num = _acf_numerator_inplace(zl, shape, rows, cols)
+        num = _acf_numerator_inplace(zl, shape, rows, cols, normalise_full=mask is None)
+        if mask is None:
+            return num
     except ImportError:  # pragma: no cover - ducc0 is a declared dependency
         spec = sfft.rfft(zl.astype(np.float32), n=shape[1], axis=1, workers=-1)
         spec = sfft.fft(spec, n=shape[0], axis=0, workers=-1, overwrite_x=True)

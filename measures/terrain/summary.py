@@ -12,9 +12,11 @@ edges would bend the very power law being fitted.
 from __future__ import annotations
 
 import os
-from collections.abc import Mapping
+import threading
+from collections.abc import Callable, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
+from functools import partial
 from typing import Any, cast
 
 import numpy as np
@@ -439,78 +441,255 @@ def _ordinal_hc(
     seed: int,
     raw: NDArray[np.floating[Any]] | None = None,
     serial: bool = False,
+    offset: float = 0.0,
 ) -> tuple[float, float, float, int, int]:
     from measures.information.ordinal import jensen_shannon_complexity
 
-    counts, n_ties = ordinal_counts(x, order, ties=ties, seed=seed, raw=raw, serial=serial)
+    counts, n_ties = ordinal_counts(
+        x, order, ties=ties, seed=seed, raw=raw, serial=serial, offset=offset
+    )
     n = int(counts.sum())
     h, c = jensen_shannon_complexity(counts / n)
     return float(h), float(c), n_ties / n, n, counts.size
 
 
-def _ordinal_scores(
-    zb: NDArray[np.float64],
-    p: Mapping[str, Any],
-    notes: list[str],
-    raw: NDArray[np.float64] | None = None,
-) -> list[Score]:
+class _SurrogateLane:
+    """Surrogates 0 .. n - 1 of the ordinal scores, taken one at a time by any thread.
+
+    Every step of a surrogate runs on the calling thread without the GIL
+    (numpy's generator, single-thread compiled kernels, a one-thread FFT) and
+    launches no numba parallel kernel, so a lane may run beside anything.
+    Surrogate k and its tie seed depend on k only: results do not depend on
+    which thread made them or in what order.
+    """
+
+    def __init__(self, one: Callable[[int], tuple[float, float]], n: int) -> None:
+        self._one = one
+        self._n = n
+        self._next = 0
+        self._lock = threading.Lock()
+        self.results: list[tuple[float, float]] = [(np.nan, np.nan)] * n
+        # One more task, run once by whichever thread takes it first: the
+        # background thread after the surrogates, the caller's when its own
+        # stages are done (whichever lane is free first), on one numba thread
+        # beside the other lane (see _LaneThreads).
+        self._extra: Callable[[], Any] | None = None
+        self.extra_result: Any = None
+        self.extra_taken = False
+
+    def offer(self, task: Callable[[], Any]) -> None:
+        self._extra = task
+
+    def run_extra(self, one_numba_thread: bool) -> bool:
+        """Run the extra task here if nobody has taken it; True if it ran here."""
+        with self._lock:
+            if self._extra is None or self.extra_taken:
+                return False
+            self.extra_taken = True
+        if not one_numba_thread:
+            self.extra_result = self._extra()
+            return True
+        import numba
+
+        prev = numba.get_num_threads()
+        numba.set_num_threads(1)
+        try:
+            self.extra_result = self._extra()
+        finally:
+            numba.set_num_threads(prev)
+        return True
+
+    @property
+    def exhausted(self) -> bool:
+        """Every surrogate has been taken (the last ones may still be running)."""
+        return self._next >= self._n
+
+    def cancel(self) -> None:
+        """Take no further surrogates or the extra task (the one in progress finishes)."""
+        with self._lock:
+            self._next = self._n
+            self.extra_taken = True
+
+    def run(self) -> None:
+        while True:
+            with self._lock:
+                k = self._next
+                self._next += 1
+            if k >= self._n:
+                return
+            self.results[k] = self._one(k)
+
+
+class _OrdinalScores:
     """Permutation entropy and JS complexity of the whole field (fused kernel), with surrogates.
 
+    The observed value is computed on construction; with the 2 x 2 kernel
+    and two cores the surrogates start at once on a background thread
+    (``lane``), and the caller's thread joins them in :meth:`finish`.
     ``raw``: the measured heights (ties are their equalities; see ordinal_counts).
     """
-    order = (int(p["ordinal_order"][0]), int(p["ordinal_order"][1]))
-    ties, seed = p["ordinal_ties"], int(p["surrogate_seed"])
-    h, c, tie_frac, n_win, n_pat = _ordinal_hc(zb, order, ties, seed, raw)
-    if n_win < MIN_WINDOWS_PER_PATTERN * n_pat:
-        reason = (
-            f"ordinal scores: {n_win} windows, fewer than {MIN_WINDOWS_PER_PATTERN} per "
-            f"possible pattern ({n_pat})"
+
+    def __init__(
+        self,
+        zb: NDArray[np.float64],
+        p: Mapping[str, Any],
+        notes: list[str],
+        raw: NDArray[np.float64] | None = None,
+    ) -> None:
+        self.lane: _SurrogateLane | None = None
+        self._early: list[Score] | None = None
+        self._lane: _SurrogateLane | None = None
+        self._pool: ThreadPoolExecutor | None = None
+        self._sequential: Callable[[], list[tuple[float, float]]] | None = None
+        order = (int(p["ordinal_order"][0]), int(p["ordinal_order"][1]))
+        ties, seed = p["ordinal_ties"], int(p["surrogate_seed"])
+        h, c, tie_frac, n_win, n_pat = _ordinal_hc(zb, order, ties, seed, raw)
+        if n_win < MIN_WINDOWS_PER_PATTERN * n_pat:
+            reason = (
+                f"ordinal scores: {n_win} windows, fewer than {MIN_WINDOWS_PER_PATTERN} per "
+                f"possible pattern ({n_pat})"
+            )
+            notes.append(reason)
+            self._early = [
+                _nan("permutation_entropy_2d", "1", reason),
+                _nan("js_complexity_2d", "1", reason),
+                Score("permutation_entropy_2d_tie_fraction", tie_frac, "1"),
+            ]
+            return
+        tie_note = f"ties: {tie_frac:.1%} of windows hold equal heights; " + (
+            "broken at random (seeded)" if ties == "random" else "earlier cell ranks lower"
         )
-        notes.append(reason)
-        return [
-            _nan("permutation_entropy_2d", "1", reason),
-            _nan("js_complexity_2d", "1", reason),
-            Score("permutation_entropy_2d_tie_fraction", tie_frac, "1"),
-        ]
-    tie_note = f"ties: {tie_frac:.1%} of windows hold equal heights; " + (
-        "broken at random (seeded)" if ties == "random" else "earlier cell ranks lower"
-    )
-    if tie_frac > 0.5:
-        # Random tie-breaking keeps PE within 0.02 under rounding to 0.05 Sq while
-        # under about half the windows are tied (tests); beyond, the heights'
-        # resolution, not the ground, sets the ordinal scores.
-        tie_note += "; over half the windows are tied: ordinal scores reflect the height resolution"
-    if tie_frac > 0:
-        notes.append(tie_note)
-    wanted = [n for n in _ORDINAL_SCORES if n in p["surrogate_scores"]]
-    zs: dict[str, float | None] = dict.fromkeys(_ORDINAL_SCORES)
-    if wanted and p["n_surrogates"] > 0:
-        make = phase_surrogates(zb, seed, workers=_WORKERS)
-
-        def one(k: int) -> tuple[float, float]:
-            # On a thread of its own: every step releases the GIL (numpy's
-            # generator, compiled kernels, the FFT); surrogate k and its tie
-            # seed depend on k only, so the order they finish in changes nothing.
-            x = make(k, serial=threaded)
-            h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded)[:2]
-            return h_k, c_k
-
+        if tie_frac > 0.5:
+            # Random tie-breaking keeps PE within 0.02 under rounding to 0.05 Sq while
+            # under about half the windows are tied (tests); beyond, the heights'
+            # resolution, not the ground, sets the ordinal scores.
+            tie_note += (
+                "; over half the windows are tied: ordinal scores reflect the height resolution"
+            )
+        if tie_frac > 0:
+            notes.append(tie_note)
+        self._h, self._c, self._tie_frac, self._tie_note = h, c, tie_frac, tie_note
+        self._wanted = [n for n in _ORDINAL_SCORES if n in p["surrogate_scores"]]
+        if not (self._wanted and p["n_surrogates"] > 0):
+            return
         n_sur = int(p["n_surrogates"])
         # Only the 2 x 2 kernel has a single-thread variant; the generic one is parallel.
         threaded = _WORKERS > 1 and n_sur > 1 and order == (2, 2)
+        made: list[Callable[..., NDArray[np.float32]]] = []
+        self._made = made
+
+        def one(k: int) -> tuple[float, float]:
+            make = made[0]
+            mean = make.mean  # type: ignore[attr-defined]  # set by phase_surrogates
+            # The mean is added inside the counting pass (same float32 sums).
+            x = make(k, serial=threaded, centred=True, reuse=threaded)
+            h_k, c_k = _ordinal_hc(x, order, ties, seed + k + 1, serial=threaded, offset=mean)[:2]
+            return h_k, c_k
+
         if threaded:
-            with ThreadPoolExecutor(_WORKERS) as pool:
-                sur = np.array(list(pool.map(one, range(n_sur))))
+            lane = _SurrogateLane(one, n_sur)
+            self._ready = threading.Event()
+
+            def background() -> None:
+                # The amplitude spectrum too (an FFT of the grid) is made here,
+                # so the caller's stages start at once.
+                try:
+                    made.append(phase_surrogates(zb, seed, workers=_WORKERS))
+                finally:
+                    self._ready.set()
+                lane.run()
+                lane.run_extra(one_numba_thread=True)
+
+            self._lane = self.lane = lane
+            self._pool = ThreadPoolExecutor(1)
+            self._future = self._pool.submit(background)
         else:
-            sur = np.array([one(k) for k in range(n_sur)])
-        zs["permutation_entropy_2d"] = _zscore(h, sur[:, 0])
-        zs["js_complexity_2d"] = _zscore(c, sur[:, 1])
-    out = [
-        Score("permutation_entropy_2d", h, "1", surrogate_z=zs["permutation_entropy_2d"]),
-        Score("js_complexity_2d", c, "1", surrogate_z=zs["js_complexity_2d"]),
-        Score("permutation_entropy_2d_tie_fraction", tie_frac, "1", note=tie_note),
-    ]
-    return [s if s.name in wanted or s.surrogate_z is None else _without_z(s) for s in out]
+            made.append(phase_surrogates(zb, seed, workers=_WORKERS))
+            self._sequential = lambda: [one(k) for k in range(n_sur)]
+
+    def cancel(self) -> None:
+        """Stop the background lane after its current surrogate (the caller failed)."""
+        if self._lane is not None and self._pool is not None:
+            self._lane.cancel()
+            self._pool.shutdown(wait=False)
+
+    def finish(self) -> list[Score]:
+        """Join the surrogates (the calling thread takes those left) and score."""
+        if self._early is not None:
+            return self._early
+        zs: dict[str, float | None] = dict.fromkeys(_ORDINAL_SCORES)
+        sur = None
+        if self._lane is not None and self._pool is not None:
+            try:
+                self._ready.wait()
+                if self._made:  # else the set-up failed: result() raises its error
+                    self._lane.run()
+                self._future.result()
+            finally:
+                self._pool.shutdown()
+            sur = np.array(self._lane.results)
+        elif self._sequential is not None:
+            sur = np.array(self._sequential())
+        if sur is not None:
+            zs["permutation_entropy_2d"] = _zscore(self._h, sur[:, 0])
+            zs["js_complexity_2d"] = _zscore(self._c, sur[:, 1])
+        out = [
+            Score("permutation_entropy_2d", self._h, "1", surrogate_z=zs["permutation_entropy_2d"]),
+            Score("js_complexity_2d", self._c, "1", surrogate_z=zs["js_complexity_2d"]),
+            Score("permutation_entropy_2d_tie_fraction", self._tie_frac, "1", note=self._tie_note),
+        ]
+        return [
+            s if s.name in self._wanted or s.surrogate_z is None else _without_z(s) for s in out
+        ]
+
+
+class _LaneThreads:
+    """numba's thread count for this thread's parallel kernels beside a surrogate lane.
+
+    While the ordinal surrogates run on their background thread, the
+    summary's other stages run on one numba thread, so the two lanes share
+    the two cores without oversubscription; :meth:`refresh` (between stages)
+    gives them every thread back once the lane has no surrogate left to
+    take. Every parallel kernel they call writes per-chunk or per-row
+    results with chunks fixed by the input, so its output does not depend
+    on the thread count.
+    """
+
+    def __init__(self, lane: _SurrogateLane | None) -> None:
+        self._lane = lane
+        self._prev: int | None = None
+
+    def __enter__(self) -> _LaneThreads:
+        if self._lane is not None:
+            import numba
+
+            self._prev = numba.get_num_threads()
+            numba.set_num_threads(1)
+            self.refresh()
+        return self
+
+    def refresh(self) -> None:
+        if self._prev is not None and self._lane is not None and self._lane.exhausted:
+            import numba
+
+            numba.set_num_threads(self._prev)
+
+    def __exit__(self, *exc: object) -> None:
+        if self._prev is not None:
+            import numba
+
+            numba.set_num_threads(self._prev)
+
+
+def _concurrent_parallel_ok() -> bool:
+    """Whether numba's threading layer lets two threads launch parallel kernels at once."""
+    import numba
+
+    try:
+        # "workqueue" is not thread-safe; "omp" and "tbb" are (numba's documentation).
+        return numba.threading_layer() in ("omp", "tbb")
+    except ValueError:  # no parallel kernel has run yet
+        return False
 
 
 def _without_z(s: Score) -> Score:
@@ -696,98 +875,138 @@ def terrain_summary(
     zl = level(arr if mask is None else np.nan_to_num(arr), dx_f, dy_f, mask, p["detrend"])
     zb = zl if band is None else bandpass_surface(zl, dx_f, dy_f, band_m=band, valid=mask)
     za = zl if band is None else level(zb, dx_f, dy_f, mask, p["detrend"])
-    # Hole-free grids: slope and aspect histograms (and, without a band, the
-    # Sdq/Sdr sums of the same gradients) in one compiled pass.
-    ge: GradientEntropy | None = None
-    sums = None
-    if mask is None:
-        ge, sums = _gradient_entropy_full(zb, dx_f, dy_f, p)
-    ap = _areal_from_levelled(
-        za, dx_f, dy_f, mask, p["detrend"], acf_s, None, sums if band is None else None
-    )
-    del za
-    scores = [
-        Score("hole_fraction", hole_fraction, "1"),
-        Score("sq_m", ap.Sq, "m"),
-        Score("sa_m", ap.Sa, "m"),
-        Score("ssk", ap.Ssk, "1"),
-        Score("sku", ap.Sku, "1"),
-        Score("sp_m", ap.Sp, "m"),
-        Score("sv_m", ap.Sv, "m"),
-        Score("sz_m", ap.Sz, "m"),
-        Score("sdq", ap.Sdq, "1"),
-        Score("sdr", ap.Sdr, "1"),
-        Score("sal_m", ap.Sal, "m"),
-        Score("str", ap.Str, "1"),
-    ]
-    if ap.str_is_upper_bound:
-        notes.append("str: the ACF did not decay to s in every direction; Str is an upper bound")
-    radial: RadialPSD | None = None
-    hurst_spectrum = None
-    if spectral_ok:
-        # One periodogram of the filled, levelled, windowed grid serves the radial
-        # PSD (plotted and fitted for H) and, without a band, the surface moments.
-        prepared = zl if mask is None else level(inpaint_holes(zl, mask), dx_f, dy_f, None, "plane")
-        half = _half_spectrum(prepared, dx_f, dy_f, "hann")
-        del prepared
-        radial = _radial_from_half(half, zl.shape, dx_f, dy_f, bpd, "hann", "plane")
-        r10 = (
-            radial
-            if bpd == 10
-            else _radial_from_half(half, zl.shape, dx_f, dy_f, 10, "hann", "plane")
-        )
-        hurst_spectrum = (r10.q, r10.psd)
-        if band is None:
-            rms_slope, an = _moments_from_half(half, zl.shape, dx_f, dy_f)
-        else:
-            sp2 = surface_psd(zb, dx_f, dy_f, valid=mask)
-            rms_slope, an = rms_slope_from_psd(sp2), psd_anisotropy(sp2)
-            del sp2
-        del half
-        scores += [
-            Score("rms_slope_psd", rms_slope, "1"),
-            Score("psd_anisotropy_ratio", an.ratio, "1"),
-            Score("lay_direction_deg", float(np.degrees(an.lay_direction_rad)), "deg"),
-        ]
-    else:
-        reason = (
-            f"only {1 - hole_fraction:.1%} of cells hold data, below the "
-            f"{p['min_valid_fraction']:.0%} needed for a spectrum"
-        )
-        notes.append(f"spectral scores: {reason}")
-        scores += [
-            _nan("rms_slope_psd", "1", reason),
-            _nan("psd_anisotropy_ratio", "1", reason),
-            _nan("lay_direction_deg", "deg", reason),
-        ]
-    hs, psd_fit = _hurst_scores(zl, dx_f, dy_f, mask, band, p, notes, hole_floor, hurst_spectrum)
-    scores += hs
-    ge = ge or gradient_entropy(
-        zb,
-        dx_f,
-        dy_f,
-        valid=mask,
-        slope_bin_deg=p["slope_bin_deg"],
-        aspect_bin_deg=p["aspect_bin_deg"],
-        slope_floor_deg=p["slope_floor_deg"],
-    )
-    scores += [
-        Score("slope_entropy_bits", ge.slope_entropy_bits, "bits"),
-        Score(
-            "aspect_entropy_bits",
-            ge.aspect_entropy_bits,
-            "bits",
-            note="" if np.isfinite(ge.aspect_entropy_bits) else "no cell steeper than the floor",
-        ),
-    ]
     zi = zb if mask is None else inpaint_holes(zb, mask)
     # Ties are equalities of the measured heights (holes never tie); after a
     # band-pass there are none left to speak of.
     raw = None
     if band_m is None:
         raw = arr if mask is None else np.where(mask, arr, np.nan)
-    scores += _ordinal_scores(zi, p, notes, raw)
-    scores += _field_scores(zi, p, notes)
+    # The ordinal surrogates (the largest part) start now on a background lane
+    # of single-thread kernels; the stages below run beside them on one numba
+    # thread, then this thread joins the surrogates left. The same numbers as
+    # one stage after the other (see _SurrogateLane, _LaneThreads).
+    ord_notes: list[str] = []
+    ordinal = _OrdinalScores(zi, p, ord_notes, raw)
+    field_notes: list[str] = []
+    # The symbol-field scores go to whichever lane is free first; the background
+    # lane may take them only where numba lets two threads launch parallel
+    # kernels at once.
+    shared_fields = ordinal.lane is not None and _concurrent_parallel_ok()
+    if shared_fields and ordinal.lane is not None:
+        ordinal.lane.offer(partial(_field_scores, zi, p, field_notes))
+    field_scores: list[Score] = []
+    try:
+        with _LaneThreads(ordinal.lane) as lanes:
+            # Hole-free grids: slope and aspect histograms (and, without a band, the
+            # Sdq/Sdr sums of the same gradients) in one compiled pass.
+            ge: GradientEntropy | None = None
+            sums = None
+            if mask is None:
+                ge, sums = _gradient_entropy_full(zb, dx_f, dy_f, p)
+            lanes.refresh()
+            ap = _areal_from_levelled(
+                za, dx_f, dy_f, mask, p["detrend"], acf_s, None, sums if band is None else None
+            )
+            del za
+            scores = [
+                Score("hole_fraction", hole_fraction, "1"),
+                Score("sq_m", ap.Sq, "m"),
+                Score("sa_m", ap.Sa, "m"),
+                Score("ssk", ap.Ssk, "1"),
+                Score("sku", ap.Sku, "1"),
+                Score("sp_m", ap.Sp, "m"),
+                Score("sv_m", ap.Sv, "m"),
+                Score("sz_m", ap.Sz, "m"),
+                Score("sdq", ap.Sdq, "1"),
+                Score("sdr", ap.Sdr, "1"),
+                Score("sal_m", ap.Sal, "m"),
+                Score("str", ap.Str, "1"),
+            ]
+            if ap.str_is_upper_bound:
+                notes.append(
+                    "str: the ACF did not decay to s in every direction; Str is an upper bound"
+                )
+            radial: RadialPSD | None = None
+            hurst_spectrum = None
+            lanes.refresh()
+            if spectral_ok:
+                # One periodogram of the filled, levelled, windowed grid serves the radial
+                # PSD (plotted and fitted for H) and, without a band, the surface moments.
+                prepared = (
+                    zl
+                    if mask is None
+                    else level(inpaint_holes(zl, mask), dx_f, dy_f, None, "plane")
+                )
+                half = _half_spectrum(prepared, dx_f, dy_f, "hann")
+                del prepared
+                radial = _radial_from_half(half, zl.shape, dx_f, dy_f, bpd, "hann", "plane")
+                r10 = (
+                    radial
+                    if bpd == 10
+                    else _radial_from_half(half, zl.shape, dx_f, dy_f, 10, "hann", "plane")
+                )
+                hurst_spectrum = (r10.q, r10.psd)
+                if band is None:
+                    rms_slope, an = _moments_from_half(half, zl.shape, dx_f, dy_f)
+                else:
+                    sp2 = surface_psd(zb, dx_f, dy_f, valid=mask)
+                    rms_slope, an = rms_slope_from_psd(sp2), psd_anisotropy(sp2)
+                    del sp2
+                del half
+                scores += [
+                    Score("rms_slope_psd", rms_slope, "1"),
+                    Score("psd_anisotropy_ratio", an.ratio, "1"),
+                    Score("lay_direction_deg", float(np.degrees(an.lay_direction_rad)), "deg"),
+                ]
+            else:
+                reason = (
+                    f"only {1 - hole_fraction:.1%} of cells hold data, below the "
+                    f"{p['min_valid_fraction']:.0%} needed for a spectrum"
+                )
+                notes.append(f"spectral scores: {reason}")
+                scores += [
+                    _nan("rms_slope_psd", "1", reason),
+                    _nan("psd_anisotropy_ratio", "1", reason),
+                    _nan("lay_direction_deg", "deg", reason),
+                ]
+            lanes.refresh()
+            hs, psd_fit = _hurst_scores(
+                zl, dx_f, dy_f, mask, band, p, notes, hole_floor, hurst_spectrum
+            )
+            scores += hs
+            ge = ge or gradient_entropy(
+                zb,
+                dx_f,
+                dy_f,
+                valid=mask,
+                slope_bin_deg=p["slope_bin_deg"],
+                aspect_bin_deg=p["aspect_bin_deg"],
+                slope_floor_deg=p["slope_floor_deg"],
+            )
+            scores += [
+                Score("slope_entropy_bits", ge.slope_entropy_bits, "bits"),
+                Score(
+                    "aspect_entropy_bits",
+                    ge.aspect_entropy_bits,
+                    "bits",
+                    note=""
+                    if np.isfinite(ge.aspect_entropy_bits)
+                    else "no cell steeper than the floor",
+                ),
+            ]
+            lanes.refresh()
+            if not shared_fields:
+                field_scores = _field_scores(zi, p, field_notes)
+            elif ordinal.lane is not None:
+                ordinal.lane.run_extra(one_numba_thread=not ordinal.lane.exhausted)
+    except BaseException:
+        ordinal.cancel()  # the background lane stops after its current surrogate
+        raise
+    scores += ordinal.finish()
+    if shared_fields and ordinal.lane is not None:
+        field_scores = ordinal.lane.extra_result
+    scores += field_scores
+    notes += ord_notes + field_notes
     del zi
     if radial is not None:
         radial_q, radial_c = radial.q, radial.psd

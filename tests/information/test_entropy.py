@@ -388,3 +388,24 @@ def test_all_words_enumerated_by_helper_sum_to_one():
             vecs = np.concatenate([vecs @ hmm[s] for s in sorted(hmm)])
         assert_allclose(vecs.sum(), 1.0, rtol=1e-12)
         assert len(list(itertools.product([0, 1], repeat=6))) == vecs.shape[0]
+
+
+@pytest.mark.parametrize(
+    ("shape", "k", "m"),
+    [((40, 37), 3, 6), ((9, 50), 4, 5), ((100, 100), 2, 12), ((30, 30), 5, 4), ((7, 7), 2, 12)],
+)
+@pytest.mark.parametrize("estimator", ["miller_madow", "plugin"])
+def test_site_and_neighbour_entropies_equal_two_prefix_entropies(shape, k, m, estimator):
+    # The compiled pass counts each site's longest word once and derives the
+    # shorter and the neighbour-only words as marginals: the entropies must be
+    # those of the two plain prefix_entropies calls, bit for bit (also where the
+    # template crops the field, and where it does not fit at all).
+    from measures.information._counting import prefix_entropies, site_and_neighbour_entropies
+
+    rng = np.random.default_rng(m)
+    d = rng.integers(0, k, shape)
+    d[::3] = d[::3] // 2
+    offs = causal_neighbourhood(m)
+    joint, nbs = site_and_neighbour_entropies(d, k, offs, estimator)
+    np.testing.assert_array_equal(joint, prefix_entropies(d, k, [(0, 0), *offs], estimator)[0])
+    np.testing.assert_array_equal(nbs, prefix_entropies(d, k, offs, estimator)[0])

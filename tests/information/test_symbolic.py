@@ -287,3 +287,19 @@ def test_supported_word_length_periodic_is_capped_by_the_alphabet():
     assert supported_word_length([0, 1, 2, 3, 0] * 3) == 0
     with pytest.raises(InvalidParameterError):
         supported_word_length([])
+
+
+@pytest.mark.parametrize("k", [2, 3, 4, 8, 9])
+def test_quantile_symbols_equal_numpy_searchsorted_on_its_quantiles(k):
+    # Few bins take a comparison per edge instead of searchsorted: the symbols
+    # must be numpy's (the count of quantile edges <= x), ties and all.
+    rng = np.random.default_rng(k)
+    for x in (
+        rng.standard_normal((64, 50)),
+        np.round(rng.standard_normal(1001)),  # heavy ties, values on the edges
+        np.r_[np.zeros(30), np.ones(3)],
+    ):
+        edges = np.quantile(x, np.arange(1, k) / k)
+        got = quantile_symbols(x, n_bins=k)
+        assert got.dtype == np.int64
+        np.testing.assert_array_equal(got, np.searchsorted(edges, x, side="right"))

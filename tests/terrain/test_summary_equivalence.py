@@ -147,6 +147,41 @@ def test_gradient_entropies_match_gradient_entropy(case):
     np.testing.assert_array_equal(s.slope_counts, ge.slope_counts)
 
 
+def _edge_grids():
+    x = np.arange(48.0)
+    rough = self_affine_surface(96, 0.7, seed=3, rms_m=2.0)
+    return [
+        np.zeros((40, 40)),  # slope 0 on the first edge, atan2(0, 0): aspect 180 on an edge
+        np.add.outer(x, x),  # 45 degrees of aspect steps, slope atan(sqrt 2)
+        np.add.outer(0 * x, x),  # slope exactly 45 degrees (an edge), aspect 180 (an edge)
+        np.add.outer(-x, 0 * x),  # aspect 90 (an edge)
+        np.add.outer(x * math.tan(math.radians(2.0)), 0 * x),  # slope at the 2-degree floor
+        np.round(rough),  # quantised: many equal gradients, many exactly on edges
+        rough * 1e3,  # nearly vertical: slopes close to 90 degrees (the top edge)
+    ]
+
+
+@pytest.mark.parametrize("k", range(7))
+@pytest.mark.parametrize("bins", [(1.0, 10.0, 2.0), (0.7, 7.5, 0.0), (5.0, 45.0, 30.0)])
+def test_compiled_gradient_histograms_match_gradient_entropy_on_edges(k, bins):
+    # The compiled pass bins a fast arctangent and redoes cells within 1e-6 degrees
+    # of an edge or the floor exactly: its counts must be gradient_entropy's, also
+    # where many cells sit exactly on bin edges.
+    from measures.terrain.summary import _gradient_entropy_full
+
+    z = _edge_grids()[k]
+    sb, ab, floor = bins
+    p = {"slope_bin_deg": sb, "aspect_bin_deg": ab, "slope_floor_deg": floor}
+    for dx, dy in [(1.0, 1.0), (0.5, 2.0)]:
+        ref = gradient_entropy(
+            z, dx, dy, slope_bin_deg=sb, aspect_bin_deg=ab, slope_floor_deg=floor
+        )
+        got, _ = _gradient_entropy_full(z, dx, dy, p)
+        np.testing.assert_array_equal(got.slope_counts, ref.slope_counts)
+        np.testing.assert_array_equal(got.aspect_counts, ref.aspect_counts)
+        assert got.n_aspect_cells == ref.n_aspect_cells
+
+
 def test_ordinal_scores_match_ordpy(case):
     z, s, _ = case
     if np.isnan(z).any():
@@ -265,3 +300,73 @@ def test_surrogate_z_scores_match_plainly_built_surrogates(case):
         got = s.score(name).surrogate_z
         assert got is not None, name
         assert abs(got - ref) <= 0.05 + 2e-3 * abs(ref), (name, got, ref)
+
+
+@pytest.mark.parametrize("ties", ["random", "stable"])
+@pytest.mark.parametrize("serial", [False, True])
+def test_ordinal_counts_with_offset_equal_counts_of_the_shifted_field(ties, serial):
+    # The surrogates' mean is added inside the counting pass: the counts must be
+    # those of the float32 field with the mean added (x += mean), ties included.
+    # A coarse field plus a large offset makes float32 rounding create new ties.
+    from measures.terrain._fastfield import ordinal_counts
+
+    rng = np.random.default_rng(5)
+    x = (np.round(rng.standard_normal((120, 90)) * 50) / 7).astype(np.float32)
+    for off in (np.float32(0.37), np.float32(3.1e6)):
+        shifted = x + off
+        ref = ordinal_counts(shifted, (2, 2), ties=ties, seed=3, serial=serial)
+        got = ordinal_counts(x, (2, 2), ties=ties, seed=3, serial=serial, offset=off)
+        np.testing.assert_array_equal(got[0], ref[0])
+        assert got[1] == ref[1]
+    assert ordinal_counts(x, (2, 2), offset=np.float32(3.1e6))[1] > ordinal_counts(x, (2, 2))[1]
+
+
+@pytest.mark.parametrize("shape", [(64, 64), (61, 90), (90, 61)])
+def test_compiled_acf_steps_equal_the_numpy_steps(shape):
+    # The ACF's power spectrum and its full-grid normalisation are compiled
+    # passes: they must give numpy's re*re + im*im and its three in-place
+    # divisions bit for bit (flat grid: NaN).
+    from measures.terrain._fastfield import acf_full_normalised, power_inplace
+
+    rng = np.random.default_rng(shape[1])
+    spec = (rng.standard_normal(shape) + 1j * rng.standard_normal(shape)).astype(np.complex64)
+    ref = spec.real**2
+    ref += spec.imag**2
+    got = spec.copy()
+    power_inplace(got)
+    np.testing.assert_array_equal(got.real, ref)
+    assert not got.imag.any()
+    ny, nx = shape[0] - 7, (shape[1] - 3) // 2 * 2 - 1
+    hy, hx = ny // 2, nx // 2
+    num = rng.standard_normal((2 * hy + 1, shape[1])).astype(np.float32)
+    cols = np.r_[shape[1] - hx : shape[1], 0 : hx + 1]
+    ref = np.asarray(num[:, cols], dtype=np.float64)
+    ref /= (ny - np.abs(np.arange(-hy, hy + 1))).astype(np.float64)[:, None]
+    ref /= (nx - np.abs(np.arange(-hx, hx + 1))).astype(np.float64)[None, :]
+    ref /= ref[hy, hx]
+    np.testing.assert_array_equal(acf_full_normalised(num, cols, ny, nx), ref)
+    num[hy, cols[hx]] = 0.0
+    assert np.isnan(acf_full_normalised(num * 0, cols, ny, nx)).all()
+
+
+def test_two_lanes_give_the_sequential_summary(monkeypatch):
+    # The ordinal surrogates run on a background lane beside the other stages
+    # (one numba thread each), and the symbol-field scores go to whichever lane
+    # is free first. Scores, z-scores and notes must be those of the plain
+    # one-stage-after-the-other run on one worker, bit for bit; only the
+    # symbol-field z-scores may move, by float32 rounding, because their tile
+    # surrogates' inverse FFT runs on 2 threads instead of 1.
+    import measures.terrain.summary as summary
+
+    z = _surface(192)
+    lanes = terrain_summary(z, DX, params={"n_surrogates": 5})
+    monkeypatch.setattr(summary, "_WORKERS", 1)
+    plain = terrain_summary(z, DX, params={"n_surrogates": 5})
+    assert lanes.notes == plain.notes
+    assert [s.name for s in lanes.scores] == [s.name for s in plain.scores]
+    for a, b in zip(lanes.scores, plain.scores, strict=True):
+        assert a.value == b.value or (math.isnan(a.value) and math.isnan(b.value)), a.name
+        if a.name.startswith(("permutation", "js_")) or a.surrogate_z is None:
+            assert a.surrogate_z == b.surrogate_z, a.name
+        else:
+            assert abs(a.surrogate_z - b.surrogate_z) <= 1e-4 * (1 + abs(b.surrogate_z)), a.name
