@@ -621,6 +621,34 @@ def count_recurrences(xt: np.ndarray, thr: float, metric_code: int, theiler: int
     return int(counts.sum())
 
 
+@njit(cache=True)
+def keep_lower_pairs(
+    a: np.ndarray, b: np.ndarray, we: int, rows: np.ndarray, cols: np.ndarray, filled: int
+) -> int:
+    """Append (max, min) of the draws ``a``, ``b`` with ``|a - b| >= we`` to ``rows``/``cols``
+    from index ``filled`` on, in draw order, until they are full; return the new fill.
+
+    One pass in place of ``abs``, a mask, ``maximum``, ``minimum``, two boolean gathers and
+    two concatenations of arrays twice the sample's size: the same pairs in the same order.
+    """
+    k = filled
+    cap = rows.shape[0]
+    for t in range(a.shape[0]):
+        if k >= cap:
+            break
+        x = a[t]
+        y = b[t]
+        if abs(x - y) >= we:
+            if x > y:
+                rows[k] = x
+                cols[k] = y
+            else:
+                rows[k] = y
+                cols[k] = x
+            k += 1
+    return k
+
+
 @njit(cache=True, parallel=True)
 def pair_distances(
     xt: np.ndarray, rows: np.ndarray, cols: np.ndarray, metric_code: int

@@ -222,25 +222,34 @@ def _sample_lower_pairs(
     """Uniform random pairs (i > j, i - j >= max(theiler, 1)), seeded."""
     rng = np.random.default_rng(seed)
     we = max(theiler, 1)
-    rows = np.empty(0, dtype=np.int64)
-    cols = np.empty(0, dtype=np.int64)
-    while rows.size < n_pairs:
+    rows = np.empty(n_pairs, dtype=np.int64)
+    cols = np.empty(n_pairs, dtype=np.int64)
+    filled = 0
+    while filled < n_pairs:
+        # The draws of every round are made in full, as they always were, so the stream
+        # (and so each sampled threshold) does not change; one compiled pass keeps pairs.
         a = rng.integers(0, n, size=2 * n_pairs)
         b = rng.integers(0, n, size=2 * n_pairs)
-        keep = np.abs(a - b) >= we
-        rows = np.concatenate((rows, np.maximum(a, b)[keep]))
-        cols = np.concatenate((cols, np.minimum(a, b)[keep]))
-    return rows[:n_pairs], cols[:n_pairs]
+        filled = _k.keep_lower_pairs(a, b, we, rows, cols, filled)
+    return rows, cols
 
 
 def _sample_quantile(
-    xt: NDArray[np.float64], metric_code: int, theiler: int, lower_rank: int, seed: int
+    xt: NDArray[np.float64],
+    metric_code: int,
+    theiler: int,
+    lower_rank: int,
+    seed: int,
+    *,
+    ordered: bool = True,
 ) -> tuple[NDArray[np.float64], float]:
+    """Distances of the seeded sample of pairs (sorted unless ``ordered=False``) and the
+    rank's fraction of all lower-triangle pairs."""
     n = xt.shape[1]
     rows, cols = _sample_lower_pairs(n, theiler, SAMPLE_PAIRS, seed)
-    d = np.sort(_k.pair_distances(xt, rows, cols, metric_code))
+    d = _k.pair_distances(xt, rows, cols, metric_code)
     frac = lower_rank / _n_lower(n, theiler)
-    return d, frac
+    return (np.sort(d) if ordered else d), frac
 
 
 def _comparison_threshold(
@@ -258,9 +267,10 @@ def _comparison_threshold(
         return 0.0
     n_lower = _n_lower(n, theiler)
     if method == "sampled" and n_lower > SAMPLE_PAIRS:
-        d, frac = _sample_quantile(xt, metric_code, theiler, lower_rank, seed)
+        # One order statistic of the sample: a selection, not a sort (same value).
+        d, frac = _sample_quantile(xt, metric_code, theiler, lower_rank, seed, ordered=False)
         idx = min(max(math.ceil(frac * d.size) - 1, 0), d.size - 1)
-        return float(d[idx])
+        return float(np.partition(d, idx)[idx])
     if n_lower <= 4 * SAMPLE_PAIRS:
         d = _all_lower_distances(xt, metric_code, theiler)
         return float(np.partition(d, lower_rank - 1)[lower_rank - 1])

@@ -194,6 +194,58 @@ def test_sampled_threshold_error(rng):
     assert abs(res.rr - 0.05) < 5 * math.sqrt(0.05 * 0.95 / 1e6)
 
 
+def _plain_lower_pairs(n, theiler, n_pairs, seed):
+    # The sampling rule written with numpy alone (the first release's code): seeded draws of
+    # 2 x n_pairs row and column indices a round, pairs at least max(theiler, 1) apart.
+    rng = np.random.default_rng(seed)
+    we = max(theiler, 1)
+    rows = np.empty(0, dtype=np.int64)
+    cols = np.empty(0, dtype=np.int64)
+    while rows.size < n_pairs:
+        a = rng.integers(0, n, size=2 * n_pairs)
+        b = rng.integers(0, n, size=2 * n_pairs)
+        keep = np.abs(a - b) >= we
+        rows = np.concatenate((rows, np.maximum(a, b)[keep]))
+        cols = np.concatenate((cols, np.minimum(a, b)[keep]))
+    return rows[:n_pairs], cols[:n_pairs]
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    n=st.integers(2, 400),
+    theiler=st.integers(0, 60),
+    n_pairs=st.integers(1, 3000),
+    seed=st.integers(0, 2**32 - 1),
+)
+def test_sampled_pairs_are_the_plain_rule(n, theiler, n_pairs, seed):
+    # The compiled pass keeps the same pairs in the same order as the numpy rule, so every
+    # sampled threshold is what it was; the sampled order statistic is a selection now.
+    from measures.dynamics.recurrence import _sample_lower_pairs
+
+    if n - max(theiler, 1) < 1:
+        return  # no admissible pair: the rule would draw for ever (callers never ask)
+    rows, cols = _sample_lower_pairs(n, theiler, n_pairs, seed)
+    r0, c0 = _plain_lower_pairs(n, theiler, n_pairs, seed)
+    assert np.array_equal(rows, r0) and np.array_equal(cols, c0)
+
+
+def test_sampled_threshold_is_the_order_statistic_of_the_sample(rng):
+    # The threshold for RR 5 % on a 1,600-point series (1.28 M lower pairs > 1e6 sampled):
+    # the ceil(frac x 1e6)-th smallest squared distance of the seeded sample, by np.sort.
+    from measures.dynamics.recurrence import SAMPLE_PAIRS, _sample_lower_pairs
+
+    x = rng.normal(size=(1600, 2))
+    xt, theiler, *_ = _prepare(x, "t", 0, 2, 2, "euclidean")
+    thr, _, _ = _resolve_threshold(xt, "t", "euclidean", theiler, None, 0.05, "sampled", 11)
+    rows, cols = _plain_lower_pairs(1600, theiler, SAMPLE_PAIRS, 11)
+    d = np.sort(((x[rows] - x[cols]) ** 2).sum(axis=1))
+    n_lower = 1599 * 1600 // 2  # theiler 0: the lower triangle, diagonal aside
+    k_lower = (round(0.05 * 1600 * 1600) - 1600 + 1) // 2  # N zeros on the diagonal first
+    idx = math.ceil(k_lower / n_lower * d.size) - 1
+    assert thr == pytest.approx(d[idx], rel=1e-12)
+    assert _sample_lower_pairs(1600, theiler, 10, 11)[0].dtype == np.int64
+
+
 def test_empty_lines_give_zero_and_nan():
     # Contract: DET and LAM are 0 and L, TT, ENTR NaN when no line reaches lmin.
     res = rqa(np.array([0.0, 10.0, 20.0, 30.0]), threshold=1.0)
