@@ -15,7 +15,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from numpy.typing import ArrayLike
+from numpy.typing import ArrayLike, NDArray
 
 from measures._validation import (
     InsufficientDataError,
@@ -24,6 +24,32 @@ from measures._validation import (
     check_positive_float,
     check_positive_int,
 )
+
+
+def self_neighbours(
+    points: NDArray[np.float64], k: int, *, balanced_tree: bool = True
+) -> tuple[NDArray[np.float64], NDArray[np.intp]]:
+    """Each point's ``k`` nearest points of the same set (itself first): distances, indices.
+
+    ``cKDTree(points).query(points, k)`` with the queries made in the tree's own leaf order
+    and the answers put back: neighbouring queries then walk the same nodes, which halves
+    the time on a scan of 10^5-10^6 points; each point's answer does not depend on the
+    order of the queries, so the result is the same array. ``balanced_tree=False`` builds
+    the tree at sliding midpoints (faster again for scans); the distances are the same, the
+    index of one of two equidistant neighbours may differ, so callers that use the indices
+    keep the default.
+    """
+    from scipy.spatial import cKDTree
+
+    tree = cKDTree(points, balanced_tree=balanced_tree)
+    order = tree.indices
+    dist, idx = tree.query(points[order], k=k, workers=-1)
+    out_d = np.empty_like(dist)
+    out_i = np.empty_like(idx)
+    out_d[order] = dist
+    out_i[order] = idx
+    return out_d, out_i
+
 
 __all__ = [
     "CELL_SPACING_FACTOR",
@@ -134,9 +160,7 @@ def point_spacing_m(points: ArrayLike, *, max_points: int = _SPACING_TILE_POINTS
         # Chebyshev distance to the centre: the m nearest form a square tile.
         d = np.max(np.abs(xy - centre), axis=1)
         xy = xy[np.argpartition(d, m - 1)[:m]]
-    from scipy.spatial import cKDTree
-
-    dist, _ = cKDTree(xy).query(xy, k=2, workers=-1)
+    dist, _ = self_neighbours(np.ascontiguousarray(xy, dtype=np.float64), 2, balanced_tree=False)
     nn = dist[:, 1]
     nn = nn[nn > 0]
     if nn.size == 0:

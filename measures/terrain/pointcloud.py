@@ -47,7 +47,7 @@ from measures._validation import (
     check_positive_float,
     check_positive_int,
 )
-from measures.terrain.gridding import heightmap_dx_m, heightmap_memory
+from measures.terrain.gridding import heightmap_dx_m, heightmap_memory, self_neighbours
 
 __all__ = ["Heightmap", "points_to_heightmap"]
 
@@ -404,12 +404,11 @@ def _knn_inliers(pts: NDArray[np.float64], k: int, std_ratio: float) -> NDArray[
     points whose ``k`` neighbours all coincide with them (mean distance 0) are kept, where
     open3d drops them.
     """
-    from scipy.spatial import cKDTree
-
     if pts.shape[0] <= 1:
         return np.ones(pts.shape[0], dtype=bool)
     k = min(k, pts.shape[0])
-    dist, _ = cKDTree(pts).query(pts, k=k, workers=-1)
+    # Distances only, so the midpoint-split tree (same distances, 3x less time on a scan).
+    dist, _ = self_neighbours(np.ascontiguousarray(pts), k, balanced_tree=False)
     mean_dist = dist.reshape(pts.shape[0], -1).mean(axis=1)
     threshold = mean_dist.mean() + std_ratio * mean_dist.std(ddof=1)
     return np.asarray(mean_dist < threshold)
@@ -503,13 +502,12 @@ def _local_noise(pts: NDArray[np.float64]) -> float:
     Differences between neighbouring points cancel the relief and gross
     structure alike, leaving the scanner noise and micro-roughness.
     """
-    from scipy.spatial import cKDTree
-
     centred = pts - pts.mean(axis=0)
     # Project on the dominant plane so "neighbour" means neighbour on the ground.
     _, vecs = np.linalg.eigh(np.cov(centred, rowvar=False))
     local = centred @ vecs[:, ::-1]
-    _, idx = cKDTree(local[:, :2]).query(local[:, :2], k=2, workers=-1)
+    # The neighbour's index is used: the default tree, as always (same ties).
+    _, idx = self_neighbours(np.ascontiguousarray(local[:, :2]), 2)
     dz = local[:, 2] - local[idx[:, 1], 2]
     return 1.4826 * float(np.median(np.abs(dz))) / np.sqrt(2.0)
 

@@ -300,3 +300,23 @@ def test_knn_filter_keeps_what_open3d_keeps(rng) -> None:
         got = _knn_inliers(pts, k, ratio)
         assert np.array_equal(got, expected), (k, ratio, int((got != expected).sum()))
     assert not _knn_inliers(pts, 20, 2.0)[6000:].all()  # the spray is (partly) flagged
+
+
+@pytest.mark.parametrize("k", [2, 20])
+def test_neighbours_in_tree_order_are_scipys_answers(rng, k) -> None:
+    # Reference: scipy's cKDTree queried in the points' own order (the plain call). Asking
+    # in the tree's leaf order and putting the answers back gives the same arrays; the
+    # midpoint-split tree gives the same distances. Duplicates and a plane-like scan included.
+    from scipy.spatial import cKDTree
+
+    from measures.terrain.gridding import self_neighbours
+
+    xy = rng.uniform(0.0, 0.3, size=(20_000, 2))
+    z = 1e-3 * np.sin(40.0 * xy[:, 0]) + rng.normal(0.0, 2e-4, size=xy.shape[0])
+    pts = np.column_stack([xy, z])
+    pts[:500] = pts[500:1000]  # exact duplicates: zero distances and equidistant ties
+    d0, i0 = cKDTree(pts).query(pts, k=k)
+    d1, i1 = self_neighbours(pts, k)
+    assert np.array_equal(d1, d0) and np.array_equal(i1, i0)
+    d2, _ = self_neighbours(pts, k, balanced_tree=False)
+    assert np.array_equal(d2, d0)
