@@ -622,6 +622,27 @@ def count_recurrences(xt: np.ndarray, thr: float, metric_code: int, theiler: int
 
 
 @njit(cache=True)
+def lower_distances(xt: np.ndarray, we: int, metric_code: int) -> np.ndarray:
+    """Distances of every pair (i, j <= i - we), in ``np.tril_indices(n, -we)`` order.
+
+    The same values as ``pair_distances`` on those indices (one arithmetic), without
+    building the two index arrays of every pair.
+    """
+    m = xt.shape[0]
+    n = xt.shape[1]
+    total = 0
+    for i in range(we, n):
+        total += i - we + 1
+    out = np.empty(total, dtype=np.float64)
+    p = 0
+    for i in range(we, n):
+        for j in range(i - we + 1):
+            out[p] = _pair_distance(xt, i, j, metric_code, m)
+            p += 1
+    return out
+
+
+@njit(cache=True)
 def keep_lower_pairs(
     a: np.ndarray, b: np.ndarray, we: int, rows: np.ndarray, cols: np.ndarray, filled: int
 ) -> int:

@@ -210,10 +210,8 @@ def _n_lower(n: int, theiler: int) -> int:
 def _all_lower_distances(
     xt: NDArray[np.float64], metric_code: int, theiler: int
 ) -> NDArray[np.float64]:
-    n = xt.shape[1]
-    we = max(theiler, 1)
-    rows, cols = np.tril_indices(n, -we)
-    return _k.pair_distances(xt, rows.astype(np.int64), cols.astype(np.int64), metric_code)
+    # Every lower-triangle pair in np.tril_indices order, computed without index arrays.
+    return _k.lower_distances(xt, max(theiler, 1), metric_code)
 
 
 def _sample_lower_pairs(

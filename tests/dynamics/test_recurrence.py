@@ -295,3 +295,21 @@ def test_resolve_threshold_rate_one():
     xt, *_ = _prepare(x, "t", 1, 2, 2, "euclidean")
     _, eps, _ = _resolve_threshold(xt, "t", "euclidean", 1, None, 1.0, "exact", 0)
     assert eps == 3.0 and rqa(x, recurrence_rate=1.0).rr == 1.0
+
+
+@pytest.mark.parametrize("metric", ["euclidean", "chebyshev"])
+@pytest.mark.parametrize("theiler", [0, 1, 7])
+def test_all_lower_distances_follow_tril_indices(rng, metric, theiler):
+    # Reference: numpy's tril_indices order and plain numpy distances (squared Euclidean,
+    # as the comparisons use them), for every pair at least max(theiler, 1) apart.
+    from measures.dynamics.recurrence import _METRICS, _all_lower_distances
+
+    x = rng.normal(size=(60, 3))
+    rows, cols = np.tril_indices(60, -max(theiler, 1))
+    diff = x[rows] - x[cols]
+    expected = {
+        "euclidean": (diff**2).sum(axis=1),
+        "chebyshev": np.abs(diff).max(axis=1),
+    }[metric]
+    got = _all_lower_distances(np.ascontiguousarray(x.T), _METRICS[metric], theiler)
+    assert_allclose(got, expected, rtol=1e-13, atol=0)
