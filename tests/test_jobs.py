@@ -424,7 +424,7 @@ def test_numba_is_pinned_to_one_thread_in_local_workers(pool: Any) -> None:
     assert pool.submit(numba_threads).result(timeout=120) == 1
 
 
-@pytest.mark.slow  # two workers import the scoring stack and compile a kernel (~5 s)
+@pytest.mark.slow  # two workers import the scoring stack (~5 s)
 def test_a_local_pool_started_early_has_every_worker_up_and_prepared() -> None:
     pool = LocalPool(2)
     try:

@@ -16,10 +16,8 @@ All quantities are in bits (log2).
 
 from __future__ import annotations
 
-import functools
 import math
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -295,93 +293,6 @@ class LempelZivComplexity:
     alphabet_size: int
 
 
-@functools.cache
-def _lz76_kernel() -> Any:
-    # numba is imported on first use so that importing measures stays cheap.
-    import numba
-
-    @numba.njit(cache=False)
-    def count(s: NDArray[np.int64]) -> int:  # pragma: no cover - compiled
-        # Kaspar & Schuster (1987), Phys. Rev. A 36:842, the parsing loop of
-        # their appendix: extend the current phrase while it can be copied from
-        # a start point in the history, else try the next start point.
-        # Quadratic; kept as the reference the suffix-array parser is checked
-        # and benchmarked against.
-        n = s.shape[0]
-        if n < 2:
-            return n
-        i, k, l = 0, 1, 1
-        c, k_max = 1, 1
-        while True:
-            if s[i + k - 1] == s[l + k - 1]:
-                k += 1
-                if l + k > n:
-                    c += 1
-                    break
-            else:
-                k_max = max(k, k_max)
-                i += 1
-                if i == l:
-                    c += 1
-                    l += k_max
-                    if l + 1 > n:
-                        break
-                    i, k, k_max = 0, 1, 1
-                else:
-                    k = 1
-        return c
-
-    return count
-
-
-@functools.cache
-def _lz76_sa_kernel() -> Any:
-    import numba
-
-    @numba.njit(cache=False)
-    def count(s: NDArray[np.int64], sa: NDArray[np.int64]) -> int:  # pragma: no cover
-        # Longest previous factor from the suffix array (Ohlebusch & Gog 2011,
-        # "Lempel-Ziv factorization revisited", CPM; from memory): among the
-        # suffixes starting before l, the ones lexicographically nearest to
-        # suffix l (previous / next smaller start in suffix-array order) share
-        # the longest prefix with it. One stack pass finds them for every l;
-        # the match lengths are then compared symbol by symbol only at phrase
-        # starts, which costs the sum of the phrase lengths, O(n).
-        n = s.shape[0]
-        if n < 2:
-            return n
-        psv = np.full(n, -1, dtype=np.int64)
-        nsv = np.full(n, -1, dtype=np.int64)
-        stack = np.empty(n, dtype=np.int64)
-        top = 0
-        for r in range(n):
-            cur = sa[r]
-            while top > 0 and sa[stack[top - 1]] > cur:
-                nsv[sa[stack[top - 1]]] = cur
-                top -= 1
-            if top > 0:
-                psv[cur] = sa[stack[top - 1]]
-            stack[top] = r
-            top += 1
-        c = 1  # the first symbol is the first phrase
-        l = 1
-        while l < n:
-            best = 0
-            for p in (psv[l], nsv[l]):
-                if p < 0:
-                    continue
-                m = 0
-                while l + m < n and s[p + m] == s[l + m]:
-                    m += 1
-                if m > best:
-                    best = m
-            c += 1
-            l += best + 1
-        return c
-
-    return count
-
-
 def _suffix_array(dense: NDArray[np.int64], k: int) -> NDArray[np.int64]:
     from pydivsufsort import divsufsort
 
@@ -391,7 +302,10 @@ def _suffix_array(dense: NDArray[np.int64], k: int) -> NDArray[np.int64]:
 
 def _lz76_phrases_quadratic(dense: NDArray[np.int64]) -> int:
     """Phrase count by the quadratic Kaspar-Schuster loop (reference for tests and bench)."""
-    return int(_lz76_kernel()(np.ascontiguousarray(dense, dtype=np.int64)))
+    # The kernels' module imports numba: on first use, so importing measures stays cheap.
+    from measures.information._lz76_kernel import phrases_quadratic
+
+    return int(phrases_quadratic(np.ascontiguousarray(dense, dtype=np.int64)))
 
 
 def lz76_complexity(symbols: ArrayLike) -> LempelZivComplexity:
@@ -429,7 +343,9 @@ def lz76_complexity(symbols: ArrayLike) -> LempelZivComplexity:
     dense, k = dense_symbols(symbols, "lz76_complexity", ndim=1)
     n = dense.size
     s = np.ascontiguousarray(dense.ravel())
-    c = int(_lz76_sa_kernel()(s, _suffix_array(s, k))) if n > 1 else n
+    from measures.information._lz76_kernel import phrases_from_suffix_array
+
+    c = int(phrases_from_suffix_array(s, _suffix_array(s, k))) if n > 1 else n
     base = max(k, 2)
     normalised = c * math.log(n, base) / n if n > 1 else float(c)
     return LempelZivComplexity(phrases=c, normalised=normalised, n_symbols=n, alphabet_size=k)

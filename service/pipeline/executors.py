@@ -52,8 +52,8 @@ class LocalPool:
     def start(self) -> list[Future[int]]:
         """Start every worker now and let each do its one-time costs (``tasks.prepare``).
 
-        Otherwise workers start with the first job and pay their imports and the LZ76
-        compile inside it. One ``prepare`` call per worker: the pool spawns a process for
+        Otherwise workers start with the first job and pay their imports inside it. One
+        ``prepare`` call per worker: the pool spawns a process for
         each call while none is idle, so each new worker takes one (a fast worker may take
         two; the other then prepares with its first job, as without ``start``).
         """

@@ -90,24 +90,21 @@ _SCORING_MODULES = (
 
 
 def prepare() -> int:
-    """Do a worker's one-time costs before its first job: import what scoring uses and
-    compile the one kernel numba does not cache (LZ76), on a few symbols.
+    """Do a worker's one-time costs before its first job: import what scoring uses.
 
-    About 3-4 CPU-s a worker that the first trial would otherwise pay; a pool started
-    early (``LocalPool.start``, the demo) does it while its inputs are still being made.
-    Returns the process id (which worker ran it).
+    About 2 CPU-s a worker that the first job would otherwise pay (the numba kernels load
+    from their on-disk cache on first call); a pool started early (``LocalPool.start``,
+    the demo) does it while its inputs are still being made. Returns the process id
+    (which worker ran it).
     """
     if not _warm:
         warm_up()
     import importlib
 
-    from measures import lz76_complexity
-
     for name in _SCORING_MODULES:
         importlib.import_module(name)
     with contextlib.suppress(ImportError):  # the reader says so when a C3D file comes
         import ezc3d  # noqa: F401  # the C3D reader's library, for trial jobs
-    lz76_complexity(np.array([0, 1, 1, 0, 1, 0, 0, 1], dtype=np.int64))
     return os.getpid()
 
 
