@@ -25,6 +25,7 @@ import sys
 import time
 import warnings
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import statsmodels.api as sm
@@ -70,7 +71,7 @@ def main() -> None:
     names_t = [f"t{i}" for i in range(n_pairs)]
     names_m = [f"m{i}" for i in range(n_pairs)]
 
-    def grid(trial_level: bool) -> float:
+    def grid(**options: Any) -> float:
         return _median_time(
             lambda: correspondence_grid(
                 terrain,
@@ -81,13 +82,13 @@ def main() -> None:
                 movement_names=names_m,
                 n_permutations=n_perm,
                 n_boot=1999,
-                trial_level=trial_level,
+                **options,
             ),
             repeats,
         )
 
-    grid_s = grid(True)
-    lean_s = grid(False)
+    grid_s = grid(trial_level=True)
+    lean_s = grid(trial_level=False)
     print(
         f"correspondence_grid {n_arenas} arenas x {n_trials} trials x {n_pairs}x{n_pairs} "
         f"pairs, {n_perm} permutations: median {grid_s:.2f} s with the trial-level reference "
@@ -96,21 +97,7 @@ def main() -> None:
     )
 
     speed = np.random.default_rng(2).normal(size=(n_trials, 2))
-    cov_s = _median_time(
-        lambda: correspondence_grid(
-            terrain,
-            movement,
-            arena,
-            subject,
-            terrain_names=names_t,
-            movement_names=names_m,
-            n_permutations=n_perm,
-            n_boot=1999,
-            covariates=speed,
-            covariate_names=["speed_m_s", "stride_frequency_hz"],
-        ),
-        repeats,
-    )
+    cov_s = grid(covariates=speed, covariate_names=["speed_m_s", "stride_frequency_hz"])
     print(
         f"correspondence_grid with 2 covariates (arena-level Freedman-Lane): median "
         f"{cov_s:.2f} s, ratio to no covariates {cov_s / grid_s:.2f}x (target < 30 s)"
