@@ -285,6 +285,8 @@ def test_result_unpacks_and_pickles():
     res = complexity_entropy(np.arange(100.0), order=3)
     h, c = res
     assert (h, c) == (0.0, 0.0) == res
+    # Our own result object, as a process pool carries it back from a worker (never
+    # uploaded data: readers refuse pickled input).
     back = pickle.loads(pickle.dumps(res))
     assert back == res and back.tie_fraction == res.tie_fraction == 0.0
     with pytest.raises(InvalidParameterError):
