@@ -630,10 +630,7 @@ def lower_distances(xt: np.ndarray, we: int, metric_code: int) -> np.ndarray:
     """
     m = xt.shape[0]
     n = xt.shape[1]
-    total = 0
-    for i in range(we, n):
-        total += i - we + 1
-    out = np.empty(total, dtype=np.float64)
+    out = np.empty(max(n - we, 0) * max(n - we + 1, 0) // 2, dtype=np.float64)
     p = 0
     for i in range(we, n):
         for j in range(i - we + 1):
