@@ -73,6 +73,7 @@ observed: levels of entropy convergence", Chaos 13:25-54.
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
+from functools import cached_property
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -165,7 +166,7 @@ class CausalStateModel:
     _lookup_long: tuple[NDArray[np.int64], NDArray[np.int64]] = field(repr=False)
     _lookup_short: tuple[NDArray[np.int64], NDArray[np.int64]] = field(repr=False)
 
-    @property
+    @cached_property  # read by the ceiling, the note and the support check: found once
     def effective_history(self) -> int:
         """Fewest past symbols that fix the state: the smallest j such that every
         recurrent history's state is a function of its last j symbols (at most
