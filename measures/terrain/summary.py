@@ -538,7 +538,6 @@ class _OrdinalScores:
     ) -> None:
         self.lane: _SurrogateLane | None = None
         self._early: list[Score] | None = None
-        self._lane: _SurrogateLane | None = None
         self._pool: ThreadPoolExecutor | None = None
         self._sequential: Callable[[], list[tuple[float, float]]] | None = None
         order = (int(p["ordinal_order"][0]), int(p["ordinal_order"][1]))
@@ -600,7 +599,7 @@ class _OrdinalScores:
                 lane.run()
                 lane.run_extra(one_numba_thread=True)
 
-            self._lane = self.lane = lane
+            self.lane = lane
             self._pool = ThreadPoolExecutor(1)
             self._future = self._pool.submit(background)
         else:
@@ -609,8 +608,8 @@ class _OrdinalScores:
 
     def cancel(self) -> None:
         """Stop the background lane after its current surrogate (the caller failed)."""
-        if self._lane is not None and self._pool is not None:
-            self._lane.cancel()
+        if self.lane is not None and self._pool is not None:
+            self.lane.cancel()
             self._pool.shutdown(wait=False)
 
     def finish(self) -> list[Score]:
@@ -619,15 +618,15 @@ class _OrdinalScores:
             return self._early
         zs: dict[str, float | None] = dict.fromkeys(_ORDINAL_SCORES)
         sur = None
-        if self._lane is not None and self._pool is not None:
+        if self.lane is not None and self._pool is not None:
             try:
                 self._ready.wait()
                 if self._made:  # else the set-up failed: result() raises its error
-                    self._lane.run()
+                    self.lane.run()
                 self._future.result()
             finally:
                 self._pool.shutdown()
-            sur = np.array(self._lane.results)
+            sur = np.array(self.lane.results)
         elif self._sequential is not None:
             sur = np.array(self._sequential())
         if sur is not None:
