@@ -92,3 +92,15 @@ def test_step_cycle_strips_only_when_the_classes_differ() -> None:
     assert _height_px(figures.movement_figure(two)) - _height_px(
         figures.movement_figure(one)
     ) == round(0.9 * figures.DPI)
+
+
+def test_lengths_take_the_si_prefix_of_their_size() -> None:
+    # SI prefixes (BIPM, The International System of Units, 9th ed. 2019, table 7): a tray's
+    # 36 um roughness, a runway's 1.2 m, a terrain model's 8.7 km (the report's thumbnails
+    # and tables share this rule).
+    from service.report.convention import si_scale
+
+    assert si_scale([36e-6], "m") == (1e6, "um")
+    assert si_scale([1.2, 0.25, 3.0], "m") == (1.0, "m")
+    assert si_scale([870.0, 8700.0, 9000.0], "m") == (1e-3, "km")
+    assert si_scale([2400.0], "Hz") == (1e-3, "kHz")

@@ -118,7 +118,6 @@ def measure_order(names: Iterable[str], preferred: tuple[str, ...]) -> list[str]
 
 # -- units ------------------------------------------------------------------------------------
 _PREFIXES = ((1.0, ""), (1e3, "m"), (1e6, "u"), (1e9, "n"))
-_BIG = ((1e-3, "k"),)
 # Units that take an SI prefix on their leading symbol; the rest are shown as stored.
 _PREFIXABLE = {"m", "s", "Hz", "m/s"}
 
@@ -147,6 +146,8 @@ def si_scale(values: Iterable[float], unit: str | None) -> tuple[float, str]:
         return 1e-3, "kHz"
     if unit == "Hz":
         return 1.0, "Hz"
+    if unit == "m" and typical >= 1000:  # a terrain model's extent: km
+        return 1e-3, "km"
     for factor, prefix in _PREFIXES:
         if typical * factor >= 1.0:
             return factor, prefix + unit

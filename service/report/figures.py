@@ -213,6 +213,10 @@ def terrain_figure(panels: list[TerrainPanel], colours: dict[int, Any]) -> tuple
         **_margins(fig, left=0.5, right=0.1, bottom=0.45, top=0.25, cols=cols, rows=rows,
                    wgap=0.45, hgap=0.65)
     )  # fmt: skip
+    # One length unit for every thumbnail, by the extents (m for a tray, km for a DEM).
+    from service.report.convention import si_scale
+
+    scale, unit = si_scale([max(p.extent_m) for p in panels], "m")
     for i, p in enumerate(panels):
         ax = fig.add_subplot(rows, cols, i + 1)
         ex, ey = p.extent_m
@@ -222,16 +226,16 @@ def terrain_figure(panels: list[TerrainPanel], colours: dict[int, Any]) -> tuple
             vmin=0,
             vmax=1,
             origin="lower",
-            extent=(0, ex * 100, 0, ey * 100),
+            extent=(0, ex * scale, 0, ey * scale),
             interpolation="antialiased",
         )
         ax.set_title(f"{p.arena_name}", color="black", fontsize=8)
         for side in ax.spines.values():
             side.set_edgecolor(colours.get(p.arena_id, "black"))
             side.set_linewidth(2.5)
-        ax.set_xlabel("x (cm)")
+        ax.set_xlabel(f"x ({unit})")
         if i % cols == 0:
-            ax.set_ylabel("y (cm)")
+            ax.set_ylabel(f"y ({unit})")
     thumbs = png_data_uri(fig)
 
     fig = _figure(9.5, 3.4)

@@ -176,6 +176,7 @@ function siValue(v, unit) {
   const plain = !unit || unit === "1" ? "dimensionless" : unit;
   if (typeof v !== "number" || !isFinite(v) || !["m", "s", "m/s"].includes(unit) || v === 0) return [fmt(v), plain];
   const a = Math.abs(v);
+  if (unit === "m" && a >= 1000) return [fmt(v / 1000), "km"];  // as the report (convention.si_scale)
   for (const [f, p] of [[1, ""], [1e3, "m"], [1e6, "u"], [1e9, "n"]]) {
     if (a * f >= 1 || f === 1e9) return [fmt(v * f), p + unit];
   }
